@@ -1,0 +1,92 @@
+"""Validation of observations: each bad input gets our own error with a specific message.
+
+The expectations are the input rules of issue 2 ("Bad input"); they are checks of our own
+contract, not of a reference library.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from curvewright.data import Dataset, make_dataset
+from curvewright.errors import DataError
+
+
+def test_arrays_and_labels_from_series() -> None:
+    x = pd.Series([1.0, 2.0, 3.0], name="conc")
+    y = pd.Series([3.0, 2.0, 1.0], name="signal")
+    d = make_dataset(x, y)
+    assert d.x_label == "conc" and d.y_label == "signal"
+    assert d.n == 3 and d.n_dropped == 0
+    with pytest.raises(ValueError):
+        d.x[0] = 5.0  # arrays are read-only so a result cannot change under its user
+
+
+def test_length_mismatch() -> None:
+    with pytest.raises(DataError, match=r"same length; got 3 x values and 2 y values"):
+        make_dataset([1, 2, 3], [1, 2])
+
+
+def test_nan_rows_dropped_and_counted() -> None:
+    d = make_dataset([1, 2, np.nan, 4], [1, np.nan, 3, 4])
+    assert d.n_dropped == 2
+    assert d.row.tolist() == [0, 3]
+    assert "2 row(s)" in d.notes[0]
+
+
+def test_inf_is_an_error() -> None:
+    with pytest.raises(DataError, match=r"y holds infinite values at rows \[1\]"):
+        make_dataset([1, 2, 3], [1, np.inf, 3])
+
+
+def test_unknown_column_with_hint() -> None:
+    df = pd.DataFrame({"conc": [1, 2, 3], "response": [1, 2, 3]})
+    with pytest.raises(DataError, match=r"y='responce' is not a column.*Did you mean 'response'"):
+        make_dataset("conc", "responce", data=df)
+
+
+def test_non_numeric_column() -> None:
+    df = pd.DataFrame({"conc": [1, 2, 3], "response": ["1", "two", "3"]})
+    with pytest.raises(DataError, match=r"Column 'response' \(y\) is not numeric"):
+        make_dataset("conc", "response", data=df)
+
+
+def test_non_numeric_array() -> None:
+    with pytest.raises(DataError, match=r"x must be numeric"):
+        make_dataset(["a", "b"], [1, 2])
+
+
+def test_column_names_without_data() -> None:
+    with pytest.raises(DataError, match=r"no data= table was given"):
+        make_dataset("conc", "response")
+
+
+def test_sigma_must_be_positive() -> None:
+    with pytest.raises(DataError, match=r"sigma must be positive; rows \[1\]"):
+        make_dataset([1, 2, 3], [1, 2, 3], sigma=[1, 0, 1])
+
+
+def test_exclusion_by_index_and_mask_refer_to_input_rows() -> None:
+    # row 1 is dropped for NaN; exclusions still name the user's rows
+    d = make_dataset([1, 2, 3, 4], [1, np.nan, 3, 4], exclude=[3])
+    assert d.excluded_rows == [3] and d.n == 2
+    d2 = d.with_exclusions(np.array([True, False, False, False]))
+    assert d2.excluded_rows == [0]
+    with pytest.raises(DataError, match=r"outside 0..3"):
+        d.with_exclusions([7])
+    with pytest.raises(DataError, match=r"one entry per input row \(4\)"):
+        d.with_exclusions(np.array([True, False]))
+
+
+def test_json_round_trip_exact() -> None:
+    rng = np.random.default_rng(1)
+    d = make_dataset(rng.normal(size=20), rng.normal(size=20), sigma=rng.uniform(0.1, 1, 20))
+    back = Dataset.from_dict(json.loads(json.dumps(d.to_dict())))
+    assert np.array_equal(back.x, d.x) and np.array_equal(back.y, d.y)
+    assert back.sigma is not None and d.sigma is not None
+    assert np.array_equal(back.sigma, d.sigma)
+    assert back.to_dict() == d.to_dict()
