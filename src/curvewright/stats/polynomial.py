@@ -404,38 +404,41 @@ def _suggest(
         if not significant:
             suggested = d - 1
             break
+    later = [d for d in range(suggested + 2, kmax + 1) if pvals[d] < alpha]
     if suggested == kmax:
         lines.append(
             f"Every added term up to degree {kmax} is significant, so degree {kmax} is suggested; "
             "a larger max_degree or a different (nonlinear) model may describe the data better."
         )
-    elif suggested == 0:
+    elif suggested == 0 and not later:
         lines.append(
-            "Even the straight line's slope is not significant: the data show no trend at this "
-            "level, so a constant (degree 0) is suggested."
+            "Even the straight line's slope is not significant and no higher term is either: "
+            "the data show no trend at this level, so a constant (degree 0) is suggested."
         )
     else:
         lines.append(
-            f"The rule stops at the first added term that is not significant: degree "
+            "The rule stops at the first added term that is not significant: degree "
             f"{suggested} is suggested."
         )
-    later = [d for d in range(suggested + 2, kmax + 1) if pvals[d] < alpha]
     if later:
         terms = ", ".join(f"x^{d} (p = {_fmt_p(pvals[d])})" for d in later)
         lines.append(
-            f"Note: higher terms were significant again: {terms}. If the science gives a reason "
-            "to expect them, look at those fits with fit_for(degree)."
+            f"Caution: higher terms were significant again: {terms}. The data may follow a "
+            "curve that the lower-degree tests miss (for instance one with no overall linear "
+            "trend); if so, or if the science gives a reason to expect them, look at those "
+            "fits with fit_for(degree)."
         )
     aicc_values = {d: fits[d].aicc for d in fits}
     bic_values = {d: fits[d].bic for d in fits}
     best_aicc = min(aicc_values, key=lambda d: aicc_values[d])
     best_bic = min(bic_values, key=lambda d: bic_values[d])
-    if best_aicc == best_bic == suggested:
-        lines.append(f"AICc and BIC are lowest at degree {suggested} too.")
+    if best_aicc == best_bic:
+        agree = "too" if best_aicc == suggested else "instead"
+        lines.append(f"AICc and BIC are both lowest at degree {best_aicc} {agree}.")
     else:
-        lines.append(
-            f"AICc is lowest at degree {best_aicc} and BIC at degree {best_bic} (lower is "
-            "better; differences below about 2 are weak evidence)."
-        )
+        lines.append(f"AICc is lowest at degree {best_aicc} and BIC at degree {best_bic}.")
+    if best_aicc != suggested or best_bic != suggested:
+        # Burnham & Anderson's rule of thumb for AIC differences (common practice).
+        lines.append("(Lower is better; a difference below about 2 is weak evidence.)")
     lines.append("Use fit_for(degree) to take another degree.")
     return suggested, " ".join(lines)
