@@ -199,8 +199,10 @@ def _array(a: ArrayLike, role: str) -> FloatArray:
 
 
 def _include_mask(exclude: ArrayLike | None, row: NDArray[np.int64], n_input: int) -> BoolArray:
-    """Turn ``exclude`` (input-row indices or a boolean mask over input rows) into an include
-    mask over the kept rows."""
+    """Turn ``exclude`` (input rows: indices or a boolean mask) into an include mask.
+
+    The mask is over the kept rows (after NaN rows were dropped).
+    """
     inc = np.ones(row.shape, dtype=bool)
     if exclude is None:
         return inc
@@ -266,8 +268,12 @@ def make_dataset(
             raise DataError("With data=..., give the column names too: x='col', y='col'.")
         xa, x_label = _column(df, x, "x")
         ya, y_label = _column(df, y, "y")
-        sa = None if sigma is None else (
-            _column(df, sigma, "sigma")[0] if isinstance(sigma, str) else _array(sigma, "sigma")
+        sa = (
+            None
+            if sigma is None
+            else (
+                _column(df, sigma, "sigma")[0] if isinstance(sigma, str) else _array(sigma, "sigma")
+            )
         )
     else:
         if x is None or y is None:

@@ -78,7 +78,9 @@ class Param:
                 )
             object.__setattr__(self, attr, float(v))
         if math.isnan(self.value) or math.isinf(self.value):
-            raise ParameterError(f"Parameter {self.name!r}: value must be finite, got {self.value}.")
+            raise ParameterError(
+                f"Parameter {self.name!r}: value must be finite, got {self.value}."
+            )
         if math.isnan(self.lower) or math.isnan(self.upper):
             raise ParameterError(f"Parameter {self.name!r}: bounds must not be NaN.")
         if self.positive and self.lower < 0:
@@ -163,9 +165,10 @@ class Derived:
 
 @dataclass(frozen=True)
 class Handle:
-    """A feature of the curve the user can drag: its (x, y) position as expressions of the
-    parameters, and the parameters a drag moves.
+    """A feature of the curve the user can drag.
 
+    Its (x, y) position is a pair of expressions of the parameters; ``moves`` names the
+    parameters a drag changes.
     Examples: a plateau (moves the plateau level), a midpoint (moves EC50 and the plateaus
     stay), the value at x = 0, a half-life point, a peak apex.
     """
@@ -255,9 +258,13 @@ class Model:
         if dupes:
             raise ModelError(f"Model {self.name!r}: parameter names repeat: {dupes}.")
         if "x" in names:
-            raise ModelError(f"Model {self.name!r}: 'x' is the independent variable, not a parameter.")
+            raise ModelError(
+                f"Model {self.name!r}: 'x' is the independent variable, not a parameter."
+            )
         if self.domain not in _DOMAINS:
-            raise ModelError(f"Model {self.name!r}: domain must be one of {_DOMAINS}, got {self.domain!r}.")
+            raise ModelError(
+                f"Model {self.name!r}: domain must be one of {_DOMAINS}, got {self.domain!r}."
+            )
         known = set(names)
         for d in self.derived:
             self._check_names(d.expr, known, f"derived quantity {d.name!r}")
@@ -385,7 +392,7 @@ class Model:
                 "give them in the same order."
             )
         return cls(
-            name=name or getattr(func, "__name__", "callable"),
+            name=name or str(getattr(func, "__name__", "callable")),
             params=tuple(plist),
             func=_guard_callable(func),
             expr=None,
@@ -423,18 +430,23 @@ class Model:
         return {p.name: p.value for p in self.params}
 
     # ------------------------------------------------------------------ evaluation
-    def eval(self, x: ArrayLike, values: Mapping[str, float] | None = None, **kw: float) -> FloatArray:
+    def eval(
+        self, x: ArrayLike, values: Mapping[str, float] | None = None, **kw: float
+    ) -> FloatArray:
         """Evaluate the curve at ``x`` (defaults for any parameter not given)."""
         vals = self.defaults()
         given = {**(values or {}), **kw}
         for k in given:
             if k not in vals:
-                raise ParameterError(unknown_name_message(k, self.param_names, f"model {self.name!r}"))
+                raise ParameterError(
+                    unknown_name_message(k, self.param_names, f"model {self.name!r}")
+                )
         vals.update({k: float(v) for k, v in given.items()})
         xa = np.asarray(x, dtype=float)
         with np.errstate(all="ignore"):
             out = self.func(xa, *(vals[n] for n in self.param_names))
-        return np.broadcast_to(np.asarray(out, dtype=float), xa.shape).copy()
+        res: FloatArray = np.broadcast_to(np.asarray(out, dtype=float), xa.shape).copy()
+        return res
 
     def __call__(self, x: ArrayLike, **values: float) -> FloatArray:
         """Shorthand for :meth:`eval`."""
@@ -536,7 +548,8 @@ class Model:
         return hash((self.name, self.formula, self.param_names))
 
     def __repr__(self) -> str:
-        body = self.formula if self.formula is not None else f"<callable {self.func!r}>"
+        inner = getattr(self.func, "__wrapped__", self.func)
+        body = self.formula if self.formula is not None else f"<callable {inner!r}>"
         return f"Model({self.name!r}: y = {body})"
 
 
@@ -560,8 +573,8 @@ def _param_list(
         for n, kw in params.items():
             if not isinstance(kw, Mapping):
                 raise ParameterError(
-                    f"params[{n!r}] must be a mapping of Param settings (value, lower, upper, ...), "
-                    f"got {type(kw).__name__}."
+                    f"params[{n!r}] must be a mapping of Param settings (value, lower, upper, "
+                    f"...), got {type(kw).__name__}."
                 )
             out.append(Param(n, **kw))
         names = [p.name for p in out]
