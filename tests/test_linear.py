@@ -27,7 +27,7 @@ from curvewright.linear import (
 NIST_DIR = Path(__file__).parent / "data" / "nist_linear"
 
 # The QR solution is refined with residuals in numpy's longdouble. Where that type is 80-bit
-# (x86-64 Linux, where CI runs) the solver reaches 12.6+ digits on every NIST problem; where
+# (x86-64 Linux, where CI runs) the solver reaches 12.5+ digits on every NIST problem; where
 # longdouble is plain float64 the refinement gains less, and the NIST floor of 9 digits applies.
 EXTENDED = bool(np.finfo(np.longdouble).eps < np.finfo(np.float64).eps)
 
@@ -160,16 +160,17 @@ def test_nist_certified_values(name: str) -> None:
 
     Digits achieved on x86-64 Linux (80-bit longdouble), minimum over the coefficients:
     coefficients / standard deviations / residual SD --
-    Norris 14.1 / 13.9 / 14.0; Pontius 13.5 / 13.8 / 13.8; Longley 13.7 / 14.8 / 15.0;
-    NoInt1 14.7 / 15 / 15; NoInt2 15 / 15 / 15; Wampler1 13.0 / 12.7 / 12.7;
-    Wampler2 13.2 / 15 / 15; Wampler3 12.7 / 14.2 / 14.8; Wampler4 12.6 / 14.2 / 14.8.
+    Longley 14.6 / 14.8 / 15.0; NoInt1 14.7 / 15 / 15; NoInt2 15 / 15 / 15;
+    Norris 14.1 / 13.9 / 14.0; Pontius 13.5 / 13.8 / 13.8; Wampler1 13.0 / 12.8 / 12.8;
+    Wampler2 13.2 / 15 / 15; Wampler3 13.3 / 14.2 / 14.8; Wampler4 12.5 / 14.2 / 14.8.
     (Wampler1 and 2 are exact fits: their certified SDs are 0, so there the digits are
-    absolute, -log10|estimate|.) Required: 12 digits for coefficients and 12 for the SDs with
-    an extended longdouble, else the NIST floor of 9 and 6.
+    absolute, -log10|estimate|.) Required, leaving a margin for other BLAS builds: 11 digits
+    for coefficients and 11 for the SDs with an extended longdouble, else the NIST floor of 9
+    and 6. Wampler5 and Filip are not in our reference files (see the degree-10 test below).
     """
     problem = parse_nist_linear(NIST_DIR / f"{name}.dat")
     sol = solve_nist(problem)
-    need_coef, need_sd = (12.0, 12.0) if EXTENDED else (9.0, 6.0)
+    need_coef, need_sd = (11.0, 11.0) if EXTENDED else (9.0, 6.0)
     assert not sol.rank_deficient
     assert lre(sol.coef, problem.estimate) >= need_coef  # NIST StRD certified estimates
     assert lre(sol.stderr, problem.stdev) >= need_sd  # NIST StRD certified standard deviations
@@ -494,3 +495,21 @@ def test_noiseless_polynomials_recovered(
     err = np.abs(sol.coef - np.array([float(v) for v in c_true]))
     assert np.all(err <= bound + 1e-300), (err, bound)
     assert np.abs(sol.fitted - y).max() <= 1e-11 * scale
+
+
+def test_constant_column_other_than_ones_and_huge_x() -> None:
+    # An intercept column of 2s is centred on like a column of ones (statsmodels OLS reference).
+    rng = np.random.default_rng(11)
+    x = rng.uniform(0.0, 5.0, 20)
+    y = 3.0 + x + rng.normal(0.0, 0.1, 20)
+    design = np.column_stack([np.full(20, 2.0), x])
+    sol = solve_linear(design, y)
+    ref = sm.OLS(y, design).fit(method="qr")
+    np.testing.assert_allclose(sol.coef, ref.params, rtol=1e-12)
+    np.testing.assert_allclose(sol.stderr, ref.bse, rtol=1e-12)
+    # x near 1e200: x**2 overflows, but neither the fit (done in t) nor the condition number
+    # (column-scaled, so computed on x / max|x|) needs it.
+    big = solve_polynomial(x * 1e200, y, 1)
+    assert big.coef[0] == pytest.approx(ref.params[0] * 2.0, rel=1e-12)
+    assert big.coef[1] * 1e200 == pytest.approx(ref.params[1], rel=1e-12)
+    assert math.isfinite(big.condition)

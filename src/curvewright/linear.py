@@ -258,21 +258,29 @@ def _qr_core(design: LongArray, y: LongArray, sw: LongArray | None, tol: float) 
     a_keep = a_s[:, keep]
     z = scipy.linalg.solve_triangular(r11, q1.T @ b.astype(np.float64)).astype(np.longdouble)
     resolution = float(np.finfo(np.longdouble).eps)
-    last_step = math.inf
+
+    def gradient(zz: LongArray) -> LongArray:
+        return a_keep.T @ (b - a_keep @ zz)
+
+    grad = gradient(z)
+    grad_norm = float(np.max(np.abs(grad), initial=0.0))
     for _ in range(_MAX_REFINEMENTS if rank else 0):
         # Corrected semi-normal equations: the gradient A^T (b - A z) vanishes exactly at the
         # least-squares solution, however large the residual, so unlike Q^T (b - A z) it has no
         # rounding floor proportional to |b - A z|. Computed in extended precision, then
         # dz = R^-1 R^-T g. It converges when eps * cond(A_scaled)**2 << 1, which centring and
-        # scaling make the usual case; if a step fails to shrink, the previous z is kept.
-        grad = (a_keep.T @ (b - a_keep @ z)).astype(np.float64)
-        dz = scipy.linalg.solve_triangular(r11, scipy.linalg.solve_triangular(r11, grad, trans="T"))
-        step = float(np.max(np.abs(dz)))
-        if not step < last_step:
+        # scaling make the usual case; a step is kept only if it shrinks the gradient, so on a
+        # design too ill-conditioned for it the plain QR solution is returned.
+        dz = scipy.linalg.solve_triangular(
+            r11, scipy.linalg.solve_triangular(r11, grad.astype(np.float64), trans="T")
+        )
+        z_new = z + dz.astype(np.longdouble)
+        grad_new = gradient(z_new)
+        new_norm = float(np.max(np.abs(grad_new), initial=0.0))
+        if not new_norm < grad_norm:
             break
-        z = z + dz.astype(np.longdouble)
-        last_step = step
-        if step <= resolution * float(np.max(np.abs(z))):
+        z, grad, grad_norm = z_new, grad_new, new_norm
+        if float(np.max(np.abs(dz))) <= resolution * float(np.max(np.abs(z))):
             break
 
     coef_w = np.zeros(p, dtype=np.longdouble)
@@ -361,6 +369,11 @@ def solve_linear(
 ) -> LinearSolution:
     """Solve the linear least-squares problem ``min sum w_i (y_i - (design @ coef)_i)**2``.
 
+    Accuracy: about ``eps * condition`` relative (less after the extended-precision refinement
+    when the centred, scaled design is well conditioned). A polynomial design is far better
+    served by :func:`solve_polynomial`, which never works in the power basis: at degree 10 on
+    x in [-9, -3] this function keeps about 7 digits of the coefficients, that one all 15.
+
     Parameters
     ----------
     design : array_like, shape (n, n_coef)
@@ -388,6 +401,8 @@ def solve_linear(
     DataError
         Shapes do not match, values are not finite, weights are not positive, or there are not
         more points than coefficients.
+    ParameterError
+        ``rcond`` is not in [0, 1).
 
     Warns
     -----
@@ -614,7 +629,10 @@ def solve_polynomial(
         idx = list(fit.undetermined)
         cov_c[idx, :] = np.nan
         cov_c[:, idx] = np.nan
-    condition = _scaled_condition(np.vander(xv, k + 1, increasing=True), w)
+    # Column scaling makes the condition number independent of the units of x, so the powers of
+    # x / max|x| give the same number without overflowing for large x.
+    xmax = float(np.max(np.abs(xv)))
+    condition = _scaled_condition(np.vander(xv / (xmax or 1.0), k + 1, increasing=True), w)
     return _finish(fit, yv, w, condition, coef=coef, cov_unscaled=cov_c)
 
 

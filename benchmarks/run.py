@@ -1,0 +1,96 @@
+"""Speed of curvewright's fit against scipy's curve_fit and a bare lmfit Minimizer, in one run.
+
+Run with ``make bench``. Prints a table of median times per fit and the ratio to scipy; the README's
+performance section records these figures. Nothing here is a test: timings are never asserted.
+"""
+
+from __future__ import annotations
+
+import statistics
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import lmfit
+import numpy as np
+from scipy.optimize import curve_fit
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "src"))
+
+from curvewright.catalog import catalog  # noqa: E402
+from curvewright.fitting import fit  # noqa: E402
+
+
+def _median_time(fn: Callable[[], object], repeat: int) -> float:
+    fn()  # warm-up (compilation of the formula, imports)
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def _problems() -> list[tuple[str, str, np.ndarray, np.ndarray, dict[str, float]]]:
+    rng = np.random.default_rng(20261201)
+    out = []
+    # Invented demo-style data (speed only; accuracy is checked in tests/ against references).
+    for n in (50, 5000):
+        x = np.logspace(-9, -4, n)
+        truth = {"bottom": 5.0, "top": 100.0, "logIC50": -6.5, "hill": 1.2}
+        y = catalog()["inhibition_4pl"].eval(x, truth) + rng.normal(0, 2.0, n)
+        out.append((f"4PL inhibition, n={n}", "inhibition_4pl", x, y, truth))
+        xd = np.linspace(0, 30, n)
+        td = {"plateau": 10.0, "span": 90.0, "k": 0.25}
+        yd = catalog()["decay_to_plateau"].eval(xd, td) + rng.normal(0, 1.0, n)
+        out.append((f"decay to plateau, n={n}", "decay_to_plateau", xd, yd, td))
+    return out
+
+
+def main() -> None:
+    repeat = 15
+    rows = []
+    for label, name, x, y, truth in _problems():
+        model = catalog()[name]
+        p0 = {k: v * 1.3 for k, v in truth.items()}
+        names = list(model.param_names)
+
+        def f(xx: np.ndarray, *p: float, _m=model) -> np.ndarray:
+            return _m.func(xx, *p)
+
+        def run_scipy() -> object:
+            return curve_fit(f, x, y, p0=[p0[k] for k in names])
+
+        def run_lmfit() -> object:
+            params = lmfit.Parameters()
+            for k in names:
+                params.add(k, value=p0[k])
+
+            def resid(ps: lmfit.Parameters) -> np.ndarray:
+                return model.func(x, *(ps[k].value for k in names)) - y
+
+            return lmfit.minimize(resid, params, method="leastsq")
+
+        def run_ours_start() -> object:
+            return fit(model, x, y, start=p0)
+
+        def run_ours_guided() -> object:
+            return fit(model, x, y)
+
+        t_s = _median_time(run_scipy, repeat)
+        t_l = _median_time(run_lmfit, repeat)
+        t_o = _median_time(run_ours_start, repeat)
+        t_g = _median_time(run_ours_guided, repeat)
+        rows.append((label, t_s, t_l, t_o, t_g))
+    print(f"{'problem':28s} {'scipy ms':>9s} {'lmfit ms':>9s} {'ours ms':>9s} {'guided ms':>10s}"
+          f" {'ours/scipy':>10s} {'ours/lmfit':>10s}")
+    for label, t_s, t_l, t_o, t_g in rows:
+        print(f"{label:28s} {t_s*1e3:9.2f} {t_l*1e3:9.2f} {t_o*1e3:9.2f} {t_g*1e3:10.2f}"
+              f" {t_o/t_s:10.2f} {t_o/t_l:10.2f}")
+    print("\n'ours' = curvewright.fit from the same start as scipy/lmfit (includes result building:"
+          " covariance, diagnostics, derived quantities); 'guided' adds the data-driven start.")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,216 @@
+// Python-synced state: the widget's traitlets as the front end sees them (one interface, the
+// model type of render()), the custom messages both ways, and pure helpers that read the synced
+// values into plain arrays. Nothing here is UI-only; that lives in ui-state.ts.
+
+import type { ExprNode } from "./expr";
+
+export type Scale = "linear" | "log";
+export type Domain = "all" | "x>0" | "x>=0";
+
+/** One parameter as the model describes it (bounds `null` = none; JSON has no infinity). */
+export interface ParamInfo {
+  name: string;
+  value: number;
+  lower: number | null;
+  upper: number | null;
+  fixed?: boolean;
+  log_scale: boolean;
+  positive: boolean;
+  unit: string;
+  description: string;
+}
+
+/** A draggable curve feature: its position as trees of the parameters, and what it moves. */
+export interface HandleInfo {
+  name: string;
+  label: string;
+  x: ExprNode;
+  y: ExprNode;
+  moves: string[];
+  x_formula?: string;
+  y_formula?: string;
+}
+
+/** A quantity computed from the parameters (EC50 on a log scale, a half-life...). */
+export interface DerivedInfo {
+  name: string;
+  formula?: string;
+  tree: ExprNode;
+  description?: string;
+  unit?: string;
+  axis?: "x" | "y" | null;
+}
+
+/** The `model_json` trait: the current model as data (Model.to_dict() on the Python side). */
+export interface ModelJson {
+  name: string;
+  formula: string | null;
+  /** Expression tree of x and the parameters; null for a Python-callable model. */
+  tree: ExprNode | null;
+  params: ParamInfo[];
+  handles: HandleInfo[];
+  domain: Domain;
+  /** The curve can be evaluated in the browser (a formula model). */
+  has_preview: boolean;
+  derived?: DerivedInfo[];
+  description?: string;
+}
+
+/** The `data` trait: the points to draw (possibly a shape-keeping subset of all points). */
+export interface DataJson {
+  /** x and y of the drawn points; null where a value is not finite. */
+  x: (number | null)[];
+  y: (number | null)[];
+  /**
+   * Excluded points: either input-row indices (matched against `row`), or one boolean per drawn
+   * point. Both forms are accepted (see readData).
+   */
+  excluded: number[] | boolean[];
+  x_label: string;
+  y_label: string;
+  /** Input-row index of each drawn point (default: its position). */
+  row?: number[];
+  sigma?: (number | null)[] | null;
+  /** Number of input points before any thinning for display. */
+  n_total?: number;
+  decimated?: boolean;
+  /** Input rows not drawable on the current axes (x <= 0 on log x, y <= 0 on log y). */
+  off_axis?: number[];
+  /** Input rows outside the model's domain. */
+  outside_domain?: number[];
+}
+
+/** One parameter's editable settings: the `params` trait maps each name to this. */
+export interface ParamSetting {
+  value: number;
+  lower: number | null;
+  upper: number | null;
+  fixed: boolean;
+}
+
+/** The `fitted` trait after a fit; `null` before the first fit of the current model. */
+export interface FittedJson {
+  values: Record<string, number>;
+  stderr: Record<string, number | null>;
+  ci_low: Record<string, number | null>;
+  ci_high: Record<string, number | null>;
+  /** Per parameter, flag codes such as "at_lower", "at_upper", "not_identified". */
+  flags: Record<string, string[]>;
+  /** The fitted curve sampled by Python (used when the model has no tree). */
+  curve: { x: number[]; y: (number | null)[] };
+  /** Residual (y - fitted) of each drawn point, in the order of `data`; null where none. */
+  residuals: (number | null)[];
+  /** Optional extras a fit may report. */
+  message?: string;
+  model_name?: string;
+  ci_level?: number;
+}
+
+export type FitState = "idle" | "fitting" | "done" | "error";
+
+export interface StatusJson {
+  state: FitState;
+  message: string;
+}
+
+/**
+ * The widget's synced traitlets (Python side: the widget class in src/curvewright/widget/).
+ * The front end writes `params`, `excluded`, `x_scale`, `y_scale`, `model_name` and `error`
+ * (cleared by the dismiss button); Python writes the rest.
+ */
+export interface WidgetModel {
+  model_json: ModelJson;
+  data: DataJson;
+  params: Record<string, ParamSetting>;
+  fitted: FittedJson | null;
+  x_scale: Scale;
+  y_scale: Scale;
+  model_names: string[];
+  model_name: string;
+  status: StatusJson;
+  error: string;
+  /** Excluded input rows (sorted); the front end sets it when points are clicked or boxed. */
+  excluded: number[];
+  /**
+   * For a model without a tree (a Python callable): the curve for the current `params`,
+   * computed by the kernel (throttled), or null.
+   */
+  preview_curve: { x: number[]; y: (number | null)[] } | null;
+}
+
+/** Messages the front end sends with model.send(). */
+export type FrontMessage = { type: "fit" } | { type: "cancel" };
+
+// ---------------------------------------------------------------------------------------------
+// Reading synced values
+// ---------------------------------------------------------------------------------------------
+
+/** The drawn points as typed arrays (NaN for null), their input rows and exclusion flags. */
+export interface PointSet {
+  x: Float64Array;
+  y: Float64Array;
+  row: Int32Array;
+  excluded: Uint8Array;
+  n: number;
+}
+
+function toFloat(values: readonly (number | null | undefined)[] | undefined, n: number): Float64Array {
+  const out = new Float64Array(n);
+  for (let i = 0; i < n; i++) {
+    const v = values?.[i];
+    out[i] = typeof v === "number" ? v : NaN;
+  }
+  return out;
+}
+
+/**
+ * Read the `data` trait (and the `excluded` trait, which wins when present) into a PointSet.
+ * `excludedRows` is the `excluded` trait value (input rows) or undefined.
+ */
+export function readData(data: DataJson | null | undefined, excludedRows?: readonly number[]): PointSet {
+  const n = Math.min(data?.x?.length ?? 0, data?.y?.length ?? 0);
+  const x = toFloat(data?.x, n);
+  const y = toFloat(data?.y, n);
+  const row = new Int32Array(n);
+  for (let i = 0; i < n; i++) row[i] = data?.row?.[i] ?? i;
+  const excluded = new Uint8Array(n);
+  const ex = excludedRows ?? data?.excluded ?? [];
+  if (ex.length > 0 && typeof ex[0] === "boolean") {
+    for (let i = 0; i < n; i++) excluded[i] = (ex as boolean[])[i] ? 1 : 0;
+  } else {
+    const set = new Set(ex as number[]);
+    for (let i = 0; i < n; i++) excluded[i] = set.has(row[i]!) ? 1 : 0;
+  }
+  return { x, y, row, excluded, n };
+}
+
+/** Bounds from a setting as numbers (null = unbounded). */
+export function boundsOf(s: ParamSetting | undefined): [number, number] {
+  const lo = s?.lower;
+  const hi = s?.upper;
+  return [typeof lo === "number" ? lo : -Infinity, typeof hi === "number" ? hi : Infinity];
+}
+
+/** Current values of every parameter: the `params` trait, else the model's defaults. */
+export function valuesOf(
+  model: ModelJson | null | undefined,
+  params: Readonly<Record<string, ParamSetting>> | null | undefined,
+): Record<string, number> {
+  const out: Record<string, number> = {};
+  for (const p of model?.params ?? []) {
+    const s = params?.[p.name];
+    out[p.name] = typeof s?.value === "number" ? s.value : p.value;
+  }
+  return out;
+}
+
+/** Rows that toggle when the user clicks or boxes `rows`: all re-included if all are excluded. */
+export function toggleRows(current: readonly number[], rows: readonly number[]): number[] {
+  const set = new Set(current);
+  const allExcluded = rows.length > 0 && rows.every((r) => set.has(r));
+  for (const r of rows) {
+    if (allExcluded) set.delete(r);
+    else set.add(r);
+  }
+  return [...set].sort((a, b) => a - b);
+}

@@ -1,0 +1,1377 @@
+"""Guided starting values: a data-driven rule per catalog model and a generic multi-start.
+
+Two layers:
+
+* Linearisation helpers (:func:`hanes_woolf`, :func:`semilog_rate`, :func:`logit_line`, ...) turn
+  a curve into a straight line and read parameters off an ordinary least-squares line. They are
+  public because linearised fits (issue 3) reuse them.
+* Start rules. A catalog model's rule (:class:`SeparableRule`) takes a first estimate from a
+  linearisation, then improves it cheaply by *separable* least squares: most catalog models are
+  affine in some parameters (plateaus, spans, Vmax, amplitudes), so for trial values of the others
+  those are solved exactly by linear least squares (variable projection, Golub & Pereyra 1973) and
+  only one to three nonlinear parameters remain to search. That makes the rules robust to noise,
+  to curves that do not reach their plateau, and to data in any order.
+
+:func:`generic_start` serves models without a rule: it derives plausible ranges for each
+parameter from the scales of x and y (inferring each parameter's dimension from the formula when
+it has no unit hint), draws a Latin hypercube of starts, runs short least-squares from each and
+polishes the best.
+"""
+
+from __future__ import annotations
+
+import inspect
+import itertools
+import math
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any, NamedTuple
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy.optimize import least_squares, lsq_linear
+from scipy.stats import qmc
+
+from .errors import DataError, ParameterError
+from .models import Model, Param, unknown_name_message
+
+__all__ = [
+    "EnzymeEstimate",
+    "LogitEstimate",
+    "PolynomialRule",
+    "PowerEstimate",
+    "RateEstimate",
+    "SeparableRule",
+    "eadie_hofstee",
+    "generic_start",
+    "guided_start",
+    "hanes_woolf",
+    "lineweaver_burk",
+    "logit_line",
+    "loglog_power",
+    "semilog_rate",
+]
+
+FloatArray = NDArray[np.float64]
+SeedFn = Callable[[FloatArray, FloatArray], dict[str, float]]
+GridFn = Callable[[FloatArray, FloatArray, Mapping[str, float]], dict[str, FloatArray]]
+
+_LN10 = math.log(10.0)
+
+
+# ============================================================================ linearisations
+class EnzymeEstimate(NamedTuple):
+    """Michaelis–Menten parameters read off a straight-line plot."""
+
+    Vmax: float
+    Km: float
+
+
+class RateEstimate(NamedTuple):
+    """``y = plateau + span*exp(-k*x)``: span (value above the plateau at x = 0) and rate k."""
+
+    span: float
+    k: float
+
+
+class PowerEstimate(NamedTuple):
+    """``y = a*x**b`` read off a log–log line."""
+
+    a: float
+    b: float
+
+
+class LogitEstimate(NamedTuple):
+    """``log10(f/(1-f)) = slope*(t - mid)`` with ``f = (y - bottom)/(top - bottom)``."""
+
+    mid: float
+    slope: float
+
+
+def _vectors(x: ArrayLike, y: ArrayLike, what: str) -> tuple[FloatArray, FloatArray]:
+    try:
+        xa = np.asarray(x, dtype=float).ravel()
+        ya = np.asarray(y, dtype=float).ravel()
+    except (TypeError, ValueError) as exc:
+        raise DataError(f"{what}: x and y must be numeric arrays ({exc}).") from exc
+    if xa.shape != ya.shape:
+        raise DataError(
+            f"{what}: x and y must have the same length; got {xa.size} x values and {ya.size} "
+            "y values."
+        )
+    return xa, ya
+
+
+def _ols_line(t: FloatArray, z: FloatArray, what: str) -> tuple[float, float]:
+    """Ordinary least-squares line ``z = intercept + slope*t`` (centred, so well conditioned)."""
+    if t.size < 2:
+        raise DataError(
+            f"{what} needs at least two usable points; got {t.size}. Check the data are in the "
+            "range the plot needs (see the function's notes)."
+        )
+    tm = float(np.mean(t))
+    zm = float(np.mean(z))
+    dt = t - tm
+    sxx = float(np.dot(dt, dt))
+    if not sxx > 0:
+        raise DataError(f"{what} needs at least two distinct abscissae; all points share one.")
+    slope = float(np.dot(dt, z - zm)) / sxx
+    return zm - slope * tm, slope
+
+
+def _positive_pairs(x: ArrayLike, y: ArrayLike, what: str) -> tuple[FloatArray, FloatArray]:
+    xa, ya = _vectors(x, y, what)
+    keep = np.isfinite(xa) & np.isfinite(ya) & (xa > 0) & (ya > 0)
+    return xa[keep], ya[keep]
+
+
+def lineweaver_burk(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
+    """Michaelis–Menten ``Vmax`` and ``Km`` from the double-reciprocal (Lineweaver–Burk) line.
+
+    ``1/y = 1/Vmax + (Km/Vmax) * (1/x)``: ordinary least squares of ``1/y`` on ``1/x`` over the
+    points with ``x > 0`` and ``y > 0``.
+
+    Parameters
+    ----------
+    x, y : array_like
+        Substrate concentrations and rates.
+
+    Returns
+    -------
+    EnzymeEstimate
+        ``(Vmax, Km)``. On noisy data they can be negative or huge: the reciprocal puts the
+        largest errors (those of the smallest rates) furthest out, where they steer the line.
+
+    Raises
+    ------
+    DataError
+        Fewer than two points with positive x and y, or all at one x.
+    """
+    xa, ya = _positive_pairs(x, y, "lineweaver_burk")
+    a, b = _ols_line(1.0 / xa, 1.0 / ya, "lineweaver_burk")
+    return EnzymeEstimate(1.0 / a, b / a)
+
+
+def hanes_woolf(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
+    """Michaelis–Menten ``Vmax`` and ``Km`` from the Hanes–Woolf line.
+
+    ``x/y = Km/Vmax + x/Vmax``: ordinary least squares of ``x/y`` on ``x`` over the points with
+    ``x > 0`` and ``y > 0``.
+
+    Hanes–Woolf is the better-conditioned of the two classical plots: the abscissa is x itself,
+    so points keep their natural spacing instead of the low concentrations being thrown far out
+    as in ``1/x``, and the error of ``x/y`` is about ``x * sd(y) / y**2``, far more even across
+    the range than the ``sd(y) / y**2`` of ``1/y``, whose largest errors sit at the points with
+    the most leverage (common practice; e.g. Cornish-Bowden, *Fundamentals of Enzyme Kinetics*,
+    from memory).
+
+    Parameters
+    ----------
+    x, y : array_like
+        Substrate concentrations and rates.
+
+    Returns
+    -------
+    EnzymeEstimate
+        ``(Vmax, Km)``.
+
+    Raises
+    ------
+    DataError
+        Fewer than two points with positive x and y, or all at one x.
+    """
+    xa, ya = _positive_pairs(x, y, "hanes_woolf")
+    a, b = _ols_line(xa, xa / ya, "hanes_woolf")
+    return EnzymeEstimate(1.0 / b, a / b)
+
+
+def eadie_hofstee(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
+    """Michaelis–Menten ``Vmax`` and ``Km`` from the Eadie–Hofstee line.
+
+    ``y = Vmax - Km * (y/x)``: ordinary least squares of ``y`` on ``y/x`` over the points with
+    ``x > 0`` and ``y > 0``. (y appears on both axes, so ordinary least squares is biased on
+    noisy data; the line is best used to look at, or as a start.)
+
+    Parameters
+    ----------
+    x, y : array_like
+        Substrate concentrations and rates.
+
+    Returns
+    -------
+    EnzymeEstimate
+        ``(Vmax, Km)``.
+
+    Raises
+    ------
+    DataError
+        Fewer than two points with positive x and y, or all with the same ``y/x``.
+    """
+    xa, ya = _positive_pairs(x, y, "eadie_hofstee")
+    a, b = _ols_line(ya / xa, ya, "eadie_hofstee")
+    return EnzymeEstimate(a, -b)
+
+
+def semilog_rate(x: ArrayLike, y: ArrayLike, plateau: float) -> RateEstimate:
+    """Span and rate constant of ``y = plateau + span*exp(-k*x)`` from a log-linear line.
+
+    ``log|y - plateau| = log|span| - k*x``, fitted by ordinary least squares over the points on
+    the majority side of the plateau whose distance from it is more than 5 % of the largest
+    distance (points near the plateau carry almost no information on k and their logarithm
+    amplifies noise). A rising exponential (growth) gives a negative k.
+
+    Parameters
+    ----------
+    x, y : array_like
+        Data (any order).
+    plateau : float
+        The level the curve approaches (0 for pure exponential decay or growth).
+
+    Returns
+    -------
+    RateEstimate
+        ``(span, k)``; ``span`` has the sign of ``y - plateau``.
+
+    Raises
+    ------
+    DataError
+        Fewer than two usable points, or all at one x.
+    """
+    xa, ya = _vectors(x, y, "semilog_rate")
+    if not math.isfinite(plateau):
+        raise DataError(f"semilog_rate: plateau must be finite, got {plateau}.")
+    keep = np.isfinite(xa) & np.isfinite(ya)
+    xa, d = xa[keep], ya[keep] - plateau
+    sign = 1.0 if np.sum(d > 0) >= np.sum(d < 0) else -1.0
+    dist = sign * d
+    use = dist > 0
+    if np.any(use):
+        use &= dist > 0.05 * float(np.max(dist))
+    a, b = _ols_line(xa[use], np.log(dist[use]), "semilog_rate")
+    return RateEstimate(sign * math.exp(a), -b)
+
+
+def loglog_power(x: ArrayLike, y: ArrayLike) -> PowerEstimate:
+    """``a`` and ``b`` of ``y = a*x**b`` from the log–log line ``log y = log a + b*log x``.
+
+    Ordinary least squares over the points with ``x > 0`` and ``y > 0``.
+
+    Parameters
+    ----------
+    x, y : array_like
+        Data.
+
+    Returns
+    -------
+    PowerEstimate
+        ``(a, b)``.
+
+    Raises
+    ------
+    DataError
+        Fewer than two points with positive x and y, or all at one x.
+    """
+    xa, ya = _positive_pairs(x, y, "loglog_power")
+    a, b = _ols_line(np.log(xa), np.log(ya), "loglog_power")
+    return PowerEstimate(math.exp(a), b)
+
+
+def logit_line(
+    x: ArrayLike,
+    y: ArrayLike,
+    bottom: float,
+    top: float,
+    *,
+    log_x: bool = True,
+    trim: float = 0.05,
+) -> LogitEstimate:
+    """Midpoint and slope of a sigmoid from the logit line.
+
+    With ``f = (y - bottom)/(top - bottom)`` and ``t = log10(x)`` (or ``t = x`` when
+    ``log_x=False``), fits ``log10(f/(1-f)) = slope*(t - mid)`` by ordinary least squares over
+    the points with ``trim < f < 1 - trim`` (the logit of points at the plateaus is dominated by
+    noise). For the 4-parameter logistic written as a rise from ``bottom`` to ``top``, ``mid`` is
+    log10 EC50 and ``slope`` the Hill slope; a falling curve gives a negative slope.
+
+    Parameters
+    ----------
+    x, y : array_like
+        Data; with ``log_x`` only points with ``x > 0`` are used (zero-dose controls are not).
+    bottom, top : float
+        The levels at the low-x and high-x ends (``top < bottom`` is allowed).
+    log_x : bool
+        Whether the sigmoid is in log10 x (dose–response) or in x (Boltzmann, logistic growth).
+    trim : float
+        Fraction of the span excluded at each plateau.
+
+    Returns
+    -------
+    LogitEstimate
+        ``(mid, slope)``.
+
+    Raises
+    ------
+    DataError
+        ``top == bottom``, or fewer than two points strictly between the plateaus.
+    """
+    xa, ya = _vectors(x, y, "logit_line")
+    if not (math.isfinite(bottom) and math.isfinite(top)) or top == bottom:
+        raise DataError(
+            f"logit_line: bottom and top must be finite and different; got {bottom}, {top}."
+        )
+    keep = np.isfinite(xa) & np.isfinite(ya)
+    if log_x:
+        keep &= xa > 0
+    xa, ya = xa[keep], ya[keep]
+    f = (ya - bottom) / (top - bottom)
+    use = (f > trim) & (f < 1.0 - trim)
+    t = np.log10(xa[use]) if log_x else xa[use]
+    fu = f[use]
+    a, b = _ols_line(t, np.log10(fu / (1.0 - fu)), "logit_line")
+    if b == 0:
+        raise DataError("logit_line: the points between the plateaus show no trend in x.")
+    return LogitEstimate(-a / b, b)
+
+
+# ============================================================================ data helpers
+def _check_data(model: Model, x: ArrayLike, y: ArrayLike) -> tuple[FloatArray, FloatArray]:
+    xa, ya = _vectors(x, y, "guided start")
+    if not (np.all(np.isfinite(xa)) and np.all(np.isfinite(ya))):
+        raise DataError(
+            "guided start: x and y must be finite; drop or exclude the NaN/inf points first."
+        )
+    if xa.size < 2:
+        raise DataError(f"guided start needs at least two points; got {xa.size}.")
+    model.check_domain(xa)
+    return xa, ya
+
+
+def _check_fixed(model: Model, fixed: Mapping[str, float] | None) -> dict[str, float]:
+    out: dict[str, float] = {}
+    for name, value in (fixed or {}).items():
+        if name not in model.param_names:
+            raise ParameterError(unknown_name_message(name, model.param_names, repr(model.name)))
+        v = float(value)
+        if not math.isfinite(v):
+            raise ParameterError(f"Fixed value of {name!r} must be finite, got {value!r}.")
+        out[name] = v
+    return out
+
+
+def _means_by_x(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Distinct x (sorted) and the mean y at each: replicates count once, order is irrelevant."""
+    ux, inv = np.unique(x, return_inverse=True)
+    sums = np.bincount(inv, weights=y)
+    counts = np.bincount(inv)
+    return ux, sums / counts
+
+
+def _end_levels(x: FloatArray, y: FloatArray, frac: float = 0.15) -> tuple[float, float]:
+    """Mean response over the lowest and the highest ``frac`` of the distinct x values."""
+    ux, my = _means_by_x(x, y)
+    m = max(1, round(frac * ux.size))
+    return float(np.mean(my[:m])), float(np.mean(my[-m:]))
+
+
+def _span(a: FloatArray) -> float:
+    s = float(np.ptp(a)) if a.size else 0.0
+    return s if s > 0 else max(float(np.max(np.abs(a))) if a.size else 1.0, 1.0)
+
+
+def _geom(lo: float, hi: float, n: int) -> FloatArray:
+    return np.geomspace(lo, hi, n)
+
+
+# ============================================================================ least squares core
+@dataclass(frozen=True)
+class _Problem:
+    """A least-squares problem on some of a model's parameters (the others held)."""
+
+    model: Model
+    x: FloatArray
+    y: FloatArray
+    held: dict[str, float]  # fixed by the user (and, in a projection, nothing else)
+    linear: tuple[str, ...]  # solved exactly for each trial of the others
+    nonlinear: tuple[str, ...]  # searched
+    big: float  # stands in for non-finite residuals so the solver backs away from them
+
+    @classmethod
+    def make(
+        cls,
+        model: Model,
+        x: FloatArray,
+        y: FloatArray,
+        held: Mapping[str, float],
+        linear: Sequence[str],
+    ) -> _Problem:
+        free = [n for n in model.param_names if n not in held]
+        lin = tuple(n for n in free if n in linear)
+        non = tuple(n for n in free if n not in lin)
+        big = 1e6 * (float(np.max(np.abs(y))) + _span(y))
+        return cls(model, x, y, dict(held), lin, non, big)
+
+    # --- parameter transforms: positive parameters are searched in log space
+    def logged(self, name: str) -> bool:
+        p = self.model.param(name)
+        return p.lower >= 0 and (p.positive or p.log_scale)
+
+    def to_u(self, name: str, v: float) -> float:
+        if self.logged(name):
+            p = self.model.param(name)
+            floor = p.lower if p.lower > 0 else 1e-300
+            return math.log(max(v, floor, 1e-300))
+        return v
+
+    def from_u(self, name: str, u: float) -> float:
+        return math.exp(min(u, 700.0)) if self.logged(name) else u
+
+    def u_bounds(self, names: Sequence[str]) -> tuple[FloatArray, FloatArray]:
+        lo, hi = [], []
+        for n in names:
+            p = self.model.param(n)
+            if self.logged(n):
+                lo.append(math.log(p.lower) if p.lower > 0 else -np.inf)
+                hi.append(math.log(p.upper) if math.isfinite(p.upper) else np.inf)
+            else:
+                lo.append(p.lower)
+                hi.append(p.upper)
+        return np.array(lo), np.array(hi)
+
+    # --- evaluation
+    def curve(self, values: Mapping[str, float]) -> FloatArray:
+        with np.errstate(all="ignore"):
+            out = self.model.func(self.x, *(values[n] for n in self.model.param_names))
+        return np.broadcast_to(np.asarray(out, dtype=float), self.x.shape)
+
+    def residual(self, values: Mapping[str, float]) -> FloatArray:
+        r = self.curve(values) - self.y
+        return np.where(np.isfinite(r), r, self.big)
+
+    def project(self, values: dict[str, float]) -> dict[str, float]:
+        """Solve the linear parameters exactly for the given nonlinear ones."""
+        if not self.linear:
+            return values
+        v0 = dict(values)
+        for n in self.linear:
+            v0[n] = 0.0
+        f0 = self.curve(v0)
+        cols = []
+        for n in self.linear:
+            v = dict(v0)
+            v[n] = 1.0
+            cols.append(self.curve(v) - f0)
+        A = np.column_stack(cols)
+        rhs = self.y - f0
+        if not (np.all(np.isfinite(A)) and np.all(np.isfinite(rhs))):
+            return values
+        norms = np.linalg.norm(A, axis=0)
+        norms[norms == 0] = 1.0
+        As = A / norms
+        lo = np.array([self.model.param(n).lower for n in self.linear]) * norms
+        hi = np.array([self.model.param(n).upper for n in self.linear]) * norms
+        if np.all(np.isinf(lo)) and np.all(np.isinf(hi)):
+            c = np.linalg.lstsq(As, rhs, rcond=None)[0]
+        else:
+            c = lsq_linear(As, rhs, bounds=(lo, hi), method="bvls").x
+        out = dict(values)
+        for n, ci, s in zip(self.linear, c, norms, strict=True):
+            out[n] = float(ci / s)
+        return out
+
+    def full(self, u: FloatArray, base: Mapping[str, float]) -> dict[str, float]:
+        v = {**base, **self.held}
+        for n, ui in zip(self.nonlinear, u, strict=True):
+            v[n] = self.from_u(n, float(ui))
+        return self.project(v)
+
+    def ssr(self, values: Mapping[str, float]) -> float:
+        r = self.residual(values)
+        return float(np.dot(r, r))
+
+    def search(self, base: Mapping[str, float], max_nfev: int) -> dict[str, float]:
+        """Short least-squares run on the nonlinear parameters (linear ones projected out)."""
+        if not self.nonlinear:
+            return self.full(np.zeros(0), base)
+        u0 = np.array([self.to_u(n, base[n]) for n in self.nonlinear])
+        lo, hi = self.u_bounds(self.nonlinear)
+        u0 = np.clip(u0, np.nextafter(lo, hi), np.nextafter(hi, lo))
+
+        def fun(u: FloatArray) -> FloatArray:
+            return self.residual(self.full(u, base))
+
+        try:
+            sol = least_squares(fun, u0, bounds=(lo, hi), x_scale="jac", max_nfev=max_nfev)
+            u = sol.x
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            u = u0
+        return self.full(u, base)
+
+
+def _polish(
+    model: Model,
+    x: FloatArray,
+    y: FloatArray,
+    values: Mapping[str, float],
+    held: Mapping[str, float],
+    max_nfev: int,
+) -> dict[str, float]:
+    """Least squares on every free parameter at once, from ``values``; keeps the better."""
+    prob = _Problem.make(model, x, y, held, ())
+    if not prob.nonlinear:
+        return dict(values)
+    start = {**values, **held}
+    refined = prob.search(start, max_nfev)
+    return refined if prob.ssr(refined) <= prob.ssr(start) else start
+
+
+def _clip_into_bounds(model: Model, values: Mapping[str, float]) -> dict[str, float]:
+    out = {}
+    for p in model.params:
+        v = float(values.get(p.name, p.value))
+        if not math.isfinite(v):
+            v = p.value
+        if p.lower >= 0 and (p.positive or p.log_scale) and v <= 0:
+            # a rate or width of exactly 0 stalls a log-scale search; use a tiny positive value
+            v = max(p.lower, abs(p.value) * 1e-6, 1e-12)
+        out[p.name] = float(min(max(v, p.lower), p.upper))
+    return out
+
+
+# ============================================================================ rules
+@dataclass(frozen=True)
+class SeparableRule:
+    """A catalog model's starting-value rule: linearised seed, small grid, separable refinement.
+
+    Parameters
+    ----------
+    seed : callable
+        ``seed(x, y) -> {name: value}``: first estimates from a linearisation.
+    linear : tuple of str
+        Parameters the model is affine in (solved exactly for each trial of the others).
+    grid : callable, optional
+        ``grid(x, y, seed) -> {name: candidate values}`` for nonlinear parameters: extra trial
+        points in case the linearisation misleads (noisy or partial curves).
+    finish : callable, optional
+        Tidies the result, e.g. orders the two rates of a two-phase decay.
+    model : Model, optional
+        The model the rule belongs to (set by the catalog); a model passed at call time wins,
+        so changed bounds are respected.
+    """
+
+    seed: SeedFn
+    linear: tuple[str, ...] = ()
+    grid: GridFn | None = None
+    finish: Callable[[dict[str, float]], dict[str, float]] | None = None
+    model: Model | None = None
+    n_refine: int = 3
+
+    def bind(self, model: Model) -> SeparableRule:
+        """The same rule attached to ``model``."""
+        return SeparableRule(self.seed, self.linear, self.grid, self.finish, model, self.n_refine)
+
+    def __call__(
+        self,
+        x: FloatArray,
+        y: FloatArray,
+        *,
+        fixed: Mapping[str, float] | None = None,
+        model: Model | None = None,
+    ) -> dict[str, float]:
+        """Starting values for ``model`` (default: the bound one) on data ``x, y``."""
+        m = model if model is not None else self.model
+        if m is None:
+            raise ParameterError("This start rule is not attached to a model; pass model=...")
+        xa = np.asarray(x, dtype=float)
+        ya = np.asarray(y, dtype=float)
+        held = dict(fixed or {})
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore")
+            try:
+                seed = self.seed(xa, ya)
+            except (DataError, ValueError, ZeroDivisionError, OverflowError):
+                seed = {}
+        base = _clip_into_bounds(m, {**m.defaults(), **seed, **held})
+        prob = _Problem.make(m, xa, ya, held, self.linear)
+        candidates = [base]
+        if self.grid is not None and prob.nonlinear:
+            g = self.grid(xa, ya, base)
+            axes = [
+                np.asarray(g[n], dtype=float) if n in g else np.array([base[n]])
+                for n in prob.nonlinear
+            ]
+            for combo in itertools.product(*axes):
+                candidates.append(
+                    _clip_into_bounds(m, {**base, **dict(zip(prob.nonlinear, combo, strict=True))})
+                )
+        projected = [prob.project(c) for c in candidates]
+        order = np.argsort([prob.ssr(c) for c in projected])
+        best = projected[int(order[0])]
+        best_ssr = prob.ssr(best)
+        nfev = 60 * (len(prob.nonlinear) + 1)
+        seen: list[FloatArray] = []
+        for i in order:
+            if len(seen) >= self.n_refine:
+                break
+            c = projected[int(i)]
+            key = np.array([prob.to_u(n, c[n]) for n in prob.nonlinear])
+            if any(np.allclose(key, s, rtol=1e-3, atol=1e-9) for s in seen):
+                continue
+            seen.append(key)
+            r = prob.search(c, nfev)
+            s = prob.ssr(r)
+            if s < best_ssr:
+                best, best_ssr = r, s
+        best = _polish(m, xa, ya, best, held, 100 * (len(m.params) + 1))
+        if self.finish is not None:
+            best = self.finish(best)
+        return _clip_into_bounds(m, {**best, **held})
+
+
+@dataclass(frozen=True)
+class PolynomialRule:
+    """Starting values for a polynomial (or straight line): the linear least-squares solution.
+
+    ``names`` are the coefficients in ascending powers of x.
+    """
+
+    names: tuple[str, ...]
+    model: Model | None = None
+
+    def bind(self, model: Model) -> PolynomialRule:
+        """The same rule attached to ``model``."""
+        return PolynomialRule(self.names, model)
+
+    def __call__(
+        self,
+        x: FloatArray,
+        y: FloatArray,
+        *,
+        fixed: Mapping[str, float] | None = None,
+        model: Model | None = None,
+    ) -> dict[str, float]:
+        """The least-squares coefficients (with fixed ones held, solved for the others)."""
+        from .linear import solve_polynomial  # the linear solver is only needed here
+
+        held = dict(fixed or {})
+        xa = np.asarray(x, dtype=float)
+        ya = np.asarray(y, dtype=float)
+        k = len(self.names) - 1
+        m = model if model is not None else self.model
+        with warnings.catch_warnings():
+            # rank deficiency is reported by the fit itself; a start value needs no warning
+            warnings.simplefilter("ignore")
+            if not held and xa.size > k + 1:
+                coef = solve_polynomial(xa, ya, k).coef
+                return {n: float(c) for n, c in zip(self.names, coef, strict=True)}
+            free = [j for j, n in enumerate(self.names) if n not in held]
+            rest = ya - sum(
+                (held[n] * xa**j for j, n in enumerate(self.names) if n in held),
+                start=np.zeros_like(xa),
+            )
+            out = dict(held)
+            if free:
+                A = np.column_stack([xa**j for j in free])
+                c = np.linalg.lstsq(A, rest, rcond=None)[0]
+                out.update({self.names[j]: float(ci) for j, ci in zip(free, c, strict=True)})
+        return _clip_into_bounds(m, out) if m is not None else out
+
+
+# ---------------------------------------------------------------- seeds for the catalog
+def _x_scale(x: FloatArray) -> float:
+    return _span(x)
+
+
+def _rate_grid(x: FloatArray, n: int = 11) -> FloatArray:
+    s = _x_scale(x)
+    return _geom(0.03 / s, 30.0 / s, n)
+
+
+def _tail_level(x: FloatArray, y: FloatArray) -> float:
+    return _end_levels(x, y)[1]
+
+
+def seed_decay(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """``plateau + span*exp(-k*x)``: plateau from the tail, span and k from the semilog line."""
+    plateau = _tail_level(x, y)
+    span, k = semilog_rate(x, y, plateau)
+    return {"plateau": plateau, "span": span, "k": abs(k)}
+
+
+def grid_rate(name: str) -> GridFn:
+    """Rate-constant candidates spanning three decades either side of 1/(x range)."""
+
+    def grid(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+        return {name: _rate_grid(x)}
+
+    return grid
+
+
+def seed_two_phase(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Curve peeling (method of residuals, common practice): slow phase from the late half,
+    fast phase from what the slow one leaves early on."""
+    plateau = _tail_level(x, y)
+    ux, my = _means_by_x(x, y)
+    half = ux.size // 2
+    slow_span, k_slow = semilog_rate(ux[half:], my[half:], plateau)
+    early = my[:half] - plateau - slow_span * np.exp(-abs(k_slow) * ux[:half])
+    fast_span, k_fast = semilog_rate(ux[:half], early + 0.0, 0.0)
+    k_slow, k_fast = abs(k_slow), abs(k_fast)
+    if k_fast < k_slow:
+        k_fast = 3.0 * k_slow
+    return {
+        "plateau": plateau,
+        "span_fast": fast_span,
+        "k_fast": k_fast,
+        "span_slow": slow_span,
+        "k_slow": k_slow,
+    }
+
+
+def grid_two_phase(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+    """Pairs of rates over the data's time scales (the refinement sorts out which is fast)."""
+    g = _rate_grid(x, 8)
+    return {"k_fast": g, "k_slow": g}
+
+
+def finish_two_phase(v: dict[str, float]) -> dict[str, float]:
+    """Name the phases so that ``k_fast >= k_slow``."""
+    if v["k_fast"] < v["k_slow"]:
+        v = dict(v)
+        v["k_fast"], v["k_slow"] = v["k_slow"], v["k_fast"]
+        v["span_fast"], v["span_slow"] = v["span_slow"], v["span_fast"]
+    return v
+
+
+def seed_rise(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """``y0 + (plateau - y0)*(1 - exp(-k*x))``: plateau from the tail, k from the semilog line."""
+    plateau = _tail_level(x, y)
+    span, k = semilog_rate(x, y, plateau)
+    return {"y0": plateau + span, "plateau": plateau, "k": abs(k)}
+
+
+def seed_growth(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """``y0*exp(k*x)``: log-linear line through the data (plateau 0)."""
+    span, k = semilog_rate(x, y, 0.0)
+    return {"y0": span, "k": abs(k)}
+
+
+def seed_mm(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Hanes–Woolf on the replicate means."""
+    ux, my = _means_by_x(x, y)
+    est = hanes_woolf(ux, my)
+    vmax = est.Vmax if est.Vmax > 0 else float(np.max(my))
+    km = est.Km if est.Km > 0 else float(np.median(ux[ux > 0]))
+    return {"Vmax": vmax, "Km": km}
+
+
+def _conc_grid(x: FloatArray, n: int = 11) -> FloatArray:
+    pos = x[x > 0]
+    if pos.size == 0:
+        return _geom(1e-3, 1e3, n)
+    return _geom(float(np.min(pos)) / 10.0, float(np.max(pos)) * 10.0, n)
+
+
+def grid_conc(*names: str) -> GridFn:
+    """Concentration candidates from a tenth of the lowest to ten times the highest x."""
+
+    def grid(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+        return {n: _conc_grid(x, 9 if len(names) > 1 else 13) for n in names}
+
+    return grid
+
+
+def seed_substrate_inhibition(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Hanes–Woolf on the rising part; Ki from the peak position ``sqrt(Km*Ki)``."""
+    ux, my = _means_by_x(x, y)
+    ipk = int(np.argmax(my))
+    rising = slice(0, max(ipk + 1, 3))
+    try:
+        est = hanes_woolf(ux[rising], my[rising])
+        vmax, km = est
+    except DataError:
+        vmax, km = float(np.max(my)), float(ux[ipk])
+    if not (vmax > 0 and km > 0):
+        vmax, km = 2.0 * float(np.max(my)), max(float(ux[ipk]), 1e-12)
+    xpk = float(ux[ipk])
+    ki = xpk**2 / km if 0 < ipk < ux.size - 1 and xpk > 0 else 100.0 * float(np.max(ux))
+    return {"Vmax": vmax, "Km": km, "Ki": max(ki, 1e-12)}
+
+
+def seed_hill(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """``Vmax*x**n/(K**n + x**n)``: Vmax a little above the largest response, then the logit."""
+    ux, my = _means_by_x(x, y)
+    vmax = 1.05 * float(np.max(my))
+    try:
+        mid, slope = logit_line(ux, my, 0.0, vmax)
+        return {"Vmax": vmax, "K_half": 10.0**mid, "n_hill": max(abs(slope), 0.1)}
+    except DataError:
+        return {"Vmax": vmax, "K_half": float(np.median(ux[ux > 0])), "n_hill": 1.0}
+
+
+def grid_hill(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+    """Half-saturation over the concentration range, Hill coefficients 0.5 to 4."""
+    return {"K_half": _conc_grid(x, 9), "n_hill": np.array([0.5, 1.0, 2.0, 4.0])}
+
+
+def _log_mid_fallback(x: FloatArray, y: FloatArray, lo_level: float, hi_level: float) -> float:
+    """log10 of the x where the replicate means first cross halfway (interpolated)."""
+    ux, my = _means_by_x(x[x > 0], y[x > 0])
+    if ux.size == 0:
+        return 0.0
+    half = 0.5 * (lo_level + hi_level)
+    s = np.sign(my - half)
+    idx = np.nonzero(s[:-1] * s[1:] <= 0)[0]
+    if idx.size:
+        i = int(idx[0])
+        t0, t1 = math.log10(ux[i]), math.log10(ux[i + 1])
+        d0, d1 = my[i] - half, my[i + 1] - half
+        return t0 if d1 == d0 else t0 + (t1 - t0) * d0 / (d0 - d1)
+    return float(np.median(np.log10(ux)))
+
+
+def seed_logistic(kind: str) -> SeedFn:
+    """Dose–response seed: plateaus from the ends (zero-dose controls included), logit line.
+
+    ``kind`` is ``"inhibition"`` (the value at x = 0 is ``top``), ``"stimulation"`` (the value
+    at x = 0 is ``bottom``) or ``"three"`` (bottom fixed at 0, rising to ``top``).
+    """
+    mid_name = "logIC50" if kind == "inhibition" else "logEC50"
+
+    def seed(x: FloatArray, y: FloatArray) -> dict[str, float]:
+        low_end, high_end = _end_levels(x, y)
+        if kind == "three":
+            low_end = 0.0
+        try:
+            mid, slope = logit_line(x, y, low_end, high_end)
+            hill = min(max(abs(slope), 0.2), 5.0)
+        except DataError:
+            mid, hill = _log_mid_fallback(x, y, low_end, high_end), 1.0
+        out = {mid_name: mid, "hill": hill}
+        if kind == "inhibition":
+            out.update(top=low_end, bottom=high_end)
+        elif kind == "stimulation":
+            out.update(bottom=low_end, top=high_end)
+        else:
+            out.update(top=high_end)
+        return out
+
+    return seed
+
+
+def grid_logistic(mid_name: str, asymmetry: bool = False) -> GridFn:
+    """log10 midpoints over the dose range (a decade beyond each end), a few Hill slopes."""
+
+    def grid(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+        pos = x[x > 0]
+        lo, hi = (math.log10(float(np.min(pos))), math.log10(float(np.max(pos)))) if pos.size else (
+            -3.0,
+            3.0,
+        )
+        g: dict[str, FloatArray] = {
+            mid_name: np.linspace(lo - 1.0, hi + 1.0, 9),
+            "hill": np.array([0.5, 1.0, 2.0, 4.0]),
+        }
+        if asymmetry:
+            g["s"] = np.array([0.3, 1.0, 3.0])
+        return g
+
+    return grid
+
+
+def seed_logistic_growth(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """``K/(1 + (K/N0 - 1)*exp(-r*x))``: K above the largest value, r and N0 from the logit."""
+    ux, my = _means_by_x(x, y)
+    K = 1.05 * float(np.max(my))
+    try:
+        mid, slope = logit_line(ux, my, 0.0, K, log_x=False)
+        r = abs(slope) * _LN10
+        n0 = K / (1.0 + math.exp(min(r * mid, 700.0)))
+    except DataError:
+        r, n0 = 1.0 / _x_scale(ux), max(float(my[0]), 1e-12 * K)
+    return {"N0": max(n0, 1e-12 * abs(K)), "K": K, "r": max(r, 1e-12)}
+
+
+def grid_growth(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+    """Carrying capacities near the seed (the data may stop short of it) and rates around it."""
+    return {
+        "K": seed["K"] * np.array([1.0, 1.3, 2.0]),
+        "r": seed["r"] * np.array([0.3, 1.0, 3.0]),
+    }
+
+
+def seed_gompertz(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """``K*exp(log(N0/K)*exp(-r*x))``: K above the largest value; ``log(K/y)`` decays to 0 at
+    rate r, so the semilog line gives r and ``log(K/N0)``."""
+    ux, my = _means_by_x(x, y)
+    K = 1.05 * float(np.max(my))
+    pos = my > 0
+    span, r = semilog_rate(ux[pos], np.log(K / my[pos]), 0.0)
+    return {"N0": K * math.exp(-max(span, 1e-9)), "K": K, "r": max(abs(r), 1e-12)}
+
+
+def _peak_seed(x: FloatArray, y: FloatArray) -> tuple[float, float, float, float]:
+    """Baseline, signed amplitude, centre and full width at half maximum from the data."""
+    ux, my = _means_by_x(x, y)
+    if my.size >= 5:
+        # a 3-point running median keeps one noisy point from being taken for the apex
+        pad = np.concatenate([[my[0]], my, [my[-1]]])
+        sm = np.median(np.stack([pad[:-2], pad[1:-1], pad[2:]]), axis=0)
+    else:
+        sm = my
+    edge = max(1, round(0.1 * ux.size))
+    baseline = float(np.median(np.concatenate([sm[:edge], sm[-edge:]])))
+    dev = sm - baseline
+    i = int(np.argmax(np.abs(dev)))
+    amp = float(dev[i])
+    center = float(ux[i])
+    above = np.abs(dev) >= 0.5 * abs(amp)
+    # walk out from the apex to the half-maximum crossings on each side
+    left = i
+    while left > 0 and above[left - 1]:
+        left -= 1
+    right = i
+    while right < ux.size - 1 and above[right + 1]:
+        right += 1
+    fwhm = float(ux[min(right + 1, ux.size - 1)] - ux[max(left - 1, 0)]) * 0.75
+    if not fwhm > 0:
+        fwhm = 0.1 * _x_scale(ux)
+    return baseline, amp, center, fwhm
+
+
+def seed_gauss(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Peak position and width (half-maximum crossings) from the data; sigma = FWHM/2.3548."""
+    b, a, c, w = _peak_seed(x, y)
+    return {"baseline": b, "amplitude": a, "center": c, "sigma": w / (2.0 * math.sqrt(2 * math.log(2)))}
+
+
+def seed_lorentz(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Peak position and half width at half maximum from the data."""
+    b, a, c, w = _peak_seed(x, y)
+    return {"baseline": b, "amplitude": a, "center": c, "hwhm": w / 2.0}
+
+
+def grid_peak(width: str) -> GridFn:
+    """Centres across the data and widths from narrow to broad."""
+
+    def grid(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+        s = _x_scale(x)
+        lo, hi = float(np.min(x)), float(np.max(x))
+        centres = np.concatenate([[seed["center"]], np.linspace(lo, hi, 7)])
+        return {"center": centres, width: np.array([seed[width], 0.02 * s, 0.1 * s, 0.3 * s])}
+
+    return grid
+
+
+def seed_boltzmann(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Levels at the two ends, midpoint and slope from the logit line in x."""
+    low_end, high_end = _end_levels(x, y)
+    try:
+        mid, slope = logit_line(x, y, low_end, high_end, log_x=False)
+        k = 1.0 / (slope * _LN10)
+    except DataError:
+        mid, k = float(np.median(x)), 0.1 * _x_scale(x)
+    return {"bottom": low_end, "top": high_end, "V50": mid, "slope": k}
+
+
+def grid_boltzmann(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+    """Midpoints across the data, slope factors of either sign from 1/50 to 1/3 of the range."""
+    s = _x_scale(x)
+    mags = s * np.array([0.02, 0.07, 0.3])
+    return {
+        "V50": np.linspace(float(np.min(x)), float(np.max(x)), 7),
+        "slope": np.concatenate([mags, -mags]),
+    }
+
+
+def seed_power(x: FloatArray, y: FloatArray) -> dict[str, float]:
+    """Log–log line (of |y| when the data are negative)."""
+    sign = 1.0 if np.sum(y > 0) >= np.sum(y < 0) else -1.0
+    a, b = loglog_power(x, sign * y)
+    return {"a": sign * a, "b": b}
+
+
+def grid_power(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+    """Exponents from -3 to 3."""
+    return {"b": np.linspace(-3.0, 3.0, 13)}
+
+
+# ============================================================================ generic multi-start
+@dataclass(frozen=True)
+class _Range:
+    kind: str  # "log": magnitude 10**U(lo, hi) with a sign; "lin": U(lo, hi)
+    lo: float
+    hi: float
+    signs: tuple[float, ...] = (1.0,)
+
+
+def _unit_dims(unit: str) -> tuple[float, float] | None:
+    """(power of x, power of y) of a unit hint such as ``"y/x**2"``; None when not understood."""
+    u = unit.replace(" ", "")
+    table = {"x": (1.0, 0.0), "y": (0.0, 1.0), "1/x": (-1.0, 0.0), "y/x": (-1.0, 1.0), "1": (0.0, 0.0)}
+    if u in table:
+        return table[u]
+    if u.startswith("y/x**"):
+        try:
+            return (-float(u[5:]), 1.0)
+        except ValueError:
+            return None
+    return None
+
+
+def _infer_dims(model: Model) -> dict[str, tuple[float, float]]:
+    """Each parameter's dimension as powers of x and y, inferred from the formula.
+
+    Terms of a sum share a dimension, arguments of exp/log/trig functions and exponents are
+    dimensionless, and the whole formula has the dimension of y; the (least-squares, minimum
+    norm) solution of those equations gives a typical size ``|x|**a * |y|**b`` per parameter.
+    A heuristic for sampling only.
+    """
+    names = list(model.param_names)
+    if model.expr is None:
+        return {}
+    idx = {n: i for i, n in enumerate(names)}
+    rows: list[tuple[FloatArray, FloatArray]] = []  # (coefficients, constant) of "dim = 0"
+    P = len(names)
+    Lin = tuple[FloatArray, FloatArray]  # coefficients over params, constant (x, y) powers
+
+    def zero() -> Lin:
+        return np.zeros(P), np.zeros(2)
+
+    def eq(a: Lin, b: Lin) -> None:
+        rows.append((a[0] - b[0], a[1] - b[1]))
+
+    def walk(n: Mapping[str, Any]) -> Lin | None:
+        t = n.get("type")
+        if t in ("num", "const"):
+            return zero()
+        if t == "name":
+            c, k = zero()
+            if n["id"] == "x":
+                k[0] = 1.0
+            elif n["id"] in idx:
+                c[idx[n["id"]]] = 1.0
+            return c, k
+        if t == "neg":
+            return walk(n["arg"])
+        if t == "call":
+            arg = walk(n["args"][0])
+            fn = n["fn"]
+            if arg is None:
+                return None if fn in ("sqrt", "abs") else zero()
+            if fn == "sqrt":
+                return arg[0] / 2, arg[1] / 2
+            if fn == "abs":
+                return arg
+            eq(arg, zero())
+            return zero()
+        if t == "bin":
+            op = n["op"]
+            a = walk(n["left"])
+            if op == "**":
+                r = n["right"]
+                if r.get("type") == "num" or (r.get("type") == "neg" and r["arg"].get("type") == "num"):
+                    p = float(r["value"]) if r.get("type") == "num" else -float(r["arg"]["value"])
+                    return None if a is None else (a[0] * p, a[1] * p)
+                e = walk(r)
+                if e is not None:
+                    eq(e, zero())
+                return None
+            b = walk(n["right"])
+            if op in "+-":
+                if a is not None and b is not None:
+                    eq(a, b)
+                return a if a is not None else b
+            if a is None or b is None:
+                return None
+            if op == "*":
+                return a[0] + b[0], a[1] + b[1]
+            return a[0] - b[0], a[1] - b[1]
+        return None
+
+    top = walk(model.expr.to_json())
+    if top is not None:
+        c, k = zero()
+        k[1] = 1.0
+        eq(top, (c, k))
+    if not rows:
+        return {n: (0.0, 0.0) for n in names}
+    A = np.array([r[0] for r in rows])
+    B = -np.array([r[1] for r in rows])
+    D = np.linalg.lstsq(A, B, rcond=None)[0]
+    return {n: (float(D[i, 0]), float(D[i, 1])) for i, n in enumerate(names)}
+
+
+def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) -> dict[str, _Range]:
+    """Plausible sampling ranges for the named parameters from the data scales."""
+    ax = float(np.max(np.abs(x))) or 1.0
+    ay = float(np.max(np.abs(y))) or 1.0
+    inferred = _infer_dims(model)
+    pos = x[x > 0]
+    out: dict[str, _Range] = {}
+    for n in names:
+        p = model.param(n)
+        if p.unit.replace(" ", "") == "log10(x)":
+            lo, hi = (math.log10(float(np.min(pos))), math.log10(float(np.max(pos)))) if pos.size else (
+                -3.0,
+                3.0,
+            )
+            out[n] = _clamp_lin(p, lo - 1.0, hi + 1.0)
+            continue
+        dims = _unit_dims(p.unit) if p.unit else None
+        if dims is None:
+            dims = inferred.get(n, (0.0, 0.0))
+        if dims == (1.0, 0.0) and p.lower < 0:
+            # an x-valued parameter that may be negative is a location (a centre, a midpoint)
+            lo, hi = float(np.min(x)), float(np.max(x))
+            out[n] = _clamp_lin(p, lo - 0.5 * (hi - lo), hi + 0.5 * (hi - lo))
+            continue
+        c = dims[0] * math.log10(ax) + dims[1] * math.log10(ay)
+        lo_l, hi_l = c - 2.0, c + 2.0
+        signs: tuple[float, ...]
+        if p.lower >= 0:
+            signs = (1.0,)
+            if p.lower > 0:
+                lo_l = max(lo_l, math.log10(p.lower))
+            if math.isfinite(p.upper):
+                hi_l = min(hi_l, math.log10(p.upper)) if p.upper > 0 else lo_l
+        elif p.upper <= 0:
+            signs = (-1.0,)
+            if p.upper < 0:
+                lo_l = max(lo_l, math.log10(-p.upper))
+            if math.isfinite(p.lower):
+                hi_l = min(hi_l, math.log10(-p.lower))
+        elif math.isfinite(p.lower) and math.isfinite(p.upper):
+            out[n] = _Range("lin", p.lower, p.upper)
+            continue
+        else:
+            signs = (1.0, -1.0)
+        if hi_l < lo_l:
+            lo_l = hi_l
+        out[n] = _Range("log", lo_l, hi_l, signs)
+    return out
+
+
+def _clamp_lin(p: Param, lo: float, hi: float) -> _Range:
+    lo2, hi2 = max(lo, p.lower), min(hi, p.upper)
+    if hi2 < lo2:
+        lo2 = hi2 = min(max(p.value, p.lower), p.upper)
+    return _Range("lin", lo2, hi2)
+
+
+def _affine_subset(prob: _Problem, names: Sequence[str], bases: Sequence[dict[str, float]]) -> list[str]:
+    """The largest (greedy) set of parameters the model is jointly affine in, tested numerically."""
+    rng = np.random.default_rng(12345)
+    chosen: list[str] = []
+    for cand in names:
+        trial = [*chosen, cand]
+        ok = True
+        for base in bases:
+            f0 = prob.curve(base)
+            if not np.all(np.isfinite(f0)):
+                ok = False
+                break
+            steps = {n: max(abs(base[n]), 1e-3) for n in trial}
+            cols = {}
+            for n in trial:
+                v = dict(base)
+                v[n] = base[n] + steps[n]
+                cols[n] = prob.curve(v) - f0
+            delta = rng.normal(size=len(trial)) * 1.7
+            v = dict(base)
+            lin = f0.copy()
+            for d, n in zip(delta, trial, strict=True):
+                v[n] = base[n] + d * steps[n]
+                lin = lin + d * cols[n]
+            got = prob.curve(v)
+            scale = float(np.max(np.abs(f0))) + float(np.max(np.abs(lin))) + 1e-300
+            if not (np.all(np.isfinite(got)) and np.max(np.abs(got - lin)) <= 1e-8 * scale):
+                ok = False
+                break
+        if ok:
+            chosen.append(cand)
+    return chosen
+
+
+def generic_start(
+    model: Model,
+    x: ArrayLike,
+    y: ArrayLike,
+    *,
+    fixed: Mapping[str, float] | None = None,
+    n_starts: int | None = None,
+    seed: int = 0,
+) -> dict[str, float]:
+    """Starting values for any model without a user's numbers: scale-aware multi-start.
+
+    1. Each free parameter gets a plausible range from the data: from its unit hint (``"x"``,
+       ``"1/x"``, ``"y"``, ``"log10(x)"``, ...) or, failing that, its dimension inferred from
+       the formula, a magnitude ``|x|**a * |y|**b`` give or take two decades, sampled in log
+       space with either sign unless the bounds fix the sign; bounds are respected.
+    2. Parameters the model is affine in (detected numerically) are not sampled: for each trial
+       of the others they are solved by linear least squares.
+    3. A Latin hypercube (``scipy.stats.qmc``) of ``n_starts`` points, plus the model's default
+       values, each followed by a short least-squares run; the best few by residual sum of
+       squares are polished and the best is returned.
+
+    Parameters
+    ----------
+    model : Model
+    x, y : array_like
+        Finite data of equal length.
+    fixed : mapping, optional
+        Parameters held at given values.
+    n_starts : int, optional
+        Number of sampled starts (default ``12 + 8 * d`` for ``d`` searched parameters).
+    seed : int
+        Seed of the Latin hypercube, so results are reproducible.
+
+    Returns
+    -------
+    dict
+        A finite value within bounds for every parameter (fixed ones included).
+
+    Raises
+    ------
+    DataError
+        Non-finite data, unequal lengths, fewer than two points, x outside the model's domain.
+    ParameterError
+        ``fixed`` names an unknown parameter or gives a non-finite value.
+    """
+    xa, ya = _check_data(model, x, y)
+    held = _check_fixed(model, fixed)
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore")
+        return _generic(model, xa, ya, held, n_starts, seed)
+
+
+def _sample(ranges: Mapping[str, _Range], names: Sequence[str], n: int, seed: int) -> list[dict[str, float]]:
+    sign_names = [nm for nm in names if ranges[nm].kind == "log" and len(ranges[nm].signs) > 1]
+    d = len(names) + len(sign_names)
+    if n <= 0 or d == 0:
+        return []
+    pts = qmc.LatinHypercube(d=d, seed=seed).random(n)
+    out = []
+    for row in pts:
+        v: dict[str, float] = {}
+        for j, nm in enumerate(names):
+            r = ranges[nm]
+            t = r.lo + (r.hi - r.lo) * float(row[j])
+            if r.kind == "lin":
+                v[nm] = t
+            else:
+                sgn = r.signs[0]
+                if nm in sign_names:
+                    sgn = 1.0 if row[len(names) + sign_names.index(nm)] < 0.5 else -1.0
+                v[nm] = sgn * 10.0**t
+        out.append(v)
+    return out
+
+
+def _generic(
+    model: Model,
+    x: FloatArray,
+    y: FloatArray,
+    held: dict[str, float],
+    n_starts: int | None,
+    seed: int,
+) -> dict[str, float]:
+    free = [n for n in model.param_names if n not in held]
+    if not free:
+        return {**model.defaults(), **held}
+    ranges = _ranges(model, x, y, free)
+    base0 = _clip_into_bounds(model, {**model.defaults(), **held})
+    probe = _Problem.make(model, x, y, held, ())
+    trial_bases = [{**base0, **s} for s in _sample(ranges, free, 2, seed + 7)]
+    linear = _affine_subset(probe, free, trial_bases) if trial_bases else []
+    prob = _Problem.make(model, x, y, held, linear)
+    d = len(prob.nonlinear)
+    n = n_starts if n_starts is not None else 12 + 8 * d
+    starts = [base0] + [
+        _clip_into_bounds(model, {**base0, **s}) for s in _sample(ranges, prob.nonlinear, n, seed)
+    ]
+    nfev = 25 * (d + 1)
+    results = []
+    for s in starts:
+        r = prob.search(s, nfev) if prob.nonlinear else prob.project(s)
+        results.append((prob.ssr(r), r))
+    results.sort(key=lambda t: t[0])
+    best_ssr, best = math.inf, base0
+    for _, r in results[:3]:
+        pol = _polish(model, x, y, r, held, 200 * (len(free) + 1))
+        s = probe.ssr(pol)
+        if s < best_ssr:
+            best_ssr, best = s, pol
+    return _clip_into_bounds(model, {**best, **held})
+
+
+# ============================================================================ entry point
+def _accepts_fixed(rule: Callable[..., Any]) -> bool:
+    try:
+        sig = inspect.signature(rule)
+    except (TypeError, ValueError):
+        return False
+    return "fixed" in sig.parameters
+
+
+def guided_start(
+    model: Model,
+    x: ArrayLike,
+    y: ArrayLike,
+    *,
+    fixed: Mapping[str, float] | None = None,
+) -> dict[str, float]:
+    """Data-driven starting values for ``model`` on ``x, y``, without any number from the user.
+
+    Uses the model's own rule (``model.start_rule``) when it has one; a rule that fails or
+    returns non-finite values falls back to :func:`generic_start`, as do models without a rule.
+
+    Parameters
+    ----------
+    model : Model
+    x, y : array_like
+        Finite data of equal length (any order, replicates allowed).
+    fixed : mapping, optional
+        Parameters held at given values; the others are estimated given them.
+
+    Returns
+    -------
+    dict
+        A finite value within bounds for every parameter, fixed ones included.
+
+    Raises
+    ------
+    DataError
+        Non-finite data, unequal lengths, fewer than two points, x outside the model's domain.
+    ParameterError
+        ``fixed`` names an unknown parameter or gives a non-finite value.
+    """
+    xa, ya = _check_data(model, x, y)
+    held = _check_fixed(model, fixed)
+    rule = model.start_rule
+    if rule is not None:
+        try:
+            with warnings.catch_warnings(), np.errstate(all="ignore"):
+                warnings.simplefilter("ignore")
+                if isinstance(rule, (SeparableRule, PolynomialRule)):
+                    got = rule(xa, ya, fixed=held, model=model)
+                elif _accepts_fixed(rule):
+                    got = dict(rule(xa, ya, fixed=held))  # type: ignore[call-arg]
+                else:
+                    got = dict(rule(xa, ya))
+            values = {**model.defaults(), **{k: float(v) for k, v in got.items()}, **held}
+            unknown = [k for k in got if k not in model.param_names]
+            if not unknown and all(math.isfinite(v) for v in values.values()):
+                values = _clip_into_bounds(model, values)
+                if not held or isinstance(rule, (SeparableRule, PolynomialRule)):
+                    return {**values, **held}
+                # a user rule that ignores fixed values: re-estimate the others given them
+                with warnings.catch_warnings(), np.errstate(all="ignore"):
+                    warnings.simplefilter("ignore")
+                    pol = _polish(model, xa, ya, values, held, 100 * (len(model.params) + 1))
+                return _clip_into_bounds(model, {**pol, **held})
+        except (ArithmeticError, ValueError, np.linalg.LinAlgError):
+            pass  # the generic strategy below needs nothing from the rule
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore")
+        return _generic(model, xa, ya, held, None, 0)

@@ -1,0 +1,696 @@
+"""Uncertainty of a least-squares fit: parameter tests and intervals, derived quantities, bands,
+and inverse prediction.
+
+The maths lives in plain functions on numpy arrays (estimates, covariance, gradients, residual
+degrees of freedom) so each can be checked against a reference library directly; the functions
+taking a :class:`~curvewright.result.FitResult` only gather those arrays.
+
+Conventions (each also stated where it is implemented):
+
+* Wald intervals use Student's t with the fit's residual degrees of freedom.
+* Profile-likelihood intervals use the F-based threshold for one parameter,
+  ``SSR(theta_j) = SSR_min * (1 + F(level; 1, dof) / dof)``, with the other free parameters
+  re-optimised at each trial value of ``theta_j`` (our own refitting, so it also works on a
+  result rebuilt from JSON, given the model and the data).
+* Derived quantities: delta-method standard errors from the symbolic gradient over the free
+  parameters; fixed parameters contribute nothing.
+* Bands: ``f(x) +- t * sqrt(g(x)' C g(x))`` for the curve and, for a new observation, the
+  variance of that observation added under the root (see :func:`prediction_band` for how
+  weights enter).
+* Inverse prediction: the classical calibration interval, obtained by inverting the prediction
+  band (the x values whose prediction band contains the observed y).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+import scipy.optimize
+import scipy.stats
+from numpy.typing import ArrayLike, NDArray
+
+from curvewright.errors import DataError, ExtrapolationWarning, FitError, ParameterError
+
+if TYPE_CHECKING:
+    from curvewright.result import FitResult
+
+__all__ = [
+    "band",
+    "confidence_band",
+    "correlation_matrix",
+    "correlation_warnings",
+    "delta_method_se",
+    "derived_table",
+    "finite_difference_jacobian",
+    "inverse_predict",
+    "parameter_table",
+    "parameter_tests",
+    "prediction_band",
+    "profile_interval",
+    "profile_intervals",
+    "profile_threshold",
+    "t_quantile",
+    "wald_intervals",
+]
+
+FloatArray = NDArray[np.float64]
+
+#: Correlations beyond this (in absolute value) mean two parameters trade off so closely that the
+#: data barely tell them apart (common practice: 0.99 is the usual alarm level).
+HIGH_CORRELATION = 0.99
+
+
+def _check_level(level: float) -> float:
+    lv = float(level)
+    if not (0.0 < lv < 1.0):
+        raise ParameterError(
+            f"level must be a confidence level strictly between 0 and 1 (e.g. 0.95); got {level!r}."
+        )
+    return lv
+
+
+def _check_dof(dof: float) -> float:
+    d = float(dof)
+    if not d > 0:
+        raise DataError(
+            f"The fit has {dof} residual degrees of freedom; intervals need at least 1 "
+            "(more points than free parameters)."
+        )
+    return d
+
+
+# ------------------------------------------------------------------------- parameters
+def t_quantile(level: float, dof: float) -> float:
+    """Two-sided Student t quantile: ``t`` with ``P(|T| <= t) = level`` on ``dof`` df."""
+    return float(scipy.stats.t.ppf(0.5 + _check_level(level) / 2.0, _check_dof(dof)))
+
+
+def parameter_tests(
+    values: ArrayLike, stderr: ArrayLike, dof: float
+) -> tuple[FloatArray, FloatArray]:
+    """t statistics and two-sided p values for ``H0: parameter = 0``.
+
+    Returns
+    -------
+    t, p : ndarray
+        ``t = value / stderr`` and ``p = 2 P(T_dof > |t|)``; NaN where the standard error is not
+        finite or zero.
+    """
+    v = np.asarray(values, dtype=float)
+    se = np.asarray(stderr, dtype=float)
+    d = _check_dof(dof)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where((se > 0) & np.isfinite(se), v / se, np.nan)
+    p = 2.0 * scipy.stats.t.sf(np.abs(t), d)
+    return np.asarray(t, dtype=float), np.asarray(p, dtype=float)
+
+
+def wald_intervals(
+    values: ArrayLike, stderr: ArrayLike, dof: float, level: float = 0.95
+) -> tuple[FloatArray, FloatArray]:
+    """Asymptotic (Wald) intervals ``value +- t(level, dof) * stderr``."""
+    v = np.asarray(values, dtype=float)
+    se = np.asarray(stderr, dtype=float)
+    half = t_quantile(level, dof) * se
+    return v - half, v + half
+
+
+def correlation_matrix(cov: ArrayLike) -> FloatArray:
+    """Correlation matrix of a covariance matrix (NaN rows for zero or undefined variances)."""
+    c = np.asarray(cov, dtype=float)
+    if c.ndim != 2 or c.shape[0] != c.shape[1]:
+        raise DataError(f"cov must be a square matrix, got shape {c.shape}.")
+    d = np.sqrt(np.diag(c))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = c / np.outer(d, d)
+    r[np.diag_indices_from(r)] = np.where(d > 0, 1.0, np.nan)
+    return np.asarray(np.clip(r, -1.0, 1.0), dtype=float)
+
+
+def correlation_warnings(
+    corr: ArrayLike, names: Sequence[str], threshold: float = HIGH_CORRELATION
+) -> list[str]:
+    """Plain-language warnings for each pair of parameters with ``|r| > threshold``."""
+    r = np.asarray(corr, dtype=float)
+    out = []
+    for i in range(len(names)):
+        for j in range(i + 1, len(names)):
+            if np.isfinite(r[i, j]) and abs(r[i, j]) > threshold:
+                out.append(
+                    f"{names[i]} and {names[j]} are correlated with r = {r[i, j]:+.4f}: the data "
+                    "hardly separate them, so each alone is poorly determined. Fix one of them "
+                    "from prior knowledge, re-parametrise, or collect data where they act "
+                    "differently."
+                )
+    return out
+
+
+def delta_method_se(gradient: ArrayLike, cov: ArrayLike) -> FloatArray:
+    """Delta-method standard error(s) ``sqrt(g' C g)``.
+
+    Parameters
+    ----------
+    gradient : array_like, shape (p,) or (m, p)
+        Gradient of one quantity (or each of m quantities, one per row) over the free
+        parameters.
+    cov : array_like, shape (p, p)
+        Covariance of the free parameters.
+    """
+    g = np.atleast_2d(np.asarray(gradient, dtype=float))
+    c = np.asarray(cov, dtype=float)
+    if g.shape[1] != c.shape[0]:
+        raise DataError(
+            f"gradient has {g.shape[1]} entries per quantity but the covariance is "
+            f"{c.shape[0]} x {c.shape[0]}; both must run over the same free parameters."
+        )
+    var = np.einsum("ij,jk,ik->i", g, c, g)
+    with np.errstate(invalid="ignore"):
+        return np.asarray(np.sqrt(np.where(var >= 0, var, np.nan)), dtype=float)
+
+
+def finite_difference_jacobian(
+    func: Callable[[FloatArray], FloatArray],
+    theta: ArrayLike,
+    *,
+    lower: ArrayLike | None = None,
+    upper: ArrayLike | None = None,
+) -> FloatArray:
+    """Jacobian of ``func(theta) -> array of shape (n,)`` by central differences.
+
+    The step is ``eps**(1/3) * max(|theta_j|, 1e-8 * (1 + |theta_j|))`` (common practice: it
+    balances truncation against rounding error for central differences); near a bound the
+    difference becomes one-sided so ``func`` is never evaluated outside ``[lower, upper]``.
+
+    Returns
+    -------
+    ndarray, shape (n, p)
+    """
+    th = np.asarray(theta, dtype=float)
+    p = th.size
+    lo = np.full(p, -np.inf) if lower is None else np.asarray(lower, dtype=float)
+    hi = np.full(p, np.inf) if upper is None else np.asarray(upper, dtype=float)
+    f0 = np.asarray(func(th), dtype=float)
+    J = np.empty((f0.size, p))
+    base = np.finfo(float).eps ** (1.0 / 3.0)
+    for j in range(p):
+        h = base * max(abs(th[j]), 1.0e-8 * (1.0 + abs(th[j])), 1e-300)
+        up, dn = th.copy(), th.copy()
+        if th[j] + h <= hi[j] and th[j] - h >= lo[j]:
+            up[j] += h
+            dn[j] -= h
+            J[:, j] = (np.asarray(func(up)) - np.asarray(func(dn))) / (2.0 * h)
+        elif th[j] + h <= hi[j]:
+            up[j] += h
+            J[:, j] = (np.asarray(func(up)) - f0) / h
+        else:
+            dn[j] -= h
+            J[:, j] = (f0 - np.asarray(func(dn))) / h
+    return J
+
+
+# ------------------------------------------------------------------------------ bands
+def band(
+    fit: ArrayLike,
+    gradients: ArrayLike,
+    cov: ArrayLike,
+    dof: float,
+    level: float = 0.95,
+    *,
+    observation_variance: ArrayLike | float | None = None,
+) -> tuple[FloatArray, FloatArray]:
+    """Pointwise band ``fit +- t * sqrt(g' C g [+ observation_variance])``.
+
+    Parameters
+    ----------
+    fit : array_like, shape (m,)
+        The fitted curve at the band's x values.
+    gradients : array_like, shape (m, p)
+        ``df(x)/dtheta`` over the free parameters at each x.
+    cov : array_like, shape (p, p)
+        Covariance of the free parameters.
+    dof : float
+        Residual degrees of freedom (for the t quantile).
+    observation_variance : float or array_like, optional
+        Variance of one new observation at each x: give it for a prediction band, leave it out
+        for the confidence band of the curve.
+
+    Returns
+    -------
+    lower, upper : ndarray
+    """
+    f = np.asarray(fit, dtype=float)
+    var = np.einsum("ij,jk,ik->i", np.atleast_2d(np.asarray(gradients, dtype=float)),
+                    np.asarray(cov, dtype=float),
+                    np.atleast_2d(np.asarray(gradients, dtype=float)))
+    if observation_variance is not None:
+        var = var + np.asarray(observation_variance, dtype=float)
+    with np.errstate(invalid="ignore"):
+        half = t_quantile(level, dof) * np.sqrt(np.where(var >= 0, var, np.nan))
+    return f - half, f + half
+
+
+# ---------------------------------------------------------------------------- profile
+def profile_threshold(ssr_min: float, dof: float, level: float = 0.95) -> float:
+    """SSR level that bounds a one-parameter profile interval.
+
+    ``SSR_min * (1 + F(level; 1, dof) / dof)`` (common practice, e.g. Bates and Watts 1988; the
+    same F-based rule lmfit's ``conf_interval`` uses with one parameter fixed).
+    """
+    d = _check_dof(dof)
+    return float(ssr_min) * (1.0 + float(scipy.stats.f.ppf(_check_level(level), 1, d)) / d)
+
+
+@dataclass(frozen=True)
+class ProfileBound:
+    """One end of a profile interval: the value, or an infinity with the reason."""
+
+    value: float
+    note: str = ""
+
+
+def profile_interval(
+    ssr_at: Callable[[float], float],
+    estimate: float,
+    stderr: float,
+    threshold: float,
+    *,
+    lower_bound: float = -math.inf,
+    upper_bound: float = math.inf,
+    max_steps: int = 40,
+    xtol: float = 1e-10,
+) -> tuple[ProfileBound, ProfileBound]:
+    """Where the profile SSR of one parameter crosses ``threshold`` on each side of the estimate.
+
+    Parameters
+    ----------
+    ssr_at : callable
+        ``ssr_at(v)``: the smallest SSR with the parameter fixed at ``v`` and every other free
+        parameter re-optimised. May return ``inf`` or NaN where the model cannot be fitted.
+    estimate, stderr : float
+        The estimate (where the profile has its minimum) and its standard error, which sets the
+        first step of the search for a bracket.
+    threshold : float
+        From :func:`profile_threshold`.
+    lower_bound, upper_bound : float
+        The parameter's bounds; the search never leaves them.
+
+    Returns
+    -------
+    lower, upper : ProfileBound
+        ``-inf`` / ``inf`` with a note when the profile stays below the threshold up to the bound
+        or over the whole search (the data do not bound the parameter on that side).
+
+    Notes
+    -----
+    The search steps outwards by ``0.5 * stderr`` times a doubling factor until the profile
+    exceeds the threshold, then finds the crossing with Brent's method.
+    """
+    step0 = stderr if (math.isfinite(stderr) and stderr > 0) else max(abs(estimate), 1.0) * 0.1
+    step0 *= 0.5
+
+    def g(v: float) -> float:
+        s = float(ssr_at(v))
+        return s - threshold if math.isfinite(s) else math.inf
+
+    out: list[ProfileBound] = []
+    for sign, bound in ((-1.0, lower_bound), (1.0, upper_bound)):
+        inner = estimate
+        step = step0
+        found: ProfileBound | None = None
+        for _ in range(max_steps):
+            trial = estimate + sign * step
+            at_bound = (sign < 0 and trial <= bound) or (sign > 0 and trial >= bound)
+            if at_bound:
+                trial = bound
+            gv = g(trial)
+            if gv > 0:
+                if math.isinf(gv):
+                    # Cannot evaluate out there: home in on where evaluation stops working.
+                    lo_t, hi_t = inner, trial
+                    for _ in range(60):
+                        mid = 0.5 * (lo_t + hi_t)
+                        gm = g(mid)
+                        if math.isinf(gm):
+                            hi_t = mid
+                        elif gm > 0:
+                            trial = mid
+                            break
+                        else:
+                            lo_t = mid
+                    else:
+                        side = "lower" if sign < 0 else "upper"
+                        found = ProfileBound(
+                            sign * math.inf,
+                            f"the model cannot be fitted beyond {hi_t:.6g} and the profile "
+                            f"stays below the threshold there; no {side} limit.",
+                        )
+                        break
+                a, b = (trial, inner) if sign < 0 else (inner, trial)
+                root = scipy.optimize.brentq(g, a, b, xtol=xtol * max(1.0, abs(estimate)))
+                found = ProfileBound(float(root))
+                break
+            inner = trial
+            if at_bound:
+                found = ProfileBound(
+                    sign * math.inf,
+                    f"the profile stays below the threshold up to the bound {bound:g}.",
+                )
+                break
+            step *= 2.0
+        if found is None:
+            found = ProfileBound(
+                sign * math.inf,
+                "the profile stays below the threshold as far as the search went; the data do "
+                "not bound this parameter on this side.",
+            )
+        out.append(found)
+    return out[0], out[1]
+
+
+# ============================================================================ FitResult layer
+def _quantile(result: FitResult, level: float) -> float:
+    """Two-sided quantile as the result's own intervals use it: Student t on ``dof``, or the
+    normal quantile when sigma was taken as exact (``absolute_sigma``)."""
+    lv = _check_level(level)
+    if result.absolute_sigma:
+        return float(scipy.stats.norm.ppf(0.5 + lv / 2.0))
+    return t_quantile(lv, result.dof)
+
+
+def _require_least_squares(result: FitResult, what: str) -> None:
+    if result.loss != "linear":
+        raise FitError(
+            f"{what} assumes a least-squares fit, but this fit used the robust {result.loss!r} "
+            "loss, whose sum of squares does not follow the same distribution. Refit with "
+            "loss='linear' (after excluding the outliers the robust fit revealed)."
+        )
+
+
+def _as_x(x: ArrayLike, what: str = "x") -> FloatArray:
+    try:
+        xa = np.asarray(x, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise DataError(f"{what} must be numbers ({exc}).") from exc
+    if xa.ndim == 0:
+        xa = xa.reshape(1)
+    if xa.ndim != 1:
+        raise DataError(f"{what} must be one-dimensional, got shape {xa.shape}.")
+    if not np.all(np.isfinite(xa)):
+        raise DataError(f"{what} holds non-finite values; give finite numbers.")
+    return xa
+
+
+def values_from_free(result: FitResult, theta: ArrayLike) -> dict[str, float]:
+    """All parameter values with the free ones set to ``theta`` (in ``result.free`` order).
+
+    Fixed parameters keep their values; linked ones are recomputed from their expressions.
+    """
+    from curvewright.expr import Expr
+
+    th = np.asarray(theta, dtype=float)
+    vals = dict(result.values)
+    for name, v in zip(result.free, th):
+        vals[name] = float(v)
+    if result.linked:
+        exprs = {n: Expr.parse(e) for n, e in result.linked.items()}
+        # Links may refer to other links; as many passes as links resolve any chain.
+        for _ in range(len(exprs)):
+            for n, e in exprs.items():
+                with np.errstate(all="ignore"):
+                    vals[n] = float(np.asarray(e.evaluate(vals)))
+    return vals
+
+
+def model_gradient(result: FitResult, x: ArrayLike) -> FloatArray:
+    """``df(x)/dtheta`` over the free parameters at the solution, shape ``(len(x), nfree)``.
+
+    Formula models: the symbolic derivative of the formula with respect to every parameter,
+    chained through ``result.param_jacobian`` (so links are honoured and fixed parameters give
+    zero). Python-callable models: central finite differences over the free parameters (see
+    :func:`finite_difference_jacobian`), links recomputed at each step.
+    """
+    xa = _as_x(x)
+    model = result.model
+    if result.nfree == 0:
+        return np.zeros((xa.size, 0))
+    if model.expr is not None:
+        env: dict[str, Any] = {**dict(result.values), "x": xa}
+        cols = []
+        for name in model.param_names:
+            d = model.expr.derivative(name)
+            with np.errstate(all="ignore"):
+                cols.append(np.broadcast_to(np.asarray(d.evaluate(env), dtype=float), xa.shape))
+        g_all = np.column_stack(cols) if cols else np.zeros((xa.size, 0))
+        return np.asarray(g_all @ result.param_jacobian, dtype=float)
+    theta = np.array([result.values[n] for n in result.free])
+    lo = np.array([result.bounds.get(n, (-math.inf, math.inf))[0] for n in result.free])
+    hi = np.array([result.bounds.get(n, (-math.inf, math.inf))[1] for n in result.free])
+
+    def curve(th: FloatArray) -> FloatArray:
+        return model.eval(xa, values_from_free(result, th))
+
+    return finite_difference_jacobian(curve, theta, lower=lo, upper=hi)
+
+
+@dataclass(frozen=True)
+class Correlation:
+    """Correlation of the free parameters and the warnings for pairs with ``|r| > threshold``."""
+
+    matrix: pd.DataFrame
+    warnings: tuple[str, ...]
+
+    def _repr_html_(self) -> str:
+        table: str = self.matrix.to_html(float_format=lambda v: f"{v:+.3f}")
+        notes = "".join(f"<li>{w}</li>" for w in self.warnings)
+        return table + (f"<ul>{notes}</ul>" if notes else "")
+
+
+def correlation(result: FitResult, threshold: float = HIGH_CORRELATION) -> Correlation:
+    """Correlation matrix of the free parameters, with a warning for each pair above
+    ``threshold`` in absolute value.
+
+    Parameters
+    ----------
+    result : FitResult
+    threshold : float
+        Alarm level for ``|r|`` (default 0.99, common practice).
+    """
+    names = list(result.free)
+    corr = correlation_matrix(result.covariance) if names else np.zeros((0, 0))
+    frame = pd.DataFrame(corr, index=pd.Index(names, name="parameter"), columns=names)
+    return Correlation(frame, tuple(correlation_warnings(corr, names, threshold)))
+
+
+def parameter_table(result: FitResult, level: float = 0.95) -> pd.DataFrame:
+    """Estimates with standard error, t, p and Wald interval, one row per parameter.
+
+    Parameters
+    ----------
+    result : FitResult
+    level : float
+        Coverage of the intervals.
+
+    Returns
+    -------
+    DataFrame
+        Indexed by parameter (model order): ``value, stderr, t, p, lower, upper, status``.
+        ``t = value / stderr`` and ``p`` is two-sided for ``H0: parameter = 0`` on the fit's
+        residual degrees of freedom (normal when sigma was taken as exact). Intervals are
+        ``value +- q * stderr``. Fixed parameters have NaN statistics; ``status`` is ``free``,
+        ``fixed`` or ``linked``.
+
+    Notes
+    -----
+    The test of ``parameter = 0`` answers a question only when 0 means "no effect" (a slope, a
+    second phase's amplitude); for a rate constant or a Km it is rarely of interest.
+    """
+    q = _quantile(result, level)
+    names = list(result.model.param_names)
+    value = np.array([result.values[n] for n in names])
+    se = np.array([result.stderr[n] for n in names])
+    fixed = np.array([n in result.fixed for n in names])
+    se = np.where(fixed, np.nan, se)
+    if result.absolute_sigma:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.where((se > 0) & np.isfinite(se), value / se, np.nan)
+        p = 2.0 * scipy.stats.norm.sf(np.abs(t))
+    else:
+        t, p = parameter_tests(value, se, result.dof)
+    status = ["fixed" if n in result.fixed else "linked" if n in result.linked else "free"
+              for n in names]
+    out: pd.DataFrame = pd.DataFrame(
+        {
+            "value": value,
+            "stderr": se,
+            "t": t,
+            "p": p,
+            "lower": value - q * se,
+            "upper": value + q * se,
+            "status": status,
+        },
+        index=pd.Index(names, name="parameter"),
+    )
+    return out
+
+
+def derived_table(result: FitResult, level: float = 0.95) -> pd.DataFrame:
+    """Derived quantities (half-life, EC50, ...) with delta-method standard errors and intervals.
+
+    The value and standard error come from :meth:`FitResult.derived` (symbolic gradient through
+    links, ``sqrt(g' C g)`` over the free parameters, fixed parameters contributing nothing);
+    this adds ``extrapolated``: True for an x-axis quantity (EC50, Km, a half-life) outside the
+    range of x in the data, where the data say little about it.
+
+    Returns
+    -------
+    DataFrame
+        Indexed by name: ``value, stderr, lower, upper, extrapolated, unit, description``.
+    """
+    _check_level(level)
+    d = result.derived(level)
+    out: pd.DataFrame = pd.DataFrame(
+        {
+            "value": d["value"].astype(float),
+            "stderr": d["stderr"].astype(float),
+            "lower": d["lower"].astype(float),
+            "upper": d["upper"].astype(float),
+            "extrapolated": [v is False for v in d["in_data_range"]],
+            "unit": d["unit"],
+            "description": d["description"],
+        },
+        index=d.index,
+    )
+    return out
+
+
+# ------------------------------------------------------------------------------ bands
+def _observation_sd(
+    result: FitResult, x: FloatArray, fit: FloatArray, sigma: ArrayLike | float | None
+) -> FloatArray:
+    """Standard deviation of one new observation at each x, in the fit's weighting units."""
+    if sigma is not None:
+        s = np.broadcast_to(np.asarray(sigma, dtype=float), x.shape).astype(float)
+        if np.any(~np.isfinite(s)) or np.any(s <= 0):
+            raise DataError("sigma for new observations must be positive and finite.")
+        return s
+    if result.weights is None or result.weighting == "none":
+        return np.ones_like(x)
+    if result.weighting == "relative":
+        return np.abs(fit)
+    if result.weighting == "poisson":
+        return np.sqrt(np.abs(fit))
+    # Given sigma: interpolate the data's sigma in x (constant beyond the ends); replicates at
+    # one x are averaged first so the interpolation is well defined.
+    xd = result.x
+    sd = 1.0 / np.asarray(result.weights, dtype=float)
+    ux, inv = np.unique(xd, return_inverse=True)
+    mean_sd = np.bincount(inv, weights=sd) / np.bincount(inv)
+    return np.asarray(np.interp(x, ux, mean_sd), dtype=float)
+
+
+def _band_frame(
+    result: FitResult,
+    x: ArrayLike,
+    level: float,
+    prediction: bool,
+    sigma: ArrayLike | float | None,
+    replicates: int,
+) -> pd.DataFrame:
+    xa = _as_x(x)
+    _require_least_squares(result, "A confidence or prediction band")
+    q = _quantile(result, level)
+    fit = result.predict(xa)
+    G = model_gradient(result, xa)
+    var = np.einsum("ij,jk,ik->i", G, np.asarray(result.covariance), G)
+    if prediction:
+        if isinstance(replicates, bool) or int(replicates) != replicates or replicates < 1:
+            raise ParameterError(f"replicates must be a whole number >= 1, got {replicates!r}.")
+        s2 = 1.0 if result.absolute_sigma else result.ssr / result.dof
+        sd = _observation_sd(result, xa, fit, sigma)
+        var = var + s2 * sd**2 / int(replicates)
+    with np.errstate(invalid="ignore"):
+        half = q * np.sqrt(np.where(var >= 0, var, np.nan))
+    out: pd.DataFrame = pd.DataFrame(
+        {"x": xa, "fit": fit, "lower": fit - half, "upper": fit + half}
+    )
+    return out
+
+
+def confidence_band(result: FitResult, x: ArrayLike, level: float = 0.95) -> pd.DataFrame:
+    """Pointwise confidence band of the fitted curve.
+
+    ``f(x) +- q * sqrt(g(x)' C g(x))`` with ``g`` the gradient of the curve over the free
+    parameters (symbolic for formula models, finite differences for Python functions), ``C``
+    the covariance and ``q`` the Student t quantile on the residual degrees of freedom (normal
+    when sigma was taken as exact). It says where the true curve lies, not where new data fall.
+
+    Parameters
+    ----------
+    result : FitResult
+        A least-squares fit.
+    x : array_like
+        Where to evaluate the band.
+    level : float
+        Pointwise coverage.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``x, fit, lower, upper``.
+
+    Raises
+    ------
+    FitError
+        The fit used a robust loss.
+    """
+    return _band_frame(result, x, level, False, None, 1)
+
+
+def prediction_band(
+    result: FitResult,
+    x: ArrayLike,
+    level: float = 0.95,
+    *,
+    sigma: ArrayLike | float | None = None,
+    replicates: int = 1,
+) -> pd.DataFrame:
+    """Pointwise prediction band: where a new observation (or the mean of ``replicates``) falls.
+
+    ``f(x) +- q * sqrt(g(x)' C g(x) + s**2 * sd(x)**2 / m)`` where ``s**2`` is the residual
+    variance ``ssr / dof`` (1 when sigma was taken as exact), ``m = replicates`` and ``sd(x)``
+    the new observation's standard deviation in the units the fit weighted by:
+
+    * unweighted fit: ``sd = 1``, so the added variance is ``s**2``;
+    * relative weighting (``1/y**2``): ``sd = |f(x)|``; Poisson weighting: ``sd = sqrt|f(x)|``;
+    * given sigma: ``sigma`` if passed here, else the data's sigma interpolated linearly in x
+      (replicates averaged, held constant beyond the ends of the data). Pass ``sigma`` when you
+      know the standard deviation of the new measurement.
+
+    This is the usual weighted least-squares rule: a point of weight ``w = 1/sd**2`` has
+    variance ``s**2 / w``.
+
+    Parameters
+    ----------
+    result : FitResult
+        A least-squares fit.
+    x : array_like
+        Where to evaluate the band.
+    level : float
+        Pointwise coverage.
+    sigma : float or array_like, optional
+        Standard deviation of the new observation(s) at each x (weighted fits only matter).
+    replicates : int
+        Number of new observations averaged (1 for a single reading).
+
+    Returns
+    -------
+    DataFrame
+        Columns ``x, fit, lower, upper``.
+    """
+    return _band_frame(result, x, level, True, sigma, replicates)

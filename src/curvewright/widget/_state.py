@@ -1,0 +1,312 @@
+"""Convert between the library's objects and the JSON the widget syncs with the front end.
+
+Pure functions (no traitlets): parameter settings <-> the ``params`` trait with validation,
+a dataset -> the ``data`` trait (decimated beyond a point budget), a fit result -> ``fitted``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any, Literal
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..data import Dataset
+from ..errors import DataError, ParameterError
+from ..models import Model, unknown_name_message
+
+__all__ = [
+    "MAX_POINTS",
+    "ParamSetting",
+    "Scale",
+    "auto_x_scale",
+    "data_view",
+    "decimate_rows",
+    "params_json",
+    "parse_params",
+    "validate_setting",
+]
+
+Scale = Literal["linear", "log"]
+SCALES: tuple[Scale, ...] = ("linear", "log")
+
+# The front end is sent every point up to this many; beyond it a thinned view that keeps the
+# cloud's shape (the fit in Python always uses every point). 20k circles still draw smoothly.
+MAX_POINTS = 20_000
+
+# A parameter's editable state: value, bounds (+-inf for none) and whether it is held fixed.
+ParamSetting = dict[str, Any]
+
+
+def _num(v: object, what: str) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
+        raise ParameterError(f"{what} must be a number, got {v!r} ({type(v).__name__}).")
+    return float(v)
+
+
+def validate_setting(
+    model: Model, name: str, value: float, lower: float, upper: float, fixed: bool
+) -> ParamSetting:
+    """Check one parameter's settings and return them normalised.
+
+    Raises
+    ------
+    ParameterError
+        NaN or infinite value, NaN bounds, lower above upper, value outside the bounds, a
+        negative value or lower bound for a parameter the model declares positive.
+    """
+    p = model.param(name)
+    if not math.isfinite(value):
+        raise ParameterError(f"Parameter {name!r}: value must be a finite number, got {value}.")
+    if math.isnan(lower) or math.isnan(upper):
+        raise ParameterError(f"Parameter {name!r}: bounds must be numbers or empty, not NaN.")
+    if lower > upper:
+        raise ParameterError(
+            f"Parameter {name!r}: lower bound {lower:g} is above upper bound {upper:g}; "
+            "swap them or widen the range."
+        )
+    if not lower <= value <= upper:
+        raise ParameterError(
+            f"Parameter {name!r}: value {value:g} lies outside its bounds [{lower:g}, {upper:g}]; "
+            "give a value inside them or change the bounds."
+        )
+    if p.positive and (value < 0 or lower < 0):
+        raise ParameterError(
+            f"Parameter {name!r} is positive ({p.description or 'by its meaning'}); "
+            f"value {value:g} and lower bound {lower:g} must not be negative."
+        )
+    return {"value": value, "lower": lower, "upper": upper, "fixed": bool(fixed)}
+
+
+def _bound_from_json(v: object, side: str, name: str) -> float:
+    if v is None:
+        return -math.inf if side == "lower" else math.inf
+    return _num(v, f"Parameter {name!r}: {side} bound")
+
+
+def parse_params(model: Model, raw: object) -> dict[str, ParamSetting]:
+    """Validate a whole ``params`` trait value (as the front end sends it).
+
+    Every parameter of the model must be present, and no other name.
+    """
+    if not isinstance(raw, Mapping):
+        raise ParameterError(f"params must be a mapping name -> settings, got {type(raw).__name__}.")
+    unknown = [k for k in raw if k not in model.param_names]
+    if unknown:
+        raise ParameterError(unknown_name_message(str(unknown[0]), model.param_names, repr(model.name)))
+    missing = [n for n in model.param_names if n not in raw]
+    if missing:
+        raise ParameterError(f"params lacks settings for {missing}; every parameter needs one.")
+    out: dict[str, ParamSetting] = {}
+    for name in model.param_names:
+        entry = raw[name]
+        if not isinstance(entry, Mapping):
+            raise ParameterError(
+                f"params[{name!r}] must be a mapping with value, lower, upper, fixed; "
+                f"got {type(entry).__name__}."
+            )
+        value = _num(entry.get("value"), f"Parameter {name!r}: value")
+        lower = _bound_from_json(entry.get("lower"), "lower", name)
+        upper = _bound_from_json(entry.get("upper"), "upper", name)
+        fixed = entry.get("fixed", False)
+        if not isinstance(fixed, bool):
+            raise ParameterError(f"Parameter {name!r}: fixed must be true or false, got {fixed!r}.")
+        out[name] = validate_setting(model, name, value, lower, upper, fixed)
+    return out
+
+
+def _json_float(v: float) -> float | None:
+    return v if math.isfinite(v) else None
+
+
+def params_json(settings: Mapping[str, ParamSetting]) -> dict[str, dict[str, Any]]:
+    """The ``params`` trait value: infinite bounds become ``null`` (JSON has no infinity)."""
+    return {
+        n: {
+            "value": float(s["value"]),
+            "lower": _json_float(float(s["lower"])),
+            "upper": _json_float(float(s["upper"])),
+            "fixed": bool(s["fixed"]),
+        }
+        for n, s in settings.items()
+    }
+
+
+def settings_from_model(
+    model: Model, values: Mapping[str, float] | None = None
+) -> dict[str, ParamSetting]:
+    """Default settings: the model's bounds, the given (or default) values, nothing fixed.
+
+    A starting value outside the model's bounds (a guess rule overshooting) is moved to the
+    nearest bound here, where the caller knows it is a start, not a user's setting.
+    """
+    out: dict[str, ParamSetting] = {}
+    for p in model.params:
+        v = float((values or {}).get(p.name, p.value))
+        if not math.isfinite(v):
+            v = p.value
+        v = min(max(v, p.lower), p.upper)
+        out[p.name] = {"value": v, "lower": p.lower, "upper": p.upper, "fixed": False}
+    return out
+
+
+# ------------------------------------------------------------------------------ axes
+def auto_x_scale(x: NDArray[np.float64]) -> Scale:
+    """``"log"`` when no x is negative and the positive x span more than two decades.
+
+    Zero x (untreated controls in a dose-response) do not veto a log axis: they are listed as
+    off the axis by :func:`data_view` instead.
+    """
+    if x.size == 0 or np.any(x < 0):
+        return "linear"
+    pos = x[x > 0]
+    if pos.size < 2:
+        return "linear"
+    return "log" if float(pos.max()) / float(pos.min()) > 100.0 else "linear"
+
+
+def check_scale(value: object, which: str) -> Scale:
+    """Validate an axis scale name."""
+    if value == "linear":
+        return "linear"
+    if value == "log":
+        return "log"
+    raise DataError(f"{which} must be 'linear' or 'log', got {value!r}.")
+
+
+# --------------------------------------------------------------------------- decimation
+def _axis(v: NDArray[np.float64], scale: Scale) -> NDArray[np.float64]:
+    if scale == "linear":
+        return v
+    with np.errstate(all="ignore"):
+        return np.where(v > 0, np.log10(np.where(v > 0, v, 1.0)), np.nan)
+
+
+def decimate_rows(
+    x: NDArray[np.float64],
+    y: NDArray[np.float64],
+    keep: NDArray[np.bool_],
+    budget: int,
+    x_scale: Scale = "linear",
+    y_scale: Scale = "linear",
+) -> NDArray[np.int64]:
+    """Positions of a subset of points, at most about ``budget``, that looks like all of them.
+
+    The plot area (in axis units) is cut into a grid of about ``budget`` cells; the first point
+    in each occupied cell is kept, plus the lowest and highest point of each grid column, so the
+    cloud's interior density is shown and its outline and outliers are never lost. Points with
+    ``keep`` true (the excluded ones, which the user must see and be able to re-include) and
+    points that cannot be placed on the axes are always kept.
+    """
+    n = x.size
+    ax, ay = _axis(x, x_scale), _axis(y, y_scale)
+    ok = np.isfinite(ax) & np.isfinite(ay)
+    must = keep | ~ok
+    idx = np.flatnonzero(ok & ~keep)
+    if idx.size == 0:
+        return np.flatnonzero(must).astype(np.int64)
+    # Column extremes take up to 2 points per column; leave them a tenth of the budget.
+    cols = max(1, int(math.sqrt(budget * 0.9 * 1.6)))  # a wider-than-tall plot
+    rows = max(1, int(budget * 0.9 / cols))
+    xs, ys = ax[idx], ay[idx]
+
+    def cell(v: NDArray[np.float64], k: int) -> NDArray[np.int64]:
+        lo, hi = float(v.min()), float(v.max())
+        span = hi - lo if hi > lo else 1.0
+        return np.minimum(((v - lo) / span * k).astype(np.int64), k - 1)
+
+    cx, cy = cell(xs, cols), cell(ys, rows)
+    flat = cx * rows + cy
+    _, first = np.unique(flat, return_index=True)
+    order = np.lexsort((ys, cx))  # by column, then y within a column
+    col_sorted = cx[order]
+    starts = np.flatnonzero(np.r_[True, col_sorted[1:] != col_sorted[:-1]])
+    ends = np.r_[starts[1:], col_sorted.size] - 1
+    chosen = np.zeros(n, dtype=bool)
+    chosen[idx[first]] = True
+    chosen[idx[order[starts]]] = True
+    chosen[idx[order[ends]]] = True
+    chosen |= must
+    return np.flatnonzero(chosen).astype(np.int64)
+
+
+def _list(a: NDArray[Any]) -> list[Any]:
+    return [None if isinstance(v, float) and not math.isfinite(v) else v for v in a.tolist()]
+
+
+def data_view(
+    ds: Dataset,
+    excluded: Sequence[int],
+    x_scale: Scale,
+    y_scale: Scale,
+    model: Model | None = None,
+    budget: int = MAX_POINTS,
+) -> dict[str, Any]:
+    """The ``data`` trait: the points to draw and which input rows they are.
+
+    ``off_axis`` lists input rows that cannot be drawn on the current axes (x <= 0 on a log x
+    axis, y <= 0 on a log y axis) and ``outside_domain`` those outside the model's domain, so the
+    front end can list them instead of silently dropping them.
+    """
+    ex_rows = np.asarray(sorted(set(excluded)), dtype=np.int64)
+    is_ex = np.isin(ds.row, ex_rows)
+    n = ds.x.size
+    if n > budget:
+        pos = decimate_rows(ds.x, ds.y, is_ex, budget, x_scale, y_scale)
+    else:
+        pos = np.arange(n, dtype=np.int64)
+    off = np.zeros(n, dtype=bool)
+    if x_scale == "log":
+        off |= ds.x <= 0
+    if y_scale == "log":
+        off |= ds.y <= 0
+    outside = np.zeros(n, dtype=bool)
+    if model is not None and model.domain != "all":
+        outside = ds.x <= 0 if model.domain == "x>0" else ds.x < 0
+    return {
+        "x": _list(ds.x[pos]),
+        "y": _list(ds.y[pos]),
+        "row": ds.row[pos].tolist(),
+        "sigma": None if ds.sigma is None else _list(ds.sigma[pos]),
+        "excluded": ex_rows.tolist(),
+        "x_label": ds.x_label,
+        "y_label": ds.y_label,
+        "n_total": int(n),
+        "decimated": bool(pos.size < n),
+        "off_axis": ds.row[off].tolist(),
+        "outside_domain": ds.row[outside].tolist(),
+    }
+
+
+def check_rows(ds: Dataset, rows: object, what: str) -> list[int]:
+    """Validate input-row indices (``exclude``/``include`` arguments, the ``excluded`` trait)."""
+    if isinstance(rows, (int, np.integer)) and not isinstance(rows, bool):
+        rows = [rows]
+    arr = np.asarray(rows)
+    if arr.size == 0:
+        return []
+    if arr.dtype == bool:
+        if arr.shape != (ds.n_input,):
+            raise DataError(
+                f"{what} as a boolean mask must have one entry per input row ({ds.n_input}), "
+                f"got shape {arr.shape}."
+            )
+        arr = np.flatnonzero(arr)
+    elif arr.dtype.kind not in "iu":
+        raise DataError(f"{what} must be input-row indices (integers), got {rows!r}.")
+    arr = arr.ravel()
+    bad = arr[(arr < 0) | (arr >= ds.n_input)]
+    if bad.size:
+        raise DataError(
+            f"{what} names rows {bad[:5].tolist()} outside 0..{ds.n_input - 1}; "
+            "use indices of the input rows."
+        )
+    dropped = np.setdiff1d(arr, ds.row)
+    if dropped.size:
+        raise DataError(
+            f"{what} names rows {dropped[:5].tolist()} that were dropped for missing (NaN) "
+            "values; they are not in the data."
+        )
+    return sorted({int(v) for v in arr})
