@@ -663,8 +663,9 @@ def test_substitute_errors() -> None:
 
 
 def _central_difference(expr: Expr, env: dict[str, float], var: str, step: float = 1e-6) -> float:
-    # Five-point central difference, error O(h**4) (Abramowitz & Stegun 25.3.6).
-    h = step * max(1.0, abs(env[var]))
+    # Five-point central difference, error O(h**4) (Abramowitz & Stegun 25.3.6). The step is
+    # relative to the value so that small values (x = 2e-6 M) are not stepped across.
+    h = step * (abs(env[var]) or 1.0)
 
     def at(offset: float) -> float:
         return float(expr.evaluate({**env, var: env[var] + offset}))

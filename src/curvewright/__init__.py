@@ -1,0 +1,72 @@
+"""curvewright: guided nonlinear model fitting for notebooks.
+
+The headless library (models, guided starting values, fitting, results, statistics) is imported
+here; the notebook widget is imported lazily on first use (``curvewright.CurveFitter``) so that
+scripts never load traitlets or IPython.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from ._version import __version__
+from .catalog import catalog, polynomial
+from .data import Dataset, make_dataset
+from .errors import (
+    ComparisonError,
+    CurvewrightError,
+    CurvewrightWarning,
+    DataError,
+    DomainError,
+    ExtrapolationWarning,
+    FitError,
+    FormulaError,
+    ModelError,
+    ParameterError,
+    RankDeficiencyWarning,
+)
+from .fitting import fit
+from .models import Derived, Handle, Model, Param
+from .result import CAUTION, FitResult
+from .start import generic_start, guided_start
+from .stats import polynomial_fit, select_degree
+
+__all__ = [
+    "CAUTION",
+    "ComparisonError",
+    "CurveFitter",
+    "CurvewrightError",
+    "CurvewrightWarning",
+    "DataError",
+    "Dataset",
+    "Derived",
+    "DomainError",
+    "ExtrapolationWarning",
+    "FitError",
+    "FitResult",
+    "FormulaError",
+    "Handle",
+    "Model",
+    "ModelError",
+    "Param",
+    "ParameterError",
+    "RankDeficiencyWarning",
+    "__version__",
+    "catalog",
+    "fit",
+    "generic_start",
+    "guided_start",
+    "make_dataset",
+    "polynomial",
+    "polynomial_fit",
+    "select_degree",
+]
+
+
+def __getattr__(name: str) -> Any:
+    # The widget layer pulls in anywidget/traitlets; load it only when asked for.
+    if name == "CurveFitter":
+        from .widget import CurveFitter
+
+        return CurveFitter
+    raise AttributeError(f"module 'curvewright' has no attribute {name!r}")
