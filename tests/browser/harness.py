@@ -163,8 +163,8 @@ class Server:
     def _api(self, path: str) -> str:
         return f"{self.url}/api/{path}?token={self.token}"
 
-    def stop(self) -> None:
-        """Shut the kernels down, then the server (terminate, then kill if it lingers)."""
+    def shutdown_kernels(self) -> None:
+        """Shut every running kernel down (between tests, so kernels do not pile up)."""
         if self.proc is None:
             return
         try:
@@ -175,6 +175,12 @@ class Server:
                 urllib.request.urlopen(req, timeout=10).close()
         except (urllib.error.URLError, ConnectionError, TimeoutError, ValueError):
             pass
+
+    def stop(self) -> None:
+        """Shut the kernels down, then the server (terminate, then kill if it lingers)."""
+        if self.proc is None:
+            return
+        self.shutdown_kernels()
         self.proc.terminate()
         try:
             self.proc.wait(15)
@@ -186,7 +192,9 @@ class Server:
     def notebook_url(self, name: str) -> str:
         """The page that opens notebook ``name`` (relative to the root) in this app."""
         if self.app == "lab":
-            return f"{self.url}/lab/tree/{name}?token={self.token}"
+            # `reset`: open only this notebook, not the tabs the workspace remembers from
+            # earlier tests (their hidden cells would match the cell selectors too).
+            return f"{self.url}/lab/tree/{name}?reset&token={self.token}"
         return f"{self.url}/notebooks/{name}?token={self.token}"
 
 
@@ -196,12 +204,19 @@ def write_notebook(path: Path, cells: Sequence[str]) -> None:
     import nbformat
 
     nb = nbformat.v4.new_notebook()
-    nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
+    nb.metadata["kernelspec"] = {
+        "name": "python3",
+        "display_name": "Python 3",
+        "language": "python",
+    }
     nb.cells = [nbformat.v4.new_code_cell(src) for src in cells]
     nbformat.write(nb, str(path))
 
 
 # -------------------------------------------------------------------------- the page
+# The code cells of the notebook on show (hidden dock panels carry lm-mod-hidden).
+NOTEBOOK = ".jp-NotebookPanel:not(.lm-mod-hidden) .jp-Notebook"
+CODE_CELLS = f"{NOTEBOOK} .jp-Cell.jp-CodeCell"
 KERNEL_IDLE_JS = """() => {
   const k = window.jupyterapp?.shell.currentWidget?.sessionContext?.session?.kernel;
   return !!k && k.status === 'idle' && k.connectionStatus === 'connected';
@@ -211,7 +226,7 @@ KERNEL_IDLE_JS = """() => {
 def open_notebook(page: Any, server: Server, name: str) -> None:
     """Open a notebook and wait until its kernel is really idle (not just the indicator)."""
     page.goto(server.notebook_url(name))
-    page.wait_for_selector(".jp-Notebook .jp-Cell", timeout=60_000)
+    page.wait_for_selector(f"{NOTEBOOK} .jp-Cell", timeout=60_000)
     page.wait_for_function(KERNEL_IDLE_JS, timeout=60_000)
 
 
@@ -225,10 +240,11 @@ def run_all(page: Any) -> None:
 def wait_all_done(page: Any, timeout: float = 120_000) -> None:
     """Every code cell's prompt shows a number and the kernel is idle."""
     page.wait_for_function(
-        """() => {
-          const ps = [...document.querySelectorAll('.jp-Notebook .jp-Cell.jp-CodeCell .jp-InputPrompt')];
+        """(sel) => {
+          const ps = [...document.querySelectorAll(sel + ' .jp-InputPrompt')];
           return ps.length > 0 && ps.every(p => /\\[\\d+\\]/.test(p.textContent));
         }""",
+        arg=CODE_CELLS,
         timeout=timeout,
     )
     page.wait_for_function(KERNEL_IDLE_JS, timeout=timeout)
@@ -236,24 +252,22 @@ def wait_all_done(page: Any, timeout: float = 120_000) -> None:
 
 def prompt_text(page: Any, i: int) -> str:
     """The input prompt text of code cell ``i`` (e.g. ``[3]:``)."""
-    return str(page.locator(".jp-Notebook .jp-Cell.jp-CodeCell").nth(i).locator(
-        ".jp-InputPrompt"
-    ).inner_text())
+    return str(page.locator(CODE_CELLS).nth(i).locator(".jp-InputPrompt").inner_text())
 
 
 def run_cell(page: Any, i: int, timeout: float = 60_000) -> None:
     """Run code cell ``i`` (click its prompt, Control+Enter) and wait for a new prompt number."""
-    cell = page.locator(".jp-Notebook .jp-Cell.jp-CodeCell").nth(i)
+    cell = page.locator(CODE_CELLS).nth(i)
     before = prompt_text(page, i)
     cell.locator(".jp-InputPrompt").click()
     page.keyboard.press("Control+Enter")
     page.wait_for_function(
-        """([i, before]) => {
-          const c = document.querySelectorAll('.jp-Notebook .jp-Cell.jp-CodeCell')[i];
+        """([i, before, sel]) => {
+          const c = document.querySelectorAll(sel)[i];
           const t = c?.querySelector('.jp-InputPrompt')?.textContent ?? '';
           return /\\[\\d+\\]/.test(t) && t !== before;
         }""",
-        arg=[i, before],
+        arg=[i, before, CODE_CELLS],
         timeout=timeout,
     )
     page.wait_for_function(KERNEL_IDLE_JS, timeout=timeout)
@@ -261,7 +275,7 @@ def run_cell(page: Any, i: int, timeout: float = 60_000) -> None:
 
 def cell_output(page: Any, i: int) -> str:
     """All output text of code cell ``i``."""
-    cell = page.locator(".jp-Notebook .jp-Cell.jp-CodeCell").nth(i)
+    cell = page.locator(CODE_CELLS).nth(i)
     return "\n".join(cell.locator(".jp-OutputArea-output").all_inner_texts())
 
 
@@ -286,3 +300,8 @@ def flush(root: Any) -> None:
 def real_page_errors(errors: Sequence[str]) -> list[str]:
     """Page errors other than the allow-listed Notebook 7 one."""
     return [e for e in errors if not any(a in e for a in ALLOWED_PAGE_ERRORS)]
+
+
+def widget_roots(page: Any) -> Any:
+    """Locator of every widget root (``.cw-root``) in the notebook on show."""
+    return page.locator(f"{NOTEBOOK} .jp-OutputArea-output .cw-root")
