@@ -3,7 +3,7 @@
 Like ``scipy.optimize.least_squares``, :func:`fit` first validates and normalises every input
 (model, data, starting values, fixed values, bounds, links, weights, loss) into one
 :class:`_Problem` of clean arrays, and only then runs solvers. Solver runs go through lmfit
-(MINPACK's Levenberg–Marquardt or scipy's trust-region reflective method); the statistics of
+(MINPACK's Levenberg-Marquardt or scipy's trust-region reflective method); the statistics of
 the result (Jacobian, covariance, information criteria, diagnostics) are computed here from the
 model's analytic derivatives when it is a formula, by central differences otherwise.
 
@@ -25,6 +25,7 @@ import lmfit
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
+from scipy.optimize import least_squares
 
 from .catalog import catalog
 from .data import Dataset, as_datasets, make_dataset
@@ -62,7 +63,7 @@ _STALL = 1e-9
 _NEAR_SINGULAR = 1e10
 
 
-class _Abort(Exception):
+class _AbortError(Exception):
     """Raised inside the residual function to stop a solver run (cancel or time limit)."""
 
     def __init__(self, code: str) -> None:
@@ -130,6 +131,7 @@ class _Problem:
     lower: FloatArray  # bounds of the free parameters
     upper: FloatArray
     user_start: dict[str, float]
+    link_texts: dict[str, str] = field(default_factory=dict)
     _link_fns: list[tuple[str, Callable[..., Any]]] = field(default_factory=list)
 
     def __post_init__(self) -> None:
@@ -314,9 +316,7 @@ def _build_problem(
         raise ParameterError(
             f"start must be a mapping {{name: value}}, got {type(start).__name__}."
         )
-    user_start = {
-        str(k): _number(v, f"start value of {k!r}") for k, v in (start or {}).items()
-    }
+    user_start = {str(k): _number(v, f"start value of {k!r}") for k, v in (start or {}).items()}
     _check_names(model, user_start, "start")
     for k, v in user_start.items():
         if math.isinf(v):
@@ -324,10 +324,11 @@ def _build_problem(
     held_raw = _as_names(fixed)
     _check_names(model, held_raw, "fixed")
     held: dict[str, float] = {}
-    for k, v in held_raw.items():
-        if v is None:
-            v = user_start.get(k, model.param(k).value)
-        fv = _number(v, f"fixed value of {k!r}")
+    for k, raw in held_raw.items():
+        fv = _number(
+            user_start.get(k, model.param(k).value) if raw is None else raw,
+            f"fixed value of {k!r}",
+        )
         if math.isinf(fv):
             raise ParameterError(f"fixed value of {k!r} is infinite; give a finite number.")
         held[k] = fv
@@ -376,6 +377,7 @@ def _build_problem(
         lower=np.array([bnd[n][0] for n in free], dtype=float),
         upper=np.array([bnd[n][1] for n in free], dtype=float),
         user_start=user_start,
+        link_texts={k: str(v).strip() for k, v in (links or {}).items()},
     )
 
 
@@ -423,11 +425,11 @@ class _Watch:
 
     def residual(self, theta: FloatArray) -> FloatArray:
         if self.cancel is not None and self.cancel():
-            raise _Abort("cancelled")
+            raise _AbortError("cancelled")
         if self.deadline is not None and time.monotonic() > self.deadline:
-            raise _Abort("stopped_time")
+            raise _AbortError("stopped_time")
         if self.max_nfev is not None and self.nfev >= self.max_nfev:
-            raise _Abort("stopped_evaluations")
+            raise _AbortError("stopped_evaluations")
         self.nfev += 1
         r = self.prob.weighted(self.prob.values(theta))
         bad = ~np.isfinite(r)
@@ -467,8 +469,9 @@ def _solve(
     x_scale: str | None = None,
 ) -> _Run:
     params = lmfit.Parameters()
-    for i, name in enumerate(prob.free):
-        # lmfit refuses names it cannot use in its own expressions; ours are plain identifiers.
+    for i in range(len(prob.free)):
+        # Neutral names: lmfit reserves some identifiers (e.g. its asteval symbols) that a
+        # model's parameter could legitimately use.
         params.add(f"p{i}", value=float(theta0[i]), min=prob.lower[i], max=prob.upper[i])
 
     def resid(p: lmfit.Parameters) -> FloatArray:
@@ -495,7 +498,7 @@ def _solve(
             )
         theta = np.array([raw.params[f"p{i}"].value for i in range(len(prob.free))])
         code = _code_of(raw, method)
-    except _Abort as stop:
+    except _AbortError as stop:
         theta = watch.best_theta if watch.best_theta is not None else theta0.copy()
         code = stop.code
         raw = None
@@ -569,13 +572,68 @@ def _ladder(
         try:
             seed = generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed)
             theta = np.array(
-                [min(max(seed[n], lo), hi) for n, lo, hi in zip(prob.free, prob.lower,
-                                                                prob.upper, strict=True)]
+                [
+                    min(max(seed[n], lo), hi)
+                    for n, lo, hi in zip(prob.free, prob.lower, prob.upper, strict=True)
+                ]
             )
             runs.append(_solve(prob, watch, theta, first, "multi-start", budget))
         except (DataError, ParameterError, ArithmeticError, ValueError):
             pass
     return runs
+
+
+def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
+    """Finish from the best point with exact derivatives and tolerances at machine precision.
+
+    The lmfit runs difference the model numerically, which limits the solution to about seven
+    significant digits; for a formula model this run uses the analytic Jacobian (MINPACK's
+    lmder through ``scipy.optimize.least_squares``, or its trust-region method when bounds or a
+    robust loss are in force), which takes certified NIST values to ten digits or more.
+    """
+    bounded = bool(np.any(np.isfinite(prob.lower)) or np.any(np.isfinite(prob.upper)))
+    meth: Literal["trf", "lm"] = "trf" if (bounded or prob.loss != "linear") else "lm"
+    w = prob.w
+
+    def jac(theta: FloatArray) -> FloatArray:
+        J = _model_jacobian(prob, theta, prob.values(theta))
+        return -(J if w is None else J * w[:, None])
+
+    eps = float(np.finfo(float).eps)
+    kws: dict[str, Any] = {"ftol": eps, "xtol": eps, "gtol": eps, "max_nfev": budget}
+    if prob.model.expr is not None:
+        kws["jac"] = jac
+    if meth == "trf":
+        kws["loss"] = prob.loss
+        kws["f_scale"] = prob.loss_scale or 1.0
+        kws["bounds"] = (prob.lower, prob.upper)
+        kws["x_scale"] = "jac"
+    theta0 = np.clip(best.theta, prob.lower, prob.upper)
+    nfev0 = watch.nfev
+    try:
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore")
+            sol = least_squares(watch.residual, theta0, method=meth, **kws)
+        theta, code = (
+            np.asarray(sol.x, dtype=float),
+            LEAST_SQUARES_STATUS.get(int(sol.status), "not_converged"),
+        )
+    except _AbortError as stop:
+        theta = watch.best_theta if watch.best_theta is not None else theta0
+        code = stop.code
+    except (ValueError, np.linalg.LinAlgError):
+        return best
+    r = prob.weighted(prob.values(theta))
+    ssr = float(r @ r) if np.all(np.isfinite(r)) else math.inf
+    return _Run(
+        theta=theta,
+        ssr=ssr,
+        objective=_objective(prob, r) if math.isfinite(ssr) else math.inf,
+        code=code if math.isfinite(ssr) else "not_finite",
+        nfev=watch.nfev - nfev0,
+        method="lm-analytic" if meth == "lm" and "jac" in kws else meth,
+        strategy="polish",
+    )
 
 
 # ============================================================================ statistics
@@ -625,9 +683,7 @@ def _model_jacobian(prob: _Problem, theta: FloatArray, values: Mapping[str, floa
     return J
 
 
-def _covariance(
-    jw: FloatArray, scale: float
-) -> tuple[FloatArray, float, bool]:
+def _covariance(jw: FloatArray, scale: float) -> tuple[FloatArray, float, bool]:
     """Covariance ``scale * (Jw' Jw)^-1`` via the SVD of the column-scaled Jacobian."""
     p = jw.shape[1]
     if p == 0:
@@ -729,16 +785,16 @@ def _diagnostics(
                     )
     x_lo, x_hi = float(np.min(prob.x)), float(np.max(prob.x))
     with np.errstate(all="ignore"):
-        for d in prob.model.derived:
-            if d.axis != "x":
+        for q in prob.model.derived:
+            if q.axis != "x":
                 continue
-            val = float(np.asarray(d.expr.evaluate(dict(values))))
+            val = float(np.asarray(q.expr.evaluate(dict(values))))
             if math.isfinite(val) and not x_lo <= val <= x_hi:
                 out.append(
                     Diagnostic(
                         "extrapolation",
                         "warning",
-                        f"{d.name} = {val:.4g} lies outside the range of the data "
+                        f"{q.name} = {val:.4g} lies outside the range of the data "
                         f"[{x_lo:.4g}, {x_hi:.4g}]: it is an extrapolation, not a measurement.",
                     )
                 )
@@ -754,9 +810,7 @@ def _diagnostics(
     return out
 
 
-def _finish(
-    prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] = ()
-) -> FitResult:
+def _finish(prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] = ()) -> FitResult:
     kept = min(runs, key=lambda r: (not outcome(r.code).success, r.objective)) if runs else None
     if kept is not None and not outcome(kept.code).success:
         kept = min(runs, key=lambda r: r.objective)
@@ -808,7 +862,7 @@ def _finish(
         stderr=stderr,
         free=prob.free,
         fixed=tuple(n for n in prob.model.param_names if n in prob.fixed),
-        linked={k: v.to_text() for k, v in prob.links.items()},
+        linked=dict(prob.link_texts),
         start=prob.values0,
         bounds={
             nme: (float(prob.lower[i]), float(prob.upper[i])) for i, nme in enumerate(prob.free)
@@ -925,8 +979,8 @@ def fit(
     absolute_sigma : bool
         Take sigma as exact (covariance not scaled by the residual variance).
     method : {"auto", "leastsq", "trf"}
-        Solver of the first run: Levenberg–Marquardt (MINPACK) or trust-region reflective.
-        "auto" picks Levenberg–Marquardt unless the loss is robust.
+        Solver of the first run: Levenberg-Marquardt (MINPACK) or trust-region reflective.
+        "auto" picks Levenberg-Marquardt unless the loss is robust.
     max_nfev : int, optional
         Limit on model evaluations over all runs.
     timeout : float, optional
@@ -1018,6 +1072,12 @@ def fit(
     watch = _Watch(prob, deadline, max_nfev, cancel_fn, progress)
     budget = max_nfev if max_nfev is not None else 2000 * (len(prob.free) + 1)
     runs = _ladder(prob, watch, method, budget)
+    best = min(runs, key=lambda r: r.objective)
+    if runs[-1].code not in ("cancelled", "stopped_time") and math.isfinite(best.objective):
+        polished = _polish(prob, watch, best, budget)
+        # Kept only if it does not lose ground: the polish refines, it never replaces a better run.
+        if polished.objective <= best.objective and outcome(polished.code).success:
+            runs.append(polished)
     if progress is not None:
         progress(watch.nfev, watch.best_ssr)
     try:
