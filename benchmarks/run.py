@@ -18,8 +18,8 @@ from scipy.optimize import curve_fit
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "src"))
 
-from curvewright.catalog import catalog  # noqa: E402
-from curvewright.fitting import fit  # noqa: E402
+from curvewright.catalog import catalog
+from curvewright.fitting import fit
 
 
 def _median_time(fn: Callable[[], object], repeat: int) -> float:
@@ -48,48 +48,62 @@ def _problems() -> list[tuple[str, str, np.ndarray, np.ndarray, dict[str, float]
     return out
 
 
+def _time_problem(
+    name: str, x: np.ndarray, y: np.ndarray, truth: dict[str, float], repeat: int
+) -> tuple[float, float, float, float]:
+    model = catalog()[name]
+    p0 = {k: v * 1.3 for k, v in truth.items()}
+    names = list(model.param_names)
+
+    def f(xx: np.ndarray, *p: float) -> np.ndarray:
+        return model.func(xx, *p)
+
+    def run_scipy() -> object:
+        return curve_fit(f, x, y, p0=[p0[k] for k in names])
+
+    def run_lmfit() -> object:
+        params = lmfit.Parameters()
+        for k in names:
+            params.add(k, value=p0[k])
+
+        def resid(ps: lmfit.Parameters) -> np.ndarray:
+            return model.func(x, *(ps[k].value for k in names)) - y
+
+        return lmfit.minimize(resid, params, method="leastsq")
+
+    def run_ours_start() -> object:
+        return fit(model, x, y, start=p0)
+
+    def run_ours_guided() -> object:
+        return fit(model, x, y)
+
+    return (
+        _median_time(run_scipy, repeat),
+        _median_time(run_lmfit, repeat),
+        _median_time(run_ours_start, repeat),
+        _median_time(run_ours_guided, repeat),
+    )
+
+
 def main() -> None:
     repeat = 15
-    rows = []
-    for label, name, x, y, truth in _problems():
-        model = catalog()[name]
-        p0 = {k: v * 1.3 for k, v in truth.items()}
-        names = list(model.param_names)
-
-        def f(xx: np.ndarray, *p: float, _m=model) -> np.ndarray:
-            return _m.func(xx, *p)
-
-        def run_scipy() -> object:
-            return curve_fit(f, x, y, p0=[p0[k] for k in names])
-
-        def run_lmfit() -> object:
-            params = lmfit.Parameters()
-            for k in names:
-                params.add(k, value=p0[k])
-
-            def resid(ps: lmfit.Parameters) -> np.ndarray:
-                return model.func(x, *(ps[k].value for k in names)) - y
-
-            return lmfit.minimize(resid, params, method="leastsq")
-
-        def run_ours_start() -> object:
-            return fit(model, x, y, start=p0)
-
-        def run_ours_guided() -> object:
-            return fit(model, x, y)
-
-        t_s = _median_time(run_scipy, repeat)
-        t_l = _median_time(run_lmfit, repeat)
-        t_o = _median_time(run_ours_start, repeat)
-        t_g = _median_time(run_ours_guided, repeat)
-        rows.append((label, t_s, t_l, t_o, t_g))
-    print(f"{'problem':28s} {'scipy ms':>9s} {'lmfit ms':>9s} {'ours ms':>9s} {'guided ms':>10s}"
-          f" {'ours/scipy':>10s} {'ours/lmfit':>10s}")
+    rows = [
+        (label, *_time_problem(name, x, y, truth, repeat))
+        for label, name, x, y, truth in _problems()
+    ]
+    print(
+        f"{'problem':28s} {'scipy ms':>9s} {'lmfit ms':>9s} {'ours ms':>9s} {'guided ms':>10s}"
+        f" {'ours/scipy':>10s} {'ours/lmfit':>10s}"
+    )
     for label, t_s, t_l, t_o, t_g in rows:
-        print(f"{label:28s} {t_s*1e3:9.2f} {t_l*1e3:9.2f} {t_o*1e3:9.2f} {t_g*1e3:10.2f}"
-              f" {t_o/t_s:10.2f} {t_o/t_l:10.2f}")
-    print("\n'ours' = curvewright.fit from the same start as scipy/lmfit (includes result building:"
-          " covariance, diagnostics, derived quantities); 'guided' adds the data-driven start.")
+        print(
+            f"{label:28s} {t_s * 1e3:9.2f} {t_l * 1e3:9.2f} {t_o * 1e3:9.2f} {t_g * 1e3:10.2f}"
+            f" {t_o / t_s:10.2f} {t_o / t_l:10.2f}"
+        )
+    print(
+        "\n'ours' = curvewright.fit from the same start as scipy/lmfit (includes result building:"
+        " covariance, diagnostics, derived quantities); 'guided' adds the data-driven start."
+    )
 
 
 if __name__ == "__main__":

@@ -42,7 +42,7 @@ class DomainError(DataError):
 
 
 class ParameterError(CurvewrightError, ValueError):
-    """Starting values, fixed values, bounds or links are inconsistent or name unknown parameters."""
+    """Starting values, fixed values, bounds or links are inconsistent or unknown."""
 
 
 class FitError(CurvewrightError, RuntimeError):

@@ -374,8 +374,8 @@ class _Parser:
         return Num(number)
 
     def _check_spelling(self, node: ast.Name) -> None:
-        # Python folds non-ASCII identifiers by NFKC (PEP 3131): a full-width "ｘ" arrives as
-        # "x" and a script "ℯ" as the constant "e". Names must be written as they are stored.
+        # Python folds non-ASCII identifiers by NFKC (PEP 3131): a full-width x (U+FF58) arrives
+        # as "x" and a script e (U+212F) as the constant "e". Names must be written as stored.
         written = ast.get_source_segment(self.text, node)
         if written is not None and written != node.id:
             raise self.error(

@@ -328,8 +328,7 @@ class FitResult:
             "bounds",
             MappingProxyType({k: (float(a), float(b)) for k, (a, b) in self.bounds.items()}),
         )
-        for name in ("covariance", "fitted", "residuals", "weights", "jacobian",
-                     "param_jacobian"):
+        for name in ("covariance", "fitted", "residuals", "weights", "jacobian", "param_jacobian"):
             put(self, name, _ro(getattr(self, name)))
         put(self, "messages", tuple((str(c), str(t)) for c, t in self.messages))
         put(self, "diagnostics", tuple(self.diagnostics))
@@ -436,8 +435,10 @@ class FitResult:
         return self.model.eval(x, dict(self.values))
 
     def _quantile(self, level: float) -> float:
-        if isinstance(level, bool) or not isinstance(level, (int, float)) or not (
-            0.0 < float(level) < 1.0
+        if (
+            isinstance(level, bool)
+            or not isinstance(level, (int, float))
+            or not (0.0 < float(level) < 1.0)
         ):
             raise ParameterError(
                 f"level must be a probability between 0 and 1 (e.g. 0.95), got {level!r}."
@@ -473,10 +474,11 @@ class FitResult:
         names = list(self.model.param_names)
         value = np.array([self.values[n] for n in names])
         se = np.array([self.stderr[n] for n in names])
-        return pd.DataFrame(
+        out: pd.DataFrame = pd.DataFrame(
             {"value": value, "stderr": se, "lower": value - q * se, "upper": value + q * se},
             index=pd.Index(names, name="parameter"),
         )
+        return out
 
     def _gradient(self, expr_names: Sequence[str], grad_all: FloatArray) -> FloatArray:
         return grad_all @ self.param_jacobian
@@ -503,14 +505,15 @@ class FitResult:
         """
         q = self._quantile(level)
         rows = [self._derived_row(d, q) for d in self.model.derived]
-        cols = ["value", "stderr", "lower", "upper", "unit", "axis", "in_data_range",
-                "description"]
+        cols = ["value", "stderr", "lower", "upper", "unit", "axis", "in_data_range", "description"]
         df = pd.DataFrame(rows, columns=["name", *cols])
-        return df.set_index("name")
+        out: pd.DataFrame = df.set_index("name")
+        return out
 
     def _derived_row(self, d: Derived, q: float) -> dict[str, Any]:
-        value, se = derived_value_and_se(d, self.model, self.values, self.param_jacobian,
-                                         self.covariance)
+        value, se = derived_value_and_se(
+            d, self.model, self.values, self.param_jacobian, self.covariance
+        )
         inside: bool | None = None
         if d.axis == "x":
             inside = bool(_in_range(value, self.x))
@@ -536,9 +539,11 @@ class FitResult:
         ``unit``, ``description``.
         """
         ci = self.ci(level)
+        ci_lo, ci_hi = _bounds_of(ci)
         at = self.at_bound
         flagged = {
-            d.text.split(" ", 1)[0].strip("'") for d in self.diagnostics
+            d.text.split(" ", 1)[0].strip("'")
+            for d in self.diagnostics
             if d.code == "not_identified"
         }
         rows = []
@@ -553,8 +558,8 @@ class FitResult:
                     "value": v,
                     "stderr": se,
                     "rel_stderr": abs(se / v) if v != 0 else math.inf if se > 0 else math.nan,
-                    "ci_low": float(ci.loc[n, "lower"]),
-                    "ci_high": float(ci.loc[n, "upper"]),
+                    "ci_low": ci_lo[n],
+                    "ci_high": ci_hi[n],
                     "status": status,
                     "fixed": status == "fixed",
                     "link": self.linked.get(n, ""),
@@ -568,19 +573,26 @@ class FitResult:
                     "description": p.description,
                 }
             )
-        return pd.DataFrame(rows).set_index("parameter")
+        out: pd.DataFrame = pd.DataFrame(rows).set_index("parameter")
+        return out
 
     # --------------------------------------------------------------------- text
     def summary(self) -> str:
-        """A readable plain-text report: outcome, parameters, derived quantities, fit
-        statistics, diagnostics and the research-use caution."""
+        """A readable plain-text report of the fit.
+
+        Outcome, parameters, derived quantities, fit statistics, diagnostics and the
+        research-use caution.
+        """
         m = self.model
         lines: list[str] = []
         head = f"curvewright fit of {m.name!r}"
         lines.append(head)
         lines.append("=" * len(head))
-        lines.append(f"curve:      y = {m.formula}" if m.formula else
-                     "curve:      a Python function (no formula)")
+        lines.append(
+            f"curve:      y = {m.formula}"
+            if m.formula
+            else "curve:      a Python function (no formula)"
+        )
         used = sum(d.n for d in self.datasets)
         excluded = sum(int((~d.include).sum()) for d in self.datasets)
         dropped = sum(d.n_dropped for d in self.datasets)
@@ -592,15 +604,18 @@ class FitResult:
         lines.append(
             f"data:       {used} points used" + (f" ({', '.join(extra)})" if extra else "")
         )
-        wt = {"none": "none (equal weights)", "sigma": "1/sigma^2 from the given sigma",
-              "relative": "relative, 1/y^2", "poisson": "Poisson, 1/|y|"}[self.weighting]
-        lines.append(f"weighting:  {wt}" + ("; sigma taken as exact" if self.absolute_sigma
-                                            else ""))
+        wt = {
+            "none": "none (equal weights)",
+            "sigma": "1/sigma^2 from the given sigma",
+            "relative": "relative, 1/y^2",
+            "poisson": "Poisson, 1/|y|",
+        }[self.weighting]
+        lines.append(
+            f"weighting:  {wt}" + ("; sigma taken as exact" if self.absolute_sigma else "")
+        )
         if self.loss != "linear":
             lines.append(f"loss:       {self.loss} (residual scale {self.loss_scale:.6g})")
-        lines.append(
-            f"outcome:    {'OK' if self.success else 'NOT CONVERGED'} - {self.message}"
-        )
+        lines.append(f"outcome:    {'OK' if self.success else 'NOT CONVERGED'} - {self.message}")
         lines.append(
             f"            method {self.method}, {self.nfev} model evaluations, "
             f"{len(self.attempts)} solver run(s)"
@@ -608,9 +623,12 @@ class FitResult:
         lines.append("")
         level_pct = "95%"
         ci = self.ci(0.95)
+        ci_lo, ci_hi = _bounds_of(ci)
         w = max([len(n) for n in m.param_names] + [9])
-        lines.append(f"{'parameter':<{w}}  {'value':>13}  {'std. error':>11}  "
-                     f"{level_pct + ' interval':>29}  note")
+        lines.append(
+            f"{'parameter':<{w}}  {'value':>13}  {'std. error':>11}  "
+            f"{level_pct + ' interval':>29}  note"
+        )
         at = self.at_bound
         for p in m.params:
             n = p.name
@@ -621,7 +639,7 @@ class FitResult:
                 note.append(f"= {self.linked[n]}")
             if n in at:
                 note.append(f"at {at[n]} bound")
-            lo, hi = ci.loc[n, "lower"], ci.loc[n, "upper"]
+            lo, hi = ci_lo[n], ci_hi[n]
             interval = "" if n in self.fixed else f"[{_num(lo)}, {_num(hi)}]"
             lines.append(
                 f"{n:<{w}}  {_num(self.values[n]):>13}  "
@@ -634,18 +652,20 @@ class FitResult:
             df = self.derived(0.95)
             wd = max([len(d.name) for d in m.derived] + [9])
             for name, row in df.iterrows():
-                note = ""
+                flag = ""
                 if row["in_data_range"] is False:
-                    note = "outside the range of x in the data"
+                    flag = "EXTRAPOLATED: outside the range of x in the data"
                 lines.append(
                     f"{name!s:<{wd}}  {_num(row['value']):>13}  {_num(row['stderr']):>11}  "
-                    f"{'[' + _num(row['lower']) + ', ' + _num(row['upper']) + ']':>29}  {note}"
+                    f"{'[' + _num(row['lower']) + ', ' + _num(row['upper']) + ']':>29}  {flag}"
                 )
         lines.append("")
         lines.append("goodness of fit")
         ss_name = "weighted SSR" if self.weights is not None else "SSR"
-        lines.append(f"  {ss_name} {_num(self.ssr)}, residual SD {_num(self.sigma_resid)}, "
-                     f"R^2 {_num(self.r2)}")
+        lines.append(
+            f"  {ss_name} {_num(self.ssr)}, residual SD {_num(self.sigma_resid)}, "
+            f"R^2 {_num(self.r2)}"
+        )
         lines.append(f"  n {self.n}, free parameters {self.nfree}, degrees of freedom {self.dof}")
         lines.append(f"  AICc {_num(self.aicc)}, BIC {_num(self.bic)}")
         if self.diagnostics:
@@ -668,6 +688,7 @@ class FitResult:
     def _repr_html_(self) -> str:
         e = html.escape
         ci = self.ci(0.95)
+        ci_lo, ci_hi = _bounds_of(ci)
         at = self.at_bound
         rows = []
         for p in self.model.params:
@@ -676,7 +697,7 @@ class FitResult:
                 se, interval, note = "", "", "fixed"
             else:
                 se = _num(self.stderr[n])
-                interval = f"{_num(ci.loc[n, 'lower'])} to {_num(ci.loc[n, 'upper'])}"
+                interval = f"{_num(ci_lo[n])} to {_num(ci_hi[n])}"
                 note = f"= {self.linked[n]}" if n in self.linked else ""
                 if n in at:
                     note = (note + "; " if note else "") + f"at {at[n]} bound"
@@ -685,14 +706,16 @@ class FitResult:
                 f"<td>{e(interval)}</td><td>{e(note)}</td></tr>"
             )
         for d in self.model.derived:
-            value, sd = derived_value_and_se(d, self.model, self.values, self.param_jacobian,
-                                             self.covariance)
+            value, sd = derived_value_and_se(
+                d, self.model, self.values, self.param_jacobian, self.covariance
+            )
             rows.append(
                 f"<tr class='cw-derived'><th>{e(d.name)}</th><td>{e(_num(value))}</td>"
                 f"<td>{e(_num(sd))}</td><td></td><td>derived</td></tr>"
             )
         diag = "".join(
-            f"<li class='cw-{e(d.severity)}'>{e(d.text)}</li>" for d in self.diagnostics
+            f"<li class='cw-{e(d.severity)}'>{e(d.text)}</li>"
+            for d in self.diagnostics
             if d.severity != "info"
         )
         status = "converged" if self.success else "not converged"
@@ -837,9 +860,7 @@ class FitResult:
         )
 
     @classmethod
-    def from_json(
-        cls, text: str, *, model: Model | Callable[..., Any] | None = None
-    ) -> FitResult:
+    def from_json(cls, text: str, *, model: Model | Callable[..., Any] | None = None) -> FitResult:
         """Rebuild a result from :meth:`to_json` output (see :meth:`from_dict`)."""
         return cls.from_dict(json.loads(text), model=model)
 
@@ -887,6 +908,13 @@ def _restore_model(mdict: Mapping[str, Any], given: Model | Callable[..., Any] |
             f"fitted with {stored}; pass the same function."
         )
     return m
+
+
+def _bounds_of(ci: pd.DataFrame) -> tuple[dict[str, float], dict[str, float]]:
+    names = [str(n) for n in ci.index]
+    lo = ci["lower"].to_numpy(dtype=float)
+    hi = ci["upper"].to_numpy(dtype=float)
+    return dict(zip(names, lo.tolist(), strict=True)), dict(zip(names, hi.tolist(), strict=True))
 
 
 def _num(v: float) -> str:
