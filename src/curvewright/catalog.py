@@ -2,7 +2,7 @@
 
 Every model is a formula (so the front end can preview it) with parameters named in the trade's
 terms, bounds where the quantity is physical, derived quantities, draggable handles and a
-data-driven starting-value rule from :mod:`curvewright.start`. Dose–response models take the
+data-driven starting-value rule from :mod:`curvewright.start`. Dose-response models take the
 midpoint as ``logEC50``/``logIC50`` (log10 units; a concentration spans decades, and the fit is
 far better conditioned in its logarithm) yet are written in ``x`` itself, so zero-dose controls
 (x = 0) are valid data.
@@ -27,6 +27,7 @@ from .start import (
     PolynomialRule,
     SeedFn,
     SeparableRule,
+    finish_boltzmann,
     finish_two_phase,
     grid_boltzmann,
     grid_conc,
@@ -166,7 +167,11 @@ def _polynomial_cached(k: int) -> Model:
             n,
             1.0 if j == 1 else 0.0,
             "y" if j == 0 else "y/x" if j == 1 else f"y/x**{j}",
-            "value at x = 0" if j == 0 else f"coefficient of x**{j}" if j > 1 else "coefficient of x",
+            "value at x = 0"
+            if j == 0
+            else f"coefficient of x**{j}"
+            if j > 1
+            else "coefficient of x",
         )
         for j, n in enumerate(names)
     ]
@@ -255,7 +260,13 @@ def _dose_models() -> list[Model]:
         q4 = f"10**{mid}*3**(1/hill)"
         handles4 = [
             _h(f"{low}_plateau", f"plateau at low dose ({low})", mid_lo.format(m=mid), low, low),
-            _h(f"{high}_plateau", f"plateau at high dose ({high})", mid_hi.format(m=mid), high, high),
+            _h(
+                f"{high}_plateau",
+                f"plateau at high dose ({high})",
+                mid_hi.format(m=mid),
+                high,
+                high,
+            ),
             _h("midpoint", c, f"10**{mid}", "(top + bottom)/2", mid),
             _h("steepness", "Hill slope", q4, f"{high} + ({low} - {high})/4", "hill"),
         ]
@@ -268,7 +279,7 @@ def _dose_models() -> list[Model]:
                 f"{kind}_4pl",
                 f4,
                 _dose_params(mid),
-                f"Four-parameter logistic dose–response, {kind}: the response goes from "
+                f"Four-parameter logistic dose-response, {kind}: the response goes from "
                 f"{low} at zero dose to {high} at high dose with midpoint {c} = 10**{mid}; "
                 "zero-dose controls are valid data.",
                 derived=derived,
@@ -282,14 +293,18 @@ def _dose_models() -> list[Model]:
         # 5PL written with the true half-way concentration as its parameter: at x = 10**mid the
         # denominator is (1 + (2**(1/s) - 1))**s = 2 for every s, so the derived C is exact.
         w = f"(1 + (2**(1/s) - 1)*{u})**s"
-        f5 = (
-            f"bottom + (top - bottom)/{w}" if kind == "inhibition" else f"top + (bottom - top)/{w}"
-        )
+        f5 = f"bottom + (top - bottom)/{w}" if kind == "inhibition" else f"top + (bottom - top)/{w}"
         # a quarter of the way from the high-dose plateau: w = 4 there
         q5 = f"10**{mid}*((4**(1/s) - 1)/(2**(1/s) - 1))**(1/hill)"
         t5 = f"10**{mid}*(((4/3)**(1/s) - 1)/(2**(1/s) - 1))**(1/hill)"
+        # plateau handles where the curve is 1/32 of the span from its plateau (w = 32/31 and
+        # w = 32), as the 4PL's +-1.5/hill decades nearly are; with s != 1 the two ends approach
+        # their plateaus at different speeds, so fixed decades would not do
+        p5 = f"10**{mid}*(({{w}}**(1/s) - 1)/(2**(1/s) - 1))**(1/hill)"
         handles5 = [
-            *handles4[:3],
+            _h(f"{low}_plateau", f"plateau at low dose ({low})", p5.format(w="(32/31)"), low, low),
+            _h(f"{high}_plateau", f"plateau at high dose ({high})", p5.format(w="32"), high, high),
+            handles4[2],
             _h("steepness", "Hill slope", q5, f"{high} + ({low} - {high})/4", "hill"),
             _h("asymmetry", "asymmetry", t5, f"{high} + 3*({low} - {high})/4", "s"),
         ]
@@ -298,7 +313,7 @@ def _dose_models() -> list[Model]:
                 f"{kind}_5pl",
                 f5,
                 _dose_params(mid, asymmetry=True),
-                f"Five-parameter (asymmetric) logistic dose–response, {kind}: like {kind}_4pl "
+                f"Five-parameter (asymmetric) logistic dose-response, {kind}: like {kind}_4pl "
                 f"with an asymmetry factor s (s = 1 gives the 4PL). Parameterised so that "
                 f"{c} = 10**{mid} is exactly the half-way concentration for any s.",
                 derived=derived,
@@ -368,8 +383,7 @@ def _exponential_models() -> list[Model]:
             _p("span_slow", 1.0, "y", "amplitude of the slow phase"),
             _pos("k_slow", 0.3, "1/x", "rate constant of the slow phase"),
         ],
-        "Sum of two exponential decays to a plateau (the start rule names the faster rate "
-        "k_fast).",
+        "Sum of two exponential decays to a plateau (the start rule names the faster rate k_fast).",
         derived=[
             _d("half_life_fast", "log(2)/k_fast", "half-life of the fast phase", "x", "x"),
             _d("half_life_slow", "log(2)/k_slow", "half-life of the slow phase", "x", "x"),
@@ -383,14 +397,22 @@ def _exponential_models() -> list[Model]:
         handles=[
             _h("start", "value at x = 0", "0", "plateau + span_fast + span_slow", "span_fast"),
             _h("plateau", "plateau", "5/k_slow", "plateau", "plateau"),
+            # on the curve at each phase's half-life (the other phase's share included), so a
+            # dragged point stays under the pointer
             _h(
                 "half_life_fast",
                 "fast half-life",
                 "log(2)/k_fast",
-                "plateau + span_slow + span_fast/2",
+                "plateau + span_fast/2 + span_slow*exp(-k_slow*log(2)/k_fast)",
                 "k_fast",
             ),
-            _h("half_life_slow", "slow half-life", "log(2)/k_slow", "plateau + span_slow/2", "k_slow"),
+            _h(
+                "half_life_slow",
+                "slow half-life",
+                "log(2)/k_slow",
+                "plateau + span_slow/2 + span_fast*exp(-k_fast*log(2)/k_slow)",
+                "k_slow",
+            ),
         ],
         seed=seed_two_phase,
         linear=("plateau", "span_fast", "span_slow"),
@@ -447,7 +469,7 @@ def _enzyme_models() -> list[Model]:
         "michaelis_menten",
         "Vmax*x/(Km + x)",
         [vmax, km],
-        "Michaelis–Menten enzyme kinetics: rate against substrate concentration.",
+        "Michaelis-Menten enzyme kinetics: rate against substrate concentration.",
         derived=[
             _d("efficiency", "Vmax/Km", "Vmax/Km: the slope at low substrate", "y/x"),
         ],
@@ -468,7 +490,7 @@ def _enzyme_models() -> list[Model]:
             km,
             _pos("Ki", 10.0, "x", "substrate inhibition constant"),
         ],
-        "Michaelis–Menten with inhibition by excess substrate: v = Vmax*S/(Km + S + S**2/Ki); "
+        "Michaelis-Menten with inhibition by excess substrate: v = Vmax*S/(Km + S + S**2/Ki); "
         "the rate peaks at S = sqrt(Km*Ki).",
         derived=[
             _d("x_peak", "sqrt(Km*Ki)", "substrate concentration of the highest rate", "x", "x"),
@@ -476,7 +498,8 @@ def _enzyme_models() -> list[Model]:
         ],
         handles=[
             _h("peak", "highest rate", "sqrt(Km*Ki)", "Vmax/(1 + 2*sqrt(Km/Ki))", "Vmax", "Ki"),
-            _h("km", "Km (half Vmax without inhibition)", "Km", "Vmax/2", "Km"),
+            # the curve at S = Km: Vmax/2 without inhibition, a little less with it
+            _h("km", "rate at S = Km", "Km", "Vmax/(2 + Km/Ki)", "Km"),
         ],
         seed=seed_substrate_inhibition,
         linear=("Vmax",),
@@ -489,7 +512,7 @@ def _enzyme_models() -> list[Model]:
         [
             vmax,
             _pos("K_half", 1.0, "x", "concentration giving half of Vmax"),
-            _pos("n_hill", 1.0, "", "Hill coefficient (cooperativity; 1 = Michaelis–Menten)"),
+            _pos("n_hill", 1.0, "", "Hill coefficient (cooperativity; 1 = Michaelis-Menten)"),
         ],
         "Hill equation: cooperative binding or kinetics, rising from 0 to Vmax.",
         derived=[],
@@ -602,12 +625,20 @@ def _other_models() -> list[Model]:
         "boltzmann_sigmoid",
         "bottom + (top - bottom)/(1 + exp((V50 - x)/slope))",
         [
-            _p("bottom", 0.0, "y", "level at low x (for a positive slope)"),
-            _p("top", 1.0, "y", "level at high x (for a positive slope)"),
+            _p("bottom", 0.0, "y", "the lower level"),
+            _p("top", 1.0, "y", "the upper level"),
             _p("V50", 0.0, "x", "x at the midpoint, e.g. half-activation voltage"),
-            _p("slope", 1.0, "x", "slope factor: x change for an e-fold change of the odds"),
+            _p(
+                "slope",
+                1.0,
+                "x",
+                "slope factor: x change for an e-fold change of the odds; positive for a rise "
+                "(activation), negative for a fall (inactivation)",
+            ),
         ],
-        "Boltzmann sigmoid in x (e.g. channel activation against voltage).",
+        "Boltzmann sigmoid in x (e.g. channel activation against voltage). Swapping bottom and "
+        "top while negating the slope gives the same curve; the start rule keeps bottom <= top, "
+        "so the sign of the slope tells a rise from a fall.",
         derived=[],
         handles=[
             _h("midpoint", "midpoint", "V50", "(top + bottom)/2", "V50"),
@@ -618,15 +649,16 @@ def _other_models() -> list[Model]:
         seed=seed_boltzmann,
         linear=("bottom", "top"),
         grid=grid_boltzmann,
+        finish=finish_boltzmann,
     )
     power = _model(
         "power_law",
         "a*x**b",
         [
             _p("a", 1.0, "", "value at x = 1 (prefactor)"),
-            _p("b", 1.0, "", "exponent: slope on log–log axes"),
+            _p("b", 1.0, "", "exponent: slope on log-log axes"),
         ],
-        "Power law y = a*x**b (a straight line on log–log axes); needs x > 0.",
+        "Power law y = a*x**b (a straight line on log-log axes); needs x > 0.",
         derived=[],
         handles=[],
         seed=seed_power,
@@ -654,11 +686,11 @@ def _build() -> Mapping[str, Model]:
 
 
 def catalog() -> Mapping[str, Model]:
-    """Every built-in model by name (a read-only mapping, grouped: lines and polynomials,
-    exponentials, enzyme kinetics, dose–response, growth, peaks, other).
+    """Every built-in model by name, as a read-only mapping.
 
-    Each model exposes ``.formula``, ``.param_names``, ``.description``, ``.derived`` and
-    ``.handles``; ``polynomial(k)`` gives any degree from 1 to 10.
+    Grouped: lines and polynomials, exponentials, enzyme kinetics, dose-response, growth,
+    peaks, other. Each model exposes ``.formula``, ``.param_names``, ``.description``,
+    ``.derived`` and ``.handles``; ``polynomial(k)`` gives any degree from 1 to 10.
     """
     return _build()
 

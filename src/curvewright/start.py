@@ -62,7 +62,7 @@ _LN10 = math.log(10.0)
 
 # ============================================================================ linearisations
 class EnzymeEstimate(NamedTuple):
-    """Michaelis–Menten parameters read off a straight-line plot."""
+    """Michaelis-Menten parameters read off a straight-line plot."""
 
     Vmax: float
     Km: float
@@ -76,7 +76,7 @@ class RateEstimate(NamedTuple):
 
 
 class PowerEstimate(NamedTuple):
-    """``y = a*x**b`` read off a log–log line."""
+    """``y = a*x**b`` read off a log-log line."""
 
     a: float
     b: float
@@ -127,7 +127,7 @@ def _positive_pairs(x: ArrayLike, y: ArrayLike, what: str) -> tuple[FloatArray, 
 
 
 def lineweaver_burk(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
-    """Michaelis–Menten ``Vmax`` and ``Km`` from the double-reciprocal (Lineweaver–Burk) line.
+    """Michaelis-Menten ``Vmax`` and ``Km`` from the double-reciprocal (Lineweaver-Burk) line.
 
     ``1/y = 1/Vmax + (Km/Vmax) * (1/x)``: ordinary least squares of ``1/y`` on ``1/x`` over the
     points with ``x > 0`` and ``y > 0``.
@@ -154,12 +154,12 @@ def lineweaver_burk(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
 
 
 def hanes_woolf(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
-    """Michaelis–Menten ``Vmax`` and ``Km`` from the Hanes–Woolf line.
+    """Michaelis-Menten ``Vmax`` and ``Km`` from the Hanes-Woolf line.
 
     ``x/y = Km/Vmax + x/Vmax``: ordinary least squares of ``x/y`` on ``x`` over the points with
     ``x > 0`` and ``y > 0``.
 
-    Hanes–Woolf is the better-conditioned of the two classical plots: the abscissa is x itself,
+    Hanes-Woolf is the better-conditioned of the two classical plots: the abscissa is x itself,
     so points keep their natural spacing instead of the low concentrations being thrown far out
     as in ``1/x``, and the error of ``x/y`` is about ``x * sd(y) / y**2``, far more even across
     the range than the ``sd(y) / y**2`` of ``1/y``, whose largest errors sit at the points with
@@ -187,7 +187,7 @@ def hanes_woolf(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
 
 
 def eadie_hofstee(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
-    """Michaelis–Menten ``Vmax`` and ``Km`` from the Eadie–Hofstee line.
+    """Michaelis-Menten ``Vmax`` and ``Km`` from the Eadie-Hofstee line.
 
     ``y = Vmax - Km * (y/x)``: ordinary least squares of ``y`` on ``y/x`` over the points with
     ``x > 0`` and ``y > 0``. (y appears on both axes, so ordinary least squares is biased on
@@ -253,7 +253,7 @@ def semilog_rate(x: ArrayLike, y: ArrayLike, plateau: float) -> RateEstimate:
 
 
 def loglog_power(x: ArrayLike, y: ArrayLike) -> PowerEstimate:
-    """``a`` and ``b`` of ``y = a*x**b`` from the log–log line ``log y = log a + b*log x``.
+    """``a`` and ``b`` of ``y = a*x**b`` from the log-log line ``log y = log a + b*log x``.
 
     Ordinary least squares over the points with ``x > 0`` and ``y > 0``.
 
@@ -301,7 +301,7 @@ def logit_line(
     bottom, top : float
         The levels at the low-x and high-x ends (``top < bottom`` is allowed).
     log_x : bool
-        Whether the sigmoid is in log10 x (dose–response) or in x (Boltzmann, logistic growth).
+        Whether the sigmoid is in log10 x (dose-response) or in x (Boltzmann, logistic growth).
     trim : float
         Fraction of the span excluded at each plateau.
 
@@ -624,7 +624,11 @@ class SeparableRule:
                 best, best_ssr = r, s
         best = _polish(m, xa, ya, best, held, 100 * (len(m.params) + 1))
         if self.finish is not None:
-            best = self.finish(best)
+            tidy = self.finish(best)
+            # a tidy-up that would change a value the user fixed would no longer describe the
+            # same curve once the fixed value is restored; keep the untidied values then
+            if all(tidy[n] == best[n] for n in held):
+                best = tidy
         return _clip_into_bounds(m, {**best, **held})
 
 
@@ -708,8 +712,10 @@ def grid_rate(name: str) -> GridFn:
 
 
 def seed_two_phase(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """Curve peeling (method of residuals, common practice): slow phase from the late half,
-    fast phase from what the slow one leaves early on."""
+    """Curve peeling (method of residuals, common practice).
+
+    The slow phase comes from the late half, the fast phase from what the slow one leaves early on.
+    """
     plateau = _tail_level(x, y)
     ux, my = _means_by_x(x, y)
     half = ux.size // 2
@@ -728,7 +734,9 @@ def seed_two_phase(x: FloatArray, y: FloatArray) -> dict[str, float]:
     }
 
 
-def grid_two_phase(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+def grid_two_phase(
+    x: FloatArray, y: FloatArray, seed: Mapping[str, float]
+) -> dict[str, FloatArray]:
     """Pairs of rates over the data's time scales (the refinement sorts out which is fast)."""
     g = _rate_grid(x, 8)
     return {"k_fast": g, "k_slow": g}
@@ -757,7 +765,7 @@ def seed_growth(x: FloatArray, y: FloatArray) -> dict[str, float]:
 
 
 def seed_mm(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """Hanes–Woolf on the replicate means."""
+    """Hanes-Woolf on the replicate means."""
     ux, my = _means_by_x(x, y)
     est = hanes_woolf(ux, my)
     vmax = est.Vmax if est.Vmax > 0 else float(np.max(my))
@@ -782,7 +790,7 @@ def grid_conc(*names: str) -> GridFn:
 
 
 def seed_substrate_inhibition(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """Hanes–Woolf on the rising part; Ki from the peak position ``sqrt(Km*Ki)``."""
+    """Hanes-Woolf on the rising part; Ki from the peak position ``sqrt(Km*Ki)``."""
     ux, my = _means_by_x(x, y)
     ipk = int(np.argmax(my))
     rising = slice(0, max(ipk + 1, 3))
@@ -831,7 +839,7 @@ def _log_mid_fallback(x: FloatArray, y: FloatArray, lo_level: float, hi_level: f
 
 
 def seed_logistic(kind: str) -> SeedFn:
-    """Dose–response seed: plateaus from the ends (zero-dose controls included), logit line.
+    """Dose-response seed: plateaus from the ends (zero-dose controls included), logit line.
 
     ``kind`` is ``"inhibition"`` (the value at x = 0 is ``top``), ``"stimulation"`` (the value
     at x = 0 is ``bottom``) or ``"three"`` (bottom fixed at 0, rising to ``top``).
@@ -864,9 +872,13 @@ def grid_logistic(mid_name: str, asymmetry: bool = False) -> GridFn:
 
     def grid(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
         pos = x[x > 0]
-        lo, hi = (math.log10(float(np.min(pos))), math.log10(float(np.max(pos)))) if pos.size else (
-            -3.0,
-            3.0,
+        lo, hi = (
+            (math.log10(float(np.min(pos))), math.log10(float(np.max(pos))))
+            if pos.size
+            else (
+                -3.0,
+                3.0,
+            )
         )
         g: dict[str, FloatArray] = {
             mid_name: np.linspace(lo - 1.0, hi + 1.0, 9),
@@ -901,8 +913,10 @@ def grid_growth(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict
 
 
 def seed_gompertz(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """``K*exp(log(N0/K)*exp(-r*x))``: K above the largest value; ``log(K/y)`` decays to 0 at
-    rate r, so the semilog line gives r and ``log(K/N0)``."""
+    """``K*exp(log(N0/K)*exp(-r*x))``: K a little above the largest value, then a semilog line.
+
+    ``log(K/y)`` decays to 0 at rate r, so the semilog line gives r and ``log(K/N0)``.
+    """
     ux, my = _means_by_x(x, y)
     K = 1.05 * float(np.max(my))
     pos = my > 0
@@ -942,7 +956,12 @@ def _peak_seed(x: FloatArray, y: FloatArray) -> tuple[float, float, float, float
 def seed_gauss(x: FloatArray, y: FloatArray) -> dict[str, float]:
     """Peak position and width (half-maximum crossings) from the data; sigma = FWHM/2.3548."""
     b, a, c, w = _peak_seed(x, y)
-    return {"baseline": b, "amplitude": a, "center": c, "sigma": w / (2.0 * math.sqrt(2 * math.log(2)))}
+    return {
+        "baseline": b,
+        "amplitude": a,
+        "center": c,
+        "sigma": w / (2.0 * math.sqrt(2 * math.log(2))),
+    }
 
 
 def seed_lorentz(x: FloatArray, y: FloatArray) -> dict[str, float]:
@@ -974,7 +993,18 @@ def seed_boltzmann(x: FloatArray, y: FloatArray) -> dict[str, float]:
     return {"bottom": low_end, "top": high_end, "V50": mid, "slope": k}
 
 
-def grid_boltzmann(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
+def finish_boltzmann(v: dict[str, float]) -> dict[str, float]:
+    """Keep ``bottom <= top``: swapping the levels and negating the slope is the same curve."""
+    if v["top"] < v["bottom"]:
+        v = dict(v)
+        v["bottom"], v["top"] = v["top"], v["bottom"]
+        v["slope"] = -v["slope"]
+    return v
+
+
+def grid_boltzmann(
+    x: FloatArray, y: FloatArray, seed: Mapping[str, float]
+) -> dict[str, FloatArray]:
     """Midpoints across the data, slope factors of either sign from 1/50 to 1/3 of the range."""
     s = _x_scale(x)
     mags = s * np.array([0.02, 0.07, 0.3])
@@ -985,7 +1015,7 @@ def grid_boltzmann(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> d
 
 
 def seed_power(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """Log–log line (of |y| when the data are negative)."""
+    """Log-log line (of |y| when the data are negative)."""
     sign = 1.0 if np.sum(y > 0) >= np.sum(y < 0) else -1.0
     a, b = loglog_power(x, sign * y)
     return {"a": sign * a, "b": b}
@@ -1008,7 +1038,13 @@ class _Range:
 def _unit_dims(unit: str) -> tuple[float, float] | None:
     """(power of x, power of y) of a unit hint such as ``"y/x**2"``; None when not understood."""
     u = unit.replace(" ", "")
-    table = {"x": (1.0, 0.0), "y": (0.0, 1.0), "1/x": (-1.0, 0.0), "y/x": (-1.0, 1.0), "1": (0.0, 0.0)}
+    table = {
+        "x": (1.0, 0.0),
+        "y": (0.0, 1.0),
+        "1/x": (-1.0, 0.0),
+        "y/x": (-1.0, 1.0),
+        "1": (0.0, 0.0),
+    }
     if u in table:
         return table[u]
     if u.startswith("y/x**"):
@@ -1070,7 +1106,9 @@ def _infer_dims(model: Model) -> dict[str, tuple[float, float]]:
             a = walk(n["left"])
             if op == "**":
                 r = n["right"]
-                if r.get("type") == "num" or (r.get("type") == "neg" and r["arg"].get("type") == "num"):
+                if r.get("type") == "num" or (
+                    r.get("type") == "neg" and r["arg"].get("type") == "num"
+                ):
                     p = float(r["value"]) if r.get("type") == "num" else -float(r["arg"]["value"])
                     return None if a is None else (a[0] * p, a[1] * p)
                 e = walk(r)
@@ -1112,9 +1150,13 @@ def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) ->
     for n in names:
         p = model.param(n)
         if p.unit.replace(" ", "") == "log10(x)":
-            lo, hi = (math.log10(float(np.min(pos))), math.log10(float(np.max(pos)))) if pos.size else (
-                -3.0,
-                3.0,
+            lo, hi = (
+                (math.log10(float(np.min(pos))), math.log10(float(np.max(pos))))
+                if pos.size
+                else (
+                    -3.0,
+                    3.0,
+                )
             )
             out[n] = _clamp_lin(p, lo - 1.0, hi + 1.0)
             continue
@@ -1159,7 +1201,9 @@ def _clamp_lin(p: Param, lo: float, hi: float) -> _Range:
     return _Range("lin", lo2, hi2)
 
 
-def _affine_subset(prob: _Problem, names: Sequence[str], bases: Sequence[dict[str, float]]) -> list[str]:
+def _affine_subset(
+    prob: _Problem, names: Sequence[str], bases: Sequence[dict[str, float]]
+) -> list[str]:
     """The largest (greedy) set of parameters the model is jointly affine in, tested numerically."""
     rng = np.random.default_rng(12345)
     chosen: list[str] = []
@@ -1245,7 +1289,9 @@ def generic_start(
         return _generic(model, xa, ya, held, n_starts, seed)
 
 
-def _sample(ranges: Mapping[str, _Range], names: Sequence[str], n: int, seed: int) -> list[dict[str, float]]:
+def _sample(
+    ranges: Mapping[str, _Range], names: Sequence[str], n: int, seed: int
+) -> list[dict[str, float]]:
     sign_names = [nm for nm in names if ranges[nm].kind == "log" and len(ranges[nm].signs) > 1]
     d = len(names) + len(sign_names)
     if n <= 0 or d == 0:
@@ -1299,9 +1345,9 @@ def _generic(
     best_ssr, best = math.inf, base0
     for _, r in results[:3]:
         pol = _polish(model, x, y, r, held, 200 * (len(free) + 1))
-        s = probe.ssr(pol)
-        if s < best_ssr:
-            best_ssr, best = s, pol
+        ssr = probe.ssr(pol)
+        if ssr < best_ssr:
+            best_ssr, best = ssr, pol
     return _clip_into_bounds(model, {**best, **held})
 
 

@@ -1,0 +1,695 @@
+"""The built-in models: browsable, the families the issue asks for, sane parameters, derived
+quantities, handles, JSON round trip, and recovery of known parameters from the guided start.
+
+References: each model's formula is compared with the textbook form written out by hand in this
+file (common practice); derived quantities are checked against the curve itself with scipy
+(root finding, minimisation, quadrature, finite differences), not against the catalog's own
+derived formulas; recovery tests generate data from known parameters (the truth is the
+reference) and fit with ``curvewright.fit`` from ``guided_start`` with no number from the user.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+
+import numpy as np
+import pytest
+from numpy.typing import NDArray
+from scipy import integrate, optimize
+
+import curvewright as cw
+from curvewright.catalog import catalog, find_builtin, polynomial
+from curvewright.errors import DomainError, ModelError
+from curvewright.models import Model
+from curvewright.start import guided_start
+
+FloatArray = NDArray[np.float64]
+LN2 = math.log(2.0)
+
+# ----------------------------------------------------------------------------------- cases
+# Doses with zero-dose controls in duplicate, as a plate is laid out (the 4PL/5PL must take x = 0).
+DOSES = np.repeat(np.r_[0.0, np.geomspace(1e-9, 1e-4, 11)], 2)
+
+
+@dataclass(frozen=True)
+class Case:
+    """Synthetic design and true parameters for one catalog model (invented, for recovery)."""
+
+    x: FloatArray
+    truth: dict[str, float]
+
+
+CASES: dict[str, Case] = {
+    "straight_line": Case(np.linspace(0, 10, 12), {"intercept": 2.0, "slope": -0.7}),
+    "polynomial_2": Case(np.linspace(-3, 5, 15), {"c0": 1.0, "c1": -2.0, "c2": 0.5}),
+    "polynomial_3": Case(np.linspace(-3, 5, 15), {"c0": 1.0, "c1": -2.0, "c2": 0.5, "c3": 0.1}),
+    "decay_to_plateau": Case(np.linspace(0, 30, 20), {"plateau": 12.0, "span": 80.0, "k": 0.25}),
+    "two_phase_decay": Case(
+        np.geomspace(0.05, 60, 30),
+        {"plateau": 5.0, "span_fast": 60.0, "k_fast": 2.0, "span_slow": 35.0, "k_slow": 0.1},
+    ),
+    "rise_to_plateau": Case(np.linspace(0, 60, 20), {"y0": 3.0, "plateau": 48.0, "k": 0.08}),
+    "exponential_growth": Case(np.linspace(0, 8, 15), {"y0": 150.0, "k": 0.45}),
+    "michaelis_menten": Case(
+        np.array([0.5, 1, 2, 4, 8, 16, 32, 64, 128.0]), {"Vmax": 42.0, "Km": 7.5}
+    ),
+    "substrate_inhibition": Case(np.geomspace(0.5, 500, 14), {"Vmax": 60.0, "Km": 5.0, "Ki": 80.0}),
+    "hill": Case(np.geomspace(0.1, 100, 14), {"Vmax": 9.0, "K_half": 4.0, "n_hill": 2.3}),
+    "inhibition_4pl": Case(DOSES, {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3}),
+    "inhibition_5pl": Case(
+        DOSES, {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3, "s": 2.0}
+    ),
+    "stimulation_4pl": Case(DOSES, {"bottom": 120.0, "top": 860.0, "logEC50": -7.2, "hill": 0.9}),
+    "stimulation_5pl": Case(
+        DOSES, {"bottom": 120.0, "top": 860.0, "logEC50": -7.2, "hill": 0.9, "s": 0.5}
+    ),
+    "stimulation_3pl": Case(DOSES, {"top": 1.8, "logEC50": -6.0, "hill": 1.6}),
+    "logistic_growth": Case(np.linspace(0, 24, 25), {"N0": 0.02, "K": 1.6, "r": 0.55}),
+    "gompertz_growth": Case(np.linspace(0, 24, 25), {"N0": 0.05, "K": 1.6, "r": 0.3}),
+    "gaussian_peak": Case(
+        np.linspace(400, 600, 41),
+        {"baseline": 0.1, "amplitude": 2.5, "center": 512.0, "sigma": 14.0},
+    ),
+    "lorentzian_peak": Case(
+        np.linspace(400, 600, 41),
+        {"baseline": 0.1, "amplitude": 2.5, "center": 512.0, "hwhm": 9.0},
+    ),
+    "boltzmann_sigmoid": Case(
+        np.linspace(-90, 30, 25), {"bottom": 0.02, "top": 1.0, "V50": -35.0, "slope": 7.5}
+    ),
+    "power_law": Case(np.geomspace(0.1, 1000, 16), {"a": 3.2, "b": 0.75}),
+}
+
+# Extra shapes the same models must handle: a falling sigmoid, a dip, a rise written as a
+# decay with negative span, a substrate-inhibition curve whose peak is inside the data.
+EXTRA_CASES: dict[str, tuple[str, Case]] = {
+    "boltzmann_falling": (
+        "boltzmann_sigmoid",
+        Case(np.linspace(-120, 0, 25), {"bottom": 0.05, "top": 1.0, "V50": -62.0, "slope": -6.0}),
+    ),
+    "gaussian_dip": (
+        "gaussian_peak",
+        Case(
+            np.linspace(0, 10, 40),
+            {"baseline": 5.0, "amplitude": -2.0, "center": 3.3, "sigma": 0.6},
+        ),
+    ),
+    "decay_negative_span": (
+        "decay_to_plateau",
+        Case(np.linspace(0, 5, 16), {"plateau": 10.0, "span": -7.0, "k": 1.2}),
+    ),
+    "hill_shallow": (
+        "hill",
+        Case(np.geomspace(0.01, 1000, 16), {"Vmax": 150.0, "K_half": 2.0, "n_hill": 0.6}),
+    ),
+}
+
+
+def test_cases_cover_the_whole_catalog() -> None:
+    # Every built-in model takes part in the parametrised checks below.
+    assert set(CASES) == set(catalog())
+
+
+# ------------------------------------------------------------------------ browsing, families
+def test_catalog_is_a_read_only_mapping_of_models() -> None:
+    cat = catalog()
+    assert isinstance(cat, Mapping)
+    assert len(cat) >= 20
+    for name, m in cat.items():
+        assert isinstance(m, Model)
+        assert m.name == name
+        assert isinstance(m.formula, str) and m.formula
+        assert m.param_names == tuple(p.name for p in m.params)
+        assert m.description
+    with pytest.raises(TypeError):
+        cat["mine"] = polynomial(1)  # type: ignore[index]
+    assert catalog() is cat  # built once
+
+
+# The textbook form of each family, written out here independently of the catalog (common
+# practice formulas). A callable of x and the catalog's parameter names.
+Ref = Callable[..., FloatArray]
+
+
+def _ref_5pl(x: FloatArray, lo: float, hi: float, logc: float, hill: float, s: float) -> FloatArray:
+    # The usual 5PL, y = hi + (lo - hi)/(1 + (x/c)**b)**g with c the "inflection" constant
+    # (common practice); the catalog's logC is the true half-way dose, which relates to c by
+    # (x/c)**b = (2**(1/s) - 1)*(x/C)**hill, i.e. c = C*(2**(1/s) - 1)**(-1/hill).
+    c = 10**logc * (2 ** (1 / s) - 1) ** (-1 / hill)
+    out: FloatArray = hi + (lo - hi) / (1 + (x / c) ** hill) ** s
+    return out
+
+
+REFERENCE_FORMS: dict[str, tuple[str, Ref]] = {
+    "straight_line": ("straight line", lambda x, intercept, slope: intercept + slope * x),
+    "polynomial_2": ("polynomial degree 2", lambda x, c0, c1, c2: c0 + c1 * x + c2 * x**2),
+    "polynomial_3": (
+        "polynomial degree 3",
+        lambda x, c0, c1, c2, c3: c0 + c1 * x + c2 * x**2 + c3 * x**3,
+    ),
+    "decay_to_plateau": (
+        "exponential decay to a plateau",
+        lambda x, plateau, span, k: plateau + span * np.exp(-k * x),
+    ),
+    "two_phase_decay": (
+        "two-phase decay",
+        lambda x, plateau, span_fast, k_fast, span_slow, k_slow: (
+            plateau + span_fast * np.exp(-k_fast * x) + span_slow * np.exp(-k_slow * x)
+        ),
+    ),
+    "rise_to_plateau": (
+        "exponential rise to a plateau",
+        lambda x, y0, plateau, k: plateau - (plateau - y0) * np.exp(-k * x),
+    ),
+    "exponential_growth": ("exponential growth", lambda x, y0, k: y0 * np.exp(k * x)),
+    "michaelis_menten": ("Michaelis-Menten", lambda x, Vmax, Km: Vmax * x / (Km + x)),
+    "substrate_inhibition": (
+        "substrate inhibition",
+        lambda x, Vmax, Km, Ki: Vmax * x / (Km + x + x**2 / Ki),
+    ),
+    "hill": (
+        "Hill equation",
+        lambda x, Vmax, K_half, n_hill: Vmax / (1 + (K_half / x) ** n_hill),
+    ),
+    "inhibition_4pl": (
+        "4PL inhibition",
+        lambda x, bottom, top, logIC50, hill: (
+            bottom + (top - bottom) / (1 + (x / 10**logIC50) ** hill)
+        ),
+    ),
+    "stimulation_4pl": (
+        "4PL stimulation",
+        lambda x, bottom, top, logEC50, hill: (
+            bottom + (top - bottom) / (1 + (10**logEC50 / x) ** hill)
+        ),
+    ),
+    "inhibition_5pl": (
+        "5PL inhibition",
+        lambda x, bottom, top, logIC50, hill, s: _ref_5pl(x, top, bottom, logIC50, hill, s),
+    ),
+    "stimulation_5pl": (
+        "5PL stimulation",
+        lambda x, bottom, top, logEC50, hill, s: _ref_5pl(x, bottom, top, logEC50, hill, s),
+    ),
+    "stimulation_3pl": (
+        "3PL",
+        lambda x, top, logEC50, hill: top / (1 + (10**logEC50 / x) ** hill),
+    ),
+    "logistic_growth": (
+        "logistic growth",
+        # the solution of dN/dt = r N (1 - N/K) with N(0) = N0 (common practice)
+        lambda x, N0, K, r: K * N0 * np.exp(r * x) / (K + N0 * (np.exp(r * x) - 1)),
+    ),
+    "gompertz_growth": (
+        "Gompertz growth",
+        # the solution of dN/dt = r N log(K/N) with N(0) = N0 (common practice)
+        lambda x, N0, K, r: K * (N0 / K) ** np.exp(-r * x),
+    ),
+    "gaussian_peak": (
+        "Gaussian peak with baseline",
+        lambda x, baseline, amplitude, center, sigma: (
+            baseline + amplitude * np.exp(-0.5 * ((x - center) / sigma) ** 2)
+        ),
+    ),
+    "lorentzian_peak": (
+        "Lorentzian peak with baseline",
+        lambda x, baseline, amplitude, center, hwhm: (
+            baseline + amplitude * hwhm**2 / ((x - center) ** 2 + hwhm**2)
+        ),
+    ),
+    "boltzmann_sigmoid": (
+        "Boltzmann sigmoid",
+        lambda x, bottom, top, V50, slope: top + (bottom - top) / (1 + np.exp((x - V50) / slope)),
+    ),
+    "power_law": ("power law", lambda x, a, b: a * x**b),
+}
+
+
+def test_reference_forms_cover_the_catalog() -> None:
+    assert set(REFERENCE_FORMS) == set(catalog())
+
+
+@pytest.mark.parametrize("name", sorted(REFERENCE_FORMS))
+def test_formula_matches_the_textbook_form(name: str) -> None:
+    m = catalog()[name]
+    ref = REFERENCE_FORMS[name][1]
+    case = CASES[name]
+    xs = case.x[case.x > 0] if m.domain != "all" else case.x
+    rng = np.random.default_rng(7)
+    for _ in range(5):
+        # perturb the true values by up to 30 % so the check is not at one special point
+        vals = {k: v * (1 + 0.3 * rng.uniform(-1, 1)) for k, v in case.truth.items()}
+        got = m.eval(xs, vals)
+        want = ref(xs, *(vals[n] for n in m.param_names))
+        np.testing.assert_allclose(got, want, rtol=1e-11, atol=1e-12 * np.max(np.abs(want)))
+
+
+def test_polynomial_of_any_degree() -> None:
+    x = np.linspace(-2, 3, 9)
+    for k in range(1, 11):
+        m = polynomial(k)
+        assert m.param_names == tuple(f"c{j}" for j in range(k + 1))
+        assert m.polynomial_degree == k
+        coef = np.arange(1.0, k + 2)
+        np.testing.assert_allclose(
+            m.eval(x, dict(zip(m.param_names, coef, strict=True))),
+            np.polynomial.polynomial.polyval(x, coef),
+            rtol=1e-13,
+        )
+    assert polynomial(3) is polynomial(3)
+    assert catalog()["polynomial_2"] is polynomial(2)
+
+
+@pytest.mark.parametrize(
+    ("bad", "match"),
+    [
+        (0, r"degree must be from 1 to 10, got 0"),
+        (11, r"degree must be from 1 to 10, got 11"),
+        (2.5, r"whole number from 1 to 10, got 2\.5 \(float\)"),
+        (True, r"whole number from 1 to 10, got True \(bool\)"),
+    ],
+)
+def test_polynomial_bad_degree(bad: object, match: str) -> None:
+    with pytest.raises(ModelError, match=match):
+        polynomial(bad)  # type: ignore[arg-type]
+
+
+def test_dose_response_midpoint_on_log_scale_and_zero_dose_controls() -> None:
+    for name in (
+        "inhibition_4pl",
+        "inhibition_5pl",
+        "stimulation_4pl",
+        "stimulation_5pl",
+        "stimulation_3pl",
+    ):
+        m = catalog()[name]
+        mid = "logIC50" if name.startswith("inhibition") else "logEC50"
+        assert mid in m.param_names
+        assert m.param(mid).unit == "log10(x)"
+        assert m.domain == "x>=0"
+        truth = CASES[name].truth
+        y0 = m.eval(np.array([0.0]), truth)[0]
+        # the value at zero dose is the low-dose plateau (top for inhibition, bottom or 0 else)
+        want = truth["top"] if name.startswith("inhibition") else truth.get("bottom", 0.0)
+        assert y0 == pytest.approx(want, rel=1e-14, abs=1e-14)
+        m.check_domain(np.array([0.0, 1e-6]))  # zero dose is valid data
+        with pytest.raises(DomainError, match=r"needs non-negative x \(x>=0\) but 1 value"):
+            m.check_domain(np.array([0.0, -1e-6]))
+
+
+def test_power_law_needs_positive_x() -> None:
+    with pytest.raises(DomainError, match=r"'power_law' needs positive x \(x>0\)"):
+        guided_start(catalog()["power_law"], [0.0, 1.0, 2.0], [0.0, 1.0, 2.0])
+
+
+# ------------------------------------------------------------------------------ parameters
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_parameters_are_sane(name: str) -> None:
+    m = catalog()[name]
+    for p in m.params:
+        assert p.lower <= p.value <= p.upper
+        assert p.description
+        if p.positive:
+            assert p.lower >= 0 and p.value > 0
+    for pname, v in CASES[name].truth.items():
+        q = m.param(pname)
+        assert q.lower <= v <= q.upper, f"true {pname} = {v} outside bounds of {name}"
+    # the defaults draw a finite curve over the model's domain (a preview before any data)
+    x = np.linspace(0.01, 10, 50) if m.domain != "all" else np.linspace(-10, 10, 50)
+    assert np.all(np.isfinite(m.eval(x)))
+
+
+def test_rates_widths_and_concentrations_are_positive() -> None:
+    # A negative rate constant, width, Km or Hill slope is not physical: the bounds say so.
+    positive = {
+        "decay_to_plateau": ["k"],
+        "two_phase_decay": ["k_fast", "k_slow"],
+        "rise_to_plateau": ["k"],
+        "exponential_growth": ["k"],
+        "michaelis_menten": ["Vmax", "Km"],
+        "substrate_inhibition": ["Vmax", "Km", "Ki"],
+        "hill": ["Vmax", "K_half", "n_hill"],
+        "inhibition_4pl": ["hill"],
+        "inhibition_5pl": ["hill", "s"],
+        "stimulation_4pl": ["hill"],
+        "stimulation_5pl": ["hill", "s"],
+        "stimulation_3pl": ["hill"],
+        "logistic_growth": ["N0", "K", "r"],
+        "gompertz_growth": ["N0", "K", "r"],
+        "gaussian_peak": ["sigma"],
+        "lorentzian_peak": ["hwhm"],
+    }
+    for name, names in positive.items():
+        for n in names:
+            p = catalog()[name].param(n)
+            assert p.positive and p.lower == 0.0, (name, n)
+
+
+# ------------------------------------------------------------------------ derived quantities
+def _root(f: Callable[[float], float], a: float, b: float) -> float:
+    return float(optimize.brentq(f, a, b, xtol=1e-14, rtol=1e-14, maxiter=500))
+
+
+def _curve(m: Model, v: Mapping[str, float]) -> Callable[[float], float]:
+    return lambda t: float(m.eval(np.array([t]), v)[0])
+
+
+def _slope(f: Callable[[float], float], t: float, h: float) -> float:
+    return (f(t + h) - f(t - h)) / (2 * h)
+
+
+def _argmax(f: Callable[[float], float], a: float, b: float) -> float:
+    r = optimize.minimize_scalar(
+        lambda t: -f(t), bounds=(a, b), method="bounded", options={"xatol": 1e-12}
+    )
+    return float(r.x)
+
+
+# For each derived quantity, what it must equal, found from the curve with scipy.
+def _derived_expectations() -> dict[tuple[str, str], Callable[[Model, dict[str, float]], float]]:
+    def halfway_time(m: Model, v: dict[str, float], start: float, end: float, hi: float) -> float:
+        f = _curve(m, v)
+        return _root(lambda t: f(t) - (start + end) / 2, 0.0, hi)
+
+    def mid_dose(m: Model, v: dict[str, float], lo_level: float, hi_level: float) -> float:
+        f = _curve(m, v)
+        # solve in log10 dose: the half-way response, found from the curve itself
+        t = _root(lambda u: f(10**u) - (lo_level + hi_level) / 2, -12.0, 0.0)
+        return float(10**t)
+
+    return {
+        ("straight_line", "x_intercept"): lambda m, v: _root(_curve(m, v), -100, 100),
+        ("decay_to_plateau", "half_life"): lambda m, v: halfway_time(
+            m, v, v["plateau"] + v["span"], v["plateau"], 100
+        ),
+        # the time constant: the curve has covered 1 - 1/e of the way (common practice)
+        ("decay_to_plateau", "tau"): lambda m, v: _root(
+            lambda t: _curve(m, v)(t) - (v["plateau"] + v["span"] / math.e), 0, 100
+        ),
+        ("decay_to_plateau", "y_at_0"): lambda m, v: _curve(m, v)(0.0),
+        # each phase's half-life is ln 2 over its own rate (common practice); checked on that
+        # phase's own term, which is the curve with the other span set to zero
+        ("two_phase_decay", "half_life_fast"): lambda m, v: halfway_time(
+            m, {**v, "span_slow": 0.0}, v["plateau"] + v["span_fast"], v["plateau"], 100
+        ),
+        ("two_phase_decay", "half_life_slow"): lambda m, v: halfway_time(
+            m, {**v, "span_fast": 0.0}, v["plateau"] + v["span_slow"], v["plateau"], 1000
+        ),
+        ("two_phase_decay", "fraction_fast"): lambda m, v: (
+            (_curve(m, v)(0.0) - _curve(m, {**v, "span_fast": 0.0})(0.0))
+            / (_curve(m, v)(0.0) - v["plateau"])
+        ),
+        ("rise_to_plateau", "half_life"): lambda m, v: halfway_time(
+            m, v, v["y0"], v["plateau"], 500
+        ),
+        ("rise_to_plateau", "tau"): lambda m, v: _root(
+            lambda t: _curve(m, v)(t) - (v["plateau"] - (v["plateau"] - v["y0"]) / math.e), 0, 500
+        ),
+        ("exponential_growth", "doubling_time"): lambda m, v: _root(
+            lambda t: _curve(m, v)(t) - 2 * _curve(m, v)(0.0), 0, 100
+        ),
+        # Vmax/Km: the initial slope of the Michaelis-Menten curve (common practice)
+        ("michaelis_menten", "efficiency"): lambda m, v: _slope(_curve(m, v), 0.0, 1e-6 * v["Km"]),
+        ("substrate_inhibition", "x_peak"): lambda m, v: _argmax(_curve(m, v), 1e-3, 1e4),
+        ("substrate_inhibition", "y_peak"): lambda m, v: _curve(m, v)(
+            _argmax(_curve(m, v), 1e-3, 1e4)
+        ),
+        ("inhibition_4pl", "IC50"): lambda m, v: mid_dose(m, v, v["top"], v["bottom"]),
+        ("inhibition_4pl", "span"): lambda m, v: _curve(m, v)(0.0) - _curve(m, v)(1e6),
+        ("inhibition_5pl", "IC50"): lambda m, v: mid_dose(m, v, v["top"], v["bottom"]),
+        ("inhibition_5pl", "span"): lambda m, v: _curve(m, v)(0.0) - _curve(m, v)(1e12),
+        ("stimulation_4pl", "EC50"): lambda m, v: mid_dose(m, v, v["bottom"], v["top"]),
+        ("stimulation_4pl", "span"): lambda m, v: _curve(m, v)(1e12) - _curve(m, v)(0.0),
+        ("stimulation_5pl", "EC50"): lambda m, v: mid_dose(m, v, v["bottom"], v["top"]),
+        ("stimulation_5pl", "span"): lambda m, v: _curve(m, v)(1e20) - _curve(m, v)(0.0),
+        ("stimulation_3pl", "EC50"): lambda m, v: mid_dose(m, v, 0.0, v["top"]),
+        # early growth is exponential at rate r, so it doubles in ln 2 / r (common practice)
+        ("logistic_growth", "doubling_time"): lambda m, v: (
+            math.log(2) / _slope(lambda t: math.log(_curve(m, v)(t)), -40.0, 1e-4)
+        ),
+        ("logistic_growth", "x_inflection"): lambda m, v: _argmax(
+            lambda t: _slope(_curve(m, v), t, 1e-5), 0, 50
+        ),
+        ("gompertz_growth", "x_inflection"): lambda m, v: _argmax(
+            lambda t: _slope(_curve(m, v), t, 1e-5), 0, 50
+        ),
+        ("gompertz_growth", "max_rate"): lambda m, v: _slope(
+            _curve(m, v), _argmax(lambda t: _slope(_curve(m, v), t, 1e-5), 0, 50), 1e-5
+        ),
+        ("gaussian_peak", "fwhm"): lambda m, v: (
+            _root(lambda t: _curve(m, v)(t) - v["baseline"] - v["amplitude"] / 2, v["center"], 1e4)
+            - _root(
+                lambda t: _curve(m, v)(t) - v["baseline"] - v["amplitude"] / 2, -1e4, v["center"]
+            )
+        ),
+        ("gaussian_peak", "area"): lambda m, v: integrate.quad(
+            lambda t: _curve(m, v)(t) - v["baseline"],
+            v["center"] - 40 * v["sigma"],
+            v["center"] + 40 * v["sigma"],
+            epsabs=0,
+            epsrel=1e-12,
+            limit=200,
+        )[0],
+        ("lorentzian_peak", "fwhm"): lambda m, v: (
+            _root(lambda t: _curve(m, v)(t) - v["baseline"] - v["amplitude"] / 2, v["center"], 1e6)
+            - _root(
+                lambda t: _curve(m, v)(t) - v["baseline"] - v["amplitude"] / 2, -1e6, v["center"]
+            )
+        ),
+        ("lorentzian_peak", "area"): lambda m, v: integrate.quad(
+            lambda t: _curve(m, v)(t) - v["baseline"],
+            -np.inf,
+            np.inf,
+            epsabs=0,
+            epsrel=1e-11,
+            limit=500,
+        )[0],
+    }
+
+
+def test_every_derived_quantity_has_a_check() -> None:
+    declared = {(m.name, d.name) for m in catalog().values() for d in m.derived}
+    assert declared == set(_derived_expectations())
+
+
+@pytest.mark.parametrize(("model", "quantity"), sorted(_derived_expectations()))
+def test_derived_quantity_matches_the_curve(model: str, quantity: str) -> None:
+    m = catalog()[model]
+    v = dict(CASES[model].truth)
+    got = m.derived_values(v)[quantity]
+    want = _derived_expectations()[(model, quantity)](m, v)
+    assert got == pytest.approx(want, rel=1e-6)
+
+
+def test_common_practice_formulas_for_derived_quantities() -> None:
+    # half-life = ln 2 / k, IC50 = 10**logIC50, FWHM = 2*sqrt(2 ln 2)*sigma (common practice)
+    d = catalog()["decay_to_plateau"].derived_values({"plateau": 0, "span": 1, "k": 0.3})
+    assert d["half_life"] == pytest.approx(LN2 / 0.3, rel=1e-15)
+    d = catalog()["inhibition_4pl"].derived_values(
+        {"bottom": 0, "top": 100, "logIC50": -7.25, "hill": 1}
+    )
+    assert d["IC50"] == pytest.approx(10**-7.25, rel=1e-14)
+    d = catalog()["gaussian_peak"].derived_values(
+        {"baseline": 0, "amplitude": 1, "center": 0, "sigma": 2.0}
+    )
+    assert d["fwhm"] == pytest.approx(2.0 * 2.3548200450309493, rel=1e-14)
+
+
+# --------------------------------------------------------------------------------- handles
+# Each handle is either a point on the curve ("on") or marks the level the curve approaches
+# ("level", with the side of x it approaches it on and how far the curve still is from it at
+# the handle's x, as a fraction of the curve's total rise or fall).
+ON = ("on", 0.0, 0.0)
+
+
+def _level(side: float, within: float) -> tuple[str, float, float]:
+    return ("level", side, within)
+
+
+HANDLE_KINDS: dict[tuple[str, str], tuple[str, float, float]] = {
+    ("straight_line", "intercept"): ON,
+    ("decay_to_plateau", "start"): ON,
+    ("decay_to_plateau", "plateau"): _level(+1, 0.01),
+    ("decay_to_plateau", "half_life"): ON,
+    ("two_phase_decay", "start"): ON,
+    ("two_phase_decay", "plateau"): _level(+1, 0.01),
+    ("two_phase_decay", "half_life_fast"): ON,
+    ("two_phase_decay", "half_life_slow"): ON,
+    ("rise_to_plateau", "start"): ON,
+    ("rise_to_plateau", "plateau"): _level(+1, 0.01),
+    ("rise_to_plateau", "half_life"): ON,
+    ("exponential_growth", "start"): ON,
+    ("exponential_growth", "doubling"): ON,
+    ("michaelis_menten", "vmax"): _level(+1, 0.15),
+    ("michaelis_menten", "km"): ON,
+    ("substrate_inhibition", "peak"): ON,
+    ("substrate_inhibition", "km"): ON,
+    ("hill", "vmax"): _level(+1, 0.15),
+    ("hill", "k_half"): ON,
+    ("hill", "steepness"): ON,
+    ("logistic_growth", "start"): ON,
+    ("logistic_growth", "capacity"): _level(+1, 0.02),
+    ("logistic_growth", "inflection"): ON,
+    ("gompertz_growth", "start"): ON,
+    ("gompertz_growth", "capacity"): _level(+1, 0.1),
+    ("gompertz_growth", "inflection"): ON,
+    ("gaussian_peak", "apex"): ON,
+    ("gaussian_peak", "width"): ON,
+    ("gaussian_peak", "baseline"): _level(+1, 0.001),
+    ("lorentzian_peak", "apex"): ON,
+    ("lorentzian_peak", "width"): ON,
+    ("lorentzian_peak", "baseline"): _level(+1, 0.03),
+    ("boltzmann_sigmoid", "midpoint"): ON,
+    ("boltzmann_sigmoid", "steepness"): ON,
+    ("boltzmann_sigmoid", "bottom"): _level(-1, 0.01),
+    ("boltzmann_sigmoid", "top"): _level(+1, 0.01),
+}
+for _name in ("inhibition_4pl", "inhibition_5pl", "stimulation_4pl", "stimulation_5pl"):
+    _low, _high = ("top", "bottom") if _name.startswith("inhibition") else ("bottom", "top")
+    HANDLE_KINDS[(_name, f"{_low}_plateau")] = _level(-1, 0.05)
+    HANDLE_KINDS[(_name, f"{_high}_plateau")] = _level(+1, 0.05)
+    HANDLE_KINDS[(_name, "midpoint")] = ON
+    HANDLE_KINDS[(_name, "steepness")] = ON
+    if "5pl" in _name:
+        HANDLE_KINDS[(_name, "asymmetry")] = ON
+HANDLE_KINDS[("stimulation_3pl", "top_plateau")] = _level(+1, 0.05)
+HANDLE_KINDS[("stimulation_3pl", "midpoint")] = ON
+HANDLE_KINDS[("stimulation_3pl", "steepness")] = ON
+
+
+def test_every_handle_is_classified() -> None:
+    declared = {(m.name, h.name) for m in catalog().values() for h in m.handles}
+    assert declared == set(HANDLE_KINDS)
+
+
+def _far(m: Model, v: Mapping[str, float], side: float, hx: float) -> float:
+    """The curve's limit on one side: evaluated far beyond the handle (in log x when x >= 0)."""
+    if m.domain != "all":
+        t = hx * 1e40 if side > 0 else hx * 1e-40
+    else:
+        t = hx + side * 1e6 * max(abs(hx), 1.0)
+    return float(m.eval(np.array([t]), v)[0])
+
+
+@pytest.mark.parametrize(("model", "handle"), sorted(HANDLE_KINDS))
+def test_handle_sits_where_it_should(model: str, handle: str) -> None:
+    m = catalog()[model]
+    h = next(h for h in m.handles if h.name == handle)
+    v = dict(CASES[model].truth)
+    if model == "boltzmann_sigmoid":
+        cases = [v, {**v, "bottom": v["top"], "top": v["bottom"]}]  # a falling curve too
+    else:
+        cases = [v]
+    kind, side, within = HANDLE_KINDS[(model, handle)]
+    for vals in cases:
+        hx, hy = h.position(vals)
+        assert math.isfinite(hx) and math.isfinite(hy)
+        at = float(m.eval(np.array([hx]), vals)[0])
+        ys = m.eval(CASES[model].x, vals)
+        scale = float(np.ptp(ys))
+        if kind == "on":
+            assert at == pytest.approx(hy, rel=1e-12, abs=1e-12 * scale)
+        else:
+            limit = _far(m, vals, side, hx)
+            assert hy == pytest.approx(limit, rel=1e-9, abs=1e-9 * scale)
+            assert abs(at - hy) <= within * scale
+        # the parameters it moves really move it
+        for p in h.moves:
+            bumped = {**vals, p: vals[p] * 1.01 + 1e-3}
+            assert h.position(bumped) != (hx, hy), (model, handle, p)
+
+
+def test_named_handles_mean_what_they_say() -> None:
+    cat = catalog()
+    v = CASES["inhibition_4pl"].truth
+    mid = next(h for h in cat["inhibition_4pl"].handles if h.name == "midpoint")
+    assert mid.position(v) == pytest.approx((10 ** v["logIC50"], (v["top"] + v["bottom"]) / 2))
+    v = CASES["decay_to_plateau"].truth
+    hl = next(h for h in cat["decay_to_plateau"].handles if h.name == "half_life")
+    assert hl.position(v)[0] == pytest.approx(LN2 / v["k"])
+    v = CASES["michaelis_menten"].truth
+    km = next(h for h in cat["michaelis_menten"].handles if h.name == "km")
+    assert km.position(v) == pytest.approx((v["Km"], v["Vmax"] / 2))
+
+
+# ------------------------------------------------------------------------------ round trip
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_json_round_trip(name: str) -> None:
+    m = catalog()[name]
+    text = json.dumps(m.to_dict())
+    back = Model.from_dict(json.loads(text))
+    assert back == m
+    assert back.same_form(m)
+    assert back.param_names == m.param_names
+    assert back.polynomial_degree == m.polynomial_degree
+    assert back.start_rule is not None  # a saved catalog model keeps its starting-value rule
+    assert find_builtin(name, m.formula) is m
+    case = CASES[name]
+    np.testing.assert_array_equal(back.eval(case.x, case.truth), m.eval(case.x, case.truth))
+    assert back.derived_values(case.truth) == m.derived_values(case.truth)
+    for h1, h2 in zip(back.handles, m.handles, strict=True):
+        assert h1.position(case.truth) == h2.position(case.truth)
+    y = m.eval(case.x, case.truth)
+    assert guided_start(back, case.x, y) == guided_start(m, case.x, y)
+    assert json.loads(json.dumps(back.to_dict())) == json.loads(text)
+
+
+def test_find_builtin_rejects_a_different_formula() -> None:
+    assert find_builtin("michaelis_menten", "Vmax*x/(Km + x) + 0*Km") is None
+    assert find_builtin("michaelis_menten", "not a formula (") is None
+    assert find_builtin("polynomial_7", polynomial(7).formula) is polynomial(7)
+
+
+# --------------------------------------------------------------------------- recovery
+def _fit(m: Model, x: FloatArray, y: FloatArray) -> tuple[dict[str, float], cw.FitResult]:
+    start = guided_start(m, x, y)  # no number from the user
+    res = cw.fit(m, x, y, start=start)
+    assert res.success, res.message
+    return start, res
+
+
+def _all_cases() -> list[tuple[str, str, Case]]:
+    out = [(n, n, c) for n, c in sorted(CASES.items())]
+    out += [(label, n, c) for label, (n, c) in sorted(EXTRA_CASES.items())]
+    return out
+
+
+@pytest.mark.parametrize(("label", "name", "case"), _all_cases(), ids=[c[0] for c in _all_cases()])
+def test_recovers_known_parameters_from_clean_data(label: str, name: str, case: Case) -> None:
+    m = catalog()[name]
+    y = m.eval(case.x, case.truth)
+    _, res = _fit(m, case.x, y)
+    for n, t in case.truth.items():
+        # truth is the reference: the data were made from it without noise
+        assert res.values[n] == pytest.approx(t, rel=1e-6, abs=1e-9 * float(np.ptp(y))), n
+    assert res.ssr <= 1e-18 * float(np.sum(y**2)) + 1e-24
+
+
+@pytest.mark.parametrize(("label", "name", "case"), _all_cases(), ids=[c[0] for c in _all_cases()])
+def test_recovers_known_parameters_from_noisy_data(label: str, name: str, case: Case) -> None:
+    m = catalog()[name]
+    clean = m.eval(case.x, case.truth)
+    rng = np.random.default_rng(sum(map(ord, label)))  # fixed per case: reproducible
+    y = clean + 0.01 * float(np.ptp(clean)) * rng.standard_normal(clean.size)
+    _, res = _fit(m, case.x, y)
+    # The guided start must reach the least-squares minimum itself, not a worse local one:
+    # compare with a fit started at the true values.
+    ref = cw.fit(m, case.x, y, start=case.truth)
+    assert res.ssr <= ref.ssr * (1 + 1e-7)
+    for n, t in case.truth.items():
+        # and that minimum is near the truth: within 5 standard errors (1 % noise)
+        assert abs(res.values[n] - t) <= 5 * res.stderr[n] + 1e-12 * abs(t), (n, res.values[n], t)
+
+
+def test_recovery_with_data_in_any_order_and_replicates() -> None:
+    m = catalog()["michaelis_menten"]
+    case = CASES["michaelis_menten"]
+    x = np.tile(case.x, 3)
+    y = m.eval(x, case.truth)
+    perm = np.random.default_rng(3).permutation(x.size)
+    _, res = _fit(m, x[perm], y[perm])
+    for n, t in case.truth.items():
+        assert res.values[n] == pytest.approx(t, rel=1e-8)
