@@ -1,7 +1,8 @@
 """Convert between the library's objects and the JSON the widget syncs with the front end.
 
 Pure functions (no traitlets): parameter settings <-> the ``params`` trait with validation,
-a dataset -> the ``data`` trait (decimated beyond a point budget), a fit result -> ``fitted``.
+a dataset -> the ``data`` trait (decimated beyond a point budget), a fit result -> ``fitted``,
+curves sampled for the front end.
 """
 
 from __future__ import annotations
@@ -16,16 +17,20 @@ from numpy.typing import NDArray
 from ..data import Dataset
 from ..errors import DataError, ParameterError
 from ..models import Model, unknown_name_message
+from ..result import CAUTION, FitResult
 
 __all__ = [
     "MAX_POINTS",
     "ParamSetting",
     "Scale",
     "auto_x_scale",
+    "curve_json",
     "data_view",
     "decimate_rows",
+    "fitted_json",
     "params_json",
     "parse_params",
+    "sample_x",
     "validate_setting",
 ]
 
@@ -92,10 +97,14 @@ def parse_params(model: Model, raw: object) -> dict[str, ParamSetting]:
     Every parameter of the model must be present, and no other name.
     """
     if not isinstance(raw, Mapping):
-        raise ParameterError(f"params must be a mapping name -> settings, got {type(raw).__name__}.")
+        raise ParameterError(
+            f"params must be a mapping name -> settings, got {type(raw).__name__}."
+        )
     unknown = [k for k in raw if k not in model.param_names]
     if unknown:
-        raise ParameterError(unknown_name_message(str(unknown[0]), model.param_names, repr(model.name)))
+        raise ParameterError(
+            unknown_name_message(str(unknown[0]), model.param_names, repr(model.name))
+        )
     missing = [n for n in model.param_names if n not in raw]
     if missing:
         raise ParameterError(f"params lacks settings for {missing}; every parameter needs one.")
@@ -281,7 +290,12 @@ def data_view(
 
 
 def check_rows(ds: Dataset, rows: object, what: str) -> list[int]:
-    """Validate input-row indices (``exclude``/``include`` arguments, the ``excluded`` trait)."""
+    """Validate input-row indices (``exclude``/``include`` arguments, the ``excluded`` trait).
+
+    ``None`` means no rows. Returns the rows sorted, each once.
+    """
+    if rows is None:
+        return []
     if isinstance(rows, (int, np.integer)) and not isinstance(rows, bool):
         rows = [rows]
     arr = np.asarray(rows)
@@ -310,3 +324,128 @@ def check_rows(ds: Dataset, rows: object, what: str) -> list[int]:
             "values; they are not in the data."
         )
     return sorted({int(v) for v in arr})
+
+
+# ------------------------------------------------------------------------- curves and fits
+def sample_x(x: NDArray[np.float64], scale: Scale, n: int = 240) -> NDArray[np.float64]:
+    """``n`` x values across the data's range, evenly spaced on the axis (decades on log x).
+
+    A curve sampled this way looks smooth on the axis it is drawn on. On a log axis only the
+    positive x count (zero-dose controls sit off the axis).
+    """
+    finite = x[np.isfinite(x)]
+    if scale == "log":
+        finite = finite[finite > 0]
+    if finite.size == 0:
+        return np.linspace(0.0, 1.0, n) if scale == "linear" else np.logspace(-2, 2, n)
+    lo, hi = float(finite.min()), float(finite.max())
+    if scale == "log":
+        a, b = math.log10(lo), math.log10(hi)
+        pad = 0.05 * (b - a) if b > a else 0.5
+        return np.logspace(a - pad, b + pad, n)
+    pad = 0.05 * (hi - lo) if hi > lo else (abs(lo) or 1.0) * 0.5
+    return np.linspace(lo - pad, hi + pad, n)
+
+
+def curve_json(
+    model: Model, values: Mapping[str, float], xs: NDArray[np.float64]
+) -> dict[str, Any]:
+    """``{"x": [...], "y": [...]}`` of the model at ``xs`` (non-finite y as ``null``).
+
+    Used for models the front end cannot evaluate itself (Python callables) and for earlier
+    fits of other models drawn for comparison.
+    """
+    with np.errstate(all="ignore"):
+        ys = model.eval(xs, dict(values))
+    return {"x": _list(xs), "y": _list(np.asarray(ys, dtype=float))}
+
+
+def _opt(v: float) -> float | None:
+    return float(v) if math.isfinite(v) else None
+
+
+def fitted_json(
+    result: FitResult,
+    view: Mapping[str, Any],
+    x_scale: Scale,
+    level: float = 0.95,
+) -> dict[str, Any]:
+    """The ``fitted`` trait for a fit result and the current ``data`` view.
+
+    Residuals are given for every drawn point (excluded ones too, so the residual strip can
+    show them in their own style); flags per parameter say fixed / at a bound / not identified;
+    derived quantities carry an ``extrapolated`` flag when they lie outside the data's x range.
+    """
+    frame = result.to_frame(level)
+    names = list(result.model.param_names)
+    flags: dict[str, list[str]] = {}
+    for n in names:
+        row = frame.loc[n]
+        f: list[str] = []
+        if bool(row["fixed"]):
+            f.append("fixed")
+        if bool(row["at_lower"]):
+            f.append("at_lower")
+        if bool(row["at_upper"]):
+            f.append("at_upper")
+        if bool(row["not_identified"]) or (
+            not bool(row["fixed"]) and not math.isfinite(float(row["stderr"]))
+        ):
+            f.append("not_identified")
+        flags[n] = f
+    vx = np.asarray([math.nan if v is None else v for v in view.get("x", [])], dtype=float)
+    vy = np.asarray([math.nan if v is None else v for v in view.get("y", [])], dtype=float)
+    with np.errstate(all="ignore"):
+        resid = vy - result.predict(vx) if vx.size else np.zeros(0)
+    derived: list[dict[str, Any]] = []
+    if result.model.derived:
+        table = result.derived(level)
+        for name, row in table.iterrows():
+            derived.append(
+                {
+                    "name": str(name),
+                    "value": _opt(float(row["value"])),
+                    "stderr": _opt(float(row["stderr"])),
+                    "lower": _opt(float(row["lower"])),
+                    "upper": _opt(float(row["upper"])),
+                    "unit": str(row["unit"] or ""),
+                    "extrapolated": row["in_data_range"] is False,
+                }
+            )
+    xs = sample_x(result.dataset.x, x_scale, 400)
+
+    def column(col: str) -> dict[str, float | None]:
+        arr = frame[col].to_numpy(dtype=float)  # rows in model order
+        return {n: _opt(float(v)) for n, v in zip(names, arr, strict=True)}
+
+    return {
+        "model_name": result.model.name,
+        "values": {n: float(result.values[n]) for n in names},
+        "stderr": column("stderr"),
+        "ci_low": column("ci_low"),
+        "ci_high": column("ci_high"),
+        "flags": flags,
+        "ci_level": level,
+        "curve": curve_json(result.model, result.values, xs),
+        "residuals": _list(np.asarray(resid, dtype=float)),
+        "derived": derived,
+        "success": bool(result.success),
+        "code": result.code,
+        "message": result.message,
+        "stats": {
+            "n": int(result.n),
+            "dof": int(result.dof),
+            "ssr": _opt(result.ssr),
+            "r2": _opt(result.r2),
+            "aicc": _opt(result.aicc),
+            "sigma_resid": _opt(result.sigma_resid),
+            "nfev": int(result.nfev),
+        },
+        "excluded": [int(r) for d in result.datasets for r in d.excluded_rows],
+        "diagnostics": [
+            {"code": d.code, "severity": d.severity, "text": d.text}
+            for d in result.diagnostics
+            if d.severity != "info"
+        ],
+        "caution": CAUTION,
+    }

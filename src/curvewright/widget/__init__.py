@@ -1,0 +1,7 @@
+"""The notebook widget (anywidget): the only part of curvewright that imports traitlets/IPython."""
+
+from __future__ import annotations
+
+from ._widget import CurveFitter
+
+__all__ = ["CurveFitter"]

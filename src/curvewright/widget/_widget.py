@@ -1,0 +1,967 @@
+"""The notebook widget: a thin anywidget view over the headless library for one dataset.
+
+Everything the page can do is a method here too (choose a model, edit parameters, exclude
+points, fit, cancel, save and restore the state), and everything set from Python shows on the
+page. Synced traitlets mirror ``js/state.ts``; the front end writes ``params``, ``excluded``,
+``x_scale``, ``y_scale``, ``model_name``, ``error`` and ``sync_ping``, Python writes the rest.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import math
+import threading
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+import anywidget
+import numpy as np
+import pandas as pd
+import traitlets
+from numpy.typing import ArrayLike
+
+from ..data import Dataset, make_dataset
+from ..errors import CurvewrightError, DataError, FitError, ModelError, ParameterError
+from ..fitting import resolve_model
+from ..models import Model, unknown_name_message
+from ..result import FitResult
+from ..start import guided_start
+from . import _state
+from ._errors import describe
+
+__all__ = ["CurveFitter"]
+
+# The saved-state format; bump the number when its meaning changes.
+STATE_FORMAT = "curvewright.widget/1"
+
+# fit() options a widget may carry into every fit; the rest of fit()'s arguments come from the
+# widget's own state (model, data, start, fixed, bounds, exclusions).
+FIT_OPTIONS = (
+    "weights",
+    "loss",
+    "loss_scale",
+    "absolute_sigma",
+    "method",
+    "max_nfev",
+    "timeout",
+    "links",
+)
+
+# Samples of a curve computed in Python (callable models, earlier fits drawn for comparison).
+_PREVIEW_SAMPLES = 240
+_COMPARE_SAMPLES = 200
+
+FitState = Literal["idle", "fitting", "done", "stopped", "error"]
+
+_BUNDLE = Path(__file__).parent.parent / "static" / "widget.js"
+# Without the bundle (a source checkout before `npm run build`) the widget still works from
+# Python and says on the page what is missing, instead of failing at import.
+_NO_BUNDLE_ESM = """
+export default { render({ el }) {
+  el.textContent = "curvewright: the front-end bundle static/widget.js is missing; " +
+    "run `npm run build` in the source tree (the widget still works from Python).";
+} };
+"""
+
+
+@dataclass
+class _Memory:
+    """What the widget remembers per model, so switching back restores it."""
+
+    settings: dict[str, _state.ParamSetting]
+    result: FitResult | None = None
+
+
+@dataclass(frozen=True)
+class _FitRequest:
+    model: Model
+    dataset: Dataset
+    start: dict[str, float]
+    fixed: tuple[str, ...]
+    bounds: dict[str, tuple[float | None, float | None]]
+    options: dict[str, Any] = field(default_factory=dict)
+
+
+def _running_loop() -> asyncio.AbstractEventLoop | None:
+    try:
+        return asyncio.get_running_loop()
+    except RuntimeError:
+        return None
+
+
+def _is_table(v: object) -> bool:
+    return isinstance(v, (pd.DataFrame, Mapping))
+
+
+class CurveFitter(anywidget.AnyWidget):
+    """Fit a model to data interactively in a notebook, with the result back in Python.
+
+    Parameters
+    ----------
+    data : DataFrame or mapping, optional
+        A table holding the columns named by ``x`` and ``y``. Arrays may be given instead as
+        ``CurveFitter(x_values, y_values, model=...)`` or with ``x=``/``y=``.
+    x, y : str or array_like
+        Column names of ``data``, or the observations themselves.
+    model : Model, str or callable
+        A catalog name (see :func:`curvewright.catalog`), a :class:`~curvewright.Model`, a
+        formula text such as ``"a*exp(-k*x) + c"``, or a Python function ``f(x, a, b, ...)``.
+    sigma : str or array_like, optional
+        Standard deviation of each y (or a column name); the fit weights by it.
+    models : sequence, optional
+        Extra models for the model chooser (same kinds as ``model``); the catalog is always there.
+    exclude : array_like, optional
+        Input rows to leave out of the fit at first (indices or a boolean mask).
+    x_scale, y_scale : {"linear", "log"}, optional
+        Axis scales. By default x is logarithmic when it spans more than two decades (as
+        concentrations do) and y is linear.
+    start : mapping, optional
+        Starting values by name; the others come from the model's guided start.
+    fixed : mapping or iterable of str, optional
+        Parameters held fixed: ``{name: value}`` or names held at their start.
+    bounds : mapping, optional
+        ``{name: (lower, upper)}``, ``None`` for no bound.
+    fit_options : mapping, optional
+        Extra :func:`curvewright.fit` arguments for every fit: weights, loss, loss_scale,
+        absolute_sigma, method, max_nfev, timeout, links.
+
+    Attributes
+    ----------
+    result : FitResult or None
+        The latest fit (an observable trait: ``widget.observe(fn, "result")``).
+    history : tuple of FitResult
+        Every fit made in this widget, oldest first, across models.
+
+    Raises
+    ------
+    DataError, ModelError, FormulaError, ParameterError
+        Bad data, an unknown or malformed model, inconsistent starting values or bounds.
+
+    Examples
+    --------
+    >>> w = CurveFitter(df, x="conc", y="response", model="inhibition_4pl")  # doctest: +SKIP
+    >>> w  # shows the widget; drag, fix, exclude, press Fit      # doctest: +SKIP
+    >>> w.result.values["logIC50"]                                # doctest: +SKIP
+    """
+
+    _esm = _BUNDLE if _BUNDLE.is_file() else _NO_BUNDLE_ESM
+
+    # ---- synced with the front end (types in js/state.ts)
+    model_json = traitlets.Dict().tag(sync=True)
+    data = traitlets.Dict().tag(sync=True)
+    params = traitlets.Dict().tag(sync=True)
+    # Any rather than Dict: None is a legal value (no fit yet / nothing to preview).
+    fitted = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
+    x_scale = traitlets.Unicode("linear").tag(sync=True)
+    y_scale = traitlets.Unicode("linear").tag(sync=True)
+    model_names = traitlets.List(traitlets.Unicode()).tag(sync=True)
+    model_name = traitlets.Unicode("").tag(sync=True)
+    status = traitlets.Dict().tag(sync=True)
+    error = traitlets.Unicode("").tag(sync=True)
+    excluded: traitlets.List[Any] = traitlets.List().tag(sync=True)
+    preview_curve = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
+    compare: traitlets.List[Any] = traitlets.List().tag(sync=True)
+    # A flush for tests and tools: the page sets sync_ping, Python answers with sync_pong; the
+    # answer proves every earlier update from the page has been applied here.
+    sync_ping = traitlets.Int(0).tag(sync=True)
+    sync_pong = traitlets.Int(0).tag(sync=True)
+
+    # ---- Python only
+    result = traitlets.Instance(FitResult, allow_none=True, default_value=None)
+
+    def __init__(
+        self,
+        data: pd.DataFrame | Mapping[str, Any] | ArrayLike | None = None,
+        x: str | ArrayLike | None = None,
+        y: str | ArrayLike | None = None,
+        *,
+        model: Model | str | Callable[..., Any] | None = None,
+        sigma: str | ArrayLike | None = None,
+        models: Sequence[Model | str | Callable[..., Any]] = (),
+        exclude: ArrayLike | None = None,
+        x_scale: str | None = None,
+        y_scale: str = "linear",
+        start: Mapping[str, float] | None = None,
+        fixed: Mapping[str, float] | Iterable[str] | None = None,
+        bounds: Mapping[str, tuple[float | None, float | None]] | None = None,
+        fit_options: Mapping[str, Any] | None = None,
+    ) -> None:
+        super().__init__()
+        self._lock = threading.RLock()
+        self._busy = 0  # >0 while the widget sets its own traits (observers stand aside)
+        self._from_front = 0  # >0 while applying an update sent by the page
+        self._thread: threading.Thread | None = None
+        self._cancel_event: threading.Event | None = None
+        self._pending: tuple[_FitRequest, FitResult | BaseException] | None = None
+        self._history: list[FitResult] = []
+        self._callbacks: list[Callable[[FitResult], Any]] = []
+        self._memory: dict[str, _Memory] = {}
+
+        if data is not None and not _is_table(data):
+            # CurveFitter(x_values, y_values, model=...): arrays given positionally.
+            if y is not None:
+                raise DataError(
+                    "Give either a table and column names, CurveFitter(df, x='col', y='col', "
+                    "...), or two arrays, CurveFitter(x_values, y_values, ...); got three "
+                    "positional arguments and the first is not a table."
+                )
+            data, x, y = None, data, x
+        table = data if isinstance(data, (pd.DataFrame, Mapping)) else None
+        self._ds = make_dataset(x, y, data=table, sigma=sigma)
+        self._excluded: list[int] = _state.check_rows(self._ds, exclude, "exclude")
+        self._fit_options = self._check_fit_options(fit_options)
+
+        if model is None:
+            raise ModelError(
+                "Give the model to fit: model='<catalog name>' (see curvewright.catalog()), a "
+                "Model, a formula text such as 'a*exp(-k*x) + c', or a function f(x, a, b)."
+            )
+        self._models: dict[str, Model] = {}
+        user: list[Model] = []
+        for spec in [model, *models]:
+            user.append(self._register(spec))
+        for name, m in _catalog().items():
+            self._models.setdefault(name, m)
+        first = user[0]
+        # The user's own models first in the chooser, then the catalog.
+        mine = [m.name for m in user]
+        order = mine + [n for n in self._models if n not in mine]
+        self._models = {n: self._models[n] for n in dict.fromkeys(order)}
+
+        xs = _state.auto_x_scale(self._ds.x) if x_scale is None else x_scale
+        xs_checked = _state.check_scale(xs, "x_scale")
+        ys_checked = _state.check_scale(y_scale, "y_scale")
+
+        settings, note = self._guided_settings(first)
+        settings = self._overlay(first, settings, start, fixed, bounds)
+        self._memory[first.name] = _Memory(settings=settings)
+
+        with self.hold_sync(), self._internal():
+            self.model_names = list(self._models)
+            self.x_scale = xs_checked
+            self.y_scale = ys_checked
+            self.excluded = list(self._excluded)
+            self._show_model(first.name)
+            self.status = {"state": "idle", "message": note}
+        self.on_msg(self._on_custom_msg)
+
+    # =================================================================== public: reading
+    @property
+    def model(self) -> Model:
+        """The model shown now."""
+        return self._models[self.model_name]
+
+    @property
+    def dataset(self) -> Dataset:
+        """All observations with the current exclusions applied (what Fit would fit)."""
+        return self._ds.with_exclusions(self._excluded)
+
+    @property
+    def settings(self) -> dict[str, dict[str, Any]]:
+        """Each parameter's value, lower and upper bound (``inf`` for none) and fixed flag."""
+        return {n: dict(s) for n, s in self._mem().settings.items()}
+
+    @property
+    def values(self) -> dict[str, float]:
+        """Current parameter values (the fitted ones after a successful fit)."""
+        return {n: float(s["value"]) for n, s in self._mem().settings.items()}
+
+    @property
+    def history(self) -> tuple[FitResult, ...]:
+        """Every fit made in this widget, oldest first, across all models."""
+        return tuple(self._history)
+
+    @property
+    def fits(self) -> dict[str, FitResult]:
+        """The latest fit of each model fitted so far, by model name (for comparison)."""
+        return {n: m.result for n, m in self._memory.items() if m.result is not None}
+
+    @property
+    def fitting(self) -> bool:
+        """Whether a fit is running now."""
+        t = self._thread
+        return t is not None and t.is_alive()
+
+    # =================================================================== public: changing
+    def set_model(self, model: Model | str | Callable[..., Any]) -> None:
+        """Show another model: a name in the chooser, a Model, a formula text or a function.
+
+        A model shown for the first time starts from its guided start; one shown before comes
+        back with its parameters and its fit. Earlier fits stay in :attr:`fits`.
+        """
+        if isinstance(model, str) and model in self._models:
+            name = model
+        else:
+            resolved = self._resolve(model)
+            self._check_new_name(resolved)
+            name = resolved.name
+            if name not in self._models:
+                self._models = {name: resolved, **self._models}
+                with self._internal():
+                    self.model_names = list(self._models)
+        with self.hold_sync(), self._internal():
+            self._switch(name)
+
+    def set_param(
+        self,
+        name: str,
+        *,
+        value: float | None = None,
+        lower: float | None = None,
+        upper: float | None = None,
+        fixed: bool | None = None,
+    ) -> None:
+        """Change one parameter's value, bounds or fixed flag (``None`` keeps the current one).
+
+        Use ``math.inf``/``-math.inf`` to remove a bound.
+
+        Raises
+        ------
+        ParameterError
+            Unknown name, non-finite value, lower above upper, value outside the bounds, or a
+            negative value for a positive parameter. Nothing changes then.
+        """
+        model = self.model
+        if name not in model.param_names:
+            raise ParameterError(unknown_name_message(name, model.param_names, repr(model.name)))
+        cur = self._mem().settings[name]
+        new = _state.validate_setting(
+            model,
+            name,
+            float(cur["value"] if value is None else _num(value, f"{name} value")),
+            float(cur["lower"] if lower is None else _num(lower, f"{name} lower")),
+            float(cur["upper"] if upper is None else _num(upper, f"{name} upper")),
+            bool(cur["fixed"] if fixed is None else fixed),
+        )
+        settings = {**self._mem().settings, name: new}
+        with self.hold_sync(), self._internal():
+            self._apply_settings(settings)
+
+    def fix(self, name: str, value: float | None = None) -> None:
+        """Hold a parameter fixed (at ``value`` if given, else at its current value)."""
+        self.set_param(name, value=value, fixed=True)
+
+    def free(self, name: str) -> None:
+        """Let a fixed parameter be estimated again."""
+        self.set_param(name, fixed=False)
+
+    def exclude(self, rows: ArrayLike) -> None:
+        """Leave input rows out of the fit (they stay on the plot in their own style)."""
+        new = _state.check_rows(self._ds, rows, "exclude")
+        self._set_excluded(sorted(set(self._excluded) | set(new)))
+
+    def include(self, rows: ArrayLike) -> None:
+        """Put excluded input rows back into the fit."""
+        back = set(_state.check_rows(self._ds, rows, "include"))
+        self._set_excluded([r for r in self._excluded if r not in back])
+
+    def reset_start(self) -> None:
+        """Run the model's guided start again (fixed parameters keep their values)."""
+        model = self.model
+        cur = self._mem().settings
+        held = {n: float(s["value"]) for n, s in cur.items() if s["fixed"]}
+        settings, note = self._guided_settings(model, held)
+        for n, s in cur.items():
+            lo, hi = float(s["lower"]), float(s["upper"])
+            v = min(max(float(settings[n]["value"]), lo), hi)
+            settings[n] = {"value": v, "lower": lo, "upper": hi, "fixed": bool(s["fixed"])}
+        with self.hold_sync(), self._internal():
+            self._apply_settings(settings)
+            self.status = {"state": "idle", "message": note or "guided start applied"}
+
+    # =================================================================== public: fitting
+    def fit(self, *, wait: bool = True) -> FitResult | None:
+        """Fit the current model to the included points, like the Fit button.
+
+        The fit runs in a worker thread. With ``wait=True`` (the default) this call waits for
+        it and returns the :class:`FitResult`; with ``wait=False`` it returns at once and the
+        result arrives in :attr:`result` (and the ``on_fit`` callbacks) when done.
+
+        Raises
+        ------
+        FitError
+            A fit is already running.
+        DataError, DomainError, ParameterError, ModelError, FitError
+            Whatever :func:`curvewright.fit` raises for the current state (with ``wait=True``);
+            the message is also shown in the widget's error area.
+        """
+        with self._lock:
+            if self.fitting:
+                raise FitError(
+                    "A fit is already running; wait for it (widget.wait()) or stop it "
+                    "(widget.cancel()) first."
+                )
+            request = self._request()
+            cancel = threading.Event()
+            self._cancel_event = cancel
+            self._pending = None
+            mode: Literal["join", "loop", "direct"]
+            loop = None
+            if wait:
+                mode = "join"
+            else:
+                loop = _running_loop()
+                mode = "loop" if loop is not None else "direct"
+            thread = threading.Thread(
+                target=self._work,
+                args=(request, cancel, mode, loop),
+                name="curvewright-fit",
+                daemon=True,
+            )
+            self._thread = thread
+        with self.hold_sync(), self._internal():
+            self.error = ""
+            self.status = {"state": "fitting", "message": f"fitting {request.model.name}..."}
+        thread.start()
+        if not wait:
+            return None
+        thread.join()
+        outcome = self._apply_pending()
+        if isinstance(outcome, BaseException):
+            raise outcome
+        return outcome
+
+    def cancel(self) -> None:
+        """Ask a running fit to stop; it ends with ``success=False`` and code "cancelled"."""
+        ev = self._cancel_event
+        if ev is not None:
+            ev.set()
+
+    def wait(self, timeout: float | None = None) -> bool:
+        """Wait for a running fit to finish and apply its result; False on timeout."""
+        t = self._thread
+        if t is not None:
+            t.join(timeout)
+            if t.is_alive():
+                return False
+        self._apply_pending()
+        return True
+
+    def on_fit(self, callback: Callable[[FitResult], Any], *, remove: bool = False) -> None:
+        """Call ``callback(result)`` after every fit (or stop calling it with ``remove=True``).
+
+        An exception in the callback is shown in the widget's error area.
+        """
+        if remove:
+            self._callbacks = [c for c in self._callbacks if c is not callback]
+        elif callback not in self._callbacks:
+            self._callbacks.append(callback)
+
+    # =================================================================== public: state
+    def snapshot(self) -> dict[str, Any]:
+        """The widget's state as JSON-ready data: model, parameters, exclusions, axes.
+
+        The data themselves are not included (they stay the user's); :meth:`restore` checks that
+        a snapshot is applied to data with the same number of rows.
+        """
+        model = self.model
+        return {
+            "format": STATE_FORMAT,
+            "model": model.name,
+            "model_def": model.to_dict() if model.expr is not None else None,
+            "params": _state.params_json(self._mem().settings),
+            "excluded": list(self._excluded),
+            "x_scale": self.x_scale,
+            "y_scale": self.y_scale,
+            "n_input": int(self._ds.n_input),
+        }
+
+    def restore(self, snapshot: Mapping[str, Any]) -> None:
+        """Apply a :meth:`snapshot` (everything is checked first; on error nothing changes).
+
+        Raises
+        ------
+        DataError
+            Wrong format, other data (row count), bad exclusions or axis scales.
+        ModelError
+            A model the widget does not know and cannot rebuild (a Python function: pass it
+            again with ``models=[...]``).
+        ParameterError
+            Parameter settings that do not fit the model.
+        """
+        if not isinstance(snapshot, Mapping):
+            raise DataError(f"A widget snapshot is a mapping, got {type(snapshot).__name__}.")
+        fmt = snapshot.get("format")
+        if fmt != STATE_FORMAT:
+            raise DataError(f"Not a widget snapshot: format is {fmt!r}, expected {STATE_FORMAT!r}.")
+        n_input = snapshot.get("n_input")
+        if n_input != self._ds.n_input:
+            raise DataError(
+                f"The snapshot was taken on data with {n_input} rows; this widget holds "
+                f"{self._ds.n_input}. Restore it on the same data."
+            )
+        name = snapshot.get("model")
+        if not isinstance(name, str):
+            raise ModelError(f"The snapshot's model name must be text, got {name!r}.")
+        model_def = snapshot.get("model_def")
+        model = self._models.get(name)
+        new_model: Model | None = None
+        if model is None or (
+            isinstance(model_def, Mapping)
+            and model.expr is not None
+            and model.to_dict().get("formula") != model_def.get("formula")
+        ):
+            if not isinstance(model_def, Mapping) or model_def.get("formula") is None:
+                raise ModelError(
+                    f"The snapshot's model {name!r} is not known here and cannot be rebuilt "
+                    "(it was a Python function); pass it with CurveFitter(..., models=[f])."
+                )
+            if model is not None:
+                raise ModelError(
+                    f"The snapshot's model {name!r} has another formula than this widget's "
+                    f"model of that name; rename one of them."
+                )
+            new_model = Model.from_dict(model_def)
+            model = new_model
+        settings = _state.parse_params(model, snapshot.get("params"))
+        rows = _state.check_rows(self._ds, snapshot.get("excluded", []), "excluded")
+        xs = _state.check_scale(snapshot.get("x_scale", "linear"), "x_scale")
+        ys = _state.check_scale(snapshot.get("y_scale", "linear"), "y_scale")
+        # Everything is valid: apply.
+        with self.hold_sync(), self._internal():
+            if new_model is not None:
+                self._models = {new_model.name: new_model, **self._models}
+                self.model_names = list(self._models)
+            mem = self._memory.setdefault(model.name, _Memory(settings=settings))
+            mem.settings = settings
+            self._excluded = rows
+            self.excluded = list(rows)
+            self.x_scale = xs
+            self.y_scale = ys
+            self._show_model(model.name)
+
+    def save(self, path: str | Path) -> None:
+        """Write :meth:`snapshot` to a JSON file."""
+        Path(path).write_text(json.dumps(self.snapshot(), indent=2), encoding="utf-8")
+
+    def load(self, path: str | Path) -> None:
+        """Read a JSON file written by :meth:`save` and :meth:`restore` it."""
+        try:
+            snap = json.loads(Path(path).read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError) as exc:
+            raise DataError(f"Cannot read a widget snapshot from {str(path)!r}: {exc}") from exc
+        self.restore(snap)
+
+    def close(self) -> None:
+        """Stop any running fit and close the widget."""
+        self.cancel()
+        super().close()
+
+    # =================================================================== front end plumbing
+    def set_state(self, sync_data: dict[str, Any]) -> None:
+        """Apply an update from the page (ipywidgets calls this); marks it as the page's."""
+        self._from_front += 1
+        try:
+            super().set_state(sync_data)
+        finally:
+            self._from_front -= 1
+
+    @traitlets.observe("params", "excluded", "x_scale", "y_scale", "model_name", "sync_ping")
+    def _on_change(self, change: Mapping[str, Any]) -> None:
+        if self._busy:
+            return
+        name = str(change["name"])
+        try:
+            with self.hold_sync(), self._internal():
+                if name == "params":
+                    self._apply_settings(_state.parse_params(self.model, change["new"]))
+                elif name == "excluded":
+                    self._set_excluded(_state.check_rows(self._ds, change["new"], "excluded"))
+                elif name in ("x_scale", "y_scale"):
+                    _state.check_scale(change["new"], name)
+                    self._refresh_view()
+                elif name == "model_name":
+                    new = change["new"]
+                    if new not in self._models:
+                        raise ModelError(
+                            unknown_name_message(str(new), list(self._models), "the chooser")
+                        )
+                    self._switch(str(new), previous=str(change["old"]))
+                else:  # sync_ping
+                    self.sync_pong = int(change["new"])
+        except Exception as exc:
+            with self._internal():
+                self.set_trait(name, change["old"])
+            if self._from_front:
+                self._report(exc)
+            else:
+                raise
+
+    def _on_custom_msg(self, _widget: Any, content: Any, _buffers: Any) -> None:
+        try:
+            kind = content.get("type") if isinstance(content, Mapping) else None
+            if kind == "fit":
+                self.fit(wait=False)
+            elif kind == "cancel":
+                self.cancel()
+            elif kind == "guided_start":
+                self.reset_start()
+            elif kind == "preview":
+                self._preview_request(content)
+            elif kind == "dismiss":
+                self.error = ""
+            else:
+                raise DataError(f"Unknown message from the page: {content!r}.")
+        except Exception as exc:
+            self._report(exc)
+
+    def _report(self, exc: BaseException, *, fit_failed: bool = False) -> None:
+        with self.hold_sync(), self._internal():
+            self.error = describe(exc)
+            if fit_failed:
+                self.status = {"state": "error", "message": "the fit could not run (see below)"}
+
+    # =================================================================== internals
+    @contextmanager
+    def _internal(self) -> Iterator[None]:
+        self._busy += 1
+        try:
+            yield
+        finally:
+            self._busy -= 1
+
+    def _mem(self) -> _Memory:
+        return self._memory[self.model_name]
+
+    @staticmethod
+    def _check_fit_options(opts: Mapping[str, Any] | None) -> dict[str, Any]:
+        if opts is None:
+            return {}
+        if not isinstance(opts, Mapping):
+            raise ParameterError(f"fit_options must be a mapping, got {type(opts).__name__}.")
+        for k in opts:
+            if k not in FIT_OPTIONS:
+                raise ParameterError(unknown_name_message(str(k), FIT_OPTIONS, "fit_options"))
+        return dict(opts)
+
+    def _resolve(self, spec: Model | str | Callable[..., Any]) -> Model:
+        if isinstance(spec, str) and spec in getattr(self, "_models", {}):
+            return self._models[spec]
+        model = resolve_model(spec)
+        if not isinstance(spec, Model) and model.name in getattr(self, "_models", {}):
+            # A formula text or a function whose name is taken: give it a free name.
+            base, k = model.name, 2
+            while f"{base}_{k}" in self._models:
+                k += 1
+            model = model.renamed(f"{base}_{k}")
+        return model
+
+    def _check_new_name(self, model: Model) -> None:
+        have = self._models.get(model.name)
+        if have is not None and have is not model and have != model:
+            raise ModelError(
+                f"Two different models are both called {model.name!r}; rename one, e.g. "
+                f"model.renamed('{model.name}_2')."
+            )
+
+    def _register(self, spec: Model | str | Callable[..., Any]) -> Model:
+        model = self._resolve(spec)
+        self._check_new_name(model)
+        self._models.setdefault(model.name, model)
+        return self._models[model.name]
+
+    def _guided_settings(
+        self, model: Model, held: Mapping[str, float] | None = None
+    ) -> tuple[dict[str, _state.ParamSetting], str]:
+        ds = self.dataset
+        x, y = ds.x_used, ds.y_used
+        if model.domain == "x>0":
+            keep = x > 0
+        elif model.domain == "x>=0":
+            keep = x >= 0
+        else:
+            keep = np.ones(x.shape, dtype=bool)
+        try:
+            values = guided_start(model, x[keep], y[keep], fixed=held or None)
+        except Exception as exc:  # a start is a convenience: fall back, never fail the widget
+            return (
+                _state.settings_from_model(model, held),
+                f"no guided start for {model.name} ({exc}); showing its default values",
+            )
+        return _state.settings_from_model(model, values), ""
+
+    def _overlay(
+        self,
+        model: Model,
+        settings: dict[str, _state.ParamSetting],
+        start: Mapping[str, float] | None,
+        fixed: Mapping[str, float] | Iterable[str] | None,
+        bounds: Mapping[str, tuple[float | None, float | None]] | None,
+    ) -> dict[str, _state.ParamSetting]:
+        out = {n: dict(s) for n, s in settings.items()}
+
+        def entry(name: str, what: str) -> dict[str, Any]:
+            if name not in out:
+                raise ParameterError(unknown_name_message(name, model.param_names, what))
+            return out[name]
+
+        for n, v in (start or {}).items():
+            entry(n, "start")["value"] = _num(v, f"start[{n!r}]")
+        if isinstance(fixed, Mapping):
+            for n, v in fixed.items():
+                e = entry(n, "fixed")
+                e["value"] = _num(v, f"fixed[{n!r}]")
+                e["fixed"] = True
+        elif fixed is not None:
+            if isinstance(fixed, str):
+                fixed = [fixed]
+            for n in fixed:
+                entry(str(n), "fixed")["fixed"] = True
+        if bounds is not None:
+            if not isinstance(bounds, Mapping):
+                raise ParameterError(
+                    f"bounds must be a mapping name -> (lower, upper), got {bounds!r}."
+                )
+            for n, pair in bounds.items():
+                e = entry(n, "bounds")
+                try:
+                    lo, hi = pair
+                except (TypeError, ValueError) as exc:
+                    raise ParameterError(
+                        f"bounds[{n!r}] must be a pair (lower, upper), got {pair!r}."
+                    ) from exc
+                e["lower"] = -math.inf if lo is None else _num(lo, f"bounds[{n!r}] lower")
+                e["upper"] = math.inf if hi is None else _num(hi, f"bounds[{n!r}] upper")
+        return {
+            n: _state.validate_setting(
+                model, n, float(s["value"]), float(s["lower"]), float(s["upper"]), bool(s["fixed"])
+            )
+            for n, s in out.items()
+        }
+
+    # ---- trait updates (callers hold hold_sync + _internal)
+    def _show_model(self, name: str) -> None:
+        model = self._models[name]
+        mem = self._memory[name]
+        self.model_name = name
+        self.model_json = model.to_dict()
+        self.params = _state.params_json(mem.settings)
+        self._refresh_view()
+
+    def _switch(self, name: str, previous: str | None = None) -> None:
+        model = self._models[name]
+        note = ""
+        if name not in self._memory:
+            settings, note = self._guided_settings(model)
+            self._memory[name] = _Memory(settings=settings)
+        self._show_model(name)
+        if not self.fitting:
+            self.status = {"state": "idle", "message": note}
+
+    def _apply_settings(self, settings: dict[str, _state.ParamSetting]) -> None:
+        self._mem().settings = settings
+        self.params = _state.params_json(settings)
+        if not self.model.has_preview:
+            self.preview_curve = self._python_curve(self.values)
+
+    def _set_excluded(self, rows: list[int]) -> None:
+        with self.hold_sync(), self._internal():
+            self._excluded = list(rows)
+            self.excluded = list(rows)
+            self._refresh_view()
+
+    def _refresh_view(self) -> None:
+        """Recompute everything drawn from the data, the axes and the fits."""
+        model = self.model
+        xs = _state.check_scale(self.x_scale, "x_scale")
+        ys = _state.check_scale(self.y_scale, "y_scale")
+        view = _state.data_view(self._ds, self._excluded, xs, ys, model)
+        self.data = view
+        res = self._mem().result
+        self.fitted = None if res is None else _state.fitted_json(res, view, xs)
+        self.preview_curve = None if model.has_preview else self._python_curve(self.values)
+        self.compare = self._compare_json()
+
+    def _python_curve(
+        self, values: Mapping[str, float], lo: float | None = None, hi: float | None = None
+    ) -> dict[str, Any] | None:
+        xs_kind = _state.check_scale(self.x_scale, "x_scale")
+        if lo is not None and hi is not None and hi > lo and (xs_kind == "linear" or lo > 0):
+            xs = (
+                np.logspace(math.log10(lo), math.log10(hi), _PREVIEW_SAMPLES)
+                if xs_kind == "log"
+                else np.linspace(lo, hi, _PREVIEW_SAMPLES)
+            )
+        else:
+            xs = _state.sample_x(self._ds.x, xs_kind, _PREVIEW_SAMPLES)
+        try:
+            return _state.curve_json(self.model, values, xs)
+        except CurvewrightError:
+            return None
+
+    def _compare_json(self) -> list[dict[str, Any]]:
+        xs = _state.sample_x(
+            self._ds.x, _state.check_scale(self.x_scale, "x_scale"), _COMPARE_SAMPLES
+        )
+        out = []
+        for name, mem in self._memory.items():
+            r = mem.result
+            if r is None:
+                continue
+            out.append(
+                {
+                    "model_name": name,
+                    "current": name == self.model_name,
+                    "success": bool(r.success),
+                    "nfree": int(r.nfree),
+                    "n": int(r.n),
+                    "ssr": _opt(r.ssr),
+                    "r2": _opt(r.r2),
+                    "aicc": _opt(r.aicc),
+                    "curve": _state.curve_json(r.model, r.values, xs),
+                }
+            )
+        return out
+
+    def _preview_request(self, content: Mapping[str, Any]) -> None:
+        raw = content.get("values")
+        model = self.model
+        if model.has_preview:
+            return  # the page draws formula models itself
+        if not isinstance(raw, Mapping):
+            raise ParameterError("preview: values must be a mapping name -> number.")
+        values = {n: _num(raw.get(n), f"preview value of {n!r}") for n in model.param_names}
+        lo, hi = content.get("x_min"), content.get("x_max")
+        lo_f = float(lo) if isinstance(lo, (int, float)) and math.isfinite(lo) else None
+        hi_f = float(hi) if isinstance(hi, (int, float)) and math.isfinite(hi) else None
+        curve = self._python_curve(values, lo_f, hi_f)
+        with self._internal():
+            self.preview_curve = None if curve is None else {**curve, "values": values}
+
+    # ---- fitting
+    def _request(self) -> _FitRequest:
+        model = self.model
+        settings = self._mem().settings
+        return _FitRequest(
+            model=model,
+            dataset=self.dataset,
+            start={n: float(s["value"]) for n, s in settings.items()},
+            fixed=tuple(n for n, s in settings.items() if s["fixed"]),
+            bounds={
+                n: (
+                    None if math.isinf(s["lower"]) else float(s["lower"]),
+                    None if math.isinf(s["upper"]) else float(s["upper"]),
+                )
+                for n, s in settings.items()
+                if not s["fixed"]
+            },
+            options=dict(self._fit_options),
+        )
+
+    def _work(
+        self,
+        req: _FitRequest,
+        cancel: threading.Event,
+        mode: Literal["join", "loop", "direct"],
+        loop: asyncio.AbstractEventLoop | None,
+    ) -> None:
+        from ..fitting import fit  # the engine; imported here so the widget module loads fast
+
+        def post(fn: Callable[[], None]) -> None:
+            if mode == "loop" and loop is not None:
+                # RuntimeError: the loop has closed (the kernel is shutting down).
+                with contextlib.suppress(RuntimeError):
+                    loop.call_soon_threadsafe(fn)
+            else:
+                with self._lock:
+                    fn()
+
+        def progress(nfev: int, ssr: float) -> None:
+            msg = f"fitting {req.model.name}: {nfev} evaluations, SSR {ssr:.6g}"
+            post(lambda: self._set_status("fitting", msg))
+
+        outcome: FitResult | BaseException
+        try:
+            outcome = fit(
+                req.model,
+                dataset=req.dataset,
+                start=req.start,
+                fixed=list(req.fixed),
+                bounds=req.bounds,
+                cancel=cancel,
+                progress=progress,
+                **req.options,
+            )
+        except Exception as exc:
+            outcome = exc
+        with self._lock:
+            self._pending = (req, outcome)
+        if mode == "loop":
+            post(self._apply_pending_quietly)
+        elif mode == "direct":
+            with self._lock:
+                self._apply_pending_quietly()
+
+    def _set_status(self, state: FitState, message: str) -> None:
+        with self._internal():
+            self.status = {"state": state, "message": message}
+
+    def _apply_pending_quietly(self) -> None:
+        self._apply_pending()
+
+    def _apply_pending(self) -> FitResult | BaseException | None:
+        with self._lock:
+            pending, self._pending = self._pending, None
+        if pending is None:
+            return None
+        req, outcome = pending
+        if isinstance(outcome, BaseException):
+            self._report(outcome, fit_failed=True)
+            return outcome
+        self._accept(req, outcome)
+        return outcome
+
+    def _accept(self, req: _FitRequest, res: FitResult) -> None:
+        name = req.model.name
+        mem = self._memory.setdefault(name, _Memory(settings={}))
+        mem.result = res
+        self._history.append(res)
+        if res.success and mem.settings:
+            mem.settings = {
+                n: {**s, "value": min(max(float(res.values[n]), s["lower"]), s["upper"])}
+                for n, s in mem.settings.items()
+            }
+        if res.success:
+            state: FitState = "done"
+            message = f"fitted {name}: {res.message}"
+        else:
+            state = "stopped"
+            message = f"{name} not fitted: {res.message}"
+        with self.hold_sync(), self._internal():
+            if name == self.model_name:
+                self.params = _state.params_json(mem.settings)
+                self._refresh_view()
+            else:
+                self.compare = self._compare_json()
+            self.status = {"state": state, "message": message}
+            self.result = res
+        for cb in list(self._callbacks):
+            try:
+                cb(res)
+            except Exception as exc:  # a user's callback must not break the widget
+                self._report(exc)
+
+
+# ------------------------------------------------------------------------------ helpers
+def _catalog() -> Mapping[str, Model]:
+    from ..catalog import catalog
+
+    return catalog()
+
+
+def _num(v: object, what: str) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
+        raise ParameterError(f"{what} must be a number, got {v!r}.")
+    f = float(v)
+    if math.isnan(f):
+        raise ParameterError(f"{what} must be a number, not NaN.")
+    return f
+
+
+def _opt(v: float) -> float | None:
+    return float(v) if math.isfinite(v) else None
