@@ -133,10 +133,16 @@ class _Problem:
     user_start: dict[str, float]
     link_texts: dict[str, str] = field(default_factory=dict)
     _link_fns: list[tuple[str, Callable[..., Any]]] = field(default_factory=list)
+    # d f / d parameter for every model parameter, compiled once (formula models only).
+    deriv_fns: list[Callable[..., Any]] | None = None
 
     def __post_init__(self) -> None:
         order = [*self.free, *self.fixed]
         self._link_fns = [(n, e.compile(order)) for n, e in self.links.items()]
+        expr = self.model.expr
+        if expr is not None:
+            args = ["x", *self.model.param_names]
+            self.deriv_fns = [expr.derivative(m).compile(args) for m in self.model.param_names]
 
     def values(self, theta: Sequence[float] | FloatArray) -> dict[str, float]:
         v = dict(zip(self.free, (float(t) for t in theta), strict=True))
@@ -546,8 +552,10 @@ def _ladder(
 
     if runs[-1].code in stop_codes:
         return runs
-    # Always confirm from the best point: LM that stalled on a plateau or stopped on a loose
-    # step usually moves on; at a true minimum this run ends in a few evaluations.
+    if outcome(runs[0].code).success:
+        return runs  # the polish in fit() refines it with exact derivatives
+    # A run that stopped without converging (evaluation limit, a stall on a plateau) usually
+    # moves on when restarted from its best point; at a true minimum the restart ends quickly.
     runs.append(_solve(prob, watch, best().theta, first, "restart from best point", budget))
     if runs[-1].code in stop_codes:
         return runs
@@ -663,15 +671,12 @@ def _model_jacobian(prob: _Problem, theta: FloatArray, values: Mapping[str, floa
     def curve(th: FloatArray) -> FloatArray:
         return prob.curve(prob.values(th))
 
-    if model.expr is None:
+    if prob.deriv_fns is None:
         return finite_difference_jacobian(curve, theta, lower=prob.lower, upper=prob.upper)
-    env: dict[str, Any] = {**values, "x": prob.x}
+    args = [values[m] for m in model.param_names]
     with np.errstate(all="ignore"):
         full = np.column_stack(
-            [
-                np.broadcast_to(np.asarray(model.expr.derivative(m).evaluate(env), float), (n,))
-                for m in model.param_names
-            ]
+            [np.broadcast_to(np.asarray(fn(prob.x, *args), float), (n,)) for fn in prob.deriv_fns]
         )
     J = full @ _param_jacobian(prob, values)
     bad = ~np.all(np.isfinite(J), axis=1)
