@@ -859,7 +859,10 @@ def _finish(prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] 
         )
         for r in runs
     ]
-    lm = kept.raw if kept is not None else None
+    # The polish runs outside lmfit; power users get the best lmfit run (its values agree with
+    # ours to the solver's tolerance, its statistics are lmfit's own).
+    lm_runs = [r for r in runs if r.raw is not None]
+    lm = min(lm_runs, key=lambda r: r.objective).raw if lm_runs else None
     return FitResult(
         model=prob.model,
         datasets=prob.datasets,
@@ -900,7 +903,7 @@ def _finish(prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] 
         absolute_sigma=prob.absolute_sigma,
         method=kept.method if kept is not None else "none",
         nfev=sum(r.nfev for r in runs),
-        _lmfit=lm if kept is not None and kept.code not in ("cancelled", "stopped_time") else None,
+        _lmfit=lm,
     )
 
 

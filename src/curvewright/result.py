@@ -23,7 +23,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats as _sps
 
 from .data import Dataset
-from .errors import ModelError, ParameterError
+from .errors import CurvewrightError, ModelError, ParameterError
 from .models import Derived, Model, Param
 
 __all__ = [
@@ -816,6 +816,20 @@ class FitResult:
                 f"this is not a saved curvewright fit result (format {d.get('format')!r}); "
                 "load the output of FitResult.to_json()."
             )
+        try:
+            return cls._from_dict(d, model)
+        except (KeyError, TypeError, ValueError, AttributeError) as exc:
+            if isinstance(exc, CurvewrightError):
+                raise
+            raise ModelError(
+                f"the saved fit result is incomplete or corrupted ({type(exc).__name__}: {exc}); "
+                "load an unmodified output of FitResult.to_json()."
+            ) from exc
+
+    @classmethod
+    def _from_dict(
+        cls, d: Mapping[str, Any], model: Model | Callable[..., Any] | None
+    ) -> FitResult:
         mdict = d["model"]
         rebuilt = _restore_model(mdict, model)
         lin = {str(k): str(v) for k, v in d["linked"].items()}
