@@ -15,6 +15,8 @@ import numpy as np
 import pytest
 import scipy.optimize
 import statsmodels.api as sm
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import curvewright as cw
 from curvewright.errors import (
@@ -468,3 +470,54 @@ def test_result_is_immutable_and_json_round_trips_exactly() -> None:
     np.testing.assert_array_equal(back.covariance, r.covariance)
     data: dict[str, Any] = json.loads(text)  # plain JSON, no pickle
     assert data == r.to_dict()
+
+
+# --------------------------------------------------------------------------- properties
+@settings(max_examples=25)
+@given(
+    plateau=st.floats(-50, 50),
+    span=st.floats(1, 200).flatmap(lambda v: st.sampled_from([v, -v])),
+    k=st.floats(0.05, 2.0),
+)
+def test_recovers_known_parameters_from_noiseless_data(
+    plateau: float, span: float, k: float
+) -> None:
+    # Data computed from known parameters: a fit from the guided start must return them.
+    x = np.linspace(0.0, 6.0 / k, 25)
+    y = plateau + span * np.exp(-k * x)
+    r = cw.fit("plateau + span*exp(-k*x)", x, y)
+    assert r.success
+    assert r.values["k"] == pytest.approx(k, rel=1e-6)
+    assert r.values["span"] == pytest.approx(span, rel=1e-6)
+    assert r.values["plateau"] == pytest.approx(plateau, rel=1e-6, abs=1e-6 * abs(span))
+
+
+@settings(max_examples=15)
+@given(seed=st.integers(0, 2**32 - 1), k=st.floats(0.1, 1.0))
+def test_noisy_recovery_within_reported_uncertainty(seed: int, k: float) -> None:
+    # With Gaussian noise of known SD, the estimate lies within 5 standard errors of the truth
+    # (a 5-sigma miss has probability ~6e-7 under the model).
+    rng = np.random.default_rng(seed)
+    x = np.linspace(0.0, 6.0 / k, 40)
+    y = 2.0 + 8.0 * np.exp(-k * x) + rng.normal(0.0, 0.1, x.size)
+    r = cw.fit("plateau + span*exp(-k*x)", x, y)
+    assert r.success
+    assert abs(r.values["k"] - k) < 5 * r.stderr["k"]
+
+
+def test_several_datasets_share_parameters() -> None:
+    # Two runs of one decay fitted jointly equal one fit of the pooled points (a global fit
+    # with every parameter shared is least squares on the stacked residuals).
+    x, y = _decay_data(1)
+    x2, y2 = _decay_data(2)
+    d1 = cw.make_dataset(x, y, name="run 1")
+    d2 = cw.make_dataset(x2, y2, name="run 2")
+    joint = cw.fit("plateau + span*exp(-k*x)", dataset=[d1, d2])
+    pooled = cw.fit("plateau + span*exp(-k*x)", np.r_[x, x2], np.r_[y, y2])
+    assert joint.n == pooled.n == 2 * x.size
+    for n in ("plateau", "span", "k"):
+        assert joint.values[n] == pytest.approx(pooled.values[n], rel=1e-9)
+        assert joint.stderr[n] == pytest.approx(pooled.stderr[n], rel=1e-6)
+    assert len(joint.datasets) == 2
+    with pytest.raises(DataError, match="either dataset"):
+        cw.fit("plateau + span*exp(-k*x)", x, y, dataset=d1)
