@@ -19,7 +19,7 @@ from typing import Any
 import harness  # tests/browser is on sys.path (pytest prepends a rootdir-less conftest's dir)
 import pytest
 
-ARTIFACTS = harness.REPO / "test-artifacts"
+ARTIFACTS = harness.ARTIFACTS
 NOTEBOOKS = Path(__file__).resolve().parent / "notebooks"
 
 

@@ -23,6 +23,8 @@ from typing import Any, Literal
 REPO = Path(__file__).resolve().parents[2]
 SRC = REPO / "src"
 BUNDLE = SRC / "curvewright" / "static" / "widget.js"
+# Screenshots and other evidence from the browser tests (gitignored).
+ARTIFACTS = REPO / "test-artifacts"
 VENV_BIN = Path(sys.executable).parent
 TOKEN = "cw-test-token"
 
