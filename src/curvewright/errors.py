@@ -12,6 +12,7 @@ __all__ = [
     "DomainError",
     "FitError",
     "FormulaError",
+    "HandleError",
     "ModelError",
     "ParameterError",
     "ComparisonError",
@@ -47,6 +48,10 @@ class ParameterError(CurvewrightError, ValueError):
 
 class FitError(CurvewrightError, RuntimeError):
     """The fit cannot proceed, e.g. the residuals are not finite at the starting point."""
+
+
+class HandleError(CurvewrightError, ValueError):
+    """A drag cannot be solved as asked: unknown handle, a bad target or pin, no pins."""
 
 
 class ComparisonError(CurvewrightError, ValueError):
