@@ -7,6 +7,8 @@ import { type FieldKind, checkSetting, formatNumber, parseField } from "./valida
 
 export interface PanelCallbacks {
   onCommit(name: string, setting: ParamSetting): void;
+  /** A valid value being typed (not yet committed), for live preview; null when abandoned. */
+  onTyping?(name: string, value: number | null): void;
 }
 
 export interface DerivedView {
@@ -150,7 +152,7 @@ export class ParamPanel {
     const fixed = el("input", {
       type: "checkbox",
       class: "cw-fixed",
-      "aria-label": `${info.name} fixed`,
+      "aria-label": `Fix ${info.name}`,
       "data-lm-suppress-shortcuts": "true",
     });
     const lower = text("cw-bound cw-lower", `${info.name} lower bound`);
@@ -191,7 +193,13 @@ export class ParamPanel {
     ];
     for (const [input, kind] of fields) {
       input.setAttribute("aria-describedby", msgId);
-      input.addEventListener("input", () => row.dirty.add(kind));
+      input.addEventListener("input", () => {
+        row.dirty.add(kind);
+        if (kind !== "value" || !this.cb.onTyping) return;
+        const parsed = parseField(input.value, "value");
+        const ok = parsed.ok && checkSetting(row.info, { ...row.setting, value: parsed.value as number }) === null;
+        this.cb.onTyping(row.info.name, ok && parsed.ok ? (parsed.value as number) : null);
+      });
       // JupyterLab does not fire `change` on Enter in an output's input, so Enter commits too.
       input.addEventListener("keydown", (e) => {
         if (e.key === "Enter") {
@@ -202,6 +210,7 @@ export class ParamPanel {
           row.dirty.delete(kind);
           this.clearMessage(row);
           this.showSetting(row, row.setting, true);
+          if (kind === "value") this.cb.onTyping?.(row.info.name, null);
         }
       });
       input.addEventListener("change", () => this.commitField(row, kind));

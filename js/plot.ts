@@ -7,6 +7,7 @@ import { brush, type BrushBehavior, type D3BrushEvent } from "d3-brush";
 import { scaleLinear, scaleLog, type ScaleContinuousNumeric } from "d3-scale";
 import { select, type Selection } from "d3-selection";
 import { zoom, zoomIdentity, type D3ZoomEvent, type ZoomBehavior, type ZoomTransform } from "d3-zoom";
+import { pathFromPixels, sampleAxis } from "./curve";
 import { decimateCells } from "./decimate";
 import type { Point } from "./handles";
 import type { PointSet, Scale } from "./state";
@@ -97,6 +98,7 @@ export class Plot {
   private readonly xLabel: SVGSel<SVGTextElement>;
   private readonly yLabel: SVGSel<SVGTextElement>;
   private readonly fitPath: SVGSel<SVGPathElement>;
+  private readonly compareGroup: SVGSel;
   private readonly curvePath: SVGSel<SVGPathElement>;
   private readonly gBrush: SVGSel;
   private readonly gHandles: SVGSel;
@@ -126,6 +128,7 @@ export class Plot {
   private yBase: Lin = scaleLinear();
   private curve: CurveSource = null;
   private fitted: CurveSource = null;
+  private compared: { name: string; source: CurveSource }[] = [];
   private handles: HandleView[] = [];
   private residuals: Float64Array | null = null;
   private boxMode = false;
@@ -169,6 +172,7 @@ export class Plot {
     this.area = this.svg.append("g").attr("class", "cw-area");
     this.surface = this.area.append("rect").attr("class", "cw-surface");
     const clipped = this.area.append("g").attr("clip-path", `url(#${id})`);
+    this.compareGroup = clipped.append("g").attr("class", "cw-compare");
     this.fitPath = clipped.append("path").attr("class", "cw-curve-fit");
     this.curvePath = clipped.append("path").attr("class", "cw-curve");
     this.gBrush = this.area.append("g").attr("class", "cw-brush");
@@ -277,6 +281,28 @@ export class Plot {
     this.residWrap.hidden = residuals === null;
     this.el.classList.toggle("cw-has-fit", fitted !== null);
     this.invalidate("curves", "resid");
+  }
+
+  /** Earlier fits of other models, drawn faintly for comparison. */
+  setCompare(curves: { name: string; source: CurveSource }[]): void {
+    this.compared = curves;
+    this.invalidate("curves");
+  }
+
+  /** Viewport (client) coordinates of the drawn point of an input row, or null (tests, a11y). */
+  pointClientXY(row: number): { x: number; y: number } | null {
+    const { x, y } = this.scales();
+    const r = this.surface.node()!.getBoundingClientRect();
+    const { x: xs, y: ys, row: rows, n } = this.points;
+    for (let i = 0; i < n; i++) {
+      if (rows[i] !== row) continue;
+      const px = x(xs[i]!);
+      const py = y(ys[i]!);
+      if (!Number.isFinite(px) || !Number.isFinite(py)) return null;
+      if (px < 0 || py < 0 || px > this.plotW || py > this.plotH) return null;
+      return { x: r.left + px, y: r.top + py };
+    }
+    return null;
   }
 
   setHandles(handles: HandleView[]): void {
@@ -500,15 +526,8 @@ export class Plot {
     if (src.kind === "fn") {
       // Two samples per pixel, evenly spaced on the axis (so in decades on a log axis).
       const m = Math.max(2, Math.round(this.plotW * 2));
-      const xs = new Float64Array(m);
-      const xLog = this.xScaleKind === "log";
       const [d0, d1] = x.domain() as [number, number];
-      const a0 = axisValue(d0, xLog);
-      const a1 = axisValue(d1, xLog);
-      for (let i = 0; i < m; i++) {
-        const a = a0 + ((a1 - a0) * i) / (m - 1);
-        xs[i] = xLog ? 10 ** a : a;
-      }
+      const xs = sampleAxis(d0, d1, this.xScaleKind === "log", m);
       let ys: Float64Array;
       try {
         ys = src.fn(xs);
@@ -527,27 +546,23 @@ export class Plot {
         py[i] = typeof yv === "number" ? y(yv) : NaN;
       }
     }
-    // Break the path where the curve is undefined; keep far-off values bounded for SVG.
-    const limit = 1e5;
-    let d = "";
-    let pen = false;
-    for (let i = 0; i < px.length; i++) {
-      const X = px[i]!;
-      const Y = py[i]!;
-      if (!Number.isFinite(X) || !Number.isFinite(Y)) {
-        pen = false;
-        continue;
-      }
-      const Yc = Math.max(-limit, Math.min(limit, Y));
-      d += `${pen ? "L" : "M"}${X.toFixed(2)},${Yc.toFixed(2)}`;
-      pen = true;
-    }
-    return d;
+    return pathFromPixels(px, py);
   }
 
   private drawCurves(x: Lin, y: Lin): void {
     this.curvePath.attr("d", this.curvePathData(this.curve, x, y));
     this.fitPath.attr("d", this.curvePathData(this.fitted, x, y));
+    const sel = this.compareGroup
+      .selectAll<SVGPathElement, { name: string; source: CurveSource }>("path")
+      .data(this.compared, (c) => c.name);
+    sel.exit().remove();
+    sel
+      .enter()
+      .append("path")
+      .attr("class", "cw-curve-compare")
+      .merge(sel)
+      .attr("data-model", (c) => c.name)
+      .attr("d", (c) => this.curvePathData(c.source, x, y));
   }
 
   private drawHandles(x: Lin, y: Lin): void {

@@ -104,9 +104,49 @@ export interface FittedJson {
   message?: string;
   model_name?: string;
   ci_level?: number;
+  success?: boolean;
+  code?: string;
+  /** Derived quantities with delta-method intervals; `extrapolated` outside the data's x. */
+  derived?: {
+    name: string;
+    value: number | null;
+    stderr: number | null;
+    lower: number | null;
+    upper: number | null;
+    unit: string;
+    extrapolated: boolean;
+  }[];
+  stats?: {
+    n: number;
+    dof: number;
+    ssr: number | null;
+    r2: number | null;
+    aicc: number | null;
+    sigma_resid: number | null;
+    nfev: number;
+  };
+  /** Input rows the fit left out. */
+  excluded?: number[];
+  diagnostics?: { code: string; severity: string; text: string }[];
+  /** The research-use caution every report carries. */
+  caution?: string;
 }
 
-export type FitState = "idle" | "fitting" | "done" | "error";
+/** The latest fit of one model, for comparing models (the `compare` trait). */
+export interface CompareJson {
+  model_name: string;
+  current: boolean;
+  success: boolean;
+  nfree: number;
+  n: number;
+  ssr: number | null;
+  r2: number | null;
+  aicc: number | null;
+  curve: { x: number[]; y: (number | null)[] };
+}
+
+/** "stopped": the fit ended without converging (cancelled, time or evaluation limit). */
+export type FitState = "idle" | "fitting" | "done" | "stopped" | "error";
 
 export interface StatusJson {
   state: FitState;
@@ -115,8 +155,8 @@ export interface StatusJson {
 
 /**
  * The widget's synced traitlets (Python side: the widget class in src/curvewright/widget/).
- * The front end writes `params`, `excluded`, `x_scale`, `y_scale`, `model_name` and `error`
- * (cleared by the dismiss button); Python writes the rest.
+ * The front end writes `params`, `excluded`, `x_scale`, `y_scale`, `model_name`, `error`
+ * (cleared by the dismiss button) and `sync_ping`; Python writes the rest.
  */
 export interface WidgetModel {
   model_json: ModelJson;
@@ -136,10 +176,25 @@ export interface WidgetModel {
    * computed by the kernel (throttled), or null.
    */
   preview_curve: { x: number[]; y: (number | null)[] } | null;
+  /** The latest fit of every model fitted so far. */
+  compare: CompareJson[];
+  /** Flush: the page sets sync_ping, Python answers by setting sync_pong to the same number. */
+  sync_ping: number;
+  sync_pong: number;
 }
 
 /** Messages the front end sends with model.send(). */
-export type FrontMessage = { type: "fit" } | { type: "cancel" };
+export type FrontMessage =
+  | {
+      type: "fit";
+      /** The state the page shows, applied by Python before fitting (see widget.ts). */
+      model_name?: string;
+      params?: Record<string, ParamSetting>;
+      excluded?: number[];
+    }
+  | { type: "cancel" }
+  | { type: "guided_start" }
+  | { type: "preview"; values: Record<string, number>; x_min: number; x_max: number };
 
 // ---------------------------------------------------------------------------------------------
 // Reading synced values

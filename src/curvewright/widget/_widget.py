@@ -596,6 +596,7 @@ class CurveFitter(anywidget.AnyWidget):
         try:
             kind = content.get("type") if isinstance(content, Mapping) else None
             if kind == "fit":
+                self._take_page_state(content)
                 self.fit(wait=False)
             elif kind == "cancel":
                 self.cancel()
@@ -609,6 +610,25 @@ class CurveFitter(anywidget.AnyWidget):
                 raise DataError(f"Unknown message from the page: {content!r}.")
         except Exception as exc:
             self._report(exc)
+
+    def _take_page_state(self, content: Mapping[str, Any]) -> None:
+        """Apply the state a Fit request carries (what the page shows when Fit is pressed).
+
+        The page sends one state update at a time and buffers the rest, so the request may
+        arrive before the page's latest edits; it therefore carries them. Parameters apply
+        only if the page still shows the model Python shows.
+        """
+        rows = content.get("excluded")
+        params = content.get("params")
+        new_rows = None if rows is None else _state.check_rows(self._ds, rows, "excluded")
+        settings = None
+        if params is not None and content.get("model_name") == self.model_name:
+            settings = _state.parse_params(self.model, params)
+        with self.hold_sync(), self._internal():
+            if settings is not None and _state.params_json(settings) != self.params:
+                self._apply_settings(settings)
+            if new_rows is not None and new_rows != self._excluded:
+                self._set_excluded(new_rows)
 
     def _report(self, exc: BaseException, *, fit_failed: bool = False) -> None:
         with self.hold_sync(), self._internal():

@@ -1,0 +1,634 @@
+// The widget's entry point (bundled by js/build.mjs into src/curvewright/static/widget.js):
+// anywidget's render() builds the page, wires the plot, the parameter panel and the synced
+// state, and returns a cleanup that unhooks every listener. Live preview during drags is
+// computed here from the model's expression tree; only callable models ask the kernel.
+//
+// ------------------------------------------------------------------------------------------
+// Stable DOM contract (browser tests rely on it; change only together with tests/browser/)
+// ------------------------------------------------------------------------------------------
+//   root                  .cw-root (one per rendered view)
+//     data-cw-preview     JSON {param: value} of the curve drawn now (live during a drag)
+//     data-cw-model       name of the model shown
+//     data-cw-status      fit state: idle | fitting | done | stopped | error
+//     data-cw-excluded    JSON array of excluded input rows (sorted)
+//     data-cw-fitted      JSON {param: value} of the shown fit, or "" before a fit
+//     data-cw-dragging    key of the handle being dragged/nudged, or ""
+//   handles               role="slider", focusable (tabindex 0), class .cw-handle,
+//                         aria-label "<feature>: moves <params>" (e.g. "EC50: moves logEC50"),
+//                         aria-valuenow (value of the first moved parameter, or the pin's y),
+//                         aria-valuetext, data-handle=<handle name> or "pin:<i>";
+//                         Arrow keys nudge (1% of the plot), Shift+Arrow 10%.
+//   Fit                   the only <button> whose accessible name contains "Fit" (class .cw-fit;
+//                         reads "Fitting…" and is disabled while a fit runs)
+//   Cancel                <button> "Cancel" (.cw-cancel), hidden unless a fit runs
+//   parameter value       <input> labelled exactly by the parameter name (aria-labelledby its
+//                         row header); bounds: aria-label "<name> lower bound" / "upper bound"
+//                         (match the value input with exact=True)
+//   fixed toggle          <input type="checkbox"> aria-label "Fix <name>"
+//   model chooser         <select aria-label="Model"> (.cw-model)
+//   axis scales           <select aria-label="x axis scale"> / "y axis scale" (linear | log)
+//   view                  buttons "Zoom in", "Zoom out", "Reset view"; "Box select" toggles
+//                         box exclusion (aria-pressed); Shift+drag boxes too
+//   points                drawn on <canvas class="cw-points">; a click within 7 px of a point
+//                         toggles its exclusion. root._cwPointXY(row) gives the viewport
+//                         {x, y} of an input row's point (null if not drawn) for page.mouse.click
+//   status                .cw-status (role="status"): the solver's progress/message
+//   error area            .cw-error (role="alert"), text in .cw-error-text, button "Dismiss"
+//   announcements         .cw-live (aria-live="polite", visually hidden)
+//   test hook             root._cwModel is the anywidget model (get/set/save_changes/on/off);
+//                         flush: set sync_ping to n, save_changes, wait for sync_pong === n
+// ------------------------------------------------------------------------------------------
+
+import type { AnyModel, RenderProps } from "@anywidget/types";
+import css from "./widget.css";
+import { ExprError, evalCurve, evalScalar } from "./expr";
+import { SolveError, type Point } from "./handles";
+import {
+  PIN_PREFIX,
+  dataRange,
+  dragNote,
+  freeParams,
+  handleViews,
+  pinViews,
+  pinsOnCurve,
+  placePins,
+  solveDrag,
+  solveOptions,
+  throttle,
+  usesPins,
+  withValues,
+} from "./interact";
+import { ParamPanel } from "./panel";
+import { type CurveSource, Plot } from "./plot";
+import {
+  type CompareJson,
+  type DataJson,
+  type FittedJson,
+  type FrontMessage,
+  type ModelJson,
+  type ParamSetting,
+  type PointSet,
+  type Scale,
+  type WidgetModel,
+  readData,
+  toggleRows,
+  valuesOf,
+} from "./state";
+import { createUIState } from "./ui-state";
+import { formatNumber } from "./validate";
+
+type Model = AnyModel<WidgetModel>;
+
+// A keyboard nudge is sent to Python once the keys have been still this long.
+const NUDGE_COMMIT_MS = 350;
+// Kernel round trips for callable-model previews: at most one per this interval.
+const KERNEL_PREVIEW_MS = 120;
+
+function h<K extends keyof HTMLElementTagNameMap>(
+  tag: K,
+  attrs: Record<string, string> = {},
+  text?: string,
+): HTMLElementTagNameMap[K] {
+  const e = document.createElement(tag);
+  for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, v);
+  if (text !== undefined) e.textContent = text;
+  return e;
+}
+
+function rowsText(rows: readonly number[]): string {
+  const shown = rows.slice(0, 8).join(", ");
+  return rows.length > 8 ? `${shown}, … (${rows.length} in all)` : shown;
+}
+
+function samples(c: { x: number[]; y: (number | null)[] } | null | undefined): CurveSource {
+  return c ? { kind: "samples", x: c.x, y: c.y } : null;
+}
+
+function send(model: Model, msg: FrontMessage): void {
+  model.send(msg);
+}
+
+function render({ model, el }: RenderProps<WidgetModel>): () => void {
+  const cleanups: (() => void)[] = [];
+  const listen = (event: string, fn: () => void): void => {
+    model.on(event, fn);
+    cleanups.push(() => model.off(event, fn));
+  };
+
+  // ------------------------------------------------------------------ layout
+  const root = h("div", { class: "cw-root" });
+  const style = h("style");
+  style.textContent = css;
+  root.appendChild(style);
+  el.appendChild(root);
+
+  const toolbar = h("div", { class: "cw-toolbar", role: "toolbar", "aria-label": "Fitting tools" });
+  const modelSelect = h("select", { class: "cw-model", "aria-label": "Model" });
+  const xSelect = h("select", { class: "cw-scale cw-xscale", "aria-label": "x axis scale" });
+  const ySelect = h("select", { class: "cw-scale cw-yscale", "aria-label": "y axis scale" });
+  for (const s of [xSelect, ySelect]) {
+    for (const v of ["linear", "log"]) s.appendChild(h("option", { value: v }, v));
+  }
+  const group = (label: string, control: HTMLElement): HTMLElement => {
+    const g = h("span", { class: "cw-field" });
+    g.append(h("span", { class: "cw-field-label", "aria-hidden": "true" }, label), control);
+    return g;
+  };
+  const zoomIn = h("button", { type: "button", class: "cw-btn cw-icon", "aria-label": "Zoom in", title: "Zoom in" }, "+");
+  const zoomOut = h("button", { type: "button", class: "cw-btn cw-icon", "aria-label": "Zoom out", title: "Zoom out" }, "−");
+  const resetView = h("button", { type: "button", class: "cw-btn" }, "Reset view");
+  const boxBtn = h("button", { type: "button", class: "cw-btn cw-box", "aria-pressed": "false", title: "Drag a box around points to exclude or re-include them (or Shift+drag)" }, "Box select");
+  const guidedBtn = h("button", { type: "button", class: "cw-btn cw-guided", title: "Run the model's guided start again" }, "Guided start");
+  const fitBtn = h("button", { type: "button", class: "cw-btn cw-primary cw-fit" }, "Fit");
+  const cancelBtn = h("button", { type: "button", class: "cw-btn cw-cancel" }, "Cancel");
+  cancelBtn.hidden = true;
+  const spacer = h("span", { class: "cw-spacer" });
+  toolbar.append(
+    group("model", modelSelect),
+    group("x", xSelect),
+    group("y", ySelect),
+    h("span", { class: "cw-sep", "aria-hidden": "true" }),
+    zoomIn,
+    zoomOut,
+    resetView,
+    boxBtn,
+    guidedBtn,
+    spacer,
+    fitBtn,
+    cancelBtn,
+  );
+  root.appendChild(toolbar);
+  const statusEl = h("div", { class: "cw-status", role: "status" });
+  root.appendChild(statusEl);
+
+  const ui = createUIState();
+  let mj: ModelJson = model.get("model_json");
+  let params: Record<string, ParamSetting> = model.get("params") ?? {};
+  let points: PointSet = readData(model.get("data"), model.get("excluded"));
+  let xScale: Scale = model.get("x_scale");
+  let yScale: Scale = model.get("y_scale");
+  ui.preview = valuesOf(mj, params);
+  // Values typed into the panel but not committed yet (live preview while typing).
+  let typing: Record<string, number> = {};
+  let nudgeKey: string | null = null;
+  let lastNote = "";
+
+  const plot = new Plot(root, {
+    onDrag: (key, target, phase) => onDrag(key, target, phase),
+    onNudge: (key, dx, dy) => onNudge(key, dx, dy),
+    onToggleRows: (rows) => {
+      const next = toggleRows(model.get("excluded") ?? [], rows);
+      const added = next.length > (model.get("excluded") ?? []).length;
+      announce(`${rows.length === 1 ? `point ${rows[0]}` : `${rows.length} points`} ${added ? "excluded" : "included again"}`);
+      model.set("excluded", next);
+      model.save_changes();
+      // Draw at once; Python's answer (the same rows) arrives later.
+      points = readData(model.get("data"), next);
+      plot.setData(points, labelOf("x"), labelOf("y"), false);
+      root.dataset["cwExcluded"] = JSON.stringify(next);
+    },
+  });
+  cleanups.push(() => plot.destroy());
+
+  const notes = h("div", { class: "cw-notes" });
+  root.appendChild(notes);
+  const compareEl = h("div", { class: "cw-comparison" });
+  root.appendChild(compareEl);
+
+  const panel = new ParamPanel(root, {
+    onCommit: (name, setting) => {
+      delete typing[name];
+      const next = { ...params, [name]: setting };
+      commitParams(next);
+    },
+    onTyping: (name, value) => {
+      if (value === null) delete typing[name];
+      else typing[name] = value;
+      ui.preview = { ...valuesOf(mj, params), ...typing };
+      drawCurrent();
+    },
+  });
+  cleanups.push(() => panel.destroy());
+
+  const resultEl = h("div", { class: "cw-result" });
+  root.appendChild(resultEl);
+  const errorEl = h("div", { class: "cw-error", role: "alert" });
+  const errorText = h("pre", { class: "cw-error-text" });
+  const dismiss = h("button", { type: "button", class: "cw-btn" }, "Dismiss");
+  errorEl.append(errorText, dismiss);
+  errorEl.hidden = true;
+  root.appendChild(errorEl);
+  const live = h("div", { class: "cw-live cw-sr-only", "aria-live": "polite" });
+  root.appendChild(live);
+
+  // Test hooks (see the contract above).
+  const hooks = root as HTMLDivElement & {
+    _cwModel?: Model;
+    _cwPointXY?: (row: number) => { x: number; y: number } | null;
+  };
+  hooks._cwModel = model;
+  hooks._cwPointXY = (row) => plot.pointClientXY(row);
+
+  function announce(text: string): void {
+    live.textContent = text;
+  }
+
+  function labelOf(axis: "x" | "y"): string {
+    const d: DataJson | null = model.get("data");
+    return (axis === "x" ? d?.x_label : d?.y_label) ?? axis;
+  }
+
+  // ------------------------------------------------------------------ drawing
+  function fixedSet(): Set<string> {
+    return new Set(Object.entries(params).filter(([, s]) => s.fixed).map(([n]) => n));
+  }
+
+  function resetPins(): void {
+    if (!usesPins(mj)) {
+      ui.pins = [];
+      return;
+    }
+    const range = dataRange(points.x, xScale === "log") ?? [0, 1];
+    ui.pins = placePins(mj.tree, ui.preview, freeParams(mj, params).length, range, xScale === "log");
+  }
+
+  function drawCurrent(): void {
+    const values = ui.preview;
+    if (mj.tree !== null) {
+      const tree = mj.tree;
+      plot.setCurve({ kind: "fn", fn: (xs) => evalCurve(tree, values, xs) });
+    } else {
+      plot.setCurve(samples(model.get("preview_curve")));
+    }
+    if (usesPins(mj)) {
+      if (ui.pins.length === 0) resetPins();
+      else if (!ui.dragging?.startsWith(PIN_PREFIX)) ui.pins = pinsOnCurve(mj.tree, values, ui.pins);
+      plot.setHandles(pinViews(ui.pins, freeParams(mj, params)));
+    } else {
+      plot.setHandles(mj.tree !== null ? handleViews(mj, values, fixedSet()) : []);
+    }
+    if (ui.dragging !== null || Object.keys(typing).length > 0) panel.setPreview(values);
+    const derived = (mj.derived ?? []).flatMap((d) => {
+      try {
+        return [{ name: d.name, value: evalScalar(d.tree, values), unit: d.unit ?? "", description: d.description ?? "" }];
+      } catch {
+        return [];
+      }
+    });
+    panel.setDerived(derived);
+    root.dataset["cwPreview"] = JSON.stringify(values);
+    root.dataset["cwDragging"] = ui.dragging ?? nudgeKey ?? "";
+    showNotes();
+  }
+
+  function drawFitted(): void {
+    const f: FittedJson | null = model.get("fitted");
+    const mine = f !== null && (f.model_name === undefined || f.model_name === mj.name);
+    if (!mine || f === null) {
+      plot.setFitted(null, null);
+      root.dataset["cwFitted"] = "";
+    } else {
+      const tree = mj.tree;
+      const vals = f.values;
+      const source: CurveSource =
+        tree !== null ? { kind: "fn", fn: (xs) => evalCurve(tree, vals, xs) } : samples(f.curve);
+      const res = Float64Array.from(f.residuals ?? [], (v) => (typeof v === "number" ? v : NaN));
+      plot.setFitted(source, res.length === points.n ? res : null);
+      root.dataset["cwFitted"] = JSON.stringify(vals);
+    }
+    panel.setFitted(mine ? f : null);
+    showResult(mine ? f : null);
+  }
+
+  function drawCompare(): void {
+    const list: CompareJson[] = model.get("compare") ?? [];
+    plot.setCompare(list.filter((c) => !c.current).map((c) => ({ name: c.model_name, source: samples(c.curve) })));
+    compareEl.replaceChildren();
+    if (list.length < 2) return;
+    const table = h("table", { class: "cw-fits" });
+    table.appendChild(h("caption", {}, "Fits so far (the current model is marked; other fits are drawn dashed)"));
+    const head = h("tr");
+    for (const t of ["model", "free parameters", "n", "SSR", "R²", "AICc"]) head.appendChild(h("th", { scope: "col" }, t));
+    table.appendChild(h("thead")).appendChild(head);
+    const body = h("tbody");
+    const best = Math.min(...list.map((c) => (typeof c.aicc === "number" ? c.aicc : Infinity)));
+    for (const c of list) {
+      const tr = h("tr", c.current ? { class: "cw-current", "aria-current": "true" } : {});
+      tr.append(
+        h("th", { scope: "row" }, `${c.model_name}${c.success ? "" : " (not converged)"}`),
+        h("td", {}, String(c.nfree)),
+        h("td", {}, String(c.n)),
+        h("td", {}, formatNumber(c.ssr, 5)),
+        h("td", {}, formatNumber(c.r2, 4)),
+        h("td", {}, `${formatNumber(c.aicc, 5)}${c.aicc === best && list.length > 1 ? " (lowest)" : ""}`),
+      );
+      body.appendChild(tr);
+    }
+    table.appendChild(body);
+    compareEl.appendChild(table);
+  }
+
+  function showResult(f: FittedJson | null): void {
+    resultEl.replaceChildren();
+    if (f === null) return;
+    const s = f.stats;
+    const head = h("div", { class: "cw-result-head" });
+    head.appendChild(h("span", { class: f.success === false ? "cw-bad" : "cw-good" }, f.success === false ? "not converged" : "fitted"));
+    if (s) {
+      head.appendChild(
+        h(
+          "span",
+          {},
+          ` n = ${s.n}, dof = ${s.dof}, SSR = ${formatNumber(s.ssr, 5)}, residual SD = ${formatNumber(s.sigma_resid, 4)}, R² = ${formatNumber(s.r2, 4)}, AICc = ${formatNumber(s.aicc, 5)}`,
+        ),
+      );
+    }
+    if (f.excluded && f.excluded.length) head.appendChild(h("span", {}, `; excluded rows ${rowsText(f.excluded)}`));
+    resultEl.appendChild(head);
+    if (f.derived && f.derived.length) {
+      const level = Math.round((f.ci_level ?? 0.95) * 100);
+      const dl = h("dl", { class: "cw-derived-fit" });
+      for (const d of f.derived) {
+        const ci = d.lower !== null && d.upper !== null ? ` (${level}% CI ${formatNumber(d.lower, 4)} to ${formatNumber(d.upper, 4)})` : "";
+        dl.append(h("dt", {}, d.name), h("dd", {}, `${formatNumber(d.value, 5)}${d.unit ? ` ${d.unit}` : ""}${ci}${d.extrapolated ? " — extrapolated beyond the data" : ""}`));
+      }
+      resultEl.appendChild(dl);
+    }
+    if (f.diagnostics && f.diagnostics.length) {
+      const ul = h("ul", { class: "cw-diagnostics" });
+      for (const d of f.diagnostics) ul.appendChild(h("li", { class: `cw-${d.severity}` }, d.text));
+      resultEl.appendChild(ul);
+    }
+    if (f.caution) resultEl.appendChild(h("p", { class: "cw-caution" }, f.caution));
+  }
+
+  function showNotes(): void {
+    const d: DataJson | null = model.get("data");
+    const lines: string[] = [];
+    if (ui.dragNote) lines.push(ui.dragNote);
+    const off = d?.off_axis ?? [];
+    if (off.length) {
+      const why = [xScale === "log" ? "x ≤ 0" : "", yScale === "log" ? "y ≤ 0" : ""].filter(Boolean).join(" or ");
+      lines.push(`${off.length} point${off.length > 1 ? "s" : ""} not drawn (${why} cannot sit on a log axis): rows ${rowsText(off)}; ${off.length > 1 ? "they are" : "it is"} still fitted unless excluded.`);
+    }
+    const outside = d?.outside_domain ?? [];
+    if (outside.length) lines.push(`rows ${rowsText(outside)} lie outside the model's domain (${mj.domain}); exclude them to fit this model.`);
+    if (d?.decimated) lines.push(`showing ${points.n.toLocaleString()} of ${(d.n_total ?? points.n).toLocaleString()} points (thinned for drawing; the fit uses all of them).`);
+    const text = lines.join("\n");
+    if (text !== lastNote) {
+      lastNote = text;
+      notes.textContent = text;
+    }
+  }
+
+  function showStatus(): void {
+    const s = model.get("status") ?? { state: "idle", message: "" };
+    const fitting = s.state === "fitting";
+    fitBtn.disabled = fitting;
+    fitBtn.textContent = fitting ? "Fitting…" : "Fit";
+    cancelBtn.hidden = !fitting;
+    guidedBtn.disabled = fitting;
+    statusEl.textContent = s.message ?? "";
+    statusEl.className = `cw-status cw-state-${s.state}`;
+    root.dataset["cwStatus"] = s.state;
+  }
+
+  function showError(): void {
+    const text = model.get("error") ?? "";
+    errorText.textContent = text;
+    errorEl.hidden = text === "";
+  }
+
+  function fillModels(): void {
+    const names = model.get("model_names") ?? [];
+    modelSelect.replaceChildren(...names.map((n) => h("option", { value: n }, n)));
+    modelSelect.value = model.get("model_name");
+  }
+
+  function loadModel(resetViewToo: boolean): void {
+    mj = model.get("model_json");
+    params = model.get("params") ?? {};
+    typing = {};
+    ui.preview = valuesOf(mj, params);
+    ui.pins = [];
+    ui.dragNote = "";
+    modelSelect.value = model.get("model_name");
+    root.dataset["cwModel"] = mj.name;
+    panel.setModel(mj, params);
+    if (resetViewToo) plot.resetView();
+    drawCurrent();
+    drawFitted();
+    drawCompare();
+  }
+
+  function loadData(resetViewToo: boolean): void {
+    points = readData(model.get("data"), model.get("excluded"));
+    plot.setData(points, labelOf("x"), labelOf("y"), resetViewToo);
+    root.dataset["cwExcluded"] = JSON.stringify(model.get("excluded") ?? []);
+  }
+
+  // ------------------------------------------------------------------ interactions
+  function commitParams(next: Record<string, ParamSetting>): void {
+    params = next;
+    model.set("params", next);
+    model.save_changes();
+    ui.preview = { ...valuesOf(mj, params), ...typing };
+    drawCurrent();
+  }
+
+  let dragQueued: { key: string; target: Point } | null = null;
+  let dragFrame: number | null = null;
+
+  function solveNow(key: string, target: Point): void {
+    const opts = solveOptions(mj, params, xScale === "log", yScale === "log", plot.visibleSpan());
+    try {
+      const res = solveDrag(mj, key, ui.preview, target, ui.pins, opts);
+      if (res !== null) {
+        ui.preview = res.params;
+        if (key.startsWith(PIN_PREFIX)) {
+          const i = Number(key.slice(PIN_PREFIX.length));
+          const moved = ui.pins.map((p, j) => (j === i ? { x: target.x, y: p.y } : p));
+          ui.pins = pinsOnCurve(mj.tree, ui.preview, moved);
+        }
+      }
+      ui.dragNote = dragNote(res);
+    } catch (e) {
+      if (!(e instanceof SolveError || e instanceof ExprError)) throw e;
+      ui.dragNote = e.message;
+    }
+    drawCurrent();
+  }
+
+  function onDrag(key: string, target: Point, phase: "start" | "move" | "end"): void {
+    if (phase === "start") {
+      ui.dragging = key;
+      typing = {};
+      return;
+    }
+    dragQueued = { key, target };
+    if (phase === "move") {
+      if (dragFrame === null) {
+        dragFrame = requestAnimationFrame(() => {
+          dragFrame = null;
+          const q = dragQueued;
+          dragQueued = null;
+          if (q) solveNow(q.key, q.target);
+        });
+      }
+      return;
+    }
+    if (dragFrame !== null) cancelAnimationFrame(dragFrame);
+    dragFrame = null;
+    const q = dragQueued;
+    dragQueued = null;
+    if (q) solveNow(q.key, q.target);
+    ui.dragging = null;
+    commitParams(withValues(params, ui.preview));
+    announce(`moved ${key}: ${Object.entries(ui.preview).map(([n, v]) => `${n} ${formatNumber(v, 4)}`).join(", ")}`);
+  }
+
+  function onNudge(key: string, dx: number, dy: number): void {
+    const views = usesPins(mj) ? pinViews(ui.pins, []) : handleViews(mj, ui.preview, fixedSet());
+    const v = views.find((w) => w.key === key);
+    if (!v) return;
+    const { px, py } = plot.project(v.pos);
+    const { w, h: hgt } = plot.plotSize();
+    // A handle drawn at the edge (off view) is nudged from where it is drawn.
+    const cx = Number.isFinite(px) ? Math.max(0, Math.min(w, px)) : w / 2;
+    const cy = Number.isFinite(py) ? Math.max(0, Math.min(hgt, py)) : hgt / 2;
+    nudgeKey = key;
+    solveNow(key, plot.invert(cx + dx, cy + dy));
+    if (ui.nudgeTimer !== null) clearTimeout(ui.nudgeTimer);
+    ui.nudgeTimer = window.setTimeout(() => {
+      ui.nudgeTimer = null;
+      nudgeKey = null;
+      commitParams(withValues(params, ui.preview));
+    }, NUDGE_COMMIT_MS);
+  }
+  cleanups.push(() => {
+    if (ui.nudgeTimer !== null) clearTimeout(ui.nudgeTimer);
+    if (dragFrame !== null) cancelAnimationFrame(dragFrame);
+  });
+
+  // Callable models: the kernel evaluates the curve for typed values (throttled).
+  const kernelPreview = throttle((values: Record<string, number>) => {
+    const { x } = plot.scales();
+    const [x0, x1] = x.domain() as [number, number];
+    send(model, { type: "preview", values, x_min: Math.min(x0, x1), x_max: Math.max(x0, x1) });
+  }, KERNEL_PREVIEW_MS);
+  cleanups.push(() => kernelPreview.cancel());
+
+  // ------------------------------------------------------------------ controls
+  const on = <K extends keyof HTMLElementEventMap>(
+    target: HTMLElement,
+    type: K,
+    fn: (e: HTMLElementEventMap[K]) => void,
+  ): void => {
+    target.addEventListener(type, fn);
+    cleanups.push(() => target.removeEventListener(type, fn));
+  };
+  on(modelSelect, "change", () => {
+    model.set("model_name", modelSelect.value);
+    model.save_changes();
+  });
+  on(xSelect, "change", () => {
+    model.set("x_scale", xSelect.value as Scale);
+    model.save_changes();
+  });
+  on(ySelect, "change", () => {
+    model.set("y_scale", ySelect.value as Scale);
+    model.save_changes();
+  });
+  on(zoomIn, "click", () => plot.zoomBy(1.5));
+  on(zoomOut, "click", () => plot.zoomBy(1 / 1.5));
+  on(resetView, "click", () => plot.resetView());
+  on(boxBtn, "click", () => {
+    ui.boxMode = !ui.boxMode;
+    boxBtn.setAttribute("aria-pressed", String(ui.boxMode));
+    plot.setBoxMode(ui.boxMode);
+  });
+  on(guidedBtn, "click", () => send(model, { type: "guided_start" }));
+  on(fitBtn, "click", () => {
+    // The request carries the state the person sees: a state update still buffered by the
+    // widget manager (one is sent at a time) could otherwise reach Python after the request.
+    send(model, {
+      type: "fit",
+      model_name: mj.name,
+      params: withValues(params, ui.dragging === null ? ui.preview : valuesOf(mj, params)),
+      excluded: model.get("excluded") ?? [],
+    });
+  });
+  on(cancelBtn, "click", () => send(model, { type: "cancel" }));
+  on(dismiss, "click", () => {
+    model.set("error", "");
+    model.save_changes();
+  });
+
+  // ------------------------------------------------------------------ synced state
+  listen("change:model_names", fillModels);
+  listen("change:model_json", () => loadModel(false));
+  listen("change:model_name", () => {
+    modelSelect.value = model.get("model_name");
+  });
+  listen("change:params", () => {
+    params = model.get("params") ?? {};
+    panel.setSettings(params);
+    if (ui.dragging === null && nudgeKey === null) {
+      const before = freeParams(mj, params).length;
+      ui.preview = { ...valuesOf(mj, params), ...typing };
+      if (usesPins(mj) && before !== ui.pins.length) ui.pins = [];
+      drawCurrent();
+    }
+  });
+  listen("change:data", () => {
+    loadData(false);
+    drawFitted();
+    drawCurrent();
+  });
+  listen("change:excluded", () => {
+    loadData(false);
+  });
+  listen("change:x_scale", () => {
+    xScale = model.get("x_scale");
+    xSelect.value = xScale;
+    plot.setScales(xScale, yScale);
+    ui.pins = [];
+    drawCurrent();
+  });
+  listen("change:y_scale", () => {
+    yScale = model.get("y_scale");
+    ySelect.value = yScale;
+    plot.setScales(xScale, yScale);
+    drawCurrent();
+  });
+  listen("change:fitted", drawFitted);
+  listen("change:compare", drawCompare);
+  listen("change:status", showStatus);
+  listen("change:error", showError);
+  listen("change:preview_curve", () => {
+    if (mj.tree === null) drawCurrent();
+  });
+
+  // Callable models preview typed values through the kernel.
+  const panelTyping = (): void => {
+    if (mj.tree === null && Object.keys(typing).length) kernelPreview.call({ ...valuesOf(mj, params), ...typing });
+  };
+  on(panel.el, "input", panelTyping);
+
+  // ------------------------------------------------------------------ first draw
+  xSelect.value = xScale;
+  ySelect.value = yScale;
+  fillModels();
+  plot.setScales(xScale, yScale);
+  loadData(true);
+  loadModel(false);
+  showStatus();
+  showError();
+
+  return () => {
+    for (const c of cleanups.reverse()) c();
+    root.remove();
+  };
+}
+
+export default { render };
