@@ -576,6 +576,95 @@ class FitResult:
         out: pd.DataFrame = pd.DataFrame(rows).set_index("parameter")
         return out
 
+    # ------------------------------------------------------ uncertainty (curvewright.stats)
+    # Thin delegates: the maths lives in curvewright.stats.uncertainty, imported lazily so that
+    # result never imports stats at module level (stats imports result).
+    def parameter_table(self, level: float = 0.95) -> pd.DataFrame:
+        """Estimates with standard error, t, p and Wald interval.
+
+        See :func:`curvewright.stats.uncertainty.parameter_table`.
+        """
+        from .stats.uncertainty import parameter_table
+
+        return parameter_table(self, level)
+
+    def profile_ci(self, names: Sequence[str] | None = None, level: float = 0.95) -> pd.DataFrame:
+        """Profile-likelihood intervals.
+
+        See :func:`curvewright.stats.uncertainty.profile_intervals`.
+        """
+        from .stats.uncertainty import profile_intervals
+
+        return profile_intervals(self, names, level)
+
+    def correlation_report(self, threshold: float = 0.99) -> Any:
+        """Correlation matrix with a warning per pair above ``threshold``.
+
+        See :func:`curvewright.stats.uncertainty.correlation`.
+        """
+        from .stats.uncertainty import correlation
+
+        return correlation(self, threshold)
+
+    def derived_table(self, level: float = 0.95) -> pd.DataFrame:
+        """Derived quantities with delta-method errors and extrapolation flags.
+
+        See :func:`curvewright.stats.uncertainty.derived_table`.
+        """
+        from .stats.uncertainty import derived_table
+
+        return derived_table(self, level)
+
+    def derive(self, expression: str, level: float = 0.95, *, axis: str | None = None) -> Any:
+        """Any function of the parameters with a delta-method error.
+
+        See :func:`curvewright.stats.uncertainty.derived_quantity`.
+        """
+        from .stats.uncertainty import derived_quantity
+
+        return derived_quantity(self, expression, level, axis=axis)
+
+    def confidence_band(self, x: ArrayLike, level: float = 0.95) -> pd.DataFrame:
+        """Pointwise confidence band of the curve.
+
+        See :func:`curvewright.stats.uncertainty.confidence_band`.
+        """
+        from .stats.uncertainty import confidence_band
+
+        return confidence_band(self, x, level)
+
+    def prediction_band(
+        self,
+        x: ArrayLike,
+        level: float = 0.95,
+        *,
+        sigma: ArrayLike | float | None = None,
+        replicates: int = 1,
+    ) -> pd.DataFrame:
+        """Pointwise prediction band for new observations.
+
+        See :func:`curvewright.stats.uncertainty.prediction_band`.
+        """
+        from .stats.uncertainty import prediction_band
+
+        return prediction_band(self, x, level, sigma=sigma, replicates=replicates)
+
+    def inverse_predict(
+        self,
+        y: ArrayLike,
+        level: float = 0.95,
+        *,
+        replicates: int = 1,
+        sigma: ArrayLike | float | None = None,
+    ) -> pd.DataFrame:
+        """x for observed y off this standard curve, with a calibration interval.
+
+        See :func:`curvewright.stats.uncertainty.inverse_predict`.
+        """
+        from .stats.uncertainty import inverse_predict
+
+        return inverse_predict(self, y, level, replicates=replicates, sigma=sigma)
+
     # --------------------------------------------------------------------- text
     def summary(self) -> str:
         """A readable plain-text report of the fit.

@@ -1,5 +1,4 @@
-"""Uncertainty of a least-squares fit: parameter tests and intervals, derived quantities, bands,
-and inverse prediction.
+"""Uncertainty of a least-squares fit: tests, intervals, derived quantities, bands, calibration.
 
 The maths lives in plain functions on numpy arrays (estimates, covariance, gradients, residual
 degrees of freedom) so each can be checked against a reference library directly; the functions
@@ -25,7 +24,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -43,12 +42,17 @@ if TYPE_CHECKING:
 __all__ = [
     "band",
     "confidence_band",
+    "Correlation",
+    "ProfileBound",
+    "correlation",
     "correlation_matrix",
     "correlation_warnings",
     "delta_method_se",
+    "derived_quantity",
     "derived_table",
     "finite_difference_jacobian",
     "inverse_predict",
+    "model_gradient",
     "parameter_table",
     "parameter_tests",
     "prediction_band",
@@ -245,9 +249,12 @@ def band(
     lower, upper : ndarray
     """
     f = np.asarray(fit, dtype=float)
-    var = np.einsum("ij,jk,ik->i", np.atleast_2d(np.asarray(gradients, dtype=float)),
-                    np.asarray(cov, dtype=float),
-                    np.atleast_2d(np.asarray(gradients, dtype=float)))
+    var = np.einsum(
+        "ij,jk,ik->i",
+        np.atleast_2d(np.asarray(gradients, dtype=float)),
+        np.asarray(cov, dtype=float),
+        np.atleast_2d(np.asarray(gradients, dtype=float)),
+    )
     if observation_variance is not None:
         var = var + np.asarray(observation_variance, dtype=float)
     with np.errstate(invalid="ignore"):
@@ -375,8 +382,11 @@ def profile_interval(
 
 # ============================================================================ FitResult layer
 def _quantile(result: FitResult, level: float) -> float:
-    """Two-sided quantile as the result's own intervals use it: Student t on ``dof``, or the
-    normal quantile when sigma was taken as exact (``absolute_sigma``)."""
+    """Two-sided quantile as the result's own intervals use it.
+
+    Student t on ``dof``, or the normal quantile when sigma was taken as exact
+    (``absolute_sigma``).
+    """
     lv = _check_level(level)
     if result.absolute_sigma:
         return float(scipy.stats.norm.ppf(0.5 + lv / 2.0))
@@ -415,7 +425,7 @@ def values_from_free(result: FitResult, theta: ArrayLike) -> dict[str, float]:
 
     th = np.asarray(theta, dtype=float)
     vals = dict(result.values)
-    for name, v in zip(result.free, th):
+    for name, v in zip(result.free, th, strict=True):
         vals[name] = float(v)
     if result.linked:
         exprs = {n: Expr.parse(e) for n, e in result.linked.items()}
@@ -472,8 +482,9 @@ class Correlation:
 
 
 def correlation(result: FitResult, threshold: float = HIGH_CORRELATION) -> Correlation:
-    """Correlation matrix of the free parameters, with a warning for each pair above
-    ``threshold`` in absolute value.
+    """Correlation matrix of the free parameters, with a warning for each pair above threshold.
+
+    A pair warns when ``|r| > threshold``.
 
     Parameters
     ----------
@@ -522,8 +533,9 @@ def parameter_table(result: FitResult, level: float = 0.95) -> pd.DataFrame:
         p = 2.0 * scipy.stats.norm.sf(np.abs(t))
     else:
         t, p = parameter_tests(value, se, result.dof)
-    status = ["fixed" if n in result.fixed else "linked" if n in result.linked else "free"
-              for n in names]
+    status = [
+        "fixed" if n in result.fixed else "linked" if n in result.linked else "free" for n in names
+    ]
     out: pd.DataFrame = pd.DataFrame(
         {
             "value": value,
@@ -694,3 +706,463 @@ def prediction_band(
         Columns ``x, fit, lower, upper``.
     """
     return _band_frame(result, x, level, True, sigma, replicates)
+
+
+# --------------------------------------------------------------------- derived quantities
+def derived_quantity(
+    result: FitResult,
+    expression: str,
+    level: float = 0.95,
+    *,
+    axis: str | None = None,
+) -> pd.Series:
+    """Any function of the parameters, with its delta-method standard error and interval.
+
+    For quantities the model does not list among its derived ones (see :func:`derived_table`),
+    e.g. ``"log(2)/k"``, ``"Vmax/Km"`` or ``"10**logEC50"``.
+
+    Parameters
+    ----------
+    result : FitResult
+    expression : str
+        A formula in the parameter names (the expression language of models; no ``x``).
+    level : float
+        Coverage of the interval ``value +- q * stderr`` (Student t on the residual degrees of
+        freedom, normal when sigma was taken as exact).
+    axis : {"x", None}
+        ``"x"`` when the quantity is a position on the x axis (a concentration or a time):
+        it is then checked against the range of the data.
+
+    Returns
+    -------
+    pandas.Series
+        ``value, stderr, lower, upper, extrapolated`` (``extrapolated`` is None unless
+        ``axis="x"``).
+
+    Raises
+    ------
+    FormulaError
+        The expression cannot be parsed.
+    ParameterError
+        It uses a name that is not a parameter of the model.
+
+    Notes
+    -----
+    The gradient is symbolic over every parameter and chained through
+    ``result.param_jacobian`` (so links count and fixed parameters contribute nothing): first
+    order only, so for a strongly nonlinear function of poorly determined parameters the
+    interval can be far from its nominal coverage; profile intervals do better there.
+    """
+    from curvewright.expr import Expr
+    from curvewright.models import unknown_name_message
+
+    e = Expr.parse(expression)
+    names = set(result.model.param_names)
+    for n in e.names:
+        if n not in names:
+            raise ParameterError(
+                unknown_name_message(n, result.model.param_names, f"model {result.model.name!r}")
+            )
+    if axis not in (None, "x"):
+        raise ParameterError(f"axis must be 'x' or None, got {axis!r}.")
+    env = dict(result.values)
+    with np.errstate(all="ignore"):
+        value = float(np.asarray(e.evaluate(env)))
+        g_all = np.array(
+            [float(np.asarray(e.derivative(n).evaluate(env))) for n in result.model.param_names]
+        )
+    g = g_all @ np.asarray(result.param_jacobian)
+    se = float(delta_method_se(g, result.covariance)[0]) if g.size else math.nan
+    q = _quantile(result, level)
+    extrapolated: bool | None = None
+    if axis == "x":
+        xs = np.asarray(result.x)
+        extrapolated = bool(
+            math.isfinite(value) and not (float(xs.min()) <= value <= float(xs.max()))
+        )
+    return pd.Series(
+        {
+            "value": value,
+            "stderr": se,
+            "lower": value - q * se,
+            "upper": value + q * se,
+            "extrapolated": extrapolated,
+        },
+        name=expression,
+        dtype=object,
+    )
+
+
+# ------------------------------------------------------------------------------ profile
+def _profile_ssr(result: FitResult, j: int) -> Callable[[float], float]:
+    """``v -> min SSR`` with free parameter ``j`` held at ``v``, the others re-optimised.
+
+    Each re-optimisation starts from the solution found at the nearest value tried so far
+    (continuation), so the search follows the valley of the SSR surface.
+    """
+    x = np.asarray(result.x, dtype=float)
+    y = np.asarray(result.y, dtype=float)
+    w = np.ones_like(y) if result.weights is None else np.asarray(result.weights, dtype=float)
+    free = list(result.free)
+    theta0 = np.array([result.values[n] for n in free], dtype=float)
+    lo = np.array([result.bounds.get(n, (-math.inf, math.inf))[0] for n in free])
+    hi = np.array([result.bounds.get(n, (-math.inf, math.inf))[1] for n in free])
+    others = np.array([i for i in range(len(free)) if i != j], dtype=int)
+    seen: dict[float, FloatArray] = {float(theta0[j]): theta0[others].copy()}
+    model = result.model
+
+    def resid(full: FloatArray) -> FloatArray:
+        try:
+            f = model.eval(x, values_from_free(result, full))
+        except Exception:
+            # A user's callable may raise anywhere; that trial value is simply infeasible.
+            return np.full(y.size, np.nan)
+        return np.asarray(w * (y - f), dtype=float)
+
+    def ssr_at(v: float) -> float:
+        full = theta0.copy()
+        full[j] = v
+        if others.size == 0:
+            r = resid(full)
+            return float(r @ r) if np.all(np.isfinite(r)) else math.inf
+        near = min(seen, key=lambda s: abs(s - v))
+        u0 = seen[near].copy()
+        lo_o, hi_o = lo[others], hi[others]
+        # least_squares needs a start strictly inside the bounds
+        span = np.where(np.isfinite(hi_o - lo_o), hi_o - lo_o, 1.0)
+        u0 = np.clip(u0, lo_o + 1e-10 * span, hi_o - 1e-10 * span)
+        big = 1e6 * (float(np.max(np.abs(y))) + 1.0) * float(np.max(w))
+
+        def r_other(u: FloatArray) -> FloatArray:
+            full[others] = u
+            r = resid(full)
+            return np.where(np.isfinite(r), r, big)
+
+        bounded = bool(np.any(np.isfinite(lo_o)) or np.any(np.isfinite(hi_o)))
+        try:
+            sol = scipy.optimize.least_squares(
+                r_other,
+                u0,
+                bounds=(lo_o, hi_o) if bounded else (-np.inf, np.inf),
+                method="trf" if bounded or y.size < others.size else "lm",
+                x_scale="jac",
+                xtol=1e-13,
+                ftol=1e-13,
+                gtol=1e-13,
+                max_nfev=400 * (others.size + 1),
+            )
+        except (ValueError, np.linalg.LinAlgError):
+            return math.inf
+        full[others] = sol.x
+        r = resid(full)
+        if not np.all(np.isfinite(r)):
+            return math.inf
+        seen[float(v)] = np.asarray(sol.x, dtype=float).copy()
+        return float(r @ r)
+
+    return ssr_at
+
+
+def profile_intervals(
+    result: FitResult, names: Sequence[str] | None = None, level: float = 0.95
+) -> pd.DataFrame:
+    """Profile-likelihood confidence intervals of free parameters.
+
+    For each parameter the interval is the set of values ``v`` whose profile sum of squares
+    (the smallest SSR with the parameter held at ``v`` and every other free parameter
+    re-fitted) stays below ``SSR_min * (1 + F(level; 1, dof) / dof)`` (common practice; Bates
+    and Watts 1988, section 6.1, and the same F rule as lmfit's ``conf_interval``). Unlike the
+    Wald interval it follows the curvature of the model, so it can be asymmetric, which is
+    usual for rate constants, EC50s and Km.
+
+    Parameters
+    ----------
+    result : FitResult
+        A least-squares fit (not a robust loss).
+    names : sequence of str, optional
+        Free parameters to profile (default: all).
+    level : float
+        Coverage.
+
+    Returns
+    -------
+    DataFrame
+        Indexed by parameter: ``value, lower, upper, wald_lower, wald_upper, note``. An end the
+        data do not bound is ``-inf``/``inf`` with the reason in ``note``.
+
+    Raises
+    ------
+    ParameterError
+        A name is not a free parameter.
+    FitError
+        The fit used a robust loss, or sigma was taken as exact (the F rule estimates the
+        variance; use the Wald intervals then).
+    """
+    _require_least_squares(result, "A profile-likelihood interval")
+    if result.absolute_sigma:
+        raise FitError(
+            "Profile intervals here use the F rule, which estimates the residual variance; "
+            "this fit took sigma as exact (absolute_sigma=True). Use the Wald intervals "
+            "(parameter_table), or refit with absolute_sigma=False."
+        )
+    lv = _check_level(level)
+    free = list(result.free)
+    want = free if names is None else list(names)
+    for n in want:
+        if n not in free:
+            raise ParameterError(
+                f"{n!r} is not a free parameter of this fit; free parameters: {free}."
+            )
+    thr = profile_threshold(result.ssr, result.dof, lv)
+    q = _quantile(result, lv)
+    rows = []
+    for n in want:
+        j = free.index(n)
+        est, se = result.values[n], result.stderr[n]
+        b_lo, b_hi = result.bounds.get(n, (-math.inf, math.inf))
+        lo, hi = profile_interval(
+            _profile_ssr(result, j), est, se, thr, lower_bound=b_lo, upper_bound=b_hi
+        )
+        notes = [s for s in (lo.note, hi.note) if s]
+        rows.append(
+            {
+                "parameter": n,
+                "value": est,
+                "lower": lo.value,
+                "upper": hi.value,
+                "wald_lower": est - q * se,
+                "wald_upper": est + q * se,
+                "note": " ".join(notes),
+            }
+        )
+    out: pd.DataFrame = pd.DataFrame(rows).set_index("parameter")
+    return out
+
+
+# --------------------------------------------------------------------- inverse prediction
+def _search_grid(result: FitResult, npts: int = 4001) -> FloatArray:
+    """x values to look for solutions on: the data range and beyond.
+
+    As far again beyond each end, or a decade beyond each end on a log scale for positive x
+    spanning more than a decade.
+    """
+    xs = np.asarray(result.x, dtype=float)
+    lo, hi = float(xs.min()), float(xs.max())
+    pos = xs[xs > 0]
+    domain = result.model.domain
+    if lo >= 0 and pos.size and float(pos.max()) / float(pos.min()) > 10.0:
+        lo_p, hi_p = float(pos.min()), float(pos.max())
+        g = np.geomspace(lo_p / 10.0, hi_p * 10.0, npts)
+        return np.asarray(np.concatenate([[0.0], g]) if domain != "x>0" else g, dtype=float)
+    span = hi - lo if hi > lo else max(abs(hi), 1.0)
+    a, b = lo - span, hi + span
+    if domain == "x>=0":
+        a = max(a, 0.0)
+    elif domain == "x>0":
+        a = max(a, lo * 1e-3 if lo > 0 else 1e-12)
+    return np.linspace(a, b, npts)
+
+
+def _roots(fun: Callable[[float], float], grid: FloatArray, values: FloatArray) -> list[float]:
+    """Every sign change of ``values`` over ``grid``, refined with Brent's method."""
+    out: list[float] = []
+    for i in range(grid.size - 1):
+        a, b = values[i], values[i + 1]
+        if not (math.isfinite(a) and math.isfinite(b)):
+            continue
+        if a == 0.0:
+            out.append(float(grid[i]))
+        elif a * b < 0:
+            out.append(float(scipy.optimize.brentq(fun, grid[i], grid[i + 1], xtol=1e-14)))
+    if values.size and values[-1] == 0.0:
+        out.append(float(grid[-1]))
+    return out
+
+
+def inverse_predict(
+    result: FitResult,
+    y: ArrayLike,
+    level: float = 0.95,
+    *,
+    replicates: int = 1,
+    sigma: ArrayLike | float | None = None,
+) -> pd.DataFrame:
+    """x for observed y off a fitted standard curve, with an interval (calibration).
+
+    The estimate solves ``f(x) = y``. The interval is the classical calibration interval: the
+    x values whose prediction band (for the mean of ``replicates`` new readings) contains
+    ``y``, i.e. ``|y - f(x)| <= q * sqrt(g(x)' C g(x) + s**2 sd(x)**2 / m)`` (Eisenhart 1939;
+    for a straight line this is Fieller's interval, e.g. Draper and Smith 1998, section 3.2;
+    common practice for standard curves). It accounts for the uncertainty of the curve and of
+    the new reading, and is asymmetric where the curve bends.
+
+    Parameters
+    ----------
+    result : FitResult
+        A least-squares fit of the standard curve.
+    y : float or array_like
+        Observed response(s) of the unknown sample(s).
+    level : float
+        Coverage of the interval.
+    replicates : int
+        How many readings were averaged into each ``y``.
+    sigma : float or array_like, optional
+        Standard deviation of the new reading (weighted fits; see :func:`prediction_band`).
+
+    Returns
+    -------
+    DataFrame
+        One row per y: ``y, x, lower, upper, extrapolated, note``. ``x`` is NaN when no x
+        gives that response (beyond an asymptote or outside the curve's range); an interval end
+        is ``-inf``/``inf`` when the band never excludes y on that side within the search range.
+
+    Warns
+    -----
+    ExtrapolationWarning
+        A y is outside the range of the fitted curve over the data (its x is an extrapolation)
+        or beyond what the curve reaches at all (beyond an asymptote).
+
+    Raises
+    ------
+    DataError
+        y is not finite, or the curve takes the value y at several x within the data range
+        (not monotone there), so the reading is ambiguous.
+    FitError
+        The fit used a robust loss.
+    """
+    _require_least_squares(result, "Inverse prediction")
+    ys = _as_x(y, "y")
+    lv = _check_level(level)
+    if isinstance(replicates, bool) or int(replicates) != replicates or replicates < 1:
+        raise ParameterError(f"replicates must be a whole number >= 1, got {replicates!r}.")
+    q = _quantile(result, lv)
+    s2 = 1.0 if result.absolute_sigma else result.ssr / result.dof
+    grid = _search_grid(result)
+    fgrid = result.predict(grid)
+    xs = np.asarray(result.x, dtype=float)
+    x_lo, x_hi = float(xs.min()), float(xs.max())
+    inside = (grid >= x_lo) & (grid <= x_hi)
+    f_in = fgrid[inside & np.isfinite(fgrid)]
+    f_min, f_max = float(np.min(f_in)), float(np.max(f_in))
+    f_fin = fgrid[np.isfinite(fgrid)]
+    reach_min, reach_max = float(np.min(f_fin)), float(np.max(f_fin))
+
+    def half(xv: FloatArray) -> FloatArray:
+        G = model_gradient(result, xv)
+        var = np.einsum("ij,jk,ik->i", G, np.asarray(result.covariance), G)
+        fv = result.predict(xv)
+        sd = _observation_sd(result, xv, fv, sigma)
+        var = var + s2 * sd**2 / int(replicates)
+        with np.errstate(invalid="ignore"):
+            return np.asarray(q * np.sqrt(np.where(var >= 0, var, np.nan)), dtype=float)
+
+    hgrid = half(grid)
+    rows = []
+    warn_out: list[float] = []
+    warn_beyond: list[float] = []
+    for y0 in ys:
+        y0 = float(y0)
+
+        def fx(t: float, y0: float = y0) -> float:
+            return float(result.predict(np.array([t]))[0]) - y0
+
+        roots = _roots(fx, grid, fgrid - y0)
+        in_range = [r for r in roots if x_lo <= r <= x_hi]
+        note = ""
+        if len(in_range) > 1:
+            raise DataError(
+                f"The fitted curve passes through y = {y0:g} at several x within the data "
+                f"({', '.join(f'{r:.6g}' for r in in_range)}): it is not monotone there, so the "
+                "reading is ambiguous. Restrict the standard curve to its monotone part."
+            )
+        if in_range:
+            x0 = in_range[0]
+        elif roots:
+            x0 = min(roots, key=lambda r: min(abs(r - x_lo), abs(r - x_hi)))
+        else:
+            x0 = math.nan
+        extrapolated = not (f_min <= y0 <= f_max)
+        if math.isnan(x0):
+            note = (
+                f"y = {y0:g} is beyond what the fitted curve reaches ({reach_min:.6g} to "
+                f"{reach_max:.6g} over x from {grid[0]:.4g} to {grid[-1]:.4g}): it lies beyond "
+                "an asymptote or far outside the standard curve; no x can be read off."
+            )
+            warn_beyond.append(y0)
+            rows.append(
+                {
+                    "y": y0,
+                    "x": math.nan,
+                    "lower": math.nan,
+                    "upper": math.nan,
+                    "extrapolated": True,
+                    "note": note,
+                }
+            )
+            continue
+        if extrapolated:
+            note = (
+                f"y = {y0:g} is outside the responses of the fitted curve over the data "
+                f"({f_min:.6g} to {f_max:.6g}); x = {x0:.6g} is an extrapolation."
+            )
+            warn_out.append(y0)
+
+        # interval: where |y0 - f(x)| - half(x) changes sign on each side of x0
+        def gx(t: float, y0: float = y0) -> float:
+            tv = np.array([t])
+            return float(abs(y0 - result.predict(tv)[0]) - half(tv)[0])
+
+        gvals = np.abs(y0 - fgrid) - hgrid
+        ends: list[float] = []
+        for side in (-1, 1):
+            idx = np.flatnonzero((grid < x0) if side < 0 else (grid > x0))
+            idx = idx[::-1] if side < 0 else idx
+            prev = x0
+            end = math.inf * side
+            for i in idx:
+                gv = gvals[i]
+                if math.isfinite(gv) and gv > 0:
+                    a, b = sorted((prev, float(grid[i])))
+                    try:
+                        end = float(scipy.optimize.brentq(gx, a, b, xtol=1e-13))
+                    except ValueError:
+                        end = float(grid[i])
+                    break
+                prev = float(grid[i])
+            ends.append(end)
+        lo_e, hi_e = ends
+        if math.isinf(lo_e) or math.isinf(hi_e):
+            extra = (
+                "the prediction band does not exclude this y on one side within the search "
+                "range, so the data do not bound x there (typical near a plateau)."
+            )
+            note = (note + " " + extra).strip()
+        rows.append(
+            {
+                "y": y0,
+                "x": x0,
+                "lower": lo_e,
+                "upper": hi_e,
+                "extrapolated": extrapolated,
+                "note": note,
+            }
+        )
+    if warn_out:
+        warnings.warn(
+            f"{len(warn_out)} response(s) ({', '.join(f'{v:g}' for v in warn_out)}) lie "
+            f"outside the fitted curve's range over the data ({f_min:.6g} to {f_max:.6g}); "
+            "their x values are extrapolations. Extend the standard curve or dilute the sample.",
+            ExtrapolationWarning,
+            stacklevel=2,
+        )
+    if warn_beyond:
+        warnings.warn(
+            f"{len(warn_beyond)} response(s) ({', '.join(f'{v:g}' for v in warn_beyond)}) lie "
+            "beyond what the fitted curve reaches (past an asymptote); x is NaN for them.",
+            ExtrapolationWarning,
+            stacklevel=2,
+        )
+    out: pd.DataFrame = pd.DataFrame(
+        rows, columns=["y", "x", "lower", "upper", "extrapolated", "note"]
+    )
+    return out
