@@ -12,6 +12,7 @@ import { decimateCells } from "./decimate";
 import type { Point } from "./handles";
 import type { PointSet, Scale } from "./state";
 import { groupReplicates } from "./stats";
+import { tickLabel } from "./validate";
 
 type Lin = ScaleContinuousNumeric<number, number>;
 type SVGSel<E extends Element = SVGGElement> = Selection<E, unknown, null, undefined>;
@@ -437,8 +438,16 @@ export class Plot {
   private drawAxes(x: Lin, y: Lin): void {
     const nx = Math.max(2, Math.round(this.plotW / 90));
     const ny = Math.max(2, Math.round(this.plotH / 50));
-    this.gx.call(axisBottom(x).ticks(nx) as never);
-    this.gy.call(axisLeft(y).ticks(ny) as never);
+    this.gx.call(axisBottom(x).ticks(nx).tickFormat(this.tickFormat(x, nx, this.xScaleKind)) as never);
+    this.gy.call(axisLeft(y).ticks(ny).tickFormat(this.tickFormat(y, ny, this.yScaleKind)) as never);
+  }
+
+  /** Plain-number tick labels; on a log axis only as many as fit (d3 thins the minor ones). */
+  private tickFormat(s: Lin, count: number, kind: Scale): (v: number | { valueOf(): number }) => string {
+    const label = (v: number | { valueOf(): number }): string => tickLabel(Number(v));
+    if (kind !== "log") return label;
+    const thin = s.tickFormat(count, label as unknown as string) as unknown as (v: number) => string;
+    return (v) => thin(Number(v));
   }
 
   private drawPoints(x: Lin, y: Lin): void {
@@ -666,8 +675,9 @@ export class Plot {
     }
     if (maxAbs === 0) maxAbs = 1;
     const ry = scaleLinear().domain([-maxAbs * 1.1, maxAbs * 1.1]).range([rh, 0]);
-    this.residGx.call(axisBottom(x).ticks(Math.max(2, Math.round(this.plotW / 90))) as never);
-    this.residGy.call(axisLeft(ry).ticks(3) as never);
+    this.residGx.call(axisBottom(x).ticks(Math.max(2, Math.round(this.plotW / 90)))
+        .tickFormat(this.tickFormat(x, Math.max(2, Math.round(this.plotW / 90)), this.xScaleKind)) as never);
+    this.residGy.call(axisLeft(ry).ticks(3).tickFormat((v) => tickLabel(Number(v))) as never);
     this.residZero
       .attr("x1", MARGIN.left)
       .attr("x2", MARGIN.left + this.plotW)

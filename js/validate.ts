@@ -66,3 +66,18 @@ export function formatNumber(v: number | null | undefined, digits = 6): string {
   // Drop trailing zeros of the mantissa ("1.50000e-6" -> "1.5e-6", "2.00000" -> "2").
   return s.replace(/(\.\d*?)0+(e|$)/, "$1$2").replace(/\.(e|$)/, "$1");
 }
+
+/**
+ * An axis tick label: plain decimals between 0.001 and 100000 ("0.25", "100"), exponent form
+ * outside ("1e-9", "2.5e+6"); never SI prefixes, which read ambiguously next to units.
+ */
+export function tickLabel(v: number): string {
+  if (!Number.isFinite(v)) return "";
+  if (v === 0) return "0";
+  const a = Math.abs(v);
+  // 12 significant digits hide the binary noise of tick arithmetic (0.30000000000000004).
+  if (a >= 1e-3 && a < 1e5) return String(Number(v.toPrecision(12)));
+  return Number(v.toPrecision(12))
+    .toExponential()
+    .replace(/\.?0+e/, "e");
+}
