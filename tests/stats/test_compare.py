@@ -1,0 +1,229 @@
+"""Model comparison: the F test against statsmodels, AICc and Akaike weights against their
+formulas (Burnham and Anderson 2002), nesting detection, recommendations and refusals."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.stats
+import statsmodels.formula.api as smf  # type: ignore[import-untyped]  # no stubs
+from statsmodels.stats.anova import anova_lm  # type: ignore[import-untyped]
+
+import curvewright as cw
+from curvewright.errors import ComparisonError, ParameterError
+from curvewright.stats import akaike_weights, compare, extra_ss_f_test
+
+DATA = Path(__file__).resolve().parent.parent / "data"
+
+
+def cars() -> pd.DataFrame:
+    # R's cars (tests/data/r_datasets/SOURCES.md).
+    return pd.read_csv(DATA / "r_datasets" / "cars.csv")
+
+
+def puromycin() -> pd.DataFrame:
+    # R's Puromycin, treated cells (tests/data/stats/SOURCES.md).
+    df = pd.read_csv(DATA / "stats" / "Puromycin.csv")
+    return df[df["state"] == "treated"].reset_index(drop=True)
+
+
+def row(frame: pd.DataFrame, simpler: str, larger: str) -> pd.Series:
+    sel = frame[(frame["simpler"] == simpler) & (frame["larger"] == larger)]
+    assert len(sel) == 1, frame
+    return sel.iloc[0]
+
+
+# ---------------------------------------------------------------------------------------------
+# F test against statsmodels
+
+
+def test_f_tests_match_statsmodels_on_nested_polynomials() -> None:
+    # statsmodels OLS compare_f_test and anova_lm (pairwise: two models per call, so the
+    # residual mean square is the larger model's own) on R's cars, fits made by curvewright.fit.
+    df = cars()
+    terms = ["speed", "I(speed**2)", "I(speed**3)"]
+    ref = [smf.ols("dist ~ " + " + ".join(terms[:k]), df).fit() for k in (1, 2, 3)]
+    fits = [
+        cw.fit("straight_line", "speed", "dist", data=df),
+        cw.fit(cw.polynomial(2), "speed", "dist", data=df),
+        cw.fit(cw.polynomial(3), "speed", "dist", data=df),
+    ]
+    c = compare(*fits)
+    labels = list(c.table.index)
+    assert labels == ["straight_line", "polynomial_2", "polynomial_3"]
+    assert len(c.f_tests) == 3 and set(c.f_tests["how"]) == {"detected"}
+    for i, j in ((0, 1), (0, 2), (1, 2)):
+        F, p, df_diff = ref[j].compare_f_test(ref[i])
+        got = row(c.f_tests, labels[i], labels[j])
+        assert float(got["F"]) == pytest.approx(F, rel=1e-9)
+        assert float(got["p"]) == pytest.approx(p, rel=1e-8)
+        assert int(got["df_num"]) == int(df_diff)
+        assert int(got["df_den"]) == int(ref[j].df_resid)
+        a = anova_lm(ref[i], ref[j])
+        assert float(got["F"]) == pytest.approx(float(a["F"].iloc[1]), rel=1e-9)
+    # cars: the quadratic term is not significant (p = 0.136 by statsmodels above)
+    assert not bool(row(c.f_tests, "straight_line", "polynomial_2")["significant"])
+
+
+def test_f_test_function_matches_scipy_f_distribution() -> None:
+    # scipy.stats.f reference; values from a made-up pair of fits.
+    F, dn, dd, p = extra_ss_f_test(120.0, 20, 80.0, 18)
+    assert (dn, dd) == (2, 18)
+    assert F == pytest.approx((40.0 / 2) / (80.0 / 18))
+    assert p == pytest.approx(scipy.stats.f.sf(F, 2, 18))
+    F2, _, _, p2 = extra_ss_f_test(80.0, 20, 90.0, 18)  # larger fits worse: not valid
+    assert math.isnan(F2) and math.isnan(p2)
+    with pytest.raises(ComparisonError, match="more free parameters"):
+        extra_ss_f_test(1.0, 10, 1.0, 10)
+    with pytest.raises(ComparisonError, match="no residual degrees of freedom"):
+        extra_ss_f_test(2.0, 2, 1.0, 0)
+
+
+# ---------------------------------------------------------------------------------------------
+# AICc and Akaike weights against the formula
+
+
+def test_aicc_and_akaike_weights_follow_the_formula() -> None:
+    # AICc = n ln(SSR/n) + 2K + 2K(K+1)/(n-K-1), K = free parameters + 1 (the variance);
+    # w_i = exp(-D_i/2) / sum exp(-D_j/2)  (Burnham and Anderson 2002, sections 2.4 and 2.9;
+    # common practice). Computed here from each fit's SSR, n and number of free parameters.
+    df = puromycin()
+    fits = [
+        cw.fit("michaelis_menten", "conc", "rate", data=df),
+        cw.fit("hill", "conc", "rate", data=df),
+        cw.fit("straight_line", "conc", "rate", data=df),
+    ]
+    c = compare(*fits)
+    aicc = []
+    for r in fits:
+        n, K = r.n, r.nfree + 1
+        aicc.append(n * math.log(r.ssr / n) + 2 * K + 2 * K * (K + 1) / (n - K - 1))
+    aicc_a = np.array(aicc)
+    delta = aicc_a - aicc_a.min()
+    w = np.exp(-delta / 2) / np.exp(-delta / 2).sum()
+    np.testing.assert_allclose(np.asarray(c.table["aicc"], dtype=float), aicc_a, rtol=1e-12)
+    np.testing.assert_allclose(np.asarray(c.table["delta_aicc"], dtype=float), delta, atol=1e-9)
+    np.testing.assert_allclose(np.asarray(c.table["akaike_weight"], dtype=float), w, rtol=1e-9)
+    assert float(c.table["akaike_weight"].sum()) == pytest.approx(1.0)
+    # the straight line is far worse on saturating data
+    assert float(c.table.loc["straight_line", "akaike_weight"]) < 1e-3
+    # Michaelis-Menten is nested in Hill (n_hill = 1); the line is nested in neither.
+    assert list(zip(c.f_tests["simpler"], c.f_tests["larger"], strict=True)) == [
+        ("michaelis_menten", "hill")
+    ]
+
+
+def test_akaike_weights_with_an_infinite_aicc() -> None:
+    delta, w = akaike_weights([10.0, math.inf, 12.0])
+    assert w[1] == 0.0 and math.isinf(delta[1])
+    assert w[0] == pytest.approx(1 / (1 + math.exp(-1)))
+    with pytest.raises(ComparisonError, match="no fit has a finite AICc"):
+        akaike_weights([math.inf, math.inf])
+
+
+# ---------------------------------------------------------------------------------------------
+# nesting detection and recommendations
+
+
+def test_same_model_with_a_parameter_fixed_is_detected_as_nested() -> None:
+    # F computed by hand from the two fits' SSR and degrees of freedom (formula in the module).
+    rng = np.random.default_rng(21)
+    x = np.linspace(0, 10, 30)
+    y = 5.0 + 40.0 * np.exp(-0.4 * x) + rng.normal(0, 1.0, x.size)
+    full = cw.fit("decay_to_plateau", x, y)
+    held = cw.fit("decay_to_plateau", x, y, fixed={"plateau": 0.0})
+    c = compare(held, full)
+    assert len(c.f_tests) == 1
+    got = c.f_tests.iloc[0]
+    assert got["simpler"] == "decay_to_plateau (plateau=0)"
+    F = (held.ssr - full.ssr) / 1 / (full.ssr / full.dof)
+    assert float(got["F"]) == pytest.approx(F, rel=1e-10)
+    assert float(got["p"]) == pytest.approx(scipy.stats.f.sf(F, 1, full.dof), rel=1e-10)
+    # the true plateau is 5, far from 0: the F test rejects the simpler model
+    assert bool(got["significant"])
+    assert c.preferred == "decay_to_plateau" and c.criterion == "F test"
+    assert "support the larger model" in " ".join(c.reasoning)
+    assert "Prefer 'decay_to_plateau'" in c.recommendation
+
+
+def test_simpler_model_recommended_when_extra_term_is_not_needed() -> None:
+    df = cars()
+    line = cw.fit("straight_line", "speed", "dist", data=df)
+    quad = cw.fit(cw.polynomial(2), "speed", "dist", data=df)
+    c = compare(line, quad, names=["line", "quadratic"])
+    assert c.preferred == "line" and c.criterion == "F test"
+    text = c.summary()
+    assert "keep the simpler model" in text
+    assert "not for clinical or dosing decisions" in text
+    assert "<table" in c._repr_html_()
+    # AICc alone (cars: the two are within 0.02 of each other) and a note that they disagree
+    a = compare(line, quad, names=["line", "quadratic"], prefer="aicc")
+    assert a.criterion == "AICc" and a.preferred == "quadratic"
+    assert any("criteria disagree" in r for r in a.reasoning)
+    assert any("hardly distinguish" in r for r in a.reasoning)
+
+
+def test_different_models_not_nested_and_declared_nesting() -> None:
+    df = puromycin()
+    mm = cw.fit("michaelis_menten", "conc", "rate", data=df)
+    rise = cw.fit("rise_to_plateau", "conc", "rate", data=df, fixed={"y0": 0.0})
+    c = compare(mm, rise)
+    assert len(c.f_tests) == 0 and c.criterion == "AICc"
+    # a declared nesting is used as declared (and labelled so)
+    hill = cw.fit("hill", "conc", "rate", data=df)
+    d = compare(mm, hill, nested=[("michaelis_menten", "hill")])
+    assert list(d.f_tests["how"]) == ["declared"]
+    e = compare(mm, hill, nested=False)
+    assert len(e.f_tests) == 0
+    chain = compare(hill, mm, nested=True)
+    assert list(zip(chain.f_tests["simpler"], chain.f_tests["larger"], strict=True)) == [
+        ("michaelis_menten", "hill")
+    ]
+
+
+# ---------------------------------------------------------------------------------------------
+# refusals
+
+
+def test_compare_refuses_different_data_weights_and_bad_fits() -> None:
+    df = puromycin()
+    a = cw.fit("michaelis_menten", "conc", "rate", data=df)
+    with pytest.raises(ComparisonError, match="at least two fits"):
+        compare(a)
+    with pytest.raises(ComparisonError, match="not a FitResult"):
+        compare(a, "hill")  # type: ignore[arg-type]
+    other = df.assign(rate=df["rate"] * 1.01)
+    b = cw.fit("hill", "conc", "rate", data=other)
+    with pytest.raises(ComparisonError, match="different data"):
+        compare(a, b)
+    c = cw.fit("hill", "conc", "rate", data=df, exclude=[0])
+    with pytest.raises(ComparisonError, match="11 points.*12"):
+        compare(a, c)
+    d = cw.fit("hill", "conc", "rate", data=df, weights="relative")
+    with pytest.raises(ComparisonError, match="weighting 'relative'"):
+        compare(a, d)
+    sig = cw.fit("hill", "conc", "rate", data=df, sigma=np.full(len(df), 5.0))
+    with pytest.raises(ComparisonError, match="weighting 'sigma'"):
+        compare(a, sig)
+    robust = cw.fit("hill", "conc", "rate", data=df, loss="huber")
+    with pytest.raises(ComparisonError, match="robust 'huber' loss"):
+        compare(a, robust)
+    hill = cw.fit("hill", "conc", "rate", data=df)
+    with pytest.raises(ComparisonError, match="declared nested"):
+        compare(a, hill, nested=[(1, 0)])
+    with pytest.raises(ComparisonError, match="same number of free parameters"):
+        compare(a, cw.fit("power_law", "conc", "rate", data=df), nested=True)
+    with pytest.raises(ParameterError, match="one label per fit"):
+        compare(a, hill, names=["x"])
+    with pytest.raises(ParameterError, match="distinct"):
+        compare(a, hill, names=["x", "x"])
+    with pytest.raises(ParameterError, match="alpha must be between 0 and 1"):
+        compare(a, hill, alpha=5)
+    with pytest.raises(ParameterError, match="prefer must be"):
+        compare(a, hill, prefer="bic")
+    with pytest.raises(ParameterError, match="unknown fit 'Hill'"):
+        compare(a, hill, nested=[("michaelis_menten", "Hill")])
