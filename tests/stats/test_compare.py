@@ -71,10 +71,10 @@ def test_f_tests_match_statsmodels_on_nested_polynomials() -> None:
 
 def test_f_test_function_matches_scipy_f_distribution() -> None:
     # scipy.stats.f reference; values from a made-up pair of fits.
-    F, dn, dd, p = extra_ss_f_test(120.0, 20, 80.0, 18)
+    f_stat, dn, dd, p = extra_ss_f_test(120.0, 20, 80.0, 18)
     assert (dn, dd) == (2, 18)
-    assert F == pytest.approx((40.0 / 2) / (80.0 / 18))
-    assert p == pytest.approx(scipy.stats.f.sf(F, 2, 18))
+    assert f_stat == pytest.approx((40.0 / 2) / (80.0 / 18))
+    assert p == pytest.approx(scipy.stats.f.sf(f_stat, 2, 18))
     F2, _, _, p2 = extra_ss_f_test(80.0, 20, 90.0, 18)  # larger fits worse: not valid
     assert math.isnan(F2) and math.isnan(p2)
     with pytest.raises(ComparisonError, match="more free parameters"):
@@ -201,7 +201,7 @@ def test_compare_refuses_different_data_weights_and_bad_fits() -> None:
     with pytest.raises(ComparisonError, match="different data"):
         compare(a, b)
     c = cw.fit("hill", "conc", "rate", data=df, exclude=[0])
-    with pytest.raises(ComparisonError, match="11 points.*12"):
+    with pytest.raises(ComparisonError, match=r"11 points.*12"):
         compare(a, c)
     d = cw.fit("hill", "conc", "rate", data=df, weights="relative")
     with pytest.raises(ComparisonError, match="weighting 'relative'"):
