@@ -359,6 +359,30 @@ def test_nonlinear_bands_match_independent_delta_method() -> None:
     )
 
 
+def test_callable_model_and_json_round_trip_give_the_same_uncertainty() -> None:
+    # The finite-difference path (a Python function has no formula) against the symbolic one,
+    # and a result rebuilt from JSON against the original (profile refits need only the model
+    # and the data, both stored).
+    df = puromycin()
+    x, y = col(df, "conc"), col(df, "rate")
+    r = cw.fit("michaelis_menten", x, y)
+
+    def mm(x: np.ndarray, Vmax: float, Km: float) -> np.ndarray:
+        return Vmax * x / (Km + x)
+
+    rc = cw.fit(mm, x, y, start={"Vmax": 200.0, "Km": 0.1})
+    grid = np.geomspace(0.01, 2.0, 7)
+    np.testing.assert_allclose(
+        col(rc.confidence_band(grid), "upper"), col(r.confidence_band(grid), "upper"), rtol=1e-6
+    )
+    np.testing.assert_allclose(
+        col(profile_intervals(rc), "upper"), col(profile_intervals(r), "upper"), rtol=1e-6
+    )
+    back = cw.FitResult.from_json(r.to_json())
+    pd.testing.assert_frame_equal(back.profile_ci(), r.profile_ci())
+    pd.testing.assert_frame_equal(back.prediction_band(grid), r.prediction_band(grid))
+
+
 def test_band_errors() -> None:
     df = puromycin()
     r = cw.fit("michaelis_menten", "conc", "rate", data=df)
