@@ -3,6 +3,7 @@ formulas (Burnham and Anderson 2002), nesting detection, recommendations and ref
 
 from __future__ import annotations
 
+import json
 import math
 from pathlib import Path
 
@@ -160,6 +161,9 @@ def test_simpler_model_recommended_when_extra_term_is_not_needed() -> None:
     assert "keep the simpler model" in text
     assert "not for clinical or dosing decisions" in text
     assert "<table" in c._repr_html_()
+    d = json.loads(json.dumps(c.to_dict(), allow_nan=False))
+    assert d["preferred"] == "line" and d["table"][0]["fit"] == "line"
+    assert d["f_tests"][0]["p"] == pytest.approx(float(c.f_tests["p"].iloc[0]))
     # AICc alone (cars: the two are within 0.02 of each other) and a note that they disagree
     a = compare(line, quad, names=["line", "quadratic"], prefer="aicc")
     assert a.criterion == "AICc" and a.preferred == "quadratic"

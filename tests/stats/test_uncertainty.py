@@ -105,6 +105,28 @@ def test_parameter_table_matches_statsmodels_ols_for_a_line() -> None:
     assert list(table["status"]) == ["free", "free"]
 
 
+def test_absolute_sigma_uses_normal_quantiles_like_statsmodels_fixed_scale() -> None:
+    # statsmodels WLS with cov_type="fixed scale": sigma taken as exact, normal-based tests.
+    rng = np.random.default_rng(4)
+    x = np.linspace(1, 10, 15)
+    sigma = 0.2 + 0.1 * x
+    y = 1.0 + 2.0 * x + rng.normal(0, sigma)
+    ref = sm.WLS(y, sm.add_constant(x), weights=1 / sigma**2).fit(cov_type="fixed scale")
+    r = cw.fit("straight_line", x, y, sigma=sigma, absolute_sigma=True)
+    table = r.parameter_table()
+    ci = np.asarray(ref.conf_int(0.05))
+    np.testing.assert_allclose(col(table, "stderr"), ref.bse, rtol=1e-9)
+    np.testing.assert_allclose(col(table, "p"), ref.pvalues, rtol=1e-6)
+    np.testing.assert_allclose(col(table, "lower"), ci[:, 0], rtol=1e-9)
+    grid = np.array([2.0, 5.0])
+    frame = ref.get_prediction(sm.add_constant(grid)).summary_frame(alpha=0.05)
+    np.testing.assert_allclose(
+        col(r.confidence_band(grid), "upper"), frame["mean_ci_upper"], rtol=1e-9
+    )
+    with pytest.raises(FitError, match="absolute_sigma"):
+        r.profile_ci()
+
+
 def test_fixed_parameter_has_no_statistics() -> None:
     df = puromycin()
     r = cw.fit("michaelis_menten", "conc", "rate", data=df, fixed={"Vmax": 210.0})
@@ -448,6 +470,24 @@ def test_inverse_prediction_nonlinear_interval_ends_are_band_crossings() -> None
         # rising curve: the upper limit meets y0 at the lower end, the lower limit at the upper
         assert float(pb["upper"].iloc[0]) == pytest.approx(y0, rel=1e-8)
         assert float(pb["lower"].iloc[1]) == pytest.approx(y0, rel=1e-8)
+
+
+def test_inverse_prediction_on_a_falling_standard_curve() -> None:
+    # A competitive-assay standard curve (signal falls with concentration), synthetic; the
+    # definition is the reference: f(x) = y0, and the prediction band meets y0 at both ends.
+    rng = np.random.default_rng(30)
+    x = np.repeat(10.0 ** np.linspace(-2, 2, 9), 2)
+    y = 0.1 + (2.0 - 0.1) / (1 + (x / 1.5) ** 1.1) + rng.normal(0, 0.03, x.size)
+    r = cw.fit("inhibition_4pl", x, y)
+    out = r.inverse_predict([1.5, 0.6], replicates=2)
+    for _, row in out.iterrows():
+        y0 = float(row["y"])
+        assert float(r.predict(np.array([row["x"]]))[0]) == pytest.approx(y0, rel=1e-10)
+        assert float(row["lower"]) < float(row["x"]) < float(row["upper"])
+        pb = r.prediction_band(np.array([row["lower"], row["upper"]]), replicates=2)
+        # falling curve: the lower limit meets y0 at the lower end, the upper at the upper end
+        assert float(pb["lower"].iloc[0]) == pytest.approx(y0, rel=1e-8)
+        assert float(pb["upper"].iloc[1]) == pytest.approx(y0, rel=1e-8)
 
 
 def test_inverse_prediction_warns_outside_range_and_beyond_asymptote() -> None:

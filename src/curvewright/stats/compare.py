@@ -29,7 +29,7 @@ import itertools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -147,6 +147,34 @@ class Comparison:
     reasoning: tuple[str, ...]
     alpha: float
     results: tuple[FitResult, ...] = field(repr=False, default=())
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form (for the widget): rows as lists of dicts, NaN and infinities as None."""
+
+        def clean(v: Any) -> Any:
+            if isinstance(v, (bool, np.bool_)):
+                return bool(v)
+            if isinstance(v, (int, np.integer)):
+                return int(v)
+            if isinstance(v, (float, np.floating)):
+                return float(v) if math.isfinite(float(v)) else None
+            return v
+
+        table = [
+            {"fit": str(i), **{k: clean(v) for k, v in rec.items()}}
+            for i, rec in zip(self.table.index, self.table.to_dict("records"), strict=True)
+        ]
+        tests = [{k: clean(v) for k, v in rec.items()} for rec in self.f_tests.to_dict("records")]
+        return {
+            "table": table,
+            "f_tests": tests,
+            "preferred": self.preferred,
+            "criterion": self.criterion,
+            "recommendation": self.recommendation,
+            "reasoning": list(self.reasoning),
+            "alpha": self.alpha,
+            "caution": _CAUTION,
+        }
 
     def summary(self) -> str:
         """Plain-text report: the table, the F tests, the recommendation and its reasoning."""
