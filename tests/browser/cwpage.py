@@ -86,8 +86,15 @@ def centre(locator: Any) -> tuple[float, float]:
     return box["x"] + box["width"] / 2, box["y"] + box["height"] / 2
 
 
+def show_plot(root: Any) -> None:
+    """Scroll the main plot into view: mouse coordinates are the viewport's, and running a
+    cell below the widget scrolls the notebook away from it."""
+    root.locator(MAIN_SVG).first.scroll_into_view_if_needed()
+
+
 def drag(page: Any, handle: Any, dx: float, dy: float, steps: int = 12) -> None:
     """Drag ``handle`` by (dx, dy) pixels with the mouse."""
+    handle.scroll_into_view_if_needed()
     x, y = centre(handle)
     page.mouse.move(x, y)
     page.mouse.down()
@@ -206,3 +213,12 @@ def wait_until(condition: Callable[[], bool], message: str, timeout: float = 30.
         if time.monotonic() > deadline:
             raise AssertionError(f"{message} (waited {timeout:g} s)")
         time.sleep(0.1)
+
+
+def wait_root_attr(page: Any, root: Any, attr: str, value: str, timeout: float = 30_000) -> None:
+    """Wait until the root's ``attr`` (a data-cw-* attribute of the contract) is ``value``."""
+    page.wait_for_function(
+        "([el, attr, value]) => el.getAttribute(attr) === value",
+        arg=[root.element_handle(), attr, value],
+        timeout=timeout,
+    )

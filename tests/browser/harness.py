@@ -283,11 +283,11 @@ def cell_output(page: Any, i: int) -> str:
 
 FLUSH_JS = """async (el) => {
   const m = el._cwModel;
-  const want = (m.get('_ping') || 0) + 1;
+  const want = (m.get('sync_ping') || 0) + 1;
   await new Promise((res) => {
-    const h = () => { if (m.get('_pong') === want) { m.off('change:_pong', h); res(); } };
-    m.on('change:_pong', h);
-    m.set('_ping', want);
+    const h = () => { if (m.get('sync_pong') === want) { m.off('change:sync_pong', h); res(); } };
+    m.on('change:sync_pong', h);
+    m.set('sync_ping', want);
     m.save_changes();
   });
   return want;
@@ -295,7 +295,11 @@ FLUSH_JS = """async (el) => {
 
 
 def flush(root: Any) -> None:
-    """One ping/pong round trip: every earlier front-end update has reached Python after it."""
+    """One ping/pong round trip: every earlier front-end update has reached Python after it.
+
+    Uses the widget's test hook (``root._cwModel``) and its ``sync_ping``/``sync_pong`` traits
+    (the contract at the top of js/widget.ts).
+    """
     root.evaluate(FLUSH_JS)
 
 

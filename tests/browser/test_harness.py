@@ -37,11 +37,11 @@ class Probe(anywidget.AnyWidget):
     } };
     """
     count = traitlets.Int(0).tag(sync=True)
-    _ping = traitlets.Int(0).tag(sync=True)
-    _pong = traitlets.Int(0).tag(sync=True)
-    @traitlets.observe("_ping")
+    sync_ping = traitlets.Int(0).tag(sync=True)
+    sync_pong = traitlets.Int(0).tag(sync=True)
+    @traitlets.observe("sync_ping")
     def _echo(self, change):
-        self._pong = change["new"]
+        self.sync_pong = change["new"]
 probe = Probe()
 probe
 '''

@@ -9,6 +9,7 @@ reference). Waits are on conditions only; timings are never asserted.
 
 from __future__ import annotations
 
+import json
 import math
 import re
 from collections.abc import Callable
@@ -71,6 +72,13 @@ def _value(state: dict[str, Any], name: str) -> float:
     return float(state["settings"][name]["value"])
 
 
+def _state(page: Any, root: Any) -> dict[str, Any]:
+    """Flush the page's pending updates to Python, then print the kernel's view of the widget."""
+    harness.flush(root)
+    state: dict[str, Any] = cwpage.kernel_json(page, CELL_STATE, "STATE")
+    return state
+
+
 def _open_flow(page: Any, server: harness.Server, notebook: Callable[..., str]) -> Any:
     name = notebook(cells=[SETUP, STATE, SET_FROM_PYTHON])
     harness.open_notebook(page, server, name)
@@ -103,7 +111,7 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
 ) -> None:
     root = _open_flow(page, server, notebook)
-    s0 = cwpage.kernel_json(page, CELL_STATE, "STATE")
+    s0 = _state(page, root)
     assert s0["result"] is None and s0["excluded"] == []
 
     # --- drag the midpoint handle to the right: the curve follows, logEC50 grows.
@@ -111,15 +119,12 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     d0, v0 = cwpage.curve_d(root), mid.get_attribute("aria-valuenow")
     cwpage.drag(page, mid, 60, 0)
     cwpage.wait_attr_change(page, mid, "aria-valuenow", v0)
-    page.wait_for_function(
-        "([el, d0]) => el.querySelector('path.cw-curve').getAttribute('d') !== d0",
-        arg=[root.element_handle(), d0],
-    )
-    s1 = cwpage.kernel_json_until(
-        page, CELL_STATE, "STATE", lambda s: _value(s, "logEC50") != _value(s0, "logEC50")
-    )
-    # On a log x axis a drag to the right moves the midpoint to a higher concentration.
+    assert cwpage.curve_d(root) != d0
+    s1 = _state(page, root)
+    # On a log x axis a drag to the right moves the midpoint to a higher concentration; the
+    # handle's aria-valuenow is its first moved parameter, the value Python now holds.
     assert _value(s1, "logEC50") > _value(s0, "logEC50") + 0.05
+    assert cwpage.value_now(mid) == pytest.approx(_value(s1, "logEC50"), rel=1e-6)
     # The drag moves only what the handle declares: the plateaus stay where they were.
     assert _value(s1, "top") == _value(s0, "top")
     assert _value(s1, "bottom") == _value(s0, "bottom")
@@ -132,11 +137,12 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     page.keyboard.press("ArrowUp")
     cwpage.wait_attr_change(page, top, "aria-valuenow", v1)
     assert cwpage.curve_d(root) != d1
-    s2 = cwpage.kernel_json_until(
-        page, CELL_STATE, "STATE", lambda s: _value(s, "top") != _value(s1, "top")
-    )
+    # A nudge is committed once the keys are still (data-cw-dragging empties then).
+    cwpage.wait_root_attr(page, root, "data-cw-dragging", "")
+    s2 = _state(page, root)
     assert _value(s2, "top") > _value(s1, "top")
     assert _value(s2, "logEC50") == _value(s1, "logEC50")
+    assert cwpage.value_now(top) == pytest.approx(_value(s2, "top"), rel=1e-6)
 
     # --- type bottom's known value (common practice: a blank-corrected baseline) and fix it.
     bottom_in = root.get_by_role("textbox", name="bottom", exact=True)
@@ -145,36 +151,37 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     fixed = root.get_by_role("checkbox", name=re.compile(r"\bbottom\b"))
     fixed.check()
     assert fixed.is_checked()
-    s3 = cwpage.kernel_json_until(
-        page,
-        CELL_STATE,
-        "STATE",
-        lambda s: s["settings"]["bottom"]["fixed"] and _value(s, "bottom") == 4.0,
-    )
-    assert s3["settings"]["bottom"] == {**s3["settings"]["bottom"], "value": 4.0, "fixed": True}
+    s3 = _state(page, root)
+    assert s3["settings"]["bottom"]["value"] == 4.0
+    assert s3["settings"]["bottom"]["fixed"] is True
+    assert not any(s3["settings"][n]["fixed"] for n in ("top", "logEC50", "hill"))
 
-    # --- click the outlier: it is excluded.
+    # --- click the outlier: it is excluded. Its place is worked out from the axes' ticks and
+    # checked against the widget's own hook, so a wrong click is caught on either side.
+    cwpage.show_plot(root)
     ax = cwpage.axes(root)
     assert ax.x.log, "x spans 5.5 decades, so the widget should open with a log x axis"
     ox, oy = s3["data"]["x"][OUTLIER], s3["data"]["y"][OUTLIER]
     assert ax.inside(ox, oy), "the outlier is outside the plot's view"
     px, py = ax.to_page(ox, oy)
+    hook = root.evaluate("(el, row) => el._cwPointXY(row)", OUTLIER)
+    assert hook is not None
+    assert math.hypot(hook["x"] - px, hook["y"] - py) < 2.0, (hook, px, py)
     for h in cwpage.handles(root).all():  # a click on a handle would not reach the point
         hx, hy = cwpage.centre(h)
         assert math.hypot(hx - px, hy - py) > 16, "a handle covers the outlier"
     page.mouse.click(px, py)
-    s4 = cwpage.kernel_json_until(page, CELL_STATE, "STATE", lambda s: s["excluded"] != [])
+    cwpage.wait_root_attr(page, root, "data-cw-excluded", f"[{OUTLIER}]")
+    s4 = _state(page, root)
     assert s4["excluded"] == [OUTLIER]
 
     # --- Fit: the fitted curve appears and widget.result holds the fit.
-    fit = root.get_by_role("button", name=re.compile(r"\bFit\b"))
-    fit.first.click()
-    page.wait_for_function(
-        "(el) => (el.querySelector('path.cw-curve-fit')?.getAttribute('d') ?? '').length > 10",
-        arg=root.element_handle(),
-        timeout=120_000,
-    )
-    s5 = cwpage.kernel_json_until(page, CELL_STATE, "STATE", lambda s: s["result"] is not None)
+    fit = root.get_by_role("button", name=re.compile("Fit"))
+    assert fit.count() == 1
+    fit.click()
+    cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
+    assert len(cwpage.fit_d(root)) > 10, "no fitted curve drawn"
+    s5 = _state(page, root)
     res = s5["result"]
     assert res is not None, "widget.result is still None after pressing Fit"
     assert res["success"] is True
@@ -188,6 +195,9 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     assert res["values"]["logEC50"] == pytest.approx(TRUTH["logEC50"], abs=0.1)
     assert res["values"]["top"] == pytest.approx(TRUTH["top"], abs=3.5)
     assert res["values"]["hill"] == pytest.approx(TRUTH["hill"], abs=0.2)
+    # The page shows the same fit Python holds.
+    shown = json.loads(root.get_attribute("data-cw-fitted"))
+    assert shown == pytest.approx(res["values"], rel=1e-9)
 
     harness.ARTIFACTS.mkdir(exist_ok=True)
     root.screenshot(path=str(harness.ARTIFACTS / f"fitted-{server.app}.png"))
@@ -196,17 +206,16 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     top_in = root.get_by_role("textbox", name="top", exact=True)
     d5 = cwpage.curve_d(root)
     harness.run_cell(page, CELL_SET)
-    page.wait_for_function(
-        "(el) => Number(el.value) === 80", arg=top_in.element_handle(), timeout=30_000
-    )
+    page.wait_for_function("(el) => Number(el.value) === 80", arg=top_in.element_handle())
     page.wait_for_function(
         "([el, d]) => el.querySelector('path.cw-curve').getAttribute('d') !== d",
         arg=[root.element_handle(), d5],
     )
+    assert cwpage.value_now(top) == pytest.approx(80.0)
+    assert root.get_by_role("combobox", name="x axis scale").input_value() == "linear"
     cwpage.wait_until(
         lambda: not cwpage.axes(root).x.log,
         "x_scale = 'linear' was set in Python, but the page's x axis stayed logarithmic",
     )
-    assert cwpage.value_now(top) == pytest.approx(80.0)
     root.screenshot(path=str(harness.ARTIFACTS / f"set-from-python-{server.app}.png"))
     assert harness.real_page_errors(page.cw_errors) == []
