@@ -448,7 +448,8 @@ class CurveFitter(anywidget.AnyWidget):
         An exception in the callback is shown in the widget's error area.
         """
         if remove:
-            self._callbacks = [c for c in self._callbacks if c is not callback]
+            # == rather than is: bound methods are new objects on every attribute access.
+            self._callbacks = [c for c in self._callbacks if c != callback]
         elif callback not in self._callbacks:
             self._callbacks.append(callback)
 
