@@ -1,0 +1,274 @@
+// The widget's interaction logic (interact.ts), curve sampling and paths (curve.ts) and tick
+// labels: drags and pins checked against closed-form facts of the models, the throttle on a
+// fake clock, labels against the accessibility contract in widget.ts.
+import { describe, expect, it } from "vitest";
+import { pathFromPixels, sampleAxis } from "../curve";
+import type { ExprNode } from "../expr";
+import { evalCurve } from "../expr";
+import {
+  type Clock,
+  MAX_PINS,
+  dataRange,
+  dragNote,
+  freeParams,
+  handleAriaLabel,
+  handleViews,
+  pinViews,
+  pinsOnCurve,
+  placePins,
+  solveDrag,
+  solveOptions,
+  throttle,
+  usesPins,
+  withValues,
+} from "../interact";
+import type { ModelJson, ParamSetting } from "../state";
+import { tickLabel } from "../validate";
+
+const num = (value: number): ExprNode => ({ type: "num", value });
+const name = (id: string): ExprNode => ({ type: "name", id });
+const bin = (op: "+" | "-" | "*" | "/" | "**", left: ExprNode, right: ExprNode): ExprNode => ({
+  type: "bin",
+  op,
+  left,
+  right,
+});
+
+// Inhibition 4PL with the midpoint in log10 units (common practice):
+// bottom + (top - bottom) / (1 + (x / 10**logIC50)**hill); at x = IC50 the response is halfway.
+const ic50 = bin("**", num(10), name("logIC50"));
+const fourPL = bin(
+  "+",
+  name("bottom"),
+  bin("/", bin("-", name("top"), name("bottom")), bin("+", num(1), bin("**", bin("/", name("x"), ic50), name("hill")))),
+);
+const param = (n: string, value: number, extra: Partial<ModelJson["params"][number]> = {}) => ({
+  name: n,
+  value,
+  lower: null,
+  upper: null,
+  log_scale: false,
+  positive: false,
+  unit: "",
+  description: "",
+  ...extra,
+});
+const dose: ModelJson = {
+  name: "inhibition_4pl",
+  formula: null,
+  tree: fourPL,
+  domain: "x>=0",
+  has_preview: true,
+  params: [param("bottom", 5), param("top", 95), param("logIC50", -6), param("hill", 1, { lower: 0, positive: true, log_scale: true })],
+  handles: [
+    { name: "midpoint", label: "IC50", x: ic50, y: bin("/", bin("+", name("top"), name("bottom")), num(2)), moves: ["logIC50"] },
+    { name: "top_plateau", label: "top plateau", x: num(1e-9), y: name("top"), moves: ["top"] },
+  ],
+};
+const settings = (over: Record<string, Partial<ParamSetting>> = {}): Record<string, ParamSetting> => {
+  const out: Record<string, ParamSetting> = {};
+  for (const p of dose.params) out[p.name] = { value: p.value, lower: p.lower, upper: p.upper, fixed: false, ...over[p.name] };
+  return out;
+};
+const values = { bottom: 5, top: 95, logIC50: -6, hill: 1 };
+
+// A quadratic without declared handles: dragged through generic pins.
+const quad: ModelJson = {
+  name: "polynomial_2",
+  formula: null,
+  tree: bin("+", name("c0"), bin("+", bin("*", name("c1"), name("x")), bin("*", name("c2"), bin("**", name("x"), num(2))))),
+  domain: "all",
+  has_preview: true,
+  params: [param("c0", 0), param("c1", 0), param("c2", 0)],
+  handles: [],
+};
+
+describe("handles and their accessible names", () => {
+  it("names the feature and what it moves, fixed ones said so", () => {
+    expect(handleAriaLabel("IC50", ["logIC50"], new Set())).toBe("IC50: moves logIC50");
+    expect(handleAriaLabel("corner", ["a", "b"], new Set(["b"]))).toBe("corner: moves a (b fixed)");
+    expect(handleAriaLabel("top", ["top"], new Set(["top"]))).toBe("top: moves nothing (top fixed)");
+  });
+
+  it("places a handle where its trees say and reports the moved parameter as its value", () => {
+    const views = handleViews(dose, values, new Set());
+    const mid = views.find((v) => v.key === "midpoint")!;
+    expect(mid.pos.x).toBeCloseTo(1e-6, 18);
+    expect(mid.pos.y).toBe(50);
+    expect(mid.valueNow).toBe(-6);
+    expect(mid.valueText).toBe("logIC50 = -6");
+    expect(mid.pin).toBe(false);
+  });
+
+  it("knows which models use pins and which parameters are free", () => {
+    expect(usesPins(dose)).toBe(false);
+    expect(usesPins(quad)).toBe(true);
+    expect(usesPins({ ...quad, tree: null })).toBe(false); // a callable: no preview in the page
+    expect(freeParams(dose, settings({ top: { fixed: true } }))).toEqual(["bottom", "logIC50", "hill"]);
+  });
+});
+
+describe("dragging", () => {
+  const span = { x: 6, y: 100 };
+
+  it("moves the midpoint to the dropped concentration: IC50 follows (half-way point of a 4PL)", () => {
+    const opts = solveOptions(dose, settings(), true, false, span);
+    const res = solveDrag(dose, "midpoint", values, { x: 3e-7, y: 50 }, [], opts)!;
+    expect(res.reached).toBe(true);
+    expect(10 ** res.params["logIC50"]!).toBeCloseTo(3e-7, 12);
+    // The curve at the new IC50 is half-way between the plateaus (closed form).
+    // solveOptions stops at a screen-normalised distance of 1e-9, here 1e-7 in y (span 100).
+    const y = evalCurve(fourPL, res.params, [3e-7])[0]!;
+    expect(Math.abs(y - 50)).toBeLessThan(1e-6);
+    expect(res.params["top"]).toBe(95); // only what the handle moves changes
+  });
+
+  it("leaves a fixed parameter alone and says so", () => {
+    const opts = solveOptions(dose, settings({ logIC50: { fixed: true } }), true, false, span);
+    const res = solveDrag(dose, "midpoint", values, { x: 3e-7, y: 50 }, [], opts)!;
+    expect(res.params["logIC50"]).toBe(-6);
+    expect(dragNote(res)).toMatch(/fixed/);
+  });
+
+  it("stops at a bound and names it", () => {
+    const opts = solveOptions(dose, settings({ top: { upper: 100 } }), true, false, span);
+    const res = solveDrag(dose, "top_plateau", values, { x: 1e-9, y: 130 }, [], opts)!;
+    expect(res.params["top"]).toBe(100);
+    expect(dragNote(res)).toBe("stopped at a bound of top");
+  });
+
+  it("solves pins: the quadratic through three points (Lagrange interpolation)", () => {
+    const pins = placePins(quad.tree, { c0: 0, c1: 0, c2: 0 }, 3, [0, 3], false);
+    expect(pins.map((p) => p.x)).toEqual([0.5, 1.5, 2.5]);
+    const opts = solveOptions(quad, { c0: { value: 0, lower: null, upper: null, fixed: false }, c1: { value: 0, lower: null, upper: null, fixed: false }, c2: { value: 0, lower: null, upper: null, fixed: false } }, false, false, { x: 3, y: 10 });
+    // Drag the middle pin to y = 2 with the others at 0: the unique parabola through
+    // (0.5, 0), (1.5, 2), (2.5, 0) is 2 - 2 (x - 1.5)^2 = -2.5 + 6x - 2x^2.
+    const res = solveDrag(quad, "pin:1", { c0: 0, c1: 0, c2: 0 }, { x: 1.5, y: 2 }, pins, opts)!;
+    // Solver tolerance 1e-9 of the y span (10): coefficients agree to about 1e-7.
+    expect(res.params["c0"]).toBeCloseTo(-2.5, 6);
+    expect(res.params["c1"]).toBeCloseTo(6, 6);
+    expect(res.params["c2"]).toBeCloseTo(-2, 6);
+  });
+
+  it("returns null for a key it does not know", () => {
+    const opts = solveOptions(dose, settings(), true, false, span);
+    expect(solveDrag(dose, "nope", values, { x: 1, y: 1 }, [], opts)).toBeNull();
+    expect(solveDrag(quad, "pin:7", values, { x: 1, y: 1 }, [], opts)).toBeNull();
+  });
+});
+
+describe("pins", () => {
+  it("spreads one pin per free parameter evenly in decades on a log axis, capped", () => {
+    const pins = placePins(fourPL, values, 4, [1e-9, 1e-5], true);
+    expect(pins.map((p) => Math.log10(p.x))).toEqual(
+      [-8.5, -7.5, -6.5, -5.5].map((v) => expect.closeTo(v, 12) as unknown as number),
+    );
+    expect(placePins(fourPL, values, 9, [1e-9, 1e-5], true)).toHaveLength(MAX_PINS);
+    // Each pin sits on the curve.
+    for (const p of pins) expect(p.y).toBe(evalCurve(fourPL, values, [p.x])[0]);
+  });
+
+  it("moves pins onto a new curve vertically and labels them", () => {
+    const moved = pinsOnCurve(quad.tree, { c0: 1, c1: 0, c2: 0 }, [{ x: 2, y: 9 }]);
+    expect(moved).toEqual([{ x: 2, y: 1 }]);
+    const [v] = pinViews(moved, ["c0", "c1"]);
+    expect(v!.key).toBe("pin:0");
+    expect(v!.ariaLabel).toBe("curve point 1 of 1: moves c0, c1");
+    expect(v!.valueNow).toBe(1);
+  });
+
+  it("finds the data range, positive values only on a log axis", () => {
+    expect(dataRange([0, 3, -1, NaN, 7], false)).toEqual([-1, 7]);
+    expect(dataRange([0, 3, -1, NaN, 7], true)).toEqual([3, 7]);
+    expect(dataRange([0, -1], true)).toBeNull();
+  });
+});
+
+describe("withValues", () => {
+  it("replaces values inside the bounds, keeps fixed ones and the bounds", () => {
+    const s = settings({ hill: { upper: 4 }, top: { fixed: true } });
+    const out = withValues(s, { hill: 9, top: 10, bottom: -2, logIC50: NaN });
+    expect(out["hill"]).toEqual({ value: 4, lower: 0, upper: 4, fixed: false });
+    expect(out["top"]!.value).toBe(95);
+    expect(out["bottom"]!.value).toBe(-2);
+    expect(out["logIC50"]!.value).toBe(-6);
+    expect(s["hill"]!.value).toBe(1); // the input is not changed
+  });
+});
+
+describe("throttle", () => {
+  function fakeClock(): Clock & { t: number; advance(ms: number): void } {
+    const timers: { at: number; fn: () => void; id: number }[] = [];
+    let next = 1;
+    const c = {
+      t: 0,
+      now: () => c.t,
+      setTimeout: (fn: () => void, ms: number) => {
+        const id = next++;
+        timers.push({ at: c.t + ms, fn, id });
+        return id;
+      },
+      clearTimeout: (id: unknown) => {
+        const i = timers.findIndex((x) => x.id === id);
+        if (i >= 0) timers.splice(i, 1);
+      },
+      advance(ms: number) {
+        c.t += ms;
+        for (;;) {
+          timers.sort((a, b) => a.at - b.at);
+          const first = timers[0];
+          if (!first || first.at > c.t) break;
+          timers.shift();
+          first.fn();
+        }
+      },
+    };
+    return c;
+  }
+
+  it("sends the first call at once, merges the rest and always sends the last", () => {
+    const clock = fakeClock();
+    const got: number[] = [];
+    const t = throttle((v: number) => got.push(v), 100, clock);
+    t.call(1);
+    t.call(2);
+    t.call(3);
+    expect(got).toEqual([1]);
+    clock.advance(99);
+    expect(got).toEqual([1]);
+    clock.advance(1);
+    expect(got).toEqual([1, 3]);
+    clock.advance(500);
+    t.call(4);
+    expect(got).toEqual([1, 3, 4]);
+    t.call(5);
+    t.cancel();
+    clock.advance(1000);
+    expect(got).toEqual([1, 3, 4]);
+  });
+});
+
+describe("curve sampling and paths", () => {
+  it("samples evenly in decades on a log axis, including both ends", () => {
+    const xs = sampleAxis(1e-9, 1e-3, true, 7);
+    expect(Array.from(xs, (v) => Math.log10(v))).toEqual([-9, -8, -7, -6, -5, -4, -3].map((v) => expect.closeTo(v, 12) as unknown as number));
+    expect(Array.from(sampleAxis(0, 1, false, 5))).toEqual([0, 0.25, 0.5, 0.75, 1]);
+  });
+
+  it("breaks the path where the curve is undefined and clamps far values", () => {
+    expect(pathFromPixels([0, 1, 2, 3, 4], [0, 1, NaN, 3, 1e9])).toBe("M0.00,0.00L1.00,1.00M3.00,3.00L4.00,100000.00");
+    expect(pathFromPixels([], [])).toBe("");
+  });
+});
+
+describe("tick labels", () => {
+  it("uses plain decimals in the middle range and exponents outside, never SI prefixes", () => {
+    expect(tickLabel(100)).toBe("100");
+    expect(tickLabel(0.1 + 0.2)).toBe("0.3");
+    expect(tickLabel(1e-9)).toBe("1e-9");
+    expect(tickLabel(2.5e6)).toBe("2.5e+6");
+    expect(tickLabel(-0.001)).toBe("-0.001");
+    expect(tickLabel(0)).toBe("0");
+    expect(tickLabel(NaN)).toBe("");
+  });
+});
