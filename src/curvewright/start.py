@@ -1027,6 +1027,9 @@ def grid_power(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[
 
 
 # ============================================================================ generic multi-start
+_MAX_ROUNDS = 4  # rounds of fresh starts when the best minimum is found only once
+
+
 @dataclass(frozen=True)
 class _Range:
     kind: str  # "log": magnitude 10**U(lo, hi) with a sign; "lin": U(lo, hi)
@@ -1333,21 +1336,35 @@ def _generic(
     prob = _Problem.make(model, x, y, held, linear)
     d = len(prob.nonlinear)
     n = n_starts if n_starts is not None else 12 + 8 * d
-    starts = [base0] + [
-        _clip_into_bounds(model, {**base0, **s}) for s in _sample(ranges, prob.nonlinear, n, seed)
-    ]
     nfev = 25 * (d + 1)
-    results = []
-    for s in starts:
-        r = prob.search(s, nfev) if prob.nonlinear else prob.project(s)
-        results.append((prob.ssr(r), r))
-    results.sort(key=lambda t: t[0])
-    best_ssr, best = math.inf, base0
-    for _, r in results[:3]:
-        pol = _polish(model, x, y, r, held, 200 * (len(free) + 1))
-        ssr = probe.ssr(pol)
-        if ssr < best_ssr:
-            best_ssr, best = ssr, pol
+    results: list[tuple[float, dict[str, float]]] = []
+    polished: list[tuple[float, dict[str, float]]] = []
+    done: set[int] = set()
+    exact = 1e-24 * (float(np.dot(y, y)) + 1e-300)
+    for rnd in range(_MAX_ROUNDS):
+        # round 0 also tries the model's own defaults; later rounds draw fresh hypercubes
+        starts = [base0] if rnd == 0 else []
+        starts += [
+            _clip_into_bounds(model, {**base0, **s})
+            for s in _sample(ranges, prob.nonlinear, n, seed + 1009 * rnd)
+        ]
+        for s in starts:
+            r = prob.search(s, nfev) if prob.nonlinear else prob.project(s)
+            results.append((prob.ssr(r), r))
+        order = sorted(range(len(results)), key=lambda i: results[i][0])
+        for i in [i for i in order if i not in done][:3]:
+            done.add(i)
+            pol = _polish(model, x, y, results[i][1], held, 200 * (len(free) + 1))
+            polished.append((probe.ssr(pol), pol))
+        polished.sort(key=lambda t: t[0])
+        best_ssr = polished[0][0]
+        # Confidence: the best minimum was found from more than one start, or fits exactly.
+        # Otherwise the landscape is rugged (periodic or multi-peak models) and another round
+        # of starts is cheap insurance.
+        agree = sum(1 for sr, _ in polished if sr <= best_ssr * (1 + 1e-6) + exact)
+        if agree >= 2 or best_ssr <= exact or not prob.nonlinear:
+            break
+    best = polished[0][1] if polished else base0
     return _clip_into_bounds(model, {**best, **held})
 
 
