@@ -260,7 +260,8 @@ def _qr_core(design: LongArray, y: LongArray, sw: LongArray | None, tol: float) 
     resolution = float(np.finfo(np.longdouble).eps)
 
     def gradient(zz: LongArray) -> LongArray:
-        return a_keep.T @ (b - a_keep @ zz)
+        g: LongArray = a_keep.T @ (b - a_keep @ zz)
+        return g
 
     grad = gradient(z)
     grad_norm = float(np.max(np.abs(grad), initial=0.0))
