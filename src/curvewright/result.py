@@ -489,7 +489,9 @@ class FitResult:
         The standard error of ``g(p)`` is ``sqrt(grad' C grad)`` with ``grad`` the gradient of
         ``g`` with respect to the free parameters (symbolic, through any links) and ``C`` the
         covariance (common practice: the first-order delta method). Intervals are
-        ``value ± q * stderr`` as in :meth:`ci`.
+        ``value ± q * stderr`` as in :meth:`ci`, except for a quantity that is ``10**p`` or
+        ``exp(p)`` of one free parameter (an EC50 from its log), whose interval is the
+        parameter's interval transformed (asymmetric, always positive).
 
         Parameters
         ----------
@@ -517,12 +519,21 @@ class FitResult:
         inside: bool | None = None
         if d.axis == "x":
             inside = bool(_in_range(value, self.x))
+        lower, upper = value - q * se, value + q * se
+        base_param = _power_of(d)
+        if base_param is not None and base_param[1] in self.free:
+            # EC50 = 10**logEC50 (or exp): the interval is the parameter's interval carried
+            # through the transform (common practice), asymmetric and never negative, where
+            # the symmetric delta-method interval could cross zero.
+            base, name = base_param
+            v, s = self.values[name], self.stderr[name]
+            lower, upper = base ** (v - q * s), base ** (v + q * s)
         return {
             "name": d.name,
             "value": value,
             "stderr": se,
-            "lower": value - q * se,
-            "upper": value + q * se,
+            "lower": lower,
+            "upper": upper,
             "unit": d.unit,
             "axis": d.axis,
             "in_data_range": inside,
@@ -664,6 +675,15 @@ class FitResult:
         from .stats.uncertainty import inverse_predict
 
         return inverse_predict(self, y, level, replicates=replicates, sigma=sigma)
+
+    def residual_diagnostics(self, alpha: float = 0.05) -> Any:
+        """Residual plots' data, normality, runs and lack-of-fit tests, outliers, influence.
+
+        See :func:`curvewright.stats.diagnostics.residual_diagnostics`.
+        """
+        from .stats.diagnostics import residual_diagnostics
+
+        return residual_diagnostics(self, alpha)
 
     # --------------------------------------------------------------------- text
     def summary(self) -> str:
@@ -1011,6 +1031,24 @@ def _restore_model(mdict: Mapping[str, Any], given: Model | Callable[..., Any] |
             f"fitted with {stored}; pass the same function."
         )
     return m
+
+
+def _power_of(d: Derived) -> tuple[float, str] | None:
+    """``(base, parameter)`` when ``d`` is ``10**p`` or ``exp(p)`` of one parameter, else None."""
+    t = d.expr.to_json()
+    if t.get("type") == "call" and t.get("fn") == "exp":
+        arg = t["args"][0]
+        if arg.get("type") == "name":
+            return math.e, str(arg["id"])
+    if t.get("type") == "bin" and t.get("op") == "**":
+        left, right = t["left"], t["right"]
+        if right.get("type") == "name" and left.get("type") in ("num", "const"):
+            base = float(left["value"]) if left["type"] == "num" else math.e
+            if left["type"] == "const" and left.get("id") != "e":
+                return None
+            if base > 0:
+                return base, str(right["id"])
+    return None
 
 
 def _bounds_of(ci: pd.DataFrame) -> tuple[dict[str, float], dict[str, float]]:

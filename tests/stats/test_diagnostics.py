@@ -15,6 +15,7 @@ import statsmodels.formula.api as smf
 from statsmodels.sandbox.stats.runs import runstest_1samp
 from statsmodels.stats.anova import anova_lm
 
+import curvewright as cw
 from curvewright.errors import DataError
 from curvewright.stats.diagnostics import (
     cooks_distance,
@@ -23,6 +24,7 @@ from curvewright.stats.diagnostics import (
     leverage,
     normality_test,
     outlier_flags,
+    residual_diagnostics,
     runs_pmf,
     runs_test,
     studentized_residuals,
@@ -251,3 +253,40 @@ def test_bad_input_raises_our_errors() -> None:
         leverage(np.arange(3.0))
     with pytest.raises(DataError, match="dof must be at least 1"):
         studentized_residuals(np.ones(3), np.zeros(3), 0)
+
+
+# --------------------------------------------------------------------- on a FitResult
+def test_residual_diagnostics_of_weighted_fit_match_statsmodels_wls() -> None:
+    # A weighted straight line fitted by curvewright.fit (FitResult.weights holds 1/sigma);
+    # reference: statsmodels OLSInfluence of the whitened problem, as in the array-level test.
+    df = cars()
+    x = df["speed"].to_numpy(float)
+    y = df["dist"].to_numpy(float)
+    sigma = np.sqrt(x)
+    r = cw.fit("straight_line", x, y, sigma=sigma)
+    d = residual_diagnostics(r)
+    sw = 1.0 / sigma
+    X = sm.add_constant(x)
+    infl = sm.OLS(sw * y, X * sw[:, None]).fit().get_influence()
+    np.testing.assert_allclose(d.points["leverage"], infl.hat_matrix_diag, rtol=1e-8)
+    np.testing.assert_allclose(d.points["studentized"], infl.resid_studentized_internal, rtol=1e-8)
+    np.testing.assert_allclose(d.points["cooks_distance"], infl.cooks_distance[0], rtol=1e-8)
+    assert d.linear
+
+
+def test_residual_diagnostics_of_a_nonlinear_fit_lack_of_fit() -> None:
+    # DNase run 1 with the 3-parameter logistic (duplicates at 8 concentrations): the lack-of-fit
+    # F test from the FitResult equals the classical one computed here with statsmodels' cell
+    # means (pure error) and scipy's F distribution.
+    d = dnase_run1()
+    r = cw.fit("stimulation_3pl", d["conc"], d["density"])
+    diag = r.residual_diagnostics()
+    cell_means = smf.ols("density ~ C(conc)", data=d).fit()
+    ss_pe, df_pe = cell_means.ssr, int(cell_means.df_resid)
+    df_lof = r.dof - df_pe
+    f_ref = ((r.ssr - ss_pe) / df_lof) / (ss_pe / df_pe)
+    assert diag.lack_of_fit.F == pytest.approx(f_ref, rel=1e-9)
+    p_ref = scipy.stats.f.sf(f_ref, df_lof, df_pe)
+    assert diag.lack_of_fit.p_value == pytest.approx(p_ref, rel=1e-8)
+    assert not diag.linear
+    assert diag.points["row"].tolist() == list(range(len(d)))

@@ -701,9 +701,12 @@ def residual_diagnostics(result: FitResult, alpha: float = 0.05) -> Diagnostics:
 
 
 def _result_weights(result: FitResult) -> FloatArray | None:
-    """The weights ``1/sigma**2`` of a fit, or None when it was unweighted."""
-    w = getattr(result, "weights", None)
-    if w is not None:
-        return np.asarray(w, dtype=float)
-    sigma = result.dataset.sigma_used
-    return None if sigma is None else 1.0 / np.asarray(sigma, dtype=float) ** 2
+    """The weights ``1/sigma**2`` of a fit, or None when it was unweighted.
+
+    ``FitResult.weights`` holds ``1/sigma`` per point (whatever the weighting: given sigma,
+    relative or Poisson), so it is squared here.
+    """
+    w = result.weights
+    if w is None:
+        return None
+    return np.asarray(w, dtype=float) ** 2
