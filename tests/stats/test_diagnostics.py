@@ -285,7 +285,7 @@ def test_residual_diagnostics_of_a_nonlinear_fit_lack_of_fit() -> None:
     ss_pe, df_pe = cell_means.ssr, int(cell_means.df_resid)
     df_lof = r.dof - df_pe
     f_ref = ((r.ssr - ss_pe) / df_lof) / (ss_pe / df_pe)
-    assert diag.lack_of_fit.F == pytest.approx(f_ref, rel=1e-9)
+    assert pytest.approx(f_ref, rel=1e-9) == diag.lack_of_fit.F
     p_ref = scipy.stats.f.sf(f_ref, df_lof, df_pe)
     assert diag.lack_of_fit.p_value == pytest.approx(p_ref, rel=1e-8)
     assert not diag.linear
