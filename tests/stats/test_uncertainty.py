@@ -17,11 +17,14 @@ import statsmodels.api as sm  # type: ignore[import-untyped]  # statsmodels ship
 import curvewright as cw
 from curvewright.errors import DataError, ExtrapolationWarning, FitError, ParameterError
 from curvewright.stats.uncertainty import (
+    band,
     correlation,
     derived_quantity,
     derived_table,
+    model_gradient,
     parameter_table,
     profile_intervals,
+    wald_intervals,
 )
 from nist_nonlinear import FORMULAS, read
 
@@ -188,6 +191,46 @@ def test_profile_intervals_match_lmfit_three_parameters() -> None:
     for n in ("top", "logEC50", "hill"):
         assert at(prof, n, "lower") == pytest.approx(ref[n][0], rel=2e-4), n
         assert at(prof, n, "upper") == pytest.approx(ref[n][1], rel=2e-4), n
+
+
+def test_profile_intervals_match_lmfit_on_nist_misra1a() -> None:
+    # NIST StRD Misra1a (y = b1*(1 - exp(-b2*x))), lmfit.conf_interval as the reference.
+    p = read("Misra1a")
+    x, y = p.x, p.y
+    params = lmfit.Parameters()
+    params.add("b1", p.start2[0])
+    params.add("b2", p.start2[1])
+
+    def resid(q: lmfit.Parameters) -> np.ndarray:
+        return y - q["b1"] * (1 - np.exp(-q["b2"] * x))
+
+    ref = lmfit_interval(resid, params)
+    model = cw.Model.from_formula(FORMULAS["Misra1a"], params=list(p.names))
+    r = cw.fit(model, x, y, start=dict(zip(p.names, p.start2, strict=True)))
+    prof = r.profile_ci()
+    for n in ("b1", "b2"):
+        assert at(prof, n, "lower") == pytest.approx(ref[n][0], rel=1e-4), n
+        assert at(prof, n, "upper") == pytest.approx(ref[n][1], rel=1e-4), n
+
+
+def test_plain_band_and_wald_functions_agree_with_the_result_layer() -> None:
+    df = puromycin()
+    r = cw.fit("michaelis_menten", "conc", "rate", data=df)
+    grid = np.array([0.05, 0.5])
+    G = model_gradient(r, grid)
+    lo, hi = band(r.predict(grid), G, r.covariance, r.dof)
+    cb = r.confidence_band(grid)
+    np.testing.assert_allclose(lo, col(cb, "lower"), rtol=1e-12)
+    np.testing.assert_allclose(hi, col(cb, "upper"), rtol=1e-12)
+    s2 = r.ssr / r.dof
+    lo_p, _ = band(r.predict(grid), G, r.covariance, r.dof, observation_variance=s2)
+    np.testing.assert_allclose(lo_p, col(r.prediction_band(grid), "lower"), rtol=1e-12)
+    table = r.parameter_table(0.9)
+    wl, wu = wald_intervals(col(table, "value"), col(table, "stderr"), r.dof, 0.9)
+    np.testing.assert_allclose(wl, col(table, "lower"), rtol=1e-12)
+    np.testing.assert_allclose(wu, col(table, "upper"), rtol=1e-12)
+    # the FitResult's own ci() (result.py) says the same
+    np.testing.assert_allclose(col(r.ci(0.9), "lower"), wl, rtol=1e-12)
 
 
 def test_profile_of_a_linear_model_equals_the_t_interval() -> None:
