@@ -142,3 +142,14 @@ def test_unconverged_result_says_so() -> None:
     assert not r.success
     assert "not converged" in r.summary().lower() or "did not converge" in r.summary()
     assert any(d.severity == "error" for d in r.diagnostics)
+
+
+def test_ic50_interval_is_the_log_interval_transformed(dose: cw.FitResult) -> None:
+    # Common practice for a midpoint fitted as log10: the IC50 interval is 10**(interval of
+    # logIC50), asymmetric about the IC50 and always positive.
+    der = dose.derived(0.95)
+    ci = dose.ci(0.95)
+    assert der.loc["IC50", "lower"] == pytest.approx(10 ** ci.loc["logIC50", "lower"], rel=1e-12)
+    assert der.loc["IC50", "upper"] == pytest.approx(10 ** ci.loc["logIC50", "upper"], rel=1e-12)
+    v = der.loc["IC50", "value"]
+    assert v - der.loc["IC50", "lower"] < der.loc["IC50", "upper"] - v
