@@ -189,6 +189,32 @@ def test_different_models_not_nested_and_declared_nesting() -> None:
     ]
 
 
+def test_catalog_nestings_detected_on_dnase() -> None:
+    # R's DNase run 1 (tests/data/r_datasets/SOURCES.md): 3PL (bottom 0) inside 4PL inside 5PL
+    # (s = 1), fitted with relative weights on all three (same weights: comparable).
+    df = pd.read_csv(DATA / "r_datasets" / "DNase.csv")
+    d1 = df[df["Run"] == 1]
+    fits = [
+        cw.fit(m, d1["conc"], d1["density"], weights="relative")
+        for m in ("stimulation_3pl", "stimulation_4pl", "stimulation_5pl")
+    ]
+    c = compare(*fits)
+    pairs = set(zip(c.f_tests["simpler"], c.f_tests["larger"], strict=True))
+    assert pairs == {
+        ("stimulation_3pl", "stimulation_4pl"),
+        ("stimulation_3pl", "stimulation_5pl"),
+        ("stimulation_4pl", "stimulation_5pl"),
+    }
+    for _, t in c.f_tests.iterrows():
+        s, b = (
+            fits[list(c.table.index).index(t["simpler"])],
+            fits[list(c.table.index).index(t["larger"])],
+        )
+        f_ref = ((s.ssr - b.ssr) / (s.dof - b.dof)) / (b.ssr / b.dof)
+        assert float(t["F"]) == pytest.approx(f_ref, rel=1e-10)
+    assert c.criterion == "AICc"  # three fits: the recommendation rests on AICc
+
+
 # ---------------------------------------------------------------------------------------------
 # refusals
 

@@ -288,6 +288,15 @@ def _poly_degree(r: FitResult) -> int | None:
     return None if deg is None else int(deg)
 
 
+#: Catalog models nested in others: (simpler, larger) -> values to fix in the larger one.
+_KNOWN_NESTINGS: dict[tuple[str, str], dict[str, float]] = {
+    ("stimulation_3pl", "stimulation_4pl"): {"bottom": 0.0},
+    ("stimulation_4pl", "stimulation_5pl"): {"s": 1.0},
+    ("inhibition_4pl", "inhibition_5pl"): {"s": 1.0},
+    ("michaelis_menten", "hill"): {"n_hill": 1.0},
+}
+
+
 def _known_mapping(simple: FitResult, large: FitResult) -> dict[str, float] | None:
     """Values to fix in ``large`` so that it becomes ``simple``'s model (None: not known).
 
@@ -299,13 +308,15 @@ def _known_mapping(simple: FitResult, large: FitResult) -> dict[str, float] | No
     if ds is not None and dl is not None and ds < dl:
         # the coefficients above the simpler polynomial's degree are 0
         return dict.fromkeys(large.model.param_names[ds + 1 :], 0.0)
-    pairs: dict[tuple[str, str], dict[str, float]] = {
-        ("stimulation_3pl", "stimulation_4pl"): {"bottom": 0.0},
-        ("stimulation_4pl", "stimulation_5pl"): {"s": 1.0},
-        ("inhibition_4pl", "inhibition_5pl"): {"s": 1.0},
-        ("michaelis_menten", "hill"): {"n_hill": 1.0},
-    }
-    return pairs.get((a, b))
+    direct = _KNOWN_NESTINGS.get((a, b))
+    if direct is not None:
+        return dict(direct)
+    # one step of transitivity (3PL inside 5PL through the 4PL)
+    for (lo, mid), first in _KNOWN_NESTINGS.items():
+        second = _KNOWN_NESTINGS.get((mid, b))
+        if lo == a and second is not None:
+            return {**first, **second}
+    return None
 
 
 def _rename_for(simple: FitResult, large: FitResult) -> dict[str, str]:
