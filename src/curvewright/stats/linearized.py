@@ -606,7 +606,9 @@ def linearized_fit(
         held=MappingProxyType(held),
         table=table,
         effective_weights=eff,
-        note=spec.note,
+        note=spec.note
+        if nls is None or nls.success
+        else spec.note + f" Caution: the nonlinear fit did not converge ({nls.message}).",
         nonlinear=nls,
     )
 
