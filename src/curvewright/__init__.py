@@ -29,10 +29,22 @@ from .fitting import fit
 from .models import Derived, Handle, Model, Param
 from .result import CAUTION, FitResult
 from .start import generic_start, guided_start
-from .stats import polynomial_fit, select_degree
+from .stats import (
+    Comparison,
+    LinearizedFit,
+    compare,
+    inverse_predict,
+    linearized_fit,
+    linearized_fits,
+    polynomial_fit,
+    profile_intervals,
+    select_degree,
+)
+from .stats.diagnostics import residual_diagnostics
 
 __all__ = [
     "CAUTION",
+    "Comparison",
     "ComparisonError",
     "CurveFitter",
     "CurvewrightError",
@@ -46,6 +58,7 @@ __all__ = [
     "FitResult",
     "FormulaError",
     "Handle",
+    "LinearizedFit",
     "Model",
     "ModelError",
     "Param",
@@ -53,12 +66,18 @@ __all__ = [
     "RankDeficiencyWarning",
     "__version__",
     "catalog",
+    "compare",
     "fit",
     "generic_start",
     "guided_start",
+    "inverse_predict",
+    "linearized_fit",
+    "linearized_fits",
     "make_dataset",
     "polynomial",
     "polynomial_fit",
+    "profile_intervals",
+    "residual_diagnostics",
     "select_degree",
 ]
 
