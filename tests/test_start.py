@@ -267,7 +267,12 @@ NIST_GENERIC: dict[str, tuple[tuple[str, ...], ...]] = {
     "Lanczos2": (("b1", "b2"), ("b3", "b4"), ("b5", "b6")),
     "Lanczos3": (("b1", "b2"), ("b3", "b4"), ("b5", "b6")),
 }
-NIST_GENERIC_SLOW = {"Gauss1": (("b3", "b4", "b5"), ("b6", "b7", "b8"))}
+NIST_GENERIC_SLOW = {
+    "Gauss1": (("b3", "b4", "b5"), ("b6", "b7", "b8")),
+    "ENSO": (),
+    "Hahn1": (),
+    "Lanczos1": (("b1", "b2"), ("b3", "b4"), ("b5", "b6")),
+}
 
 
 def _in_nist_order(
@@ -300,12 +305,29 @@ def _check_generic(name: str, groups: tuple[tuple[str, ...], ...]) -> None:
     got = _in_nist_order(name, dict(res.values), groups)
     for b, c in zip(p.names, p.certified, strict=True):
         assert lre(got[b], c) >= 6, (name, b, got[b], c)  # NIST StRD certified value
-    assert lre(res.ssr, p.ssr) >= 6  # NIST StRD certified residual sum of squares
+    if name == "Lanczos1":
+        # its certified RSS (1.4e-25) is below what double precision reproduces from the data
+        # and 11-digit certified values (tests/data/nist_nonlinear/SOURCES.md): compared in
+        # absolute terms, as the NIST-start test does
+        assert res.ssr < 1e-18
+    else:
+        assert lre(res.ssr, p.ssr) >= 6  # NIST StRD certified residual sum of squares
 
 
 @pytest.mark.parametrize("name", sorted(NIST_GENERIC))
 def test_nist_formula_from_the_generic_start(name: str) -> None:
     _check_generic(name, NIST_GENERIC[name])
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(
+    strict=True,
+    reason="known limitation: the generic multi-start's default budget does not find the two "
+    "overlapping peaks on an exponential baseline (it does with about 200 starts)",
+)
+@pytest.mark.parametrize("name", ["Gauss2", "Gauss3"])
+def test_nist_overlapping_peaks_from_the_generic_start(name: str) -> None:
+    _check_generic(name, (("b3", "b4", "b5"), ("b6", "b7", "b8")))
 
 
 @pytest.mark.slow

@@ -1143,12 +1143,48 @@ def _infer_dims(model: Model) -> dict[str, tuple[float, float]]:
     return {n: (float(D[i, 0]), float(D[i, 1])) for i, n in enumerate(names)}
 
 
+def _locations(model: Model) -> set[str]:
+    """Parameters added to or subtracted from an expression in x, such as x0 in ``x - x0``.
+
+    Those are positions on the x axis (a centre, a midpoint, a lag), sampled across the data;
+    other x-sized parameters (a width, a time constant) are scales, sampled in log space.
+    """
+    if model.expr is None:
+        return set()
+    found: set[str] = set()
+
+    def has_x(n: Mapping[str, Any]) -> bool:
+        if n.get("type") == "name":
+            return bool(n.get("id") == "x")
+        kids = [n[k] for k in ("arg", "left", "right") if k in n] + list(n.get("args", []))
+        return any(has_x(k) for k in kids)
+
+    def walk(n: Mapping[str, Any]) -> None:
+        if n.get("type") == "bin" and n.get("op") in ("+", "-"):
+            for a, b in ((n["left"], n["right"]), (n["right"], n["left"])):
+                if a.get("type") == "name" and a.get("id") != "x" and has_x(b):
+                    found.add(str(a["id"]))
+        for k in ("arg", "left", "right"):
+            if k in n:
+                walk(n[k])
+        for a in n.get("args", []):
+            walk(a)
+
+    walk(model.expr.to_json())
+    return found
+
+
 def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) -> dict[str, _Range]:
     """Plausible sampling ranges for the named parameters from the data scales."""
     ax = float(np.max(np.abs(x))) or 1.0
     ay = float(np.max(np.abs(y))) or 1.0
     inferred = _infer_dims(model)
+    locations = _locations(model)
     pos = x[x > 0]
+    ux = np.unique(x)
+    # the finest and the coarsest x scale the data can resolve: the smallest spacing, the span
+    fine = float(np.min(np.diff(ux))) if ux.size > 1 else ax
+    coarse = float(np.ptp(ux)) if ux.size > 1 else ax
     out: dict[str, _Range] = {}
     for n in names:
         p = model.param(n)
@@ -1166,13 +1202,18 @@ def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) ->
         dims = _unit_dims(p.unit) if p.unit else None
         if dims is None:
             dims = inferred.get(n, (0.0, 0.0))
-        if dims == (1.0, 0.0) and p.lower < 0:
-            # an x-valued parameter that may be negative is a location (a centre, a midpoint)
+        if dims == (1.0, 0.0) and p.lower < 0 and n in locations:
+            # a position on the x axis (a centre, a midpoint, a lag): across the data and a bit
             lo, hi = float(np.min(x)), float(np.max(x))
             out[n] = _clamp_lin(p, lo - 0.5 * (hi - lo), hi + 0.5 * (hi - lo))
             continue
         c = dims[0] * math.log10(ax) + dims[1] * math.log10(ay)
         lo_l, hi_l = c - 2.0, c + 2.0
+        if dims in ((1.0, 0.0), (-1.0, 0.0)) and fine > 0 and coarse > 0:
+            # an x scale (a width, a time constant) or its inverse (a rate): between the finest
+            # and the coarsest scale of the data, half a decade beyond each
+            a, b = math.log10(fine) - 0.5, math.log10(coarse) + 0.5
+            lo_l, hi_l = (a, b) if dims[0] > 0 else (-b, -a)
         signs: tuple[float, ...]
         if p.lower >= 0:
             signs = (1.0,)
