@@ -31,11 +31,13 @@ def root_of(page: Any, i: int = 0) -> Any:
     return harness.widget_roots(page).nth(i)
 
 
-def wait_rendered(page: Any, i: int = 0, timeout: float = 60_000) -> Any:
-    """Wait until widget ``i`` shows its handles and a drawn curve; return its root."""
+def wait_rendered(page: Any, i: int = 0, timeout: float = 60_000, *, handles: bool = True) -> Any:
+    """Wait until widget ``i`` shows a drawn curve (and handles, unless ``handles=False``:
+    a Python-callable model has none); return its root."""
     root = root_of(page, i)
     root.wait_for(timeout=timeout)
-    root.locator('[role="slider"]').first.wait_for(timeout=timeout)
+    if handles:
+        root.locator('[role="slider"]').first.wait_for(timeout=timeout)
     root.locator(CURVE).first.wait_for(state="attached", timeout=timeout)
     page.wait_for_function(
         """(el) => (el.querySelector('path.cw-curve')?.getAttribute('d') ?? '').length > 10""",

@@ -219,3 +219,109 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     )
     root.screenshot(path=str(harness.ARTIFACTS / f"set-from-python-{server.app}.png"))
     assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_panel_and_toolbar_edits_reach_python_and_bad_edits_do_not(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    root = _open_flow(page, server, notebook)
+    # A valid value typed into the panel reaches Python and redraws the curve.
+    hill = root.get_by_role("textbox", name="hill", exact=True)
+    d0 = cwpage.curve_d(root)
+    hill.fill("1.5")
+    hill.press("Enter")
+    page.wait_for_function(
+        "([el, d]) => el.querySelector('path.cw-curve').getAttribute('d') !== d",
+        arg=[root.element_handle(), d0],
+    )
+    # The toolbar's axis scale goes to Python too.
+    root.get_by_role("combobox", name="x axis scale").select_option("linear")
+    s1 = _state(page, root)
+    assert s1["settings"]["hill"]["value"] == 1.5
+    assert s1["x_scale"] == "linear"
+    cwpage.wait_until(lambda: not cwpage.axes(root).x.log, "the x axis did not turn linear")
+
+    # Text in a number field: shown inline as invalid, not applied.
+    hill.fill("abc")
+    hill.press("Enter")
+    assert hill.get_attribute("aria-invalid") == "true"
+    described = hill.get_attribute("aria-describedby")
+    assert described
+    message = root.locator(f"#{described}").inner_text()
+    assert "hill" in message and "abc" in message, message
+    # A lower bound above the value: shown inline, not applied.
+    lower = root.get_by_role("textbox", name="hill lower bound")
+    lower.fill("2")
+    lower.press("Enter")
+    assert lower.get_attribute("aria-invalid") == "true"
+    s2 = _state(page, root)
+    assert s2["settings"]["hill"] == s1["settings"]["hill"]
+    assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_fit_error_is_shown_in_the_widget_and_clears_after_a_good_fit(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    # A negative concentration (a typing slip in row 4) lies outside the model's domain, so
+    # the fit must refuse with our DomainError, shown in the widget's error area.
+    setup = SETUP.replace("resp[", "conc[4] = -1e-8\nresp[")
+    name = notebook(cells=[setup, STATE, "w.exclude([4])"])
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, CELL_SETUP)
+    root = cwpage.wait_rendered(page)
+    alert = root.get_by_role("alert")
+    assert alert.is_hidden()
+    root.get_by_role("button", name=re.compile("Fit")).click()
+    alert.wait_for(state="visible")
+    text = alert.inner_text()
+    assert "x>=0" in text or "non-negative" in text, text
+    assert "Traceback" not in text
+    s = _state(page, root)
+    assert s["result"] is None
+    # Leaving the bad row out (from Python) lets the next fit through and clears the error.
+    harness.run_cell(page, 2)
+    cwpage.wait_root_attr(page, root, "data-cw-excluded", "[4]")
+    root.get_by_role("button", name=re.compile("Fit")).click()
+    cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
+    alert.wait_for(state="hidden")
+    s = _state(page, root)
+    assert s["result"] is not None and s["result"]["success"] is True
+    assert s["result"]["excluded_rows"] == [4]
+    assert harness.real_page_errors(page.cw_errors) == []
+
+
+DESCRIBE_FOCUS_JS = """(root) => {
+  const a = document.activeElement;
+  if (!a || !root.contains(a)) return null;
+  const by = a.getAttribute('aria-labelledby');
+  const name = a.getAttribute('aria-label')
+    ?? (by ? document.getElementById(by)?.textContent : null) ?? a.textContent ?? '';
+  return `${a.getAttribute('role') ?? a.tagName.toLowerCase()}|${(a.type ?? '')}|${name.trim()}`;
+}"""
+
+
+def test_every_control_is_reachable_by_tab(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    root = _open_flow(page, server, notebook)
+    first = root.get_by_role("combobox", name="Model")
+    first.focus()
+    seen: list[str] = []
+    for _ in range(120):
+        d = root.evaluate(DESCRIBE_FOCUS_JS)
+        if d is None:
+            break
+        if d not in seen:
+            seen.append(d)
+        page.keyboard.press("Tab")
+    names = [s.split("|", 2)[2] for s in seen]
+    kinds = [s.split("|", 2)[0] + "|" + s.split("|", 2)[1] for s in seen]
+    for h in cwpage.handles(root).all():
+        assert h.get_attribute("aria-label") in names, f"handle not reached by Tab: {seen}"
+    assert "Fit" in names
+    for p in ("bottom", "top", "logEC50", "hill"):
+        i = [k for k, n in zip(kinds, names, strict=True) if n == p]
+        assert "input|text" in i, f"{p} value input not reached by Tab: {seen}"
+        assert any(p in n and k == "input|checkbox" for k, n in zip(kinds, names, strict=True)), (
+            f"{p} fixed checkbox not reached by Tab: {seen}"
+        )

@@ -1,0 +1,302 @@
+"""In-browser speed of the widget: drag-to-redraw frame time, and a callable model's kernel preview.
+
+Run with ``.venv/bin/python benchmarks/browser_frames.py`` (needs Debian's chromium and the built
+bundle, as ``make test-browser`` does). Prints the figures for README; nothing is asserted.
+
+What is measured, in JupyterLab 4 with Debian's chromium (headless, software rendering):
+
+* Drag-to-redraw, formula model (``stimulation_4pl``), 1k and 100k points. The midpoint handle is
+  dragged with the real (CDP) mouse, back and forth, while a requestAnimationFrame loop in the
+  page records, for every frame: the interval since the previous frame, and the main-thread
+  frame time -- from the frame's start (the rAF timestamp) until a message posted from the rAF
+  callback is delivered, which happens after that frame's input handling, rAF callbacks
+  (the widget's solve and redraw), style, layout and paint recording. A MutationObserver on the
+  curve's path also gives input-to-redraw latency: from a pointermove event's timeStamp to the
+  next change of the path's ``d``. Budget: 16.7 ms per frame at 60 Hz.
+* Kernel round trip for a Python-callable model's preview: (a) the preview message sent through
+  the widget's model until ``preview_curve`` comes back; (b) what a person sees: typing a value
+  into the panel until the curve's path changes (the page throttles requests to one per 120 ms;
+  trips here are spaced wider so the throttle adds nothing). Run on a stock server and on one
+  with Nagle's algorithm off on the kernel websocket (see ../shared/browser-testing.md): the
+  difference is the server's transport, not the widget.
+"""
+
+from __future__ import annotations
+
+import argparse
+import itertools
+import json
+import math
+import platform
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+REPO = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(REPO / "tests" / "browser"))
+
+import cwpage  # noqa: E402  (the browser tests' page helpers, reused)
+import harness  # noqa: E402
+
+FORMULA_CELL = """
+import numpy as np, pandas as pd, curvewright as cw
+rng = np.random.default_rng(7)
+n = {n}
+conc = 10 ** rng.uniform(-9, -3.5, n)
+resp = 96 + (4 - 96) / (1 + (conc / 10 ** -6.3) ** 1.1) + rng.normal(0, 3, n)
+w = cw.CurveFitter(pd.DataFrame({{"conc": conc, "response": resp}}), x="conc", y="response",
+                   model="stimulation_4pl")
+w
+"""
+
+CALLABLE_CELL = """
+import numpy as np, curvewright as cw
+def rate(x, Vmax, Km):
+    return Vmax * x / (Km + x)
+rng = np.random.default_rng(7)
+s = np.repeat(np.array([0.5, 1, 2, 4, 8, 16, 32, 64]), 3)
+v = rate(s, 12.0, 5.0) + rng.normal(0, 0.3, s.size)
+w = cw.CurveFitter(s, v, model=rate)
+w
+"""
+
+RECORDER_JS = """(root) => {
+  const rec = { frames: [], work: [], moves: [], paths: [], on: true };
+  const loop = (ts) => {
+    if (!rec.on) return;
+    rec.frames.push(ts);
+    const ch = new MessageChannel();
+    ch.port1.onmessage = () => rec.work.push([ts, performance.now() - ts]);
+    ch.port2.postMessage(null);
+    requestAnimationFrame(loop);
+  };
+  requestAnimationFrame(loop);
+  const onMove = (e) => { if (e.buttons) rec.moves.push(e.timeStamp); };
+  root.addEventListener('pointermove', onMove, { capture: true });
+  // Only real changes count: setting d to the same string also makes a mutation record.
+  const path = root.querySelector('path.cw-curve');
+  let last = path.getAttribute('d');
+  const mo = new MutationObserver(() => {
+    const d = path.getAttribute('d');
+    if (d !== last) { last = d; rec.paths.push(performance.now()); }
+  });
+  mo.observe(path, { attributes: true, attributeFilter: ['d'] });
+  root._cwBench = { rec, stop: () => {
+    rec.on = false; mo.disconnect();
+    root.removeEventListener('pointermove', onMove, { capture: true });
+  } };
+}"""
+
+STOP_JS = """(root) => { root._cwBench.stop(); const r = root._cwBench.rec;
+  return { frames: r.frames, work: r.work, moves: r.moves, paths: r.paths }; }"""
+
+PREVIEW_TRIPS_JS = """async (root, n) => {
+  const m = root._cwModel, times = [];
+  const [x0, x1] = [0.5, 64];
+  for (let i = 0; i < n; i++) {
+    const values = { Vmax: 10 + (i % 7), Km: 4 + (i % 3) };
+    const t0 = performance.now();
+    await new Promise((res) => {
+      const h = () => { const c = m.get('preview_curve');
+        if (c && c.values && c.values.Vmax === values.Vmax && c.values.Km === values.Km) {
+          m.off('change:preview_curve', h); res(); } };
+      m.on('change:preview_curve', h);
+      m.send({ type: 'preview', values, x_min: x0, x_max: x1 });
+    });
+    times.push(performance.now() - t0);
+  }
+  return times;
+}"""
+
+TYPED_JS = """(root) => {
+  const rec = { inputs: [], paths: [] };
+  root.addEventListener('input', (e) => rec.inputs.push(e.timeStamp), { capture: true });
+  const path = root.querySelector('path.cw-curve');
+  let last = path.getAttribute('d');
+  const mo = new MutationObserver(() => {
+    const d = path.getAttribute('d');
+    if (d !== last) { last = d; rec.paths.push(performance.now()); }
+  });
+  mo.observe(path, { attributes: true, attributeFilter: ['d'] });
+  root._cwTyped = rec;
+}"""
+
+
+def pct(values: list[float], q: float) -> float:
+    """The q-quantile (0..1) by linear interpolation."""
+    if not values:
+        return float("nan")
+    s = sorted(values)
+    k = (len(s) - 1) * q
+    lo = int(k)
+    hi = min(lo + 1, len(s) - 1)
+    return s[lo] + (s[hi] - s[lo]) * (k - lo)
+
+
+def summary(values: list[float]) -> str:
+    return (
+        f"median {statistics.median(values):6.1f}  p95 {pct(values, 0.95):6.1f}  "
+        f"max {max(values):6.1f} ms  (n={len(values)})"
+    )
+
+
+def with_bundle(cell: str, bundle: Path | None) -> str:
+    """Make the cell's widget load ``bundle`` instead of the package's (to compare builds)."""
+    if bundle is None:
+        return cell
+    sub = f"class _Bench(cw.CurveFitter):\n    _esm = __import__('pathlib').Path({str(bundle)!r})\n"
+    return cell.replace("w = cw.CurveFitter(", sub + "w = _Bench(")
+
+
+def open_widget(
+    page: Any, server: harness.Server, name: str, cell: str, *, handles: bool = True
+) -> Any:
+    harness.write_notebook(server.root / name, [cell])
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, 0, timeout=180_000)
+    return cwpage.wait_rendered(page, timeout=180_000, handles=handles)
+
+
+def drag_frames(page: Any, root: Any, moves: int, amplitude: float) -> dict[str, list[float]]:
+    """Drag the midpoint handle back and forth with the mouse while recording frames."""
+    handle = cwpage.handle_named(root, "EC50")
+    handle.scroll_into_view_if_needed()
+    x, y = cwpage.centre(handle)
+    root.evaluate(RECORDER_JS)
+    page.mouse.move(x, y)
+    page.mouse.down()
+    # Each call sends `steps` CDP moves back to back: faster than one call per move, so the
+    # page gets input in (nearly) every frame, as with a real mouse.
+    steps = 4
+    for i in range(1, moves // steps + 1):
+        page.mouse.move(x + amplitude * math.sin(2 * math.pi * i * steps / 160), y, steps=steps)
+    page.mouse.up()
+    page.wait_for_timeout(200)  # let the last frames land (a benchmark may wait by the clock)
+    rec = root.evaluate(STOP_JS)
+    moves_t: list[float] = rec["moves"]
+    t_first, t_last = moves_t[0], moves_t[-1]
+    frames = [t for t in rec["frames"] if t_first <= t <= t_last + 50]
+    intervals = [b - a for a, b in itertools.pairwise(frames)]
+    # Main-thread time of the frames in which the curve was redrawn (a path change between
+    # the frame's start and the end of its work), and of all frames of the drag.
+    paths = rec["paths"]
+    work_all = [(t, w) for t, w in rec["work"] if t_first <= t <= t_last + 50]
+    work = [w for t, w in work_all if any(t <= p <= t + w for p in paths)]
+    # Input-to-redraw: each path change answers the oldest move not yet answered.
+    latency = []
+    j = 0
+    for p in rec["paths"]:
+        if j >= len(moves_t) or moves_t[j] > p:
+            continue
+        latency.append(p - moves_t[j])
+        while j < len(moves_t) and moves_t[j] <= p:
+            j += 1
+    duration = (t_last - t_first) / 1000
+    return {
+        "interval": intervals,
+        "work_redraw": work,
+        "work_all": [w for _, w in work_all],
+        "latency": latency,
+        "moves_per_s": [len(moves_t) / duration if duration > 0 else float("nan")],
+        "redraws_per_s": [len(latency) / duration if duration > 0 else float("nan")],
+    }
+
+
+def typed_round_trips(page: Any, root: Any, n: int) -> list[float]:
+    """Type a new Vmax into the panel n times; time from the input event to the redrawn curve."""
+    root.evaluate(TYPED_JS)
+    box = root.get_by_role("textbox", name="Vmax", exact=True)
+    box.scroll_into_view_if_needed()
+    out = []
+    for i in range(n):
+        before = cwpage.curve_d(root)
+        box.fill(f"{10 + (i % 7) + 0.5:g}")
+        page.wait_for_function(
+            "([el, d]) => el.querySelector('path.cw-curve').getAttribute('d') !== d",
+            arg=[root.element_handle(), before],
+            timeout=30_000,
+        )
+        rec = root.evaluate("(el) => el._cwTyped")
+        t_in = rec["inputs"][-1]
+        t_path = next(p for p in rec["paths"] if p >= t_in)
+        out.append(t_path - t_in)
+        page.wait_for_timeout(200)  # past the 120 ms throttle, so each trip starts fresh
+    return out
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--moves", type=int, default=400, help="mouse moves per drag")
+    ap.add_argument("--trips", type=int, default=40, help="kernel round trips per server")
+    ap.add_argument("--json", type=Path, help="also write the raw figures here")
+    ap.add_argument("--bundle", type=Path, help="measure this widget.js instead of the package's")
+    args = ap.parse_args()
+
+    from playwright.sync_api import sync_playwright
+
+    if not harness.BUNDLE.exists():
+        sys.exit(f"the bundle {harness.BUNDLE} is missing: run `npm run build`")
+    results: dict[str, Any] = {}
+    with sync_playwright() as p, tempfile.TemporaryDirectory() as tmp:
+        browser = harness.launch_chromium(p)
+        version = browser.version
+        for nodelay in (False, True):
+            srv = harness.Server(Path(tmp) / f"jp-{int(nodelay)}", app="lab", nodelay=nodelay)
+            srv.start()
+            try:
+                ctx = browser.new_context(viewport={"width": 1280, "height": 1000})
+                page = ctx.new_page()
+                page.set_default_timeout(60_000)
+                if not nodelay:
+                    for n in (1_000, 100_000):
+                        root = open_widget(
+                            page,
+                            srv,
+                            f"drag{n}.ipynb",
+                            with_bundle(FORMULA_CELL.format(n=n), args.bundle),
+                        )
+                        drag_frames(page, root, 60, 80)  # warm-up (JIT, first paints)
+                        results[f"drag {n:,} points"] = drag_frames(page, root, args.moves, 120)
+                        srv.shutdown_kernels()
+                root = open_widget(
+                    page,
+                    srv,
+                    "callable.ipynb",
+                    with_bundle(CALLABLE_CELL, args.bundle),
+                    handles=False,
+                )
+                label = "Nagle off" if nodelay else "stock server"
+                root.evaluate(PREVIEW_TRIPS_JS, 5)  # warm-up
+                results[f"callable preview message, {label}"] = {
+                    "round_trip": root.evaluate(PREVIEW_TRIPS_JS, args.trips)
+                }
+                results[f"callable typed value to redraw, {label}"] = {
+                    "round_trip": typed_round_trips(page, root, max(10, args.trips // 2))
+                }
+                ctx.close()
+            finally:
+                srv.stop()
+        browser.close()
+
+    print(f"\ncurvewright widget in the browser: JupyterLab, {version} headless, ", end="")
+    print(f"{platform.machine()}, {platform.python_version()}, {time.strftime('%Y-%m-%d')}\n")
+    for name, figs in results.items():
+        print(name)
+        for key, vals in figs.items():
+            if key in ("moves_per_s", "redraws_per_s"):
+                print(f"  {key:14s} {vals[0]:6.1f}")
+            else:
+                print(f"  {key:14s} {summary(vals)}")
+        if "work_redraw" in figs:
+            over = sum(1 for w in figs["work_redraw"] if w > 1000 / 60)
+            n = len(figs["work_redraw"])
+            print(f"  redraw frames over 16.7 ms of main-thread time: {over} of {n}")
+    if args.json:
+        args.json.write_text(json.dumps(results, indent=1))
+
+
+if __name__ == "__main__":
+    main()
