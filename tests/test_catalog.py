@@ -5,7 +5,8 @@ References: each model's formula is compared with the textbook form written out 
 file (common practice); derived quantities are checked against the curve itself with scipy
 (root finding, minimisation, quadrature, finite differences), not against the catalog's own
 derived formulas; recovery tests generate data from known parameters (the truth is the
-reference) and fit with ``curvewright.fit`` from ``guided_start`` with no number from the user.
+reference) and fit with ``curvewright.fit`` from ``guided_start`` with no number from the user;
+on real data (R's Puromycin, DNase, Orange) the guided start reaches the published fits.
 """
 
 from __future__ import annotations
@@ -14,8 +15,10 @@ import json
 import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from numpy.typing import NDArray
 from scipy import integrate, optimize
@@ -693,3 +696,42 @@ def test_recovery_with_data_in_any_order_and_replicates() -> None:
     _, res = _fit(m, x[perm], y[perm])
     for n, t in case.truth.items():
         assert res.values[n] == pytest.approx(t, rel=1e-8)
+
+
+# ----------------------------------------------------------------- published fits, real data
+def _csv(folder: str, name: str) -> pd.DataFrame:
+    return pd.read_csv(Path(__file__).resolve().parent / "data" / folder / f"{name}.csv")
+
+
+def test_published_fits_reached_from_the_guided_start() -> None:
+    ln10 = math.log(10.0)
+    # Puromycin, treated cells (tests/data/stats/SOURCES.md): Bates & Watts (1988) give the
+    # Michaelis-Menten fit Vmax = 212.7, Km = 0.06412 (from memory).
+    d = _csv("stats", "Puromycin")
+    d = d[d["state"] == "treated"]
+    m = catalog()["michaelis_menten"]
+    x, y = d["conc"].to_numpy(float), d["rate"].to_numpy(float)
+    res = cw.fit(m, x, y, start=guided_start(m, x, y))
+    assert res.values["Vmax"] == pytest.approx(212.7, rel=3e-4)
+    assert res.values["Km"] == pytest.approx(0.06412, rel=3e-4)
+    # DNase run 1 (tests/data/r_datasets/SOURCES.md): R's nls documentation fits
+    # SSlogis(log(conc), Asym, xmid, scal): Asym 2.34518, xmid 1.48309, scal 1.04146 (from
+    # memory); our 3PL is that curve with top = Asym, logEC50 = xmid/ln 10, hill = 1/scal.
+    d = _csv("r_datasets", "DNase")
+    d = d[d["Run"] == 1]
+    m = catalog()["stimulation_3pl"]
+    x, y = d["conc"].to_numpy(float), d["density"].to_numpy(float)
+    res = cw.fit(m, x, y, start=guided_start(m, x, y))
+    assert res.values["top"] == pytest.approx(2.34518, rel=2e-5)
+    assert res.values["logEC50"] == pytest.approx(1.48309 / ln10, rel=2e-5)
+    assert res.values["hill"] == pytest.approx(1 / 1.04146, rel=2e-5)
+    # Orange, all trees pooled (tests/data/r_datasets/SOURCES.md): R's nls examples fit
+    # SSlogis(age, Asym, xmid, scal): Asym 192.69, xmid 728.76, scal 353.53 (from memory);
+    # in logistic_growth K = Asym, r = 1/scal and the inflection time is xmid.
+    d = _csv("r_datasets", "Orange")
+    m = catalog()["logistic_growth"]
+    x, y = d["age"].to_numpy(float), d["circumference"].to_numpy(float)
+    res = cw.fit(m, x, y, start=guided_start(m, x, y))
+    assert res.values["K"] == pytest.approx(192.69, rel=1e-4)
+    assert res.values["r"] == pytest.approx(1 / 353.53, rel=1e-4)
+    assert m.derived_values(res.values)["x_inflection"] == pytest.approx(728.76, rel=1e-4)
