@@ -735,3 +735,17 @@ def test_published_fits_reached_from_the_guided_start() -> None:
     assert res.values["K"] == pytest.approx(192.69, rel=1e-4)
     assert res.values["r"] == pytest.approx(1 / 353.53, rel=1e-4)
     assert m.derived_values(res.values)["x_inflection"] == pytest.approx(728.76, rel=1e-4)
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+@pytest.mark.parametrize("factor", [1e-9, 1e9])
+def test_guided_start_alone_is_exact_in_any_unit_of_y(name: str, factor: float) -> None:
+    # Data in nanomolar or in counts per second: the start rule itself (no fit after it) must
+    # return the truth on clean data, with the y-valued parameters scaled by the unit.
+    m = catalog()[name]
+    case = CASES[name]
+    y = factor * m.eval(case.x, case.truth)
+    start = guided_start(m, case.x, y)
+    for n, t in case.truth.items():
+        want = t * factor if m.param(n).unit.startswith("y") else t
+        assert start[n] == pytest.approx(want, rel=1e-6, abs=1e-9 * float(np.ptp(y))), n

@@ -655,7 +655,7 @@ def _other_models() -> list[Model]:
         "power_law",
         "a*x**b",
         [
-            _p("a", 1.0, "", "value at x = 1 (prefactor)"),
+            _p("a", 1.0, "y", "value at x = 1 (prefactor)"),
             _p("b", 1.0, "", "exponent: slope on log-log axes"),
         ],
         "Power law y = a*x**b (a straight line on log-log axes); needs x > 0.",

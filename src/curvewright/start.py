@@ -395,6 +395,7 @@ class _Problem:
     linear: tuple[str, ...]  # solved exactly for each trial of the others
     nonlinear: tuple[str, ...]  # searched
     big: float  # stands in for non-finite residuals so the solver backs away from them
+    scale: float  # residuals are divided by the size of y, so tolerances mean the same at any scale
 
     @classmethod
     def make(
@@ -409,7 +410,10 @@ class _Problem:
         lin = tuple(n for n in free if n in linear)
         non = tuple(n for n in free if n not in lin)
         big = 1e6 * (float(np.max(np.abs(y))) + _span(y))
-        return cls(model, x, y, dict(held), lin, non, big)
+        # least_squares' gradient tolerance is absolute: without this, data in units of 1e-9
+        # would stop every search at its first step
+        scale = float(np.max(np.abs(y))) or 1.0
+        return cls(model, x, y, dict(held), lin, non, big, scale)
 
     # --- parameter transforms: positive parameters are searched in log space
     def logged(self, name: str) -> bool:
@@ -446,7 +450,8 @@ class _Problem:
 
     def residual(self, values: Mapping[str, float]) -> FloatArray:
         r = self.curve(values) - self.y
-        return np.where(np.isfinite(r), r, self.big)
+        out: FloatArray = np.where(np.isfinite(r), r, self.big) / self.scale
+        return out
 
     def project(self, values: dict[str, float]) -> dict[str, float]:
         """Solve the linear parameters exactly for the given nonlinear ones."""
@@ -1381,7 +1386,7 @@ def _generic(
     results: list[tuple[float, dict[str, float]]] = []
     polished: list[tuple[float, dict[str, float]]] = []
     done: set[int] = set()
-    exact = 1e-24 * (float(np.dot(y, y)) + 1e-300)
+    exact = 1e-24 * (float(np.dot(y, y)) / prob.scale**2 + 1e-300)  # in the scaled residuals
     for rnd in range(_MAX_ROUNDS):
         # round 0 also tries the model's own defaults; later rounds draw fresh hypercubes
         starts = [base0] if rnd == 0 else []
