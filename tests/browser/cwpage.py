@@ -31,20 +31,35 @@ def root_of(page: Any, i: int = 0) -> Any:
     return harness.widget_roots(page).nth(i)
 
 
+RENDERED_JS = """([sel, i, handles]) => {
+  const root = document.querySelectorAll(sel)[i];
+  if (!root) return false;
+  if (handles && !root.querySelector('[role="slider"]')) return false;
+  return (root.querySelector('path.cw-curve')?.getAttribute('d') ?? '').length > 10;
+}"""
+
+
 def wait_rendered(page: Any, i: int = 0, timeout: float = 60_000, *, handles: bool = True) -> Any:
     """Wait until widget ``i`` shows a drawn curve (and handles, unless ``handles=False``:
-    a Python-callable model has none); return its root."""
-    root = root_of(page, i)
-    root.wait_for(timeout=timeout)
-    if handles:
-        root.locator('[role="slider"]').first.wait_for(timeout=timeout)
-    root.locator(CURVE).first.wait_for(state="attached", timeout=timeout)
-    page.wait_for_function(
-        """(el) => (el.querySelector('path.cw-curve')?.getAttribute('d') ?? '').length > 10""",
-        arg=root.element_handle(),
-        timeout=timeout,
-    )
-    return root
+    a Python-callable model has none); return its root.
+
+    An exception thrown in the page meanwhile (collected by the ``page`` fixture) fails at once
+    with its message, instead of a bare timeout.
+    """
+    from playwright.sync_api import TimeoutError as PlaywrightTimeout
+
+    sel = f"{harness.NOTEBOOK} .jp-OutputArea-output .cw-root"
+    deadline = time.monotonic() + timeout / 1000
+    while True:
+        errors = harness.real_page_errors(getattr(page, "cw_errors", []))
+        if errors:
+            raise AssertionError(f"the page threw while the widget rendered: {errors}")
+        try:
+            page.wait_for_function(RENDERED_JS, arg=[sel, i, handles], timeout=1_000)
+            return root_of(page, i)
+        except PlaywrightTimeout:
+            if time.monotonic() > deadline:
+                raise
 
 
 def curve_d(root: Any) -> str:

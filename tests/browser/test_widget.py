@@ -97,11 +97,20 @@ def test_quickstart_notebook_renders(
     root = cwpage.wait_rendered(page)
     # The contract's controls are all there.
     assert cwpage.handles(root).count() >= 1
-    assert root.get_by_role("button", name=re.compile("Fit")).count() >= 1
+    assert root.get_by_role("button", name=re.compile("Fit")).count() == 1
     for h in cwpage.handles(root).all():
         assert h.get_attribute("aria-label"), "a handle has no accessible name"
         assert math.isfinite(cwpage.value_now(h))
-        assert h.get_attribute("tabindex") is not None, "a handle is not focusable"
+        assert h.get_attribute("tabindex") == "0", "a handle is not focusable"
+    # What the notebook did from Python below the widget shows in it: top fixed at 100, row 20
+    # excluded, and the fit made by widget.fit() drawn.
+    cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
+    assert root.get_by_role("checkbox", name=re.compile(r"\btop\b")).is_checked()
+    assert float(root.get_by_role("textbox", name="top", exact=True).input_value()) == 100.0
+    assert root.get_attribute("data-cw-excluded") == "[20]"
+    assert len(cwpage.fit_d(root)) > 10
+    # The zero-dose wells cannot sit on the log x axis: they are listed, not silently dropped.
+    assert re.search(r"rows 0, 1, 2\b", root.inner_text()), root.inner_text()
     harness.ARTIFACTS.mkdir(exist_ok=True)
     root.screenshot(path=str(harness.ARTIFACTS / f"quickstart-{server.app}.png"))
     assert harness.real_page_errors(page.cw_errors) == []
