@@ -224,7 +224,13 @@ export class Plot {
     this.svg.on("pointerdown.cw", () => (this.wheelActive = true));
     this.svg.on("pointerleave.cw", () => (this.wheelActive = false));
 
+    // An explicit extent from the start: d3-brush's default reads the SVG's size, which cannot
+    // be resolved while anywidget renders into an element not yet attached to the page.
     this.brusher = brush<unknown>()
+      .extent([
+        [0, 0],
+        [1, 1],
+      ])
       .filter((event: MouseEvent) => (this.boxMode || event.shiftKey) && !event.button)
       .on("end", (event: D3BrushEvent<unknown>) => this.brushEnded(event));
     this.gBrush.call(this.brusher);
