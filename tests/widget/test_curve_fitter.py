@@ -462,3 +462,13 @@ def test_core_does_not_import_the_widget_stack() -> None:
         env={"PYTHONPATH": src, "PATH": ""},
     )
     assert out.stdout.strip() == ""
+
+
+def test_result_observer_error_is_shown_not_raised(w: CurveFitter) -> None:
+    def broken(_change: Any) -> None:
+        raise ZeroDivisionError("division by zero in a user's observer")
+
+    w.observe(broken, "result")
+    r = w.fit()
+    assert w.result is r and "ZeroDivisionError" in w.error
+    assert w.status["state"] == "done"

@@ -380,7 +380,9 @@ class CurveFitter(anywidget.AnyWidget):
 
         The fit runs in a worker thread. With ``wait=True`` (the default) this call waits for
         it and returns the :class:`FitResult`; with ``wait=False`` it returns at once and the
-        result arrives in :attr:`result` (and the ``on_fit`` callbacks) when done.
+        result arrives in :attr:`result` (and the ``on_fit`` callbacks) when done. While a cell
+        waits, the kernel cannot hear the page's Cancel button: use ``wait=False`` (then
+        :meth:`cancel` or the button) or a ``timeout`` in ``fit_options`` for long fits.
 
         Raises
         ------
@@ -960,7 +962,10 @@ class CurveFitter(anywidget.AnyWidget):
             else:
                 self.compare = self._compare_json()
             self.status = {"state": state, "message": message}
+        try:
             self.result = res
+        except Exception as exc:  # an observer of `result` raised: show it, keep going
+            self._report(exc)
         for cb in list(self._callbacks):
             try:
                 cb(res)
