@@ -116,7 +116,9 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   };
 
   // ------------------------------------------------------------------ layout
-  const root = h("div", { class: "cw-root" });
+  // data-lm-suppress-shortcuts: Lumino stops looking for notebook shortcuts at this element, so
+  // arrow keys on a handle or a select stay in the widget (Notebook 7 would move the cell).
+  const root = h("div", { class: "cw-root", "data-lm-suppress-shortcuts": "true" });
   const style = h("style");
   style.textContent = css;
   root.appendChild(style);
