@@ -145,6 +145,26 @@ export interface CompareJson {
   curve: { x: number[]; y: (number | null)[] };
 }
 
+/** Model comparison (Python's stats.compare(...).to_dict()), or why the fits cannot be compared. */
+export interface ComparisonJson {
+  table: { fit: string; akaike_weight: number | null; delta_aicc: number | null }[];
+  f_tests: {
+    simpler: string;
+    larger: string;
+    F: number | null;
+    p: number | null;
+    df_num: number;
+    df_den: number;
+    significant: boolean;
+  }[];
+  preferred: string;
+  criterion: string;
+  recommendation: string;
+  reasoning: string[];
+  alpha: number;
+  caution: string;
+}
+
 /** "stopped": the fit ended without converging (cancelled, time or evaluation limit). */
 export type FitState = "idle" | "fitting" | "done" | "stopped" | "error";
 
@@ -178,6 +198,8 @@ export interface WidgetModel {
   preview_curve: { x: number[]; y: (number | null)[] } | null;
   /** The latest fit of every model fitted so far. */
   compare: CompareJson[];
+  /** Comparison of the latest converged fit of each model; null with fewer than two. */
+  comparison_json: ComparisonJson | { error: string } | null;
   /** Flush: the page sets sync_ping, Python answers by setting sync_pong to the same number. */
   sync_ping: number;
   sync_pong: number;

@@ -304,13 +304,18 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
 
   function drawCompare(): void {
     const list: CompareJson[] = model.get("compare") ?? [];
+    const cmp = model.get("comparison_json");
+    const weights = new Map<string, number | null>();
+    if (cmp && "table" in cmp) for (const row of cmp.table) weights.set(row.fit, row.akaike_weight);
     plot.setCompare(list.filter((c) => !c.current).map((c) => ({ name: c.model_name, source: samples(c.curve) })));
     compareEl.replaceChildren();
     if (list.length < 2) return;
     const table = h("table", { class: "cw-fits" });
     table.appendChild(h("caption", {}, "Fits so far (the current model is marked; other fits are drawn dashed)"));
     const head = h("tr");
-    for (const t of ["model", "free parameters", "n", "SSR", "R²", "AICc"]) head.appendChild(h("th", { scope: "col" }, t));
+    for (const t of ["model", "free parameters", "n", "SSR", "R²", "AICc", "Akaike weight"]) {
+      head.appendChild(h("th", { scope: "col" }, t));
+    }
     table.appendChild(h("thead")).appendChild(head);
     const body = h("tbody");
     const best = Math.min(...list.map((c) => (typeof c.aicc === "number" ? c.aicc : Infinity)));
@@ -323,11 +328,20 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
         h("td", {}, formatNumber(c.ssr, 5)),
         h("td", {}, formatNumber(c.r2, 4)),
         h("td", {}, `${formatNumber(c.aicc, 5)}${c.aicc === best && list.length > 1 ? " (lowest)" : ""}`),
+        h("td", {}, weights.has(c.model_name) ? formatNumber(weights.get(c.model_name), 3) : "–"),
       );
       body.appendChild(tr);
     }
     table.appendChild(body);
     compareEl.appendChild(table);
+    if (cmp && "error" in cmp) {
+      compareEl.appendChild(h("p", { class: "cw-compare-note" }, `Not compared: ${cmp.error}`));
+    } else if (cmp) {
+      compareEl.appendChild(h("p", { class: "cw-recommendation" }, cmp.recommendation));
+      const ul = h("ul", { class: "cw-reasoning" });
+      for (const r of cmp.reasoning) ul.appendChild(h("li", {}, r));
+      compareEl.appendChild(ul);
+    }
   }
 
   function showResult(f: FittedJson | null): void {
@@ -605,6 +619,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   });
   listen("change:fitted", drawFitted);
   listen("change:compare", drawCompare);
+  listen("change:comparison_json", drawCompare);
   listen("change:status", showStatus);
   listen("change:error", showError);
   listen("change:preview_curve", () => {

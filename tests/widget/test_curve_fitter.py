@@ -472,3 +472,32 @@ def test_result_observer_error_is_shown_not_raised(w: CurveFitter) -> None:
     r = w.fit()
     assert w.result is r and "ZeroDivisionError" in w.error
     assert w.status["state"] == "done"
+
+
+def test_models_are_compared_once_two_are_fitted(w: CurveFitter) -> None:
+    from scipy import stats as sps
+
+    with pytest.raises(cw.ComparisonError, match="at least two models"):
+        w.compare_models()
+    four = w.fit()
+    assert w.comparison_json is None
+    w.set_model("inhibition_5pl")
+    five = w.fit()
+    comp = w.comparison_json
+    assert comp is not None and [row["fit"] for row in comp["table"]] == [
+        "inhibition_4pl",
+        "inhibition_5pl",
+    ]
+    # The 4PL is the 5PL with s = 1: the extra-sum-of-squares F test (common practice),
+    # recomputed here with scipy's F distribution.
+    f = ((four.ssr - five.ssr) / (four.dof - five.dof)) / (five.ssr / five.dof)
+    test = comp["f_tests"][0]
+    assert test["F"] == pytest.approx(f, rel=1e-9)
+    assert test["p"] == pytest.approx(sps.f.sf(f, four.dof - five.dof, five.dof), rel=1e-9)
+    assert comp["recommendation"] and w.compare_models().preferred in comp["recommendation"]
+    # Other exclusions make the fits incomparable: the page is told why.
+    w.exclude([4])
+    w.fit()
+    assert "error" in w.comparison_json
+    with pytest.raises(cw.ComparisonError):
+        w.compare_models()

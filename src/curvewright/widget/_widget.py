@@ -26,11 +26,19 @@ import traitlets
 from numpy.typing import ArrayLike
 
 from ..data import Dataset, make_dataset
-from ..errors import CurvewrightError, DataError, FitError, ModelError, ParameterError
+from ..errors import (
+    ComparisonError,
+    CurvewrightError,
+    DataError,
+    FitError,
+    ModelError,
+    ParameterError,
+)
 from ..fitting import resolve_model
 from ..models import Model, unknown_name_message
 from ..result import FitResult
 from ..start import guided_start
+from ..stats.compare import Comparison, compare
 from . import _state
 from ._errors import describe
 
@@ -166,6 +174,9 @@ class CurveFitter(anywidget.AnyWidget):
     excluded: traitlets.List[Any] = traitlets.List().tag(sync=True)
     preview_curve = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     compare: traitlets.List[Any] = traitlets.List().tag(sync=True)
+    # Model comparison of the latest converged fit of each model (stats.compare's to_dict), or
+    # {"error": why not} when they cannot be compared, or None with fewer than two.
+    comparison_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     # A flush for tests and tools: the page sets sync_ping, Python answers with sync_pong; the
     # answer proves every earlier update from the page has been applied here.
     sync_ping = traitlets.Int(0).tag(sync=True)
@@ -201,6 +212,7 @@ class CurveFitter(anywidget.AnyWidget):
         self._history: list[FitResult] = []
         self._callbacks: list[Callable[[FitResult], Any]] = []
         self._memory: dict[str, _Memory] = {}
+        self._comparison_key: tuple[int, ...] = ()
 
         if data is not None and not _is_table(data):
             # CurveFitter(x_values, y_values, model=...): arrays given positionally.
@@ -454,6 +466,23 @@ class CurveFitter(anywidget.AnyWidget):
             self._callbacks = [c for c in self._callbacks if c != callback]
         elif callback not in self._callbacks:
             self._callbacks.append(callback)
+
+    def compare_models(self) -> Comparison:
+        """Compare the latest converged fit of every model fitted so far (F test and AICc).
+
+        Raises
+        ------
+        ComparisonError
+            Fewer than two converged fits, or fits that cannot be compared (other exclusions,
+            other weights, a robust loss).
+        """
+        fits = self._comparable()
+        if len(fits) < 2:
+            raise ComparisonError(
+                "Fit at least two models to compare them (choose another model and press Fit); "
+                f"converged fits so far: {[r.model.name for r in fits]}."
+            )
+        return compare(*fits, names=[r.model.name for r in fits])
 
     # =================================================================== public: state
     def snapshot(self) -> dict[str, Any]:
@@ -799,6 +828,26 @@ class CurveFitter(anywidget.AnyWidget):
         self.fitted = None if res is None else _state.fitted_json(res, view, xs)
         self.preview_curve = None if model.has_preview else self._python_curve(self.values)
         self.compare = self._compare_json()
+        self._update_comparison()
+
+    def _comparable(self) -> list[FitResult]:
+        return [
+            m.result for m in self._memory.values() if m.result is not None and m.result.success
+        ]
+
+    def _update_comparison(self) -> None:
+        fits = self._comparable()
+        key = tuple(id(r) for r in fits)
+        if key == self._comparison_key:
+            return
+        self._comparison_key = key
+        if len(fits) < 2:
+            self.comparison_json = None
+            return
+        try:
+            self.comparison_json = compare(*fits, names=[r.model.name for r in fits]).to_dict()
+        except CurvewrightError as exc:
+            self.comparison_json = {"error": str(exc)}
 
     def _python_curve(
         self, values: Mapping[str, float], lo: float | None = None, hi: float | None = None
@@ -961,6 +1010,7 @@ class CurveFitter(anywidget.AnyWidget):
                 self._refresh_view()
             else:
                 self.compare = self._compare_json()
+                self._update_comparison()
             self.status = {"state": state, "message": message}
         try:
             self.result = res
