@@ -749,3 +749,32 @@ def test_guided_start_alone_is_exact_in_any_unit_of_y(name: str, factor: float) 
     for n, t in case.truth.items():
         want = t * factor if m.param(n).unit.startswith("y") else t
         assert start[n] == pytest.approx(want, rel=1e-6, abs=1e-9 * float(np.ptp(y))), n
+
+
+def _in_new_x_unit(unit: str, value: float, factor: float) -> float:
+    """A parameter's value after x is multiplied by ``factor`` (from its unit hint)."""
+    u = unit.replace(" ", "")
+    if u == "log10(x)":
+        return value + math.log10(factor)
+    if u == "x":
+        return value * factor
+    if u in ("1/x", "y/x"):
+        return value / factor
+    if u.startswith("y/x**"):
+        return value / factor ** int(u[5:])
+    return value
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+@pytest.mark.parametrize("factor", [1e-6, 1e6])
+def test_guided_start_alone_is_exact_in_any_unit_of_x(name: str, factor: float) -> None:
+    # Seconds or hours, molar or nanomolar: the start rule follows the unit of x.
+    m = catalog()[name]
+    case = CASES[name]
+    y = m.eval(case.x, case.truth)
+    start = guided_start(m, factor * case.x, y)
+    for n, t in case.truth.items():
+        want = _in_new_x_unit(m.param(n).unit, t, factor)
+        if name == "power_law" and n == "a":
+            want = t / factor ** case.truth["b"]  # a*x**b = (a/f**b)*(f*x)**b
+        assert start[n] == pytest.approx(want, rel=1e-6, abs=1e-9 * abs(want) + 1e-12), n

@@ -269,6 +269,7 @@ NIST_GENERIC: dict[str, tuple[tuple[str, ...], ...]] = {
 }
 NIST_GENERIC_SLOW = {
     "Gauss1": (("b3", "b4", "b5"), ("b6", "b7", "b8")),
+    "Gauss3": (("b3", "b4", "b5"), ("b6", "b7", "b8")),  # found in the later rounds of starts
     "ENSO": (),
     "Hahn1": (),
     "Lanczos1": (("b1", "b2"), ("b3", "b4"), ("b5", "b6")),
@@ -322,12 +323,11 @@ def test_nist_formula_from_the_generic_start(name: str) -> None:
 @pytest.mark.slow
 @pytest.mark.xfail(
     strict=True,
-    reason="known limitation: the generic multi-start's default budget does not find the two "
-    "overlapping peaks on an exponential baseline (it does with about 200 starts)",
+    reason="known limitation: the generic multi-start's default budget does not find Gauss2's "
+    "two overlapping peaks on an exponential baseline (it does with about 200 starts a round)",
 )
-@pytest.mark.parametrize("name", ["Gauss2", "Gauss3"])
-def test_nist_overlapping_peaks_from_the_generic_start(name: str) -> None:
-    _check_generic(name, (("b3", "b4", "b5"), ("b6", "b7", "b8")))
+def test_nist_gauss2_from_the_generic_start() -> None:
+    _check_generic("Gauss2", (("b3", "b4", "b5"), ("b6", "b7", "b8")))
 
 
 @pytest.mark.slow

@@ -502,12 +502,21 @@ class _Problem:
         lo, hi = self.u_bounds(self.nonlinear)
         u0 = np.clip(u0, np.nextafter(lo, hi), np.nextafter(hi, lo))
 
-        def fun(u: FloatArray) -> FloatArray:
-            return self.residual(self.full(u, base))
+        # Searched in units of each parameter's own size: least_squares checks gtol on the
+        # unscaled gradient, which otherwise depends on the unit of x (a midpoint at 3e7 has a
+        # tiny derivative and would stop the search at once). Log-space ones are unitless.
+        logged = np.array([self.logged(n) for n in self.nonlinear])
+        typ = np.where(logged, 1.0, np.abs(u0))
+        typ = np.where(typ > 0, typ, 1.0)
+
+        def fun(w: FloatArray) -> FloatArray:
+            return self.residual(self.full(w * typ, base))
 
         try:
-            sol = least_squares(fun, u0, bounds=(lo, hi), x_scale="jac", max_nfev=max_nfev)
-            u = sol.x
+            sol = least_squares(
+                fun, u0 / typ, bounds=(lo / typ, hi / typ), x_scale="jac", max_nfev=max_nfev
+            )
+            u = sol.x * typ
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             u = u0
         return self.full(u, base)
