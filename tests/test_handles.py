@@ -281,3 +281,13 @@ def test_vectors_cover_every_catalog_handle_and_the_edge_cases() -> None:
     outcomes = {(c["python"]["reached"], bool(c["python"]["clamped"])) for c in data["cases"]}
     assert outcomes == {(True, False), (False, False), (False, True)}
     assert any(c["kind"] == "pins" for c in data["cases"])
+
+
+def test_log_space_rule_matches_the_front_end() -> None:
+    # js/interact.ts moves exactly the log_scale parameters in log space; so does Python, and
+    # every positive catalog parameter (rates, concentrations, widths) is marked log_scale.
+    for m in catalog().values():
+        assert log_params(m) == {p.name for p in m.params if p.log_scale}
+        for p in m.params:
+            if p.positive:
+                assert p.log_scale, (m.name, p.name)

@@ -220,12 +220,13 @@ class _Unknowns:
 
 
 def log_params(model: Model) -> frozenset[str]:
-    """Parameters a drag moves in log space.
+    """Parameters a drag moves in log space: those marked ``log_scale``.
 
-    Positive ones (a rate, Km, a width) and log-scale ones that cannot go negative. The widget
-    passes the same set to ``js/handles.ts`` as ``logParams``.
+    The same rule as the front end (``solveOptions`` in ``js/interact.ts``), so both sides solve
+    the same problem. Catalog rates, concentrations and widths are all ``log_scale``; a value
+    that is not positive at the start of a drag moves linearly (as in ``js/handles.ts``).
     """
-    return frozenset(p.name for p in model.params if p.lower >= 0 and (p.positive or p.log_scale))
+    return frozenset(p.name for p in model.params if p.log_scale)
 
 
 def _values(model: Model, values: Mapping[str, float]) -> dict[str, float]:
