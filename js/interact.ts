@@ -258,3 +258,35 @@ export function throttle<T>(fn: (arg: T) => void, intervalMs: number, clock: Clo
     },
   };
 }
+
+/**
+ * Parse the "excluded rows" field: row numbers and ranges separated by commas or spaces
+ * ("3, 7 10-12"). Returns the sorted rows, or a message saying what is wrong.
+ */
+export function parseRows(text: string, nRows: number): { ok: true; rows: number[] } | { ok: false; message: string } {
+  const rows = new Set<number>();
+  for (const part of text.split(/[\s,;]+/).filter(Boolean)) {
+    const m = /^(\d+)(?:\s*[-–]\s*(\d+))?$/.exec(part);
+    if (!m) return { ok: false, message: `"${part}" is not a row number or a range like 3-7` };
+    const a = Number(m[1]);
+    const b = m[2] === undefined ? a : Number(m[2]);
+    if (b < a) return { ok: false, message: `range ${part} runs backwards` };
+    if (b >= nRows) return { ok: false, message: `row ${b} does not exist (rows are 0 to ${nRows - 1})` };
+    for (let r = a; r <= b; r++) rows.add(r);
+  }
+  return { ok: true, rows: [...rows].sort((x, y) => x - y) };
+}
+
+/** The excluded rows as compact text: runs of three or more as ranges ("1, 4-9, 12"). */
+export function formatRows(rows: readonly number[]): string {
+  const sorted = [...new Set(rows)].sort((a, b) => a - b);
+  const parts: string[] = [];
+  for (let i = 0; i < sorted.length; ) {
+    let j = i;
+    while (j + 1 < sorted.length && sorted[j + 1] === sorted[j]! + 1) j++;
+    if (j - i >= 2) parts.push(`${sorted[i]}-${sorted[j]}`);
+    else for (let k = i; k <= j; k++) parts.push(String(sorted[k]));
+    i = j + 1;
+  }
+  return parts.join(", ");
+}

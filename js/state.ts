@@ -73,6 +73,8 @@ export interface DataJson {
   sigma?: (number | null)[] | null;
   /** Number of input points before any thinning for display. */
   n_total?: number;
+  /** Number of input rows (NaN rows included); row numbers run from 0 to n_input - 1. */
+  n_input?: number;
   decimated?: boolean;
   /** Input rows not drawable on the current axes (x <= 0 on log x, y <= 0 on log y). */
   off_axis?: number[];

@@ -29,6 +29,8 @@
 //   axis scales           <select aria-label="x axis scale"> / "y axis scale" (linear | log)
 //   view                  buttons "Zoom in", "Zoom out", "Reset view"; "Box select" toggles
 //                         box exclusion (aria-pressed); Shift+drag boxes too
+//   excluded rows field   <input> labelled "Excluded rows" (.cw-excluded-input): rows as text
+//                         ("3, 7-9"), applied on Enter or change; keyboard route to exclusion
 //   points                drawn on <canvas class="cw-points">; a click within 7 px of a point
 //                         toggles its exclusion. root._cwPointXY(row) gives the viewport
 //                         {x, y} of an input row's point (null if not drawn) for page.mouse.click
@@ -47,8 +49,10 @@ import {
   PIN_PREFIX,
   dataRange,
   dragNote,
+  formatRows,
   freeParams,
   handleViews,
+  parseRows,
   pinViews,
   pinsOnCurve,
   placePins,
@@ -192,6 +196,22 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   });
   cleanups.push(() => plot.destroy());
 
+  // Keyboard access to exclusion: the rows as text ("3, 7-9"), applied on Enter or leaving.
+  const exclRow = h("div", { class: "cw-exclusion" });
+  const exclId = `cw-excl-${Math.random().toString(36).slice(2)}`;
+  const exclLabel = h("label", { for: exclId }, "Excluded rows");
+  const exclInput = h("input", {
+    id: exclId,
+    type: "text",
+    class: "cw-excluded-input",
+    autocomplete: "off",
+    spellcheck: "false",
+    placeholder: "none (click or box points, or type rows like 3, 7-9)",
+    "aria-describedby": `${exclId}-msg`,
+  });
+  const exclMsg = h("span", { id: `${exclId}-msg`, class: "cw-msg", "aria-live": "polite" });
+  exclRow.append(exclLabel, exclInput, exclMsg);
+  root.appendChild(exclRow);
   const notes = h("div", { class: "cw-notes" });
   root.appendChild(notes);
   const compareEl = h("div", { class: "cw-comparison" });
@@ -441,6 +461,27 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     points = readData(model.get("data"), model.get("excluded"));
     plot.setData(points, labelOf("x"), labelOf("y"), resetViewToo);
     root.dataset["cwExcluded"] = JSON.stringify(model.get("excluded") ?? []);
+    if (document.activeElement !== exclInput) exclInput.value = formatRows(model.get("excluded") ?? []);
+  }
+
+  function applyRowsField(): void {
+    const d: DataJson | null = model.get("data");
+    const parsed = parseRows(exclInput.value, d?.n_input ?? d?.n_total ?? points.n);
+    if (!parsed.ok) {
+      exclMsg.textContent = `${parsed.message}; not applied.`;
+      exclInput.setAttribute("aria-invalid", "true");
+      return;
+    }
+    exclMsg.textContent = "";
+    exclInput.removeAttribute("aria-invalid");
+    const current = model.get("excluded") ?? [];
+    if (formatRows(parsed.rows) === formatRows(current)) return;
+    model.set("excluded", parsed.rows);
+    model.save_changes();
+    points = readData(model.get("data"), parsed.rows);
+    plot.setData(points, labelOf("x"), labelOf("y"), false);
+    root.dataset["cwExcluded"] = JSON.stringify(parsed.rows);
+    announce(`${parsed.rows.length} point${parsed.rows.length === 1 ? "" : "s"} excluded`);
   }
 
   // ------------------------------------------------------------------ interactions
@@ -575,6 +616,13 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     });
   });
   on(cancelBtn, "click", () => send(model, { type: "cancel" }));
+  on(exclInput, "keydown", (e) => {
+    if (e.key === "Enter") {
+      e.preventDefault();
+      applyRowsField();
+    }
+  });
+  on(exclInput, "change", applyRowsField);
   on(dismiss, "click", () => {
     model.set("error", "");
     model.save_changes();

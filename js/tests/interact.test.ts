@@ -10,9 +10,11 @@ import {
   MAX_PINS,
   dataRange,
   dragNote,
+  formatRows,
   freeParams,
   handleAriaLabel,
   handleViews,
+  parseRows,
   pinViews,
   pinsOnCurve,
   placePins,
@@ -270,5 +272,24 @@ describe("tick labels", () => {
     expect(tickLabel(-0.001)).toBe("-0.001");
     expect(tickLabel(0)).toBe("0");
     expect(tickLabel(NaN)).toBe("");
+  });
+});
+
+describe("excluded rows as text", () => {
+  it("reads numbers and ranges, rejects what is not a row", () => {
+    expect(parseRows("3, 7 10-12;1", 20)).toEqual({ ok: true, rows: [1, 3, 7, 10, 11, 12] });
+    expect(parseRows("  ", 20)).toEqual({ ok: true, rows: [] });
+    expect(parseRows("3, x", 20)).toEqual({ ok: false, message: '"x" is not a row number or a range like 3-7' });
+    expect(parseRows("9-4", 20)).toMatchObject({ ok: false, message: "range 9-4 runs backwards" });
+    expect(parseRows("20", 20)).toMatchObject({ ok: false, message: "row 20 does not exist (rows are 0 to 19)" });
+    expect(parseRows("-1", 20)).toMatchObject({ ok: false });
+  });
+
+  it("writes runs of three or more as ranges and reads its own text back", () => {
+    const rows = [12, 1, 4, 5, 6, 7, 9, 10];
+    const text = formatRows(rows);
+    expect(text).toBe("1, 4-7, 9, 10, 12");
+    expect(parseRows(text, 13)).toEqual({ ok: true, rows: [...rows].sort((a, b) => a - b) });
+    expect(formatRows([])).toBe("");
   });
 });

@@ -283,6 +283,7 @@ def data_view(
         "x_label": ds.x_label,
         "y_label": ds.y_label,
         "n_total": int(n),
+        "n_input": int(ds.n_input),
         "decimated": bool(pos.size < n),
         "off_axis": ds.row[off].tolist(),
         "outside_domain": ds.row[outside].tolist(),
