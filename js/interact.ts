@@ -290,3 +290,25 @@ export function formatRows(rows: readonly number[]): string {
   }
   return parts.join(", ");
 }
+
+/**
+ * y of a sampled curve at `x` by linear interpolation on the axis (in decades on a log x
+ * axis); NaN outside the samples or next to an undefined sample. Places the pins of a callable
+ * model, whose curve only the kernel can evaluate.
+ */
+export function curveAt(samples: { x: ArrayLike<number>; y: ArrayLike<number | null> } | null, x: number, xLog: boolean): number {
+  if (samples === null) return NaN;
+  const t = (v: number): number => (xLog ? Math.log10(v) : v);
+  const tx = t(x);
+  const n = Math.min(samples.x.length, samples.y.length);
+  for (let i = 0; i + 1 < n; i++) {
+    const a = t(samples.x[i]!);
+    const b = t(samples.x[i + 1]!);
+    if (!(tx >= Math.min(a, b) && tx <= Math.max(a, b))) continue;
+    const ya = samples.y[i];
+    const yb = samples.y[i + 1];
+    if (typeof ya !== "number" || typeof yb !== "number") return NaN;
+    return b === a ? ya : ya + ((yb - ya) * (tx - a)) / (b - a);
+  }
+  return NaN;
+}

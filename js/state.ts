@@ -218,7 +218,18 @@ export type FrontMessage =
     }
   | { type: "cancel" }
   | { type: "guided_start" }
-  | { type: "preview"; values: Record<string, number>; x_min: number; x_max: number };
+  | { type: "preview"; values: Record<string, number>; x_min: number; x_max: number }
+  | {
+      type: "pins";
+      /** Callable models: the points the curve should pass through; Python solves. */
+      pins: [number, number][];
+      values: Record<string, number>;
+      x_min: number;
+      x_max: number;
+      /** The end of a drag: Python makes the solved values the parameters' values. */
+      final: boolean;
+      seq: number;
+    };
 
 // ---------------------------------------------------------------------------------------------
 // Reading synced values

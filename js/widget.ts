@@ -1,7 +1,8 @@
 // The widget's entry point (bundled by js/build.mjs into src/curvewright/static/widget.js):
 // anywidget's render() builds the page, wires the plot, the parameter panel and the synced
 // state, and returns a cleanup that unhooks every listener. Live preview during drags is
-// computed here from the model's expression tree; only callable models ask the kernel.
+// computed here from the model's expression tree; only callable models ask the kernel (their
+// curve for typed values, and their pins while dragged), at most once per 120 ms.
 //
 // ------------------------------------------------------------------------------------------
 // Stable DOM contract (browser tests rely on it; change only together with tests/browser/)
@@ -17,7 +18,9 @@
 //                         aria-label "<feature>: moves <params>" (e.g. "EC50: moves logEC50"),
 //                         aria-valuenow (value of the first moved parameter, or the pin's y),
 //                         aria-valuetext, data-handle=<handle name> or "pin:<i>";
-//                         Arrow keys nudge (1% of the plot), Shift+Arrow 10%.
+//                         Arrow keys nudge (1% of the plot), Shift+Arrow 10%. Models without
+//                         declared handles get pins (one per free parameter, up to 5); a
+//                         Python-callable model's pins are solved by the kernel (throttled).
 //   Fit                   the only <button> whose accessible name contains "Fit" (class .cw-fit;
 //                         reads "Fitting…" and is disabled while a fit runs)
 //   Cancel                <button> "Cancel" (.cw-cancel), hidden unless a fit runs
@@ -47,6 +50,7 @@ import { ExprError, evalCurve, evalScalar } from "./expr";
 import { SolveError, type Point } from "./handles";
 import {
   PIN_PREFIX,
+  curveAt,
   dataRange,
   dragNote,
   formatRows,
@@ -265,13 +269,27 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     return new Set(Object.entries(params).filter(([, s]) => s.fixed).map(([n]) => n));
   }
 
+  /** A callable model (no tree): its pins are solved by the kernel. */
+  function kernelPins(): boolean {
+    return mj.tree === null && mj.handles.length === 0;
+  }
+
+  /** Pins of a callable model moved vertically onto the kernel's latest curve samples. */
+  function pinsOnSamples(pins: readonly Point[]): Point[] {
+    const c = model.get("preview_curve");
+    return pins.map((p) => ({ x: p.x, y: curveAt(c, p.x, xScale === "log") }));
+  }
+
   function resetPins(): void {
-    if (!usesPins(mj)) {
+    if (!usesPins(mj) && !kernelPins()) {
       ui.pins = [];
       return;
     }
     const range = dataRange(points.x, xScale === "log") ?? [0, 1];
-    ui.pins = placePins(mj.tree, ui.preview, freeParams(mj, params).length, range, xScale === "log");
+    const n = freeParams(mj, params).length;
+    ui.pins = kernelPins()
+      ? pinsOnSamples(placePins(null, ui.preview, n, range, xScale === "log"))
+      : placePins(mj.tree, ui.preview, n, range, xScale === "log");
   }
 
   function drawCurrent(): void {
@@ -286,6 +304,11 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
       if (ui.pins.length === 0) resetPins();
       else if (!ui.dragging?.startsWith(PIN_PREFIX)) ui.pins = pinsOnCurve(mj.tree, values, ui.pins);
       plot.setHandles(pinViews(ui.pins, freeParams(mj, params)));
+    } else if (kernelPins()) {
+      if (ui.pins.length === 0) resetPins();
+      // Pins without a place on the curve yet (no samples there) are left out.
+      const shown = ui.pins.filter((p) => Number.isFinite(p.y));
+      plot.setHandles(shown.length === ui.pins.length ? pinViews(ui.pins, freeParams(mj, params)) : []);
     } else {
       plot.setHandles(mj.tree !== null ? handleViews(mj, values, fixedSet()) : []);
     }
@@ -516,7 +539,51 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     drawCurrent();
   }
 
+  // Callable models: pins go to the kernel, which solves and sends the curve back (throttled).
+  let pinSeq = 0;
+  const sendPins = (final: boolean): void => {
+    const { x } = plot.scales();
+    const [x0, x1] = x.domain() as [number, number];
+    send(model, {
+      type: "pins",
+      pins: ui.pins.map((p) => [p.x, p.y] as [number, number]),
+      values: { ...ui.preview },
+      x_min: Math.min(x0, x1),
+      x_max: Math.max(x0, x1),
+      final,
+      seq: ++pinSeq,
+    });
+  };
+  const kernelPinsThrottle = throttle(() => sendPins(false), KERNEL_PREVIEW_MS);
+  cleanups.push(() => kernelPinsThrottle.cancel());
+
+  function movePin(key: string, target: Point): void {
+    const i = Number(key.slice(PIN_PREFIX.length));
+    ui.pins = ui.pins.map((p, j) => (j === i ? target : p));
+    plot.setHandles(pinViews(ui.pins, freeParams(mj, params)));
+  }
+
+  function onKernelDrag(key: string, target: Point, phase: "start" | "move" | "end"): void {
+    if (phase === "start") {
+      ui.dragging = key;
+      typing = {};
+      return;
+    }
+    movePin(key, target);
+    if (phase === "move") {
+      kernelPinsThrottle.call(undefined);
+      return;
+    }
+    kernelPinsThrottle.cancel();
+    ui.dragging = null;
+    sendPins(true);
+  }
+
   function onDrag(key: string, target: Point, phase: "start" | "move" | "end"): void {
+    if (kernelPins()) {
+      onKernelDrag(key, target, phase);
+      return;
+    }
     if (phase === "start") {
       ui.dragging = key;
       typing = {};
@@ -545,7 +612,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   }
 
   function onNudge(key: string, dx: number, dy: number): void {
-    const views = usesPins(mj) ? pinViews(ui.pins, []) : handleViews(mj, ui.preview, fixedSet());
+    const views = usesPins(mj) || kernelPins() ? pinViews(ui.pins, []) : handleViews(mj, ui.preview, fixedSet());
     const v = views.find((w) => w.key === key);
     if (!v) return;
     const { px, py } = plot.project(v.pos);
@@ -554,12 +621,22 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     const cx = Number.isFinite(px) ? Math.max(0, Math.min(w, px)) : w / 2;
     const cy = Number.isFinite(py) ? Math.max(0, Math.min(hgt, py)) : hgt / 2;
     nudgeKey = key;
-    solveNow(key, plot.invert(cx + dx, cy + dy));
+    if (kernelPins()) {
+      movePin(key, plot.invert(cx + dx, cy + dy));
+      kernelPinsThrottle.call(undefined);
+    } else {
+      solveNow(key, plot.invert(cx + dx, cy + dy));
+    }
     if (ui.nudgeTimer !== null) clearTimeout(ui.nudgeTimer);
     ui.nudgeTimer = window.setTimeout(() => {
       ui.nudgeTimer = null;
       nudgeKey = null;
-      commitParams(withValues(params, ui.preview));
+      if (kernelPins()) {
+        kernelPinsThrottle.cancel();
+        sendPins(true);
+      } else {
+        commitParams(withValues(params, ui.preview));
+      }
     }, NUDGE_COMMIT_MS);
   }
   cleanups.push(() => {
@@ -640,7 +717,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     if (ui.dragging === null && nudgeKey === null) {
       const before = freeParams(mj, params).length;
       ui.preview = { ...valuesOf(mj, params), ...typing };
-      if (usesPins(mj) && before !== ui.pins.length) ui.pins = [];
+      if ((usesPins(mj) || kernelPins()) && before !== ui.pins.length) ui.pins = [];
       drawCurrent();
     }
   });
@@ -671,7 +748,18 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   listen("change:status", showStatus);
   listen("change:error", showError);
   listen("change:preview_curve", () => {
-    if (mj.tree === null) drawCurrent();
+    if (mj.tree !== null) return;
+    const pc = model.get("preview_curve") as
+      | ({ values?: Record<string, number>; pins?: [number, number | null][] } & object)
+      | null;
+    if (pc?.values && ui.dragging === null) ui.preview = { ...pc.values, ...typing };
+    else if (pc?.values) ui.preview = { ...pc.values };
+    if (kernelPins() && ui.pins.length) {
+      // Pins follow the kernel's curve, except the one under the pointer.
+      const held = ui.dragging ?? nudgeKey;
+      ui.pins = pinsOnSamples(ui.pins).map((p, i) => (held === `${PIN_PREFIX}${i}` ? ui.pins[i]! : p));
+    }
+    drawCurrent();
   });
 
   // Callable models preview typed values through the kernel.

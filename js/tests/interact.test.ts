@@ -8,6 +8,7 @@ import { evalCurve } from "../expr";
 import {
   type Clock,
   MAX_PINS,
+  curveAt,
   dataRange,
   dragNote,
   formatRows,
@@ -291,5 +292,18 @@ describe("excluded rows as text", () => {
     expect(text).toBe("1, 4-7, 9, 10, 12");
     expect(parseRows(text, 13)).toEqual({ ok: true, rows: [...rows].sort((a, b) => a - b) });
     expect(formatRows([])).toBe("");
+  });
+});
+
+describe("curveAt", () => {
+  it("interpolates a sampled curve linearly on the axis", () => {
+    // y = 2 + 3 log10(x) is a straight line in log10 x: exact between samples on a log axis.
+    const xs = [1e-3, 1e-2, 1e-1, 1];
+    const s = { x: xs, y: xs.map((v) => 2 + 3 * Math.log10(v)) };
+    expect(curveAt(s, 10 ** -1.5, true)).toBeCloseTo(2 - 4.5, 12);
+    expect(curveAt({ x: [0, 2], y: [1, 5] }, 0.5, false)).toBe(2);
+    expect(curveAt({ x: [0, 2], y: [1, null] }, 0.5, false)).toBeNaN();
+    expect(curveAt(s, 5, true)).toBeNaN();
+    expect(curveAt(null, 1, false)).toBeNaN();
   });
 });

@@ -501,3 +501,28 @@ def test_models_are_compared_once_two_are_fitted(w: CurveFitter) -> None:
     assert "error" in w.comparison_json
     with pytest.raises(cw.ComparisonError):
         w.compare_models()
+
+
+def test_callable_pins_are_solved_in_python(df: pd.DataFrame) -> None:
+    def line(x: Any, a: float, b: float) -> Any:
+        return a + b * np.asarray(x)
+
+    w = CurveFitter(df, x="conc", y="response", model=line, x_scale="linear")
+    before = dict(w.values)
+    # Dragging: the curve through (1, 3) and (2, 5) is y = 1 + 2x (two points fix a line).
+    msg = {"type": "pins", "pins": [[1.0, 3.0], [2.0, 5.0]], "values": before, "seq": 1}
+    page_sends(w, {**msg, "final": False, "x_min": 0.0, "x_max": 3.0})
+    c = w.preview_curve
+    assert c["values"]["a"] == pytest.approx(1.0, abs=1e-6)
+    assert c["values"]["b"] == pytest.approx(2.0, rel=1e-6)
+    assert [p[1] for p in c["pins"]] == pytest.approx([3.0, 5.0], rel=1e-6)
+    assert c["seq"] == 1 and w.values == before  # not committed during the drag
+    page_sends(w, {**msg, "final": True})
+    assert w.values["b"] == pytest.approx(2.0, rel=1e-6) and w.error == ""
+    # A fixed parameter stays: with a = 0 held, b is the least-squares slope through the
+    # origin, sum(x*y)/sum(x*x) = (3 + 10)/(1 + 4) = 2.6.
+    w.fix("a", 0.0)
+    page_sends(w, {**msg, "final": True})
+    assert w.values["a"] == 0.0 and w.values["b"] == pytest.approx(2.6, rel=1e-6)
+    page_sends(w, {"type": "pins", "pins": [[1.0]], "values": w.values})
+    assert "each pin is [x, y]" in w.error

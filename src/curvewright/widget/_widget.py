@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 import traitlets
 from numpy.typing import ArrayLike
+from scipy.optimize import least_squares
 
 from ..data import Dataset, make_dataset
 from ..errors import (
@@ -636,6 +637,8 @@ class CurveFitter(anywidget.AnyWidget):
                 self.reset_start()
             elif kind == "preview":
                 self._preview_request(content)
+            elif kind == "pins":
+                self._pins_request(content)
             elif kind == "dismiss":
                 self.error = ""
             else:
@@ -905,6 +908,58 @@ class CurveFitter(anywidget.AnyWidget):
         with self._internal():
             self.preview_curve = None if curve is None else {**curve, "values": values}
 
+    def _pins_request(self, content: Mapping[str, Any]) -> None:
+        """Generic pins of a callable model, dragged on the page: solve here, send the curve.
+
+        The page cannot evaluate a Python function, so it sends the pins (points the curve
+        should pass through) and Python solves for the free parameters, as the page's own
+        solver does for formula models. ``final`` marks the end of a drag: the solved values
+        become the parameters' values.
+        """
+        model = self.model
+        if model.has_preview:
+            return
+        raw_values = content.get("values")
+        if not isinstance(raw_values, Mapping):
+            raise ParameterError("pins: values must be a mapping name -> number.")
+        values = {n: _num(raw_values.get(n), f"value of {n!r}") for n in model.param_names}
+        raw_pins = content.get("pins")
+        if not isinstance(raw_pins, Sequence) or not 1 <= len(raw_pins) <= _MAX_PINS:
+            raise DataError(f"pins: expected 1 to {_MAX_PINS} points [x, y], got {raw_pins!r}.")
+        pts = []
+        for p in raw_pins:
+            if not isinstance(p, Sequence) or len(p) != 2:
+                raise DataError(f"pins: each pin is [x, y], got {p!r}.")
+            pts.append((_num(p[0], "pin x"), _num(p[1], "pin y")))
+        px = np.array([p[0] for p in pts])
+        py = np.array([p[1] for p in pts])
+        settings = self._mem().settings
+        # Fixed parameters keep Python's value whatever the page sent.
+        values.update({n: float(st["value"]) for n, st in settings.items() if st["fixed"]})
+        y_log = self.y_scale == "log"
+        solved = _solve_pins(model, values, settings, px, py, y_log, self._ds.y)
+        lo, hi = content.get("x_min"), content.get("x_max")
+        lo_f = float(lo) if isinstance(lo, (int, float)) and math.isfinite(lo) else None
+        hi_f = float(hi) if isinstance(hi, (int, float)) and math.isfinite(hi) else None
+        curve = self._python_curve(solved, lo_f, hi_f)
+        with np.errstate(all="ignore"):
+            pin_y = model.eval(px, solved)
+        with self.hold_sync(), self._internal():
+            if content.get("final"):
+                self._apply_settings(
+                    {n: {**st, "value": float(solved[n])} for n, st in settings.items()}
+                )
+            self.preview_curve = (
+                None
+                if curve is None
+                else {
+                    **curve,
+                    "values": solved,
+                    "pins": [[float(a), _opt(float(b))] for a, b in zip(px, pin_y, strict=True)],
+                    "seq": content.get("seq"),
+                }
+            )
+
     # ---- fitting
     def _request(self) -> _FitRequest:
         model = self.model
@@ -1024,6 +1079,56 @@ class CurveFitter(anywidget.AnyWidget):
 
 
 # ------------------------------------------------------------------------------ helpers
+# As many pins as js/interact.ts's MAX_PINS.
+_MAX_PINS = 5
+
+
+def _solve_pins(
+    model: Model,
+    values: Mapping[str, float],
+    settings: Mapping[str, Mapping[str, Any]],
+    px: np.ndarray,
+    py: np.ndarray,
+    y_log: bool,
+    y_data: np.ndarray,
+) -> dict[str, float]:
+    """Values of the free parameters that bring the curve closest to the pins.
+
+    Bounded least squares in the vertical direction (in log10 y on a log y axis), residuals
+    scaled by the data's y span so the solver's tolerances mean the same for any units.
+    """
+    free = [n for n in model.param_names if not settings[n]["fixed"]]
+    out = {n: float(values[n]) for n in model.param_names}
+    if not free:
+        return out
+    lo = np.array([float(settings[n]["lower"]) for n in free])
+    hi = np.array([float(settings[n]["upper"]) for n in free])
+    u0 = np.clip(np.array([out[n] for n in free]), lo, hi)
+    span = float(np.ptp(y_data[np.isfinite(y_data)])) if y_data.size else 1.0
+    scale = span if span > 0 else 1.0
+
+    def transform(v: np.ndarray) -> np.ndarray:
+        if not y_log:
+            return v / scale
+        with np.errstate(all="ignore"):
+            return np.where(v > 0, np.log10(np.where(v > 0, v, 1.0)), np.nan)
+
+    target = transform(py)
+
+    def resid(u: np.ndarray) -> np.ndarray:
+        vals = {**out, **dict(zip(free, u.tolist(), strict=True))}
+        with np.errstate(all="ignore"):
+            r = transform(model.eval(px, vals)) - target
+        # A curve undefined at a pin is far from it (the solver then steps back).
+        return np.where(np.isfinite(r), r, 1e6)
+
+    if not np.all(np.isfinite(target)):
+        return out
+    sol = least_squares(resid, u0, bounds=(lo, hi), max_nfev=100 * (len(free) + 1))
+    out.update(dict(zip(free, (float(v) for v in sol.x), strict=True)))
+    return out
+
+
 def _catalog() -> Mapping[str, Model]:
     from ..catalog import catalog
 
