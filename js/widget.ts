@@ -190,12 +190,9 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
       const next = toggleRows(model.get("excluded") ?? [], rows);
       const added = next.length > (model.get("excluded") ?? []).length;
       announce(`${rows.length === 1 ? `point ${rows[0]}` : `${rows.length} points`} ${added ? "excluded" : "included again"}`);
+      // set() fires change:excluded here at once (loadData redraws); Python answers later.
       model.set("excluded", next);
       model.save_changes();
-      // Draw at once; Python's answer (the same rows) arrives later.
-      points = readData(model.get("data"), next);
-      plot.setData(points, labelOf("x"), labelOf("y"), false);
-      root.dataset["cwExcluded"] = JSON.stringify(next);
     },
   });
   cleanups.push(() => plot.destroy());
@@ -501,9 +498,6 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     if (formatRows(parsed.rows) === formatRows(current)) return;
     model.set("excluded", parsed.rows);
     model.save_changes();
-    points = readData(model.get("data"), parsed.rows);
-    plot.setData(points, labelOf("x"), labelOf("y"), false);
-    root.dataset["cwExcluded"] = JSON.stringify(parsed.rows);
     announce(`${parsed.rows.length} point${parsed.rows.length === 1 ? "" : "s"} excluded`);
   }
 
