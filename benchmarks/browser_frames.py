@@ -12,7 +12,10 @@ What is measured, in JupyterLab 4 with Debian's chromium (headless, software ren
   callback is delivered, which happens after that frame's input handling, rAF callbacks
   (the widget's solve and redraw), style, layout and paint recording. A MutationObserver on the
   curve's path also gives input-to-redraw latency: from a pointermove event's timeStamp to the
-  next change of the path's ``d``. Budget: 16.7 ms per frame at 60 Hz.
+  next change of the path's ``d``; and the page's rAF callbacks are timed (the widget's solve
+  and redraw JavaScript alone). Budget: 16.7 ms per frame at 60 Hz. The same is measured for a
+  pan of the view, which redraws the points as well as the curve (the page gets a thinned view
+  of 20k points when there are 100k; the fit uses all of them).
 * Kernel round trip for a Python-callable model's preview: (a) the preview message sent through
   the widget's model until ``preview_curve`` comes back; (b) what a person sees: typing a value
   into the panel until the curve's path changes (the page throttles requests to one per 120 ms;
@@ -65,15 +68,24 @@ w
 
 RECORDER_JS = """(root) => {
   const rec = { frames: [], work: [], moves: [], paths: [], on: true };
+  const raf = window.requestAnimationFrame;
   const loop = (ts) => {
     if (!rec.on) return;
     rec.frames.push(ts);
     const ch = new MessageChannel();
     ch.port1.onmessage = () => rec.work.push([ts, performance.now() - ts]);
     ch.port2.postMessage(null);
-    requestAnimationFrame(loop);
+    raf.call(window, loop);
   };
-  requestAnimationFrame(loop);
+  raf.call(window, loop);
+  // Time the page's other rAF callbacks (the widget's solve and redraw) frame by frame: their
+  // JavaScript alone, without style, layout and paint. Our own loop keeps the original.
+  rec.js = [];
+  window.requestAnimationFrame = (cb) => raf.call(window, (ts) => {
+    const t0 = performance.now();
+    try { cb(ts); } finally { rec.js.push([ts, performance.now() - t0]); }
+  });
+  rec.restore = () => { window.requestAnimationFrame = raf; };
   const onMove = (e) => { if (e.buttons) rec.moves.push(e.timeStamp); };
   root.addEventListener('pointermove', onMove, { capture: true });
   // Only real changes count: setting d to the same string also makes a mutation record.
@@ -85,18 +97,19 @@ RECORDER_JS = """(root) => {
   });
   mo.observe(path, { attributes: true, attributeFilter: ['d'] });
   root._cwBench = { rec, stop: () => {
-    rec.on = false; mo.disconnect();
+    rec.on = false; mo.disconnect(); rec.restore();
     root.removeEventListener('pointermove', onMove, { capture: true });
   } };
 }"""
 
 STOP_JS = """(root) => { root._cwBench.stop(); const r = root._cwBench.rec;
-  return { frames: r.frames, work: r.work, moves: r.moves, paths: r.paths }; }"""
+  return { frames: r.frames, work: r.work, moves: r.moves, paths: r.paths, js: r.js }; }"""
 
-PREVIEW_TRIPS_JS = """async (root, n) => {
+PREVIEW_TRIPS_JS = """async (root, [n, gap]) => {
   const m = root._cwModel, times = [];
   const [x0, x1] = [0.5, 64];
   for (let i = 0; i < n; i++) {
+    if (gap > 0) await new Promise((res) => setTimeout(res, gap));
     const values = { Vmax: 10 + (i % 7), Km: 4 + (i % 3) };
     const t0 = performance.now();
     await new Promise((res) => {
@@ -112,8 +125,16 @@ PREVIEW_TRIPS_JS = """async (root, n) => {
 }"""
 
 TYPED_JS = """(root) => {
-  const rec = { inputs: [], paths: [] };
+  const rec = { inputs: [], paths: [], sent: [], arrived: [] };
   root.addEventListener('input', (e) => rec.inputs.push(e.timeStamp), { capture: true });
+  // Timestamps of the preview request leaving and of its answer arriving, for the breakdown.
+  const m = root._cwModel;
+  const send = m.send.bind(m);
+  m.send = (msg, ...rest) => {
+    if (msg && msg.type === 'preview') rec.sent.push(performance.now());
+    return send(msg, ...rest);
+  };
+  m.on('change:preview_curve', () => rec.arrived.push(performance.now()));
   const path = root.querySelector('path.cw-curve');
   let last = path.getAttribute('d');
   const mo = new MutationObserver(() => {
@@ -160,11 +181,19 @@ def open_widget(
     return cwpage.wait_rendered(page, timeout=180_000, handles=handles)
 
 
-def drag_frames(page: Any, root: Any, moves: int, amplitude: float) -> dict[str, list[float]]:
-    """Drag the midpoint handle back and forth with the mouse while recording frames."""
-    handle = cwpage.handle_named(root, "EC50")
-    handle.scroll_into_view_if_needed()
-    x, y = cwpage.centre(handle)
+def drag_frames(
+    page: Any, root: Any, moves: int, amplitude: float, *, pan: bool = False
+) -> dict[str, list[float]]:
+    """Drag the midpoint handle (or, with ``pan``, the empty top-left of the plot, which pans
+    the view and redraws the points too) back and forth while recording frames."""
+    if pan:
+        cwpage.show_plot(root)
+        box = root.locator(".cw-surface").first.bounding_box()
+        x, y = box["x"] + 20, box["y"] + 20
+    else:
+        handle = cwpage.handle_named(root, "EC50")
+        handle.scroll_into_view_if_needed()
+        x, y = cwpage.centre(handle)
     root.evaluate(RECORDER_JS)
     page.mouse.move(x, y)
     page.mouse.down()
@@ -185,6 +214,10 @@ def drag_frames(page: Any, root: Any, moves: int, amplitude: float) -> dict[str,
     paths = rec["paths"]
     work_all = [(t, w) for t, w in rec["work"] if t_first <= t <= t_last + 50]
     work = [w for t, w in work_all if any(t <= p <= t + w for p in paths)]
+    js_by_frame: dict[float, float] = {}
+    for t, w in rec["js"]:
+        if t_first <= t <= t_last + 50:
+            js_by_frame[t] = js_by_frame.get(t, 0.0) + w
     # Input-to-redraw: each path change answers the oldest move not yet answered.
     latency = []
     j = 0
@@ -199,18 +232,30 @@ def drag_frames(page: Any, root: Any, moves: int, amplitude: float) -> dict[str,
         "interval": intervals,
         "work_redraw": work,
         "work_all": [w for _, w in work_all],
+        "widget_js": list(js_by_frame.values()),
         "latency": latency,
         "moves_per_s": [len(moves_t) / duration if duration > 0 else float("nan")],
         "redraws_per_s": [len(latency) / duration if duration > 0 else float("nan")],
     }
 
 
-def typed_round_trips(page: Any, root: Any, n: int) -> list[float]:
-    """Type a new Vmax into the panel n times; time from the input event to the redrawn curve."""
+def idle_frames(page: Any, root: Any, ms: int = 1500) -> list[float]:
+    """Main-thread frame time with nothing happening: the floor the drag figures sit on
+    (headless chromium's frame scheduling and the recorder's own message hop)."""
+    root.evaluate(RECORDER_JS)
+    page.wait_for_timeout(ms)
+    rec = root.evaluate(STOP_JS)
+    return [w for _, w in rec["work"]]
+
+
+def typed_round_trips(page: Any, root: Any, n: int) -> dict[str, list[float]]:
+    """Type a new Vmax into the panel n times; time from the input event to the redrawn curve,
+    split into: input -> request sent, sent -> answer arrived (the kernel round trip), and
+    answer -> curve redrawn."""
     root.evaluate(TYPED_JS)
     box = root.get_by_role("textbox", name="Vmax", exact=True)
     box.scroll_into_view_if_needed()
-    out = []
+    out: dict[str, list[float]] = {"total": [], "to_send": [], "kernel": [], "to_redraw": []}
     for i in range(n):
         before = cwpage.curve_d(root)
         box.fill(f"{10 + (i % 7) + 0.5:g}")
@@ -222,7 +267,12 @@ def typed_round_trips(page: Any, root: Any, n: int) -> list[float]:
         rec = root.evaluate("(el) => el._cwTyped")
         t_in = rec["inputs"][-1]
         t_path = next(p for p in rec["paths"] if p >= t_in)
-        out.append(t_path - t_in)
+        t_sent = next(t for t in rec["sent"] if t >= t_in)
+        t_back = next(t for t in rec["arrived"] if t >= t_sent)
+        out["total"].append(t_path - t_in)
+        out["to_send"].append(t_sent - t_in)
+        out["kernel"].append(t_back - t_sent)
+        out["to_redraw"].append(t_path - t_back)
         page.wait_for_timeout(200)  # past the 120 ms throttle, so each trip starts fresh
     return out
 
@@ -259,7 +309,12 @@ def main() -> None:
                             with_bundle(FORMULA_CELL.format(n=n), args.bundle),
                         )
                         drag_frames(page, root, 60, 80)  # warm-up (JIT, first paints)
-                        results[f"drag {n:,} points"] = drag_frames(page, root, args.moves, 120)
+                        figs = drag_frames(page, root, args.moves, 120)
+                        figs["work_idle"] = idle_frames(page, root)
+                        results[f"handle drag, {n:,} points"] = figs
+                        results[f"pan (points redrawn), {n:,} points"] = drag_frames(
+                            page, root, args.moves, 120, pan=True
+                        )
                         srv.shutdown_kernels()
                 root = open_widget(
                     page,
@@ -269,13 +324,14 @@ def main() -> None:
                     handles=False,
                 )
                 label = "Nagle off" if nodelay else "stock server"
-                root.evaluate(PREVIEW_TRIPS_JS, 5)  # warm-up
-                results[f"callable preview message, {label}"] = {
-                    "round_trip": root.evaluate(PREVIEW_TRIPS_JS, args.trips)
+                root.evaluate(PREVIEW_TRIPS_JS, [5, 0])  # warm-up
+                results[f"callable preview round trip, {label}"] = {
+                    "back_to_back": root.evaluate(PREVIEW_TRIPS_JS, [args.trips, 0]),
+                    "spaced_200ms": root.evaluate(PREVIEW_TRIPS_JS, [args.trips, 200]),
                 }
-                results[f"callable typed value to redraw, {label}"] = {
-                    "round_trip": typed_round_trips(page, root, max(10, args.trips // 2))
-                }
+                results[f"callable typed value to redraw, {label}"] = typed_round_trips(
+                    page, root, max(10, args.trips // 2)
+                )
                 ctx.close()
             finally:
                 srv.stop()
