@@ -594,6 +594,7 @@ export class Plot {
       .attr("data-lm-suppress-shortcuts", "true")
       .attr("data-handle", (h) => h.key)
       .each((_, i, nodes) => this.wireHandle(nodes[i] as SVGGElement));
+    entered.append("title"); // a native tooltip naming the feature for mouse users
     entered.append("circle").attr("class", "cw-handle-hit").attr("r", 13);
     entered.append("circle").attr("class", "cw-handle-dot").attr("r", 6.5);
     const all = entered.merge(sel);
@@ -614,6 +615,8 @@ export class Plot {
       g.classList.toggle("cw-offview", !inside);
       g.classList.toggle("cw-pin", h.pin);
       g.setAttribute("aria-label", h.ariaLabel);
+      const title = g.querySelector("title");
+      if (title && title.textContent !== h.ariaLabel) title.textContent = h.ariaLabel;
       g.setAttribute("aria-valuenow", String(h.valueNow));
       g.setAttribute("aria-valuetext", h.valueText);
       g.dataset["x"] = String(h.pos.x);

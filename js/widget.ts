@@ -197,6 +197,21 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   });
   cleanups.push(() => plot.destroy());
 
+  // A quiet key to the line styles (hidden from assistive technology: the same facts are in
+  // the status line and the result text).
+  const legend = h("div", { class: "cw-legend", "aria-hidden": "true" });
+  const swatch = (cls: string, text: string): HTMLElement => {
+    const item = h("span", { class: `cw-legend-item ${cls}` });
+    item.append(h("span", { class: "cw-swatch" }), h("span", {}, text));
+    return item;
+  };
+  legend.append(
+    swatch("cw-legend-start", "curve at the values in the table"),
+    swatch("cw-legend-fit", "fitted curve"),
+    swatch("cw-legend-compare", "earlier fits of other models"),
+  );
+  root.insertBefore(legend, plot.el);
+
   // Keyboard access to exclusion: the rows as text ("3, 7-9"), applied on Enter or leaving.
   const exclRow = h("div", { class: "cw-exclusion" });
   const exclId = `cw-excl-${Math.random().toString(36).slice(2)}`;
@@ -326,6 +341,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   function drawFitted(): void {
     const f: FittedJson | null = model.get("fitted");
     const mine = f !== null && (f.model_name === undefined || f.model_name === mj.name);
+    legend.classList.toggle("cw-has-fit", mine);
     if (!mine || f === null) {
       plot.setFitted(null, null);
       root.dataset["cwFitted"] = "";
@@ -348,10 +364,11 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     const weights = new Map<string, number | null>();
     if (cmp && "table" in cmp) for (const row of cmp.table) weights.set(row.fit, row.akaike_weight);
     plot.setCompare(list.filter((c) => !c.current).map((c) => ({ name: c.model_name, source: samples(c.curve) })));
+    legend.classList.toggle("cw-has-compare", list.some((c) => !c.current));
     compareEl.replaceChildren();
     if (list.length < 2) return;
     const table = h("table", { class: "cw-fits" });
-    table.appendChild(h("caption", {}, "Fits so far (the current model is marked; other fits are drawn dashed)"));
+    table.appendChild(h("caption", {}, "Fits so far (the current model is marked; other models' fits are drawn dotted)"));
     const head = h("tr");
     for (const t of ["model", "free parameters", "n", "SSR", "R²", "AICc", "Akaike weight"]) {
       head.appendChild(h("th", { scope: "col" }, t));
