@@ -526,3 +526,18 @@ def test_callable_pins_are_solved_in_python(df: pd.DataFrame) -> None:
     assert w.values["a"] == 0.0 and w.values["b"] == pytest.approx(2.6, rel=1e-6)
     page_sends(w, {"type": "pins", "pins": [[1.0]], "values": w.values})
     assert "each pin is [x, y]" in w.error
+
+
+def test_guided_start_on_large_data_uses_a_subset_and_stays_close() -> None:
+    # 50k points from a known 4PL: the start (from 5000 evenly spaced points) lands near the
+    # truth, and the fit (on every point) recovers it within its 99.9% intervals.
+    rng = np.random.default_rng(5)
+    x = 10.0 ** rng.uniform(-9.0, -4.0, 50_000)
+    y = four_pl(x, **TRUTH) + rng.normal(0.0, 3.0, x.size)
+    w = CurveFitter(x, y, model="inhibition_4pl")
+    assert abs(w.values["logIC50"] - TRUTH["logIC50"]) < 0.1
+    r = w.fit()
+    assert r.n == 50_000
+    ci = r.ci(0.999)
+    for name, truth in TRUTH.items():
+        assert ci.loc[name, "lower"] <= truth <= ci.loc[name, "upper"], name
