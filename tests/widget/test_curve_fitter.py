@@ -541,3 +541,19 @@ def test_guided_start_on_large_data_uses_a_subset_and_stays_close() -> None:
     ci = r.ci(0.999)
     for name, truth in TRUTH.items():
         assert ci.loc[name, "lower"] <= truth <= ci.loc[name, "upper"], name
+
+
+def test_sigma_and_fit_options_reach_the_fit(df: pd.DataFrame) -> None:
+    df = df.assign(sd=2.0)
+    w = CurveFitter(
+        df,
+        x="conc",
+        y="response",
+        model="inhibition_4pl",
+        sigma="sd",
+        fit_options={"loss": "soft_l1", "max_nfev": 5000},
+    )
+    r = w.fit()
+    assert r.weighting == "sigma" and r.loss == "soft_l1"
+    # With sigma = 2 for every point, weighted residuals are the residuals halved.
+    np.testing.assert_allclose(r.weighted_residuals, r.residuals / 2.0, rtol=1e-12)
