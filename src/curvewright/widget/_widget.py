@@ -396,7 +396,8 @@ class CurveFitter(anywidget.AnyWidget):
 
         The fit runs in a worker thread. With ``wait=True`` (the default) this call waits for
         it and returns the :class:`FitResult`; with ``wait=False`` it returns at once and the
-        result arrives in :attr:`result` (and the ``on_fit`` callbacks) when done. While a cell
+        result arrives in :attr:`result` (and the ``on_fit`` callbacks) when done; in a kernel it
+        is applied once the running cell has finished, or at once by :meth:`wait`. While a cell
         waits, the kernel cannot hear the page's Cancel button: use ``wait=False`` (then
         :meth:`cancel` or the button) or a ``timeout`` in ``fit_options`` for long fits.
 
