@@ -334,3 +334,60 @@ def test_every_control_is_reachable_by_tab(
         assert any(p in n and k == "input|checkbox" for k, n in zip(kinds, names, strict=True)), (
             f"{p} fixed checkbox not reached by Tab: {seen}"
         )
+
+
+SLOW_SETUP = """
+import json, time
+import numpy as np
+import curvewright as cw
+
+# A Python-callable model that can be made slow, so a fit lasts long enough to be watched.
+SLOW = [0.0]
+def decay(x, a, k):
+    time.sleep(SLOW[0])
+    return a * np.exp(-k * x)
+
+rng = np.random.default_rng(3)
+t = np.linspace(0, 10, 25)
+w = cw.CurveFitter(t, 8 * np.exp(-0.4 * t) + rng.normal(0, 0.1, t.size), model=decay)
+w
+"""
+SLOW_RESULT = """
+r = w.result
+print("RESULT", json.dumps(None if r is None else {"success": bool(r.success), "code": r.code}))
+"""
+SLOW_START = """
+w.set_param("a", value=3.0)
+w.set_param("k", value=2.0)
+SLOW[0] = 0.5  # seconds per model evaluation from now on
+"""
+
+
+def test_fit_runs_beside_the_kernel_and_can_be_cancelled(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    name = notebook(cells=[SLOW_SETUP, SLOW_RESULT, SLOW_START, "print('RESPONSIVE', 6 * 7)"])
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, 0)
+    root = cwpage.wait_rendered(page, handles=False)  # a callable model has no handles
+    harness.run_cell(page, 2)
+    fit = root.get_by_role("button", name=re.compile("Fit"))
+    cancel = root.get_by_role("button", name="Cancel")
+    assert cancel.is_hidden()
+    fit.click()
+    cwpage.wait_root_attr(page, root, "data-cw-status", "fitting")
+    assert cancel.is_visible() and fit.is_disabled()
+    # The kernel runs another cell while the fit goes on in its worker thread.
+    harness.run_cell(page, 3)
+    assert "RESPONSIVE 42" in harness.cell_output(page, 3)
+    assert root.get_attribute("data-cw-status") == "fitting", "the fit ended before the check"
+    assert "fitting" in root.get_by_role("status").inner_text()
+    cancel.click()
+    cwpage.wait_root_attr(page, root, "data-cw-status", "stopped", timeout=120_000)
+    assert cancel.is_hidden() and fit.is_enabled()
+    harness.run_cell(page, 1)
+    out = harness.cell_output(page, 1)
+    m = re.search(r"RESULT (.*)", out)
+    assert m, out
+    assert json.loads(m.group(1)) == {"success": False, "code": "cancelled"}
+    assert harness.real_page_errors(page.cw_errors) == []
