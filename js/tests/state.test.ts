@@ -1,7 +1,7 @@
 // Reading the synced traits (state.ts) and checking what a person types (validate.ts). The
 // rules for a setting are the Python side's (src/curvewright/widget/_state.py validate_setting):
 // lower <= upper, value inside the bounds, no negative value or lower bound for a positive
-// parameter; the cases below are the ones tests/widget/test_state.py checks in Python.
+// parameter (tests/widget/test_state.py checks the Python side against the same rules).
 import { describe, expect, it } from "vitest";
 import { type DataJson, type ModelJson, boundsOf, readData, toggleRows, valuesOf } from "../state";
 import { checkSetting, formatNumber, parseField } from "../validate";
