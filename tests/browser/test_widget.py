@@ -391,3 +391,138 @@ def test_fit_runs_beside_the_kernel_and_can_be_cancelled(
     assert m, out
     assert json.loads(m.group(1)) == {"success": False, "code": "cancelled"}
     assert harness.real_page_errors(page.cw_errors) == []
+
+
+PINS_SETUP = """
+import json
+import numpy as np
+import curvewright as cw
+rng = np.random.default_rng(11)
+t = np.linspace(0, 10, 25)
+w = cw.CurveFitter(t, 2 + 6 * np.exp(-0.5 * t) + rng.normal(0, 0.1, t.size),
+                   model="a*exp(-k*x) + c")
+w
+"""
+PINS_STATE = """
+print("STATE", json.dumps({"settings": w.settings}))
+"""
+
+
+def _pins(root: Any) -> list[tuple[float, float]]:
+    return [
+        (float(h.get_attribute("data-x")), float(h.get_attribute("data-y")))
+        for h in root.locator('[role="slider"][data-handle^="pin:"]').all()
+    ]
+
+
+def test_generic_pins_drag_keeps_the_curve_through_the_other_pins(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    # A formula typed by the user declares no handles, so the widget puts pins on the curve,
+    # one per free parameter; dragging one solves for the parameters that keep the curve
+    # through all pins (issue 4). Checked in Python with the kernel's parameter values.
+    name = notebook(cells=[PINS_SETUP, PINS_STATE])
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, 0)
+    root = cwpage.wait_rendered(page)
+    pins = root.locator('[role="slider"][data-handle^="pin:"]')
+    assert pins.count() == 3, "three free parameters should give three pins"
+    assert re.search(r"moves a, k, c", pins.first.get_attribute("aria-label") or "")
+    before = _pins(root)
+    cwpage.show_plot(root)
+    ax = cwpage.axes(root)
+    target = pins.nth(0)
+    v0 = target.get_attribute("aria-valuenow")
+    cwpage.drag(page, target, 0, -40)
+    cwpage.wait_attr_change(page, target, "aria-valuenow", v0)
+    harness.flush(root)
+    s = cwpage.kernel_json(page, 1, "STATE")
+    a, k, c = (float(s["settings"][p]["value"]) for p in ("a", "k", "c"))
+
+    def f(x: float) -> float:
+        return a * math.exp(-k * x) + c
+
+    px_per_unit = abs(ax.y.slope)
+    # The pins not dragged stay where they were, and the curve Python now holds passes
+    # through them (within 1.5 px, the scale the handle solver works in).
+    for (x, y), (x1, y1) in zip(before[1:], _pins(root)[1:], strict=True):
+        assert (x1, y1) == pytest.approx((x, y), rel=1e-6, abs=1e-9)
+        assert abs(f(x) - y) * px_per_unit < 1.5, (x, y, f(x))
+    # The dragged pin went up by about the 40 px the mouse moved, and the curve with it.
+    x0, y0 = before[0]
+    x0n, y0n = _pins(root)[0]
+    assert abs(ax.x(x0n) - ax.x(x0)) < 2.0  # a vertical drag keeps the pin's x
+    assert (y0n - y0) * px_per_unit == pytest.approx(40, abs=4)
+    assert abs(f(x0n) - y0n) * px_per_unit < 1.5
+    assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_box_select_excludes_and_a_click_includes_again(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    root = _open_flow(page, server, notebook)
+    s0 = _state(page, root)
+    rows = [33, 34, 35]  # the three wells at the highest concentration
+    box = root.get_by_role("button", name="Box select")
+    box.click()
+    assert box.get_attribute("aria-pressed") == "true"
+    # Page positions are read after the click: clicking a button scrolls it into view.
+    cwpage.show_plot(root)
+    ax = cwpage.axes(root)
+    pts = [ax.to_page(s0["data"]["x"][r], s0["data"]["y"][r]) for r in rows]
+    x_lo, x_hi = min(p[0] for p in pts) - 12, max(p[0] for p in pts) + 12
+    y_lo, y_hi = min(p[1] for p in pts) - 12, max(p[1] for p in pts) + 12
+    page.mouse.move(x_lo, y_lo)
+    page.mouse.down()
+    page.mouse.move(x_hi, y_hi, steps=8)
+    page.mouse.up()
+    cwpage.wait_root_attr(page, root, "data-cw-excluded", json.dumps(rows).replace(" ", ""))
+    box.click()
+    assert box.get_attribute("aria-pressed") == "false"
+    # A click on an excluded point brings it back.
+    cwpage.show_plot(root)
+    ax = cwpage.axes(root)
+    page.mouse.click(*ax.to_page(s0["data"]["x"][34], s0["data"]["y"][34]))
+    cwpage.wait_root_attr(page, root, "data-cw-excluded", "[33,35]")
+    s1 = _state(page, root)
+    assert s1["excluded"] == [33, 35]
+    assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_model_chooser_switches_model_and_keeps_the_earlier_fit_for_comparison(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    name = notebook(
+        cells=[
+            SETUP,
+            "w.fit(); print('MODELS', json.dumps({'model': w.model.name, 'fits': sorted(w.fits)}))",
+        ]
+    )
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, 0)
+    root = cwpage.wait_rendered(page)
+    harness.run_cell(page, 1)  # a 4PL fit made from Python
+    cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
+    root.get_by_role("combobox", name="Model").select_option("stimulation_3pl")
+    cwpage.wait_root_attr(page, root, "data-cw-model", "stimulation_3pl")
+    # The 3PL has no bottom: the panel follows the model.
+    assert root.get_by_role("textbox", name="bottom", exact=True).count() == 0
+    assert root.get_by_role("textbox", name="top", exact=True).count() == 1
+    assert cwpage.handles(root).count() >= 1
+    root.get_by_role("button", name=re.compile("Fit")).click()
+    cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
+    assert root.get_attribute("data-cw-model") == "stimulation_3pl"
+    table = root.locator("table", has_text="Fits so far")
+    table.wait_for()
+    text = table.inner_text()
+    assert "stimulation_4pl" in text and "stimulation_3pl" in text, text
+    harness.flush(root)
+    harness.run_cell(page, 1)  # fits again, now the 3PL, and reports what Python holds
+    out = harness.cell_output(page, 1)
+    m = re.search(r"MODELS (\{.*\})", out)
+    assert m, out
+    assert json.loads(m.group(1)) == {
+        "model": "stimulation_3pl",
+        "fits": ["stimulation_3pl", "stimulation_4pl"],
+    }
+    assert harness.real_page_errors(page.cw_errors) == []
