@@ -618,7 +618,7 @@ class CurveFitter(anywidget.AnyWidget):
                         raise ModelError(
                             unknown_name_message(str(new), list(self._models), "the chooser")
                         )
-                    self._switch(str(new), previous=str(change["old"]))
+                    self._switch(str(new))
                 else:  # sync_ping
                     self.sync_pong = int(change["new"])
         except Exception as exc:
@@ -809,7 +809,7 @@ class CurveFitter(anywidget.AnyWidget):
         self.params = _state.params_json(mem.settings)
         self._refresh_view()
 
-    def _switch(self, name: str, previous: str | None = None) -> None:
+    def _switch(self, name: str) -> None:
         model = self._models[name]
         note = ""
         if name not in self._memory:
@@ -1030,16 +1030,17 @@ class CurveFitter(anywidget.AnyWidget):
         with self._lock:
             self._pending = (req, outcome)
         if mode == "loop":
-            post(self._apply_pending_quietly)
+            post(self._apply_from_loop)
         elif mode == "direct":
             with self._lock:
-                self._apply_pending_quietly()
+                self._apply_pending()
 
     def _set_status(self, state: FitState, message: str) -> None:
         with self._internal():
             self.status = {"state": state, "message": message}
 
-    def _apply_pending_quietly(self) -> None:
+    def _apply_from_loop(self) -> None:
+        # call_soon_threadsafe wants a callable returning None.
         self._apply_pending()
 
     def _apply_pending(self) -> FitResult | BaseException | None:
