@@ -30,6 +30,7 @@ import argparse
 import itertools
 import json
 import math
+import os
 import platform
 import statistics
 import sys
@@ -350,8 +351,50 @@ def main() -> None:
             over = sum(1 for w in figs["work_redraw"] if w > 1000 / 60)
             n = len(figs["work_redraw"])
             print(f"  redraw frames over 16.7 ms of main-thread time: {over} of {n}")
+    print_readme_table(results)
     if args.json:
         args.json.write_text(json.dumps(results, indent=1))
+
+
+def print_readme_table(results: dict[str, Any]) -> None:
+    """The figures in two Markdown tables (median / 95th percentile, ms) for README."""
+
+    def mp(vals: list[float]) -> str:
+        return f"{statistics.median(vals):.1f} / {pct(vals, 0.95):.1f}"
+
+    cpus = os.cpu_count()
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"\nFor README ({cpus} CPUs, 1-min load average {load:.1f} at the end of the run):\n")
+    print(
+        "| interaction | frames over 16.7 ms | main-thread frame time | widget JS per frame "
+        "| input to redraw |"
+    )
+    print("| --- | --- | --- | --- | --- |")
+    for name, figs in results.items():
+        if "work_redraw" not in figs:
+            continue
+        over = sum(1 for w in figs["work_redraw"] if w > 1000 / 60)
+        print(
+            f"| {name} | {over} of {len(figs['work_redraw'])} | {mp(figs['work_redraw'])} "
+            f"| {mp(figs['widget_js'])} | {mp(figs['latency'])} |"
+        )
+    print("\n| callable-model preview | round trip (median / p95 ms) |")
+    print("| --- | --- |")
+    for name, figs in results.items():
+        if "work_redraw" in figs:
+            continue
+        for key, vals in figs.items():
+            if key in ("to_send", "to_redraw"):
+                continue
+            label = {
+                "back_to_back": "message to answer, trips back to back",
+                "spaced_200ms": "message to answer, trips 200 ms apart",
+                "total": "typed value to redrawn curve",
+                "kernel": "  of which the kernel round trip",
+            }[key]
+            print(
+                f"| {name.replace('callable ', '').split(',')[-1].strip()}: {label} | {mp(vals)} |"
+            )
 
 
 if __name__ == "__main__":
