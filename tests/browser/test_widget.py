@@ -526,3 +526,59 @@ def test_model_chooser_switches_model_and_keeps_the_earlier_fit_for_comparison(
         "fits": ["stimulation_3pl", "stimulation_4pl"],
     }
     assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_arrow_keys_nudge_a_handle_and_shift_takes_larger_steps(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    # WAI-ARIA slider practice (common practice): arrows move by a small step, a modifier by a
+    # larger one; the contract says 1% and 10% of the plot. Notebook 7 takes arrow keys for
+    # its own shortcuts unless the widget stops them, so focus must stay on the handle.
+    root = _open_flow(page, server, notebook)
+    cwpage.show_plot(root)
+    ax = cwpage.axes(root)
+    mid = cwpage.handle_named(root, r"EC50")
+
+    def px() -> float:
+        return ax.x(float(mid.get_attribute("data-x")))
+
+    mid.focus()
+    x0 = px()
+    for key, steps in (("ArrowRight", 1), ("Shift+ArrowRight", 10)):
+        before = px()
+        page.keyboard.press(key)
+        cwpage.wait_until(lambda b=before: abs(px() - b) > 0.5, f"{key} did not move the handle")
+        moved = px() - before
+        assert moved == pytest.approx(steps * 0.01 * ax.width, rel=0.1), (key, moved, ax.width)
+        assert root.evaluate("(el) => el.contains(document.activeElement)")
+        assert mid.evaluate("(el) => el === document.activeElement"), "focus left the handle"
+    assert px() > x0
+    # The nudges reach Python once the keys are still.
+    cwpage.wait_root_attr(page, root, "data-cw-dragging", "")
+    s = _state(page, root)
+    assert _value(s, "logEC50") == pytest.approx(cwpage.value_now(mid), rel=1e-9)
+    assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_zoom_and_reset_view(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    root = _open_flow(page, server, notebook)
+    zoom_in = root.get_by_role("button", name="Zoom in")
+    zoom_in.scroll_into_view_if_needed()
+    start = cwpage.axes(root)
+    zoom_in.click()
+    # Zooming in: more pixels per unit on both axes (per decade on the log x axis).
+    cwpage.wait_until(
+        lambda: cwpage.axes(root).x.slope > start.x.slope * 1.3, "Zoom in did not zoom the x axis"
+    )
+    assert abs(cwpage.axes(root).y.slope) > abs(start.y.slope) * 1.3
+    root.get_by_role("button", name="Reset view").click()
+    cwpage.wait_until(
+        lambda: cwpage.axes(root).x.slope == pytest.approx(start.x.slope, rel=1e-6),
+        "Reset view did not bring the first view back",
+    )
+    back = cwpage.axes(root)
+    assert back.y.slope == pytest.approx(start.y.slope, rel=1e-6)
+    assert back.x.offset - back.left == pytest.approx(start.x.offset - start.left, abs=0.5)
+    assert harness.real_page_errors(page.cw_errors) == []
