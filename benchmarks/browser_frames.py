@@ -392,9 +392,8 @@ def print_readme_table(results: dict[str, Any]) -> None:
                 "total": "typed value to redrawn curve",
                 "kernel": "  of which the kernel round trip",
             }[key]
-            print(
-                f"| {name.replace('callable ', '').split(',')[-1].strip()}: {label} | {mp(vals)} |"
-            )
+            server = name.split(",")[-1].strip()
+            print(f"| {server}: {label} | {mp(vals)} |")
 
 
 if __name__ == "__main__":
