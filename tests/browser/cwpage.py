@@ -3,9 +3,11 @@
 The contract (issue 4): the root has class ``cw-root``; each handle is a focusable
 ``role="slider"`` with an ``aria-label`` and ``aria-valuenow``; the fit control is a button whose
 accessible name contains "Fit"; a parameter's value input is labelled with its name and its fixed
-toggle is a checkbox labelled with it. Data points are drawn on a canvas, so a point's place on
-screen is worked out from the d3 axes' ticks (each tick element carries its value as d3's bound
-datum and its pixel offset in its transform), not from the widget's internals.
+toggle is a checkbox labelled with it. js/widget.ts adds to it (its header comment): data-cw-*
+attributes on the root to wait on, and test hooks (``root._cwModel`` for the flush,
+``root._cwPointXY(row)``). Data points are drawn on a canvas, so a point's place on screen is
+worked out independently from the d3 axes' ticks (each tick element carries its value as d3's
+bound datum and its pixel offset in its transform) and checked against the hook.
 """
 
 from __future__ import annotations
@@ -201,26 +203,6 @@ def kernel_json(page: Any, cell: int, tag: str) -> Any:
     m = re.search(re.escape(tag) + r" (\{.*\}|\[.*\])", out)
     assert m, f"cell {cell} printed no {tag} line:\n{out}"
     return json.loads(m.group(1))
-
-
-def kernel_json_until(
-    page: Any,
-    cell: int,
-    tag: str,
-    predicate: Callable[[Any], bool],
-    timeout: float = 60.0,
-) -> Any:
-    """Re-run ``cell`` until the JSON it prints satisfies ``predicate`` (or ``timeout`` s pass).
-
-    Front-end updates reach Python asynchronously (ipywidgets sends one update at a time per
-    model), so a state cell run right after an interaction can see the state before it; the
-    condition to wait for is the state itself. Returns the last JSON seen.
-    """
-    deadline = time.monotonic() + timeout
-    while True:
-        got = kernel_json(page, cell, tag)
-        if predicate(got) or time.monotonic() > deadline:
-            return got
 
 
 def wait_until(condition: Callable[[], bool], message: str, timeout: float = 30.0) -> None:
