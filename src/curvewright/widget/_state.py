@@ -1,8 +1,9 @@
 """Convert between the library's objects and the JSON the widget syncs with the front end.
 
 Pure functions (no traitlets): parameter settings <-> the ``params`` trait with validation,
-a dataset -> the ``data`` trait (decimated beyond a point budget), a fit result -> ``fitted``,
-curves sampled for the front end.
+a dataset -> the ``data`` trait (decimated beyond a point budget), a fit result -> ``fitted``
+and its confidence/prediction bands, a polynomial degree selection -> its table, curves sampled
+for the front end.
 """
 
 from __future__ import annotations
@@ -15,18 +16,25 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..data import Dataset
-from ..errors import DataError, ParameterError
+from ..errors import CurvewrightError, DataError, ParameterError
 from ..models import Model, unknown_name_message
 from ..result import CAUTION, FitResult
+from ..stats.polynomial import DegreeSelection
 
 __all__ = [
+    "BAND_LEVEL",
+    "CURVE_SAMPLES",
     "MAX_POINTS",
     "ParamSetting",
     "Scale",
     "auto_x_scale",
+    "band_grid",
+    "bands_json",
+    "check_flag",
     "curve_json",
     "data_view",
     "decimate_rows",
+    "degree_json",
     "fitted_json",
     "params_json",
     "parse_params",
@@ -40,6 +48,12 @@ SCALES: tuple[Scale, ...] = ("linear", "log")
 # The front end is sent every point up to this many; beyond it a thinned view that keeps the
 # cloud's shape (the fit in Python always uses every point). 20k circles still draw smoothly.
 MAX_POINTS = 20_000
+
+# Samples of the fitted curve (and its bands) across the data, evenly spaced on the x axis.
+CURVE_SAMPLES = 400
+
+# Pointwise coverage of the bands the widget draws (common practice: 95%).
+BAND_LEVEL = 0.95
 
 # A parameter's editable state: value, bounds (+-inf for none) and whether it is held fixed.
 ParamSetting = dict[str, Any]
@@ -183,6 +197,13 @@ def check_scale(value: object, which: str) -> Scale:
     if value == "log":
         return "log"
     raise DataError(f"{which} must be 'linear' or 'log', got {value!r}.")
+
+
+def check_flag(value: object, which: str) -> bool:
+    """Validate an on/off display setting (a band or the residual strip shown or not)."""
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    raise DataError(f"{which} must be True or False, got {value!r}.")
 
 
 # --------------------------------------------------------------------------- decimation
@@ -413,7 +434,7 @@ def fitted_json(
                     "extrapolated": row["in_data_range"] is False,
                 }
             )
-    xs = sample_x(result.dataset.x, x_scale, 400)
+    xs = band_grid(result, x_scale)
 
     def column(col: str) -> dict[str, float | None]:
         arr = frame[col].to_numpy(dtype=float)  # rows in model order
@@ -449,4 +470,97 @@ def fitted_json(
             if d.severity != "info"
         ],
         "caution": CAUTION,
+    }
+
+
+# ------------------------------------------------------------------------------ bands
+def band_grid(result: FitResult, x_scale: Scale) -> NDArray[np.float64]:
+    """The x grid the fitted curve and its bands are sampled on (decades on a log x axis)."""
+    return sample_x(result.dataset.x, x_scale, CURVE_SAMPLES)
+
+
+def bands_json(
+    result: FitResult,
+    x_scale: Scale,
+    *,
+    confidence: bool,
+    prediction: bool,
+    level: float = BAND_LEVEL,
+) -> dict[str, Any] | None:
+    """The ``bands`` trait: the fit's confidence and/or prediction band on :func:`band_grid`.
+
+    ``None`` when neither band is asked for. A band that cannot be computed (a fit that did not
+    converge, a robust loss, no residual degrees of freedom) is ``null`` and ``note`` says why,
+    so the page can say it instead of drawing nothing silently. Non-finite bounds (a parameter
+    the data do not determine) are ``null``; the page breaks the area there.
+    """
+    if not (confidence or prediction):
+        return None
+    xs = band_grid(result, x_scale)
+    out: dict[str, Any] = {
+        "model_name": result.model.name,
+        "level": level,
+        "x": _list(xs),
+        "confidence": None,
+        "prediction": None,
+        "note": "",
+    }
+    if not result.success:
+        out["note"] = "No bands: the fit did not converge."
+        return out
+    try:
+        if confidence:
+            cb = result.confidence_band(xs, level)
+            out["confidence"] = {
+                "lower": _list(cb["lower"].to_numpy(dtype=float)),
+                "upper": _list(cb["upper"].to_numpy(dtype=float)),
+            }
+        if prediction:
+            pb = result.prediction_band(xs, level)
+            out["prediction"] = {
+                "lower": _list(pb["lower"].to_numpy(dtype=float)),
+                "upper": _list(pb["upper"].to_numpy(dtype=float)),
+            }
+    except CurvewrightError as exc:
+        out["confidence"] = out["prediction"] = None
+        out["note"] = f"No bands: {exc}"
+    return out
+
+
+# --------------------------------------------------------------------- polynomial degree
+def degree_json(
+    selection: DegreeSelection, current: int, weighting: str, warnings: Sequence[str] = ()
+) -> dict[str, Any]:
+    """The ``degree_table_json`` trait: :func:`~curvewright.select_degree`'s table for the page.
+
+    One row per degree 1..max_degree with the F test of its added term against the degree
+    below, AICc, BIC, R² and adjusted R²; the suggested degree, its reasoning, the degree of
+    the model shown (``current``) and the weighting used.
+    """
+    rows = []
+    for degree, row in selection.table.iterrows():
+        rows.append(
+            {
+                "degree": int(str(degree)),
+                "F": _opt(float(row["F"])),
+                "df_num": int(row["df_num"]),
+                "df_den": int(row["df_den"]),
+                "p": _opt(float(row["p"])),
+                "aicc": _opt(float(row["aicc"])),
+                "bic": _opt(float(row["bic"])),
+                "r2": _opt(float(row["r2"])),
+                "r2_adj": _opt(float(row["r2_adj"])),
+                "ssr": _opt(float(row["ssr"])),
+            }
+        )
+    return {
+        "current": int(current),
+        "suggested": int(selection.suggested),
+        "alpha": float(selection.alpha),
+        "max_degree": int(max(selection.fits)),
+        "n": int(selection.fits[0].n),
+        "weighting": weighting,
+        "reasoning": selection.reasoning,
+        "rows": rows,
+        "warnings": list(warnings),
     }

@@ -1,9 +1,11 @@
 """The notebook widget: a thin anywidget view over the headless library for one dataset.
 
 Everything the page can do is a method here too (choose a model, edit parameters, exclude
-points, fit, cancel, save and restore the state), and everything set from Python shows on the
-page. Synced traitlets mirror ``js/state.ts``; the front end writes ``params``, ``excluded``,
-``x_scale``, ``y_scale``, ``model_name``, ``error`` and ``sync_ping``, Python writes the rest.
+points, fit, cancel, show bands, pick a polynomial degree, save and restore the state), and
+everything set from Python shows on the page. Synced traitlets mirror ``js/state.ts``; the front
+end writes ``params``, ``excluded``, ``x_scale``, ``y_scale``, ``model_name``, ``error``,
+``sync_ping`` and the display toggles ``show_confidence_band``, ``show_prediction_band`` and
+``show_residuals``; Python writes the rest.
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ import contextlib
 import json
 import math
 import threading
+import warnings
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -26,6 +29,7 @@ import traitlets
 from numpy.typing import ArrayLike
 from scipy.optimize import least_squares
 
+from ..catalog import MAX_DEGREE, polynomial
 from ..data import Dataset, make_dataset
 from ..errors import (
     ComparisonError,
@@ -35,11 +39,12 @@ from ..errors import (
     ModelError,
     ParameterError,
 )
-from ..fitting import resolve_model
+from ..fitting import _weights, resolve_model
 from ..models import Model, unknown_name_message
 from ..result import FitResult
 from ..start import guided_start
 from ..stats.compare import Comparison, compare
+from ..stats.polynomial import DegreeSelection, select_degree
 from . import _state
 from ._errors import describe
 
@@ -67,6 +72,8 @@ _START_POINTS = 5000
 # Samples of a curve computed in Python (callable models, earlier fits drawn for comparison).
 _PREVIEW_SAMPLES = 240
 _COMPARE_SAMPLES = 200
+# The degree table fits degrees 1..max(this, current degree + 1), as far as the data allow.
+_DEGREE_TABLE_MAX = 4
 
 FitState = Literal["idle", "fitting", "done", "stopped", "error"]
 
@@ -108,6 +115,13 @@ def _running_loop() -> asyncio.AbstractEventLoop | None:
 
 def _is_table(v: object) -> bool:
     return isinstance(v, (pd.DataFrame, Mapping))
+
+
+class _Flag(traitlets.Bool):  # type: ignore[type-arg]  # traitlets' generic Bool
+    """An on/off trait that rejects anything but a bool with curvewright's own error."""
+
+    def validate(self, obj: Any, value: Any) -> bool:
+        return _state.check_flag(value, str(self.name))
 
 
 class CurveFitter(anywidget.AnyWidget):
@@ -178,6 +192,16 @@ class CurveFitter(anywidget.AnyWidget):
     excluded: traitlets.List[Any] = traitlets.List().tag(sync=True)
     preview_curve = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     compare: traitlets.List[Any] = traitlets.List().tag(sync=True)
+    # Display toggles (the page's checkboxes; Python may set them too, and snapshots keep them).
+    show_confidence_band = _Flag(False).tag(sync=True)
+    show_prediction_band = _Flag(False).tag(sync=True)
+    show_residuals = _Flag(True).tag(sync=True)
+    # The shown fit's 95% bands on the fitted curve's x grid, for the toggles that are on
+    # (_state.bands_json), or None.
+    bands_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
+    # For a polynomial model: select_degree's table on the included points (_state.degree_json),
+    # or {"current": k, "error": why not}; None for other models.
+    degree_table_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     # Model comparison of the latest converged fit of each model (stats.compare's to_dict), or
     # {"error": why not} when they cannot be compared, or None with fewer than two.
     comparison_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
@@ -217,6 +241,7 @@ class CurveFitter(anywidget.AnyWidget):
         self._callbacks: list[Callable[[FitResult], Any]] = []
         self._memory: dict[str, _Memory] = {}
         self._comparison_key: tuple[int, ...] = ()
+        self._degree_cache: tuple[tuple[Any, ...], dict[str, Any]] | None = None
 
         if data is not None and not _is_table(data):
             # CurveFitter(x_values, y_values, model=...): arrays given positionally.
@@ -489,6 +514,107 @@ class CurveFitter(anywidget.AnyWidget):
             )
         return compare(*fits, names=[r.model.name for r in fits])
 
+    # =================================================================== public: judging a fit
+    def bands(self, level: float = _state.BAND_LEVEL) -> pd.DataFrame:
+        """The shown fit's confidence and prediction bands on the x grid the page draws them on.
+
+        The grid spans the data (5% beyond each end), evenly spaced on the x axis, so in
+        decades on a log x axis. The toggles ``show_confidence_band`` and
+        ``show_prediction_band`` draw these (at 95%) under the fitted curve.
+
+        Parameters
+        ----------
+        level : float
+            Pointwise coverage, in (0, 1).
+
+        Returns
+        -------
+        DataFrame
+            Columns ``x, fit, confidence_lower, confidence_upper, prediction_lower,
+            prediction_upper`` (see :meth:`FitResult.confidence_band` and
+            :meth:`FitResult.prediction_band`).
+
+        Raises
+        ------
+        FitError
+            No converged fit of the model shown, or a fit with a robust loss.
+        ParameterError
+            ``level`` outside (0, 1).
+        """
+        res = self._mem().result
+        if res is None or not res.success:
+            why = "no fit yet" if res is None else "its latest fit did not converge"
+            raise FitError(
+                f"No bands for {self.model_name}: {why}. Press Fit (or call widget.fit()) and "
+                "get a converged fit first."
+            )
+        xs = _state.band_grid(res, _state.check_scale(self.x_scale, "x_scale"))
+        cb = res.confidence_band(xs, level)
+        pb = res.prediction_band(xs, level)
+        out: pd.DataFrame = pd.DataFrame(
+            {
+                "x": xs,
+                "fit": cb["fit"].to_numpy(dtype=float),
+                "confidence_lower": cb["lower"].to_numpy(dtype=float),
+                "confidence_upper": cb["upper"].to_numpy(dtype=float),
+                "prediction_lower": pb["lower"].to_numpy(dtype=float),
+                "prediction_upper": pb["upper"].to_numpy(dtype=float),
+            }
+        )
+        return out
+
+    def degree_table(self, max_degree: int | None = None, alpha: float = 0.05) -> DegreeSelection:
+        """Polynomial degree selection on the included points, as the page's degree table shows.
+
+        Only for a polynomial model (``straight_line`` or ``polynomial_k``). The points are the
+        ones a fit would use (exclusions applied), weighted as a fit would weight them.
+
+        Parameters
+        ----------
+        max_degree : int, optional
+            Largest degree to fit. By default the larger of 4 and the model's degree + 1, as
+            far as the data allow (``max_degree + 2`` points and ``max_degree + 1`` distinct x).
+        alpha : float
+            Significance level of the F tests.
+
+        Returns
+        -------
+        DegreeSelection
+            See :func:`curvewright.select_degree`; ``.table`` has one row per degree.
+
+        Raises
+        ------
+        ModelError
+            The model shown is not a polynomial, or ``max_degree`` is not a whole number >= 1.
+        DataError, ParameterError
+            Too few points for ``max_degree``, weights that cannot be formed, a bad ``alpha``.
+        """
+        k = self.model.polynomial_degree
+        if k is None:
+            raise ModelError(
+                f"The degree table is for polynomial models; {self.model_name!r} is not one. "
+                "Choose 'straight_line' or a polynomial first, e.g. widget.use_degree(2)."
+            )
+        selection, _, _ = self._select_degree(k, max_degree, alpha, record=False)
+        return selection
+
+    def use_degree(self, degree: int) -> None:
+        """Show the polynomial of this degree (1 is the catalog's ``straight_line``).
+
+        Like picking a row of the page's degree table: the model switches, with its guided
+        start (or its earlier parameters and fit, if it was shown before).
+
+        Raises
+        ------
+        ModelError
+            ``degree`` is not a whole number from 1 to 10.
+        """
+        target = polynomial(degree)  # checks the degree
+        line = self._models.get("straight_line")
+        if target.polynomial_degree == 1 and line is not None and line.polynomial_degree == 1:
+            target = line
+        self.set_model(target)
+
     # =================================================================== public: state
     def snapshot(self) -> dict[str, Any]:
         """The widget's state as JSON-ready data: model, parameters, exclusions, axes.
@@ -505,6 +631,9 @@ class CurveFitter(anywidget.AnyWidget):
             "excluded": list(self._excluded),
             "x_scale": self.x_scale,
             "y_scale": self.y_scale,
+            "show_confidence_band": bool(self.show_confidence_band),
+            "show_prediction_band": bool(self.show_prediction_band),
+            "show_residuals": bool(self.show_residuals),
             "n_input": int(self._ds.n_input),
         }
 
@@ -559,6 +688,11 @@ class CurveFitter(anywidget.AnyWidget):
         rows = _state.check_rows(self._ds, snapshot.get("excluded", []), "excluded")
         xs = _state.check_scale(snapshot.get("x_scale", "linear"), "x_scale")
         ys = _state.check_scale(snapshot.get("y_scale", "linear"), "y_scale")
+        # Display toggles: snapshots from before they existed leave them as they are.
+        flags = {
+            f: _state.check_flag(snapshot.get(f, getattr(self, f)), f)
+            for f in ("show_confidence_band", "show_prediction_band", "show_residuals")
+        }
         # Everything is valid: apply.
         with self.hold_sync(), self._internal():
             if new_model is not None:
@@ -570,6 +704,8 @@ class CurveFitter(anywidget.AnyWidget):
             self.excluded = list(rows)
             self.x_scale = xs
             self.y_scale = ys
+            for f, v in flags.items():
+                setattr(self, f, v)
             self._show_model(model.name)
 
     def save(self, path: str | Path) -> None:
@@ -598,7 +734,16 @@ class CurveFitter(anywidget.AnyWidget):
         finally:
             self._from_front -= 1
 
-    @traitlets.observe("params", "excluded", "x_scale", "y_scale", "model_name", "sync_ping")
+    @traitlets.observe(
+        "params",
+        "excluded",
+        "x_scale",
+        "y_scale",
+        "model_name",
+        "sync_ping",
+        "show_confidence_band",
+        "show_prediction_band",
+    )
     def _on_change(self, change: Mapping[str, Any]) -> None:
         if self._busy:
             return
@@ -619,6 +764,8 @@ class CurveFitter(anywidget.AnyWidget):
                             unknown_name_message(str(new), list(self._models), "the chooser")
                         )
                     self._switch(str(new))
+                elif name in ("show_confidence_band", "show_prediction_band"):
+                    self.bands_json = self._bands_json()
                 else:  # sync_ping
                     self.sync_pong = int(change["new"])
         except Exception as exc:
@@ -645,6 +792,8 @@ class CurveFitter(anywidget.AnyWidget):
                 self._pins_request(content)
             elif kind == "dismiss":
                 self.error = ""
+            elif kind == "use_degree":
+                self.use_degree(content.get("degree"))
             else:
                 raise DataError(f"Unknown message from the page: {content!r}.")
         except Exception as exc:
@@ -843,6 +992,61 @@ class CurveFitter(anywidget.AnyWidget):
         self.preview_curve = None if model.has_preview else self._python_curve(self.values)
         self.compare = self._compare_json()
         self._update_comparison()
+        self.bands_json = self._bands_json()
+        self.degree_table_json = self._degree_json()
+
+    def _bands_json(self) -> dict[str, Any] | None:
+        res = self._mem().result
+        if res is None:
+            return None
+        return _state.bands_json(
+            res,
+            _state.check_scale(self.x_scale, "x_scale"),
+            confidence=bool(self.show_confidence_band),
+            prediction=bool(self.show_prediction_band),
+        )
+
+    def _select_degree(
+        self, k: int, max_degree: int | None, alpha: float, *, record: bool
+    ) -> tuple[DegreeSelection, str, list[str]]:
+        """select_degree on the included points, weighted as a fit would weight them.
+
+        With ``record`` the warnings (rank deficiency) are collected for the page instead of
+        being raised as warnings.
+        """
+        ds = self.dataset
+        x, y = ds.x_used, ds.y_used
+        weighting, w = _weights(self._fit_options.get("weights"), (ds,), y)
+        if max_degree is None:
+            n_distinct = int(np.unique(x).size)
+            top = min(max(_DEGREE_TABLE_MAX, k + 1), MAX_DEGREE, x.size - 2, n_distinct - 1)
+            # Below 1 select_degree itself says how many points are missing.
+            max_degree = max(top, 1)
+        # fit() weights residuals by w; select_degree takes 1/sigma**2-style weights.
+        weights = None if w is None else w**2
+        if not record:
+            sel = select_degree(x, y, max_degree=max_degree, alpha=alpha, weights=weights)
+            return sel, weighting, []
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            sel = select_degree(x, y, max_degree=max_degree, alpha=alpha, weights=weights)
+        return sel, weighting, [str(c.message) for c in caught]
+
+    def _degree_json(self) -> dict[str, Any] | None:
+        k = self.model.polynomial_degree
+        if k is None:
+            return None
+        key = (k, tuple(self._excluded))
+        if self._degree_cache is not None and self._degree_cache[0] == key:
+            return self._degree_cache[1]
+        out: dict[str, Any]
+        try:
+            sel, weighting, notes = self._select_degree(k, None, 0.05, record=True)
+            out = _state.degree_json(sel, k, weighting, notes)
+        except CurvewrightError as exc:
+            out = {"current": k, "error": str(exc)}
+        self._degree_cache = (key, out)
+        return out
 
     def _comparable(self) -> list[FitResult]:
         return [
