@@ -36,3 +36,33 @@ export function pathFromPixels(px: ArrayLike<number>, py: ArrayLike<number>): st
   }
   return parts.join("");
 }
+
+/**
+ * An SVG path filling the area between two pixel curves over the same x (a band): one closed
+ * sub-path per run of points where x and both bounds are finite (the band is undefined
+ * elsewhere), along the upper bound and back along the lower. Runs of a single point have no
+ * area and are left out. Values are clamped to ±1e5 px as in pathFromPixels.
+ */
+export function areaFromPixels(px: ArrayLike<number>, pyLo: ArrayLike<number>, pyHi: ArrayLike<number>): string {
+  const limit = 1e5;
+  const clamp = (v: number): string => Math.max(-limit, Math.min(limit, v)).toFixed(2);
+  const n = Math.min(px.length, pyLo.length, pyHi.length);
+  const parts: string[] = [];
+  const run = (a: number, b: number): void => {
+    if (b - a < 2) return;
+    let d = "";
+    for (let i = a; i < b; i++) d += `${i === a ? "M" : "L"}${clamp(px[i]!)},${clamp(pyHi[i]!)}`;
+    for (let i = b - 1; i >= a; i--) d += `L${clamp(px[i]!)},${clamp(pyLo[i]!)}`;
+    parts.push(`${d}Z`);
+  };
+  let start = -1;
+  for (let i = 0; i <= n; i++) {
+    const ok = i < n && Number.isFinite(px[i]!) && Number.isFinite(pyLo[i]!) && Number.isFinite(pyHi[i]!);
+    if (ok && start < 0) start = i;
+    else if (!ok && start >= 0) {
+      run(start, i);
+      start = -1;
+    }
+  }
+  return parts.join("");
+}

@@ -1,15 +1,16 @@
 // The plot: d3 scales and axes, zoom and pan, data points on a canvas (so 100k points stay
-// smooth), the current and fitted curves as SVG paths, draggable handles, box selection and a
-// residual strip. It knows nothing of Python: the widget feeds it values and receives events.
+// smooth), the current and fitted curves as SVG paths, the fit's confidence/prediction bands as
+// quiet filled areas under them, draggable handles, box selection and a residual strip. It knows nothing of Python: the widget feeds it values and receives events.
 
 import { axisBottom, axisLeft } from "d3-axis";
 import { brush, type BrushBehavior, type D3BrushEvent } from "d3-brush";
 import { scaleLinear, scaleLog, type ScaleContinuousNumeric } from "d3-scale";
 import { select, type Selection } from "d3-selection";
 import { zoom, zoomIdentity, type D3ZoomEvent, type ZoomBehavior, type ZoomTransform } from "d3-zoom";
-import { pathFromPixels, sampleAxis } from "./curve";
+import { areaFromPixels, pathFromPixels, sampleAxis } from "./curve";
 import { decimateCells } from "./decimate";
 import type { Point } from "./handles";
+import type { BandView, BandViews } from "./judge";
 import type { PointSet, Scale } from "./state";
 import { groupReplicates } from "./stats";
 import { tickLabel } from "./validate";
@@ -99,6 +100,8 @@ export class Plot {
   private readonly xLabel: SVGSel<SVGTextElement>;
   private readonly yLabel: SVGSel<SVGTextElement>;
   private readonly fitPath: SVGSel<SVGPathElement>;
+  private readonly predictionPath: SVGSel<SVGPathElement>;
+  private readonly confidencePath: SVGSel<SVGPathElement>;
   private readonly compareGroup: SVGSel;
   private readonly curvePath: SVGSel<SVGPathElement>;
   private readonly gBrush: SVGSel;
@@ -132,6 +135,8 @@ export class Plot {
   private compared: { name: string; source: CurveSource }[] = [];
   private handles: HandleView[] = [];
   private residuals: Float64Array | null = null;
+  private residualsShown = true;
+  private bands: BandViews = { confidence: null, prediction: null };
   private boxMode = false;
   private wheelActive = false;
   // The click that ends a box drag must not also toggle the point under the pointer.
@@ -173,6 +178,9 @@ export class Plot {
     this.area = this.svg.append("g").attr("class", "cw-area");
     this.surface = this.area.append("rect").attr("class", "cw-surface");
     const clipped = this.area.append("g").attr("clip-path", `url(#${id})`);
+    // Bands first, so every curve is drawn over them; the wider prediction band underneath.
+    this.predictionPath = clipped.append("path").attr("class", "cw-band cw-band-prediction");
+    this.confidencePath = clipped.append("path").attr("class", "cw-band cw-band-confidence");
     this.compareGroup = clipped.append("g").attr("class", "cw-compare");
     this.fitPath = clipped.append("path").attr("class", "cw-curve-fit");
     this.curvePath = clipped.append("path").attr("class", "cw-curve");
@@ -285,9 +293,22 @@ export class Plot {
   setFitted(fitted: CurveSource, residuals: Float64Array | null): void {
     this.fitted = fitted;
     this.residuals = residuals;
-    this.residWrap.hidden = residuals === null;
+    this.residWrap.hidden = residuals === null || !this.residualsShown;
     this.el.classList.toggle("cw-has-fit", fitted !== null);
     this.invalidate("curves", "resid");
+  }
+
+  /** Show or hide the residual strip (it shows only once there are residuals). */
+  setResidualsShown(on: boolean): void {
+    this.residualsShown = on;
+    this.residWrap.hidden = this.residuals === null || !on;
+    this.invalidate("resid");
+  }
+
+  /** The fit's bands (null for a band not drawn), as quiet areas under the curves. */
+  setBands(bands: BandViews): void {
+    this.bands = bands;
+    this.invalidate("curves");
   }
 
   /** Earlier fits of other models, drawn faintly for comparison. */
@@ -564,7 +585,27 @@ export class Plot {
     return pathFromPixels(px, py);
   }
 
+  private bandPathData(b: BandView | null, x: Lin, y: Lin): string {
+    if (b === null) return "";
+    const n = b.x.length;
+    const px = new Float64Array(n);
+    const lo = new Float64Array(n);
+    const hi = new Float64Array(n);
+    // On a log y axis a bound at or below zero lies below any view: draw it past the bottom
+    // edge (clipped) rather than breaking the band there.
+    const floor = this.yScaleKind === "log" ? this.plotH + 20 : NaN;
+    const py = (v: number): number => (this.yScaleKind === "log" && v <= 0 ? floor : y(v));
+    for (let i = 0; i < n; i++) {
+      px[i] = x(b.x[i]!);
+      lo[i] = py(b.lower[i]!);
+      hi[i] = py(b.upper[i]!);
+    }
+    return areaFromPixels(px, lo, hi);
+  }
+
   private drawCurves(x: Lin, y: Lin): void {
+    this.predictionPath.attr("d", this.bandPathData(this.bands.prediction, x, y));
+    this.confidencePath.attr("d", this.bandPathData(this.bands.confidence, x, y));
     this.curvePath.attr("d", this.curvePathData(this.curve, x, y));
     this.fitPath.attr("d", this.curvePathData(this.fitted, x, y));
     const sel = this.compareGroup

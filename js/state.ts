@@ -167,6 +167,60 @@ export interface ComparisonJson {
   caution: string;
 }
 
+/** Lower and upper bound of one band at each grid x; null where not finite. */
+export interface BandJson {
+  lower: (number | null)[];
+  upper: (number | null)[];
+}
+
+/**
+ * The `bands_json` trait: the shown fit's pointwise bands on the fitted curve's x grid (evenly
+ * spaced on the x axis, so in decades on a log axis), for the toggles that are on; null when
+ * both are off or the model has no fit. A band Python could not compute is null and `note`
+ * says why.
+ */
+export interface BandsJson {
+  model_name: string;
+  level: number;
+  x: (number | null)[];
+  confidence: BandJson | null;
+  prediction: BandJson | null;
+  note: string;
+}
+
+/** One degree of the polynomial degree table (Python's select_degree(...).table). */
+export interface DegreeRowJson {
+  degree: number;
+  /** Extra-sum-of-squares F of the added power against the degree below; null if infinite. */
+  F: number | null;
+  df_num: number;
+  df_den: number;
+  p: number | null;
+  aicc: number | null;
+  bic: number | null;
+  r2: number | null;
+  r2_adj: number | null;
+  ssr: number | null;
+}
+
+/**
+ * The `degree_table_json` trait for a polynomial model: the degree table on the included
+ * points, or why there is none; null for other models.
+ */
+export type DegreeTableJson =
+  | {
+      current: number;
+      suggested: number;
+      alpha: number;
+      max_degree: number;
+      n: number;
+      weighting: string;
+      reasoning: string;
+      rows: DegreeRowJson[];
+      warnings: string[];
+    }
+  | { current: number; error: string };
+
 /** "stopped": the fit ended without converging (cancelled, time or evaluation limit). */
 export type FitState = "idle" | "fitting" | "done" | "stopped" | "error";
 
@@ -178,7 +232,8 @@ export interface StatusJson {
 /**
  * The widget's synced traitlets (Python side: the widget class in src/curvewright/widget/).
  * The front end writes `params`, `excluded`, `x_scale`, `y_scale`, `model_name`, `error`
- * (cleared by the dismiss button) and `sync_ping`; Python writes the rest.
+ * (cleared by the dismiss button), `sync_ping` and the three display toggles `show_*`; Python
+ * writes the rest.
  */
 export interface WidgetModel {
   model_json: ModelJson;
@@ -202,6 +257,14 @@ export interface WidgetModel {
   compare: CompareJson[];
   /** Comparison of the latest converged fit of each model; null with fewer than two. */
   comparison_json: ComparisonJson | { error: string } | null;
+  /** Display toggles (checkboxes on the page; Python may set them too). */
+  show_confidence_band: boolean;
+  show_prediction_band: boolean;
+  show_residuals: boolean;
+  /** The shown fit's bands for the toggles that are on. */
+  bands_json: BandsJson | null;
+  /** The polynomial degree table, for polynomial models only. */
+  degree_table_json: DegreeTableJson | null;
   /** Flush: the page sets sync_ping, Python answers by setting sync_pong to the same number. */
   sync_ping: number;
   sync_pong: number;
@@ -218,6 +281,8 @@ export type FrontMessage =
     }
   | { type: "cancel" }
   | { type: "guided_start" }
+  /** A row of the degree table picked: show the polynomial of this degree. */
+  | { type: "use_degree"; degree: number }
   | { type: "preview"; values: Record<string, number>; x_min: number; x_max: number }
   | {
       type: "pins";

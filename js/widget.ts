@@ -38,6 +38,19 @@
 //                         toggles its exclusion. root._cwPointXY(row) gives the viewport
 //                         {x, y} of an input row's point (null if not drawn) for page.mouse.click
 //   status                .cw-status (role="status"): the solver's progress/message
+//   display toggles       <input type="checkbox"> labelled exactly "Confidence band",
+//                         "Prediction band", "Residuals" (group .cw-toggles, aria-label "Show on
+//                         the plot"); synced with show_confidence_band / show_prediction_band /
+//                         show_residuals. Bands (95%, the shown fit's) are path.cw-band-confidence
+//                         and path.cw-band-prediction (d="" when not drawn); root
+//                         data-cw-bands lists the drawn ones ("confidence prediction", "", ...);
+//                         why a band is missing: .cw-band-note. The residual strip .cw-resid has
+//                         the hidden attribute unless shown.
+//   degree table          polynomial models only: table.cw-degree-table in .cw-degrees, one
+//                         <tr data-degree=k> per degree (th = degree), the suggested row has class
+//                         .cw-suggested, the model's row aria-current="true"; every other row has
+//                         a <button> "Use degree <k>" (.cw-use-degree) that switches the model;
+//                         root data-cw-degree-suggested = suggested degree ("" without a table)
 //   error area            .cw-error (role="alert"), text in .cw-error-text, button "Dismiss"
 //   announcements         .cw-live (aria-live="polite", visually hidden)
 //   test hook             root._cwModel is the anywidget model (get/set/save_changes/on/off);
@@ -66,6 +79,7 @@ import {
   usesPins,
   withValues,
 } from "./interact";
+import { bandViews, bandsDrawn, DEGREE_COLUMNS, degreeCaption, degreeLabel, degreeRows, degreeSuggestion } from "./judge";
 import { ParamPanel } from "./panel";
 import { type CurveSource, Plot } from "./plot";
 import {
@@ -208,9 +222,41 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   legend.append(
     swatch("cw-legend-start", "curve at the values in the table"),
     swatch("cw-legend-fit", "fitted curve"),
+    swatch("cw-legend-confidence", "95% confidence band"),
+    swatch("cw-legend-prediction", "95% prediction band"),
     swatch("cw-legend-compare", "earlier fits of other models"),
   );
   root.insertBefore(legend, plot.el);
+
+  // Display toggles: the fit's bands and the residual strip (synced, so Python can set them).
+  const toggles = h("div", { class: "cw-toggles", role: "group", "aria-label": "Show on the plot" });
+  const toggleIds = Math.random().toString(36).slice(2);
+  const toggle = (
+    trait: "show_confidence_band" | "show_prediction_band" | "show_residuals",
+    label: string,
+    hint: string,
+  ): HTMLInputElement => {
+    const id = `cw-${trait}-${toggleIds}`;
+    const box = h("input", { id, type: "checkbox", class: `cw-toggle cw-toggle-${trait}`, title: hint });
+    const wrap = h("span", { class: "cw-toggle-item" });
+    wrap.append(box, h("label", { for: id, title: hint }, label));
+    toggles.appendChild(wrap);
+    return box;
+  };
+  const confBox = toggle(
+    "show_confidence_band",
+    "Confidence band",
+    "95% pointwise confidence band of the fitted curve: where the true curve lies",
+  );
+  const predBox = toggle(
+    "show_prediction_band",
+    "Prediction band",
+    "95% pointwise prediction band: where a new single observation falls",
+  );
+  const residBox = toggle("show_residuals", "Residuals", "The strip of residuals (data minus fit) under the plot");
+  const bandNote = h("span", { class: "cw-band-note", "aria-live": "polite" });
+  toggles.appendChild(bandNote);
+  root.insertBefore(toggles, plot.el.nextSibling);
 
   // Keyboard access to exclusion: the rows as text ("3, 7-9"), applied on Enter or leaving.
   const exclRow = h("div", { class: "cw-exclusion" });
@@ -232,6 +278,8 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   root.appendChild(notes);
   const compareEl = h("div", { class: "cw-comparison" });
   root.appendChild(compareEl);
+  const degreesEl = h("div", { class: "cw-degrees" });
+  root.appendChild(degreesEl);
 
   const panel = new ParamPanel(root, {
     onCommit: (name, setting) => {
@@ -356,6 +404,79 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     }
     panel.setFitted(mine ? f : null);
     showResult(mine ? f : null);
+    drawBands();
+  }
+
+  function drawBands(): void {
+    const showConf = model.get("show_confidence_band") === true;
+    const showPred = model.get("show_prediction_band") === true;
+    const showResid = model.get("show_residuals") !== false;
+    confBox.checked = showConf;
+    predBox.checked = showPred;
+    residBox.checked = showResid;
+    plot.setResidualsShown(showResid);
+    const b = model.get("bands_json");
+    const views = bandViews(b, mj.name, showConf, showPred);
+    plot.setBands(views);
+    root.dataset["cwBands"] = bandsDrawn(views);
+    legend.classList.toggle("cw-has-confidence", views.confidence !== null);
+    legend.classList.toggle("cw-has-prediction", views.prediction !== null);
+    const f: FittedJson | null = model.get("fitted");
+    const fitShown = f !== null && (f.model_name === undefined || f.model_name === mj.name);
+    let note = "";
+    if ((showConf || showPred) && !fitShown) note = "Bands appear after a fit.";
+    else if (b && b.model_name === mj.name && b.note) note = b.note;
+    if (bandNote.textContent !== note) bandNote.textContent = note;
+  }
+
+  function drawDegrees(): void {
+    const t = model.get("degree_table_json");
+    degreesEl.replaceChildren();
+    root.dataset["cwDegreeSuggested"] = t && !("error" in t) ? String(t.suggested) : "";
+    if (!t) return;
+    if ("error" in t) {
+      degreesEl.appendChild(h("p", { class: "cw-degree-note" }, degreeSuggestion(t)));
+      return;
+    }
+    const table = h("table", { class: "cw-degree-table" });
+    table.appendChild(h("caption", {}, degreeCaption(t)));
+    const head = h("tr");
+    for (const c of DEGREE_COLUMNS) head.appendChild(h("th", { scope: "col" }, c));
+    const actionHead = h("th", { scope: "col" });
+    actionHead.appendChild(h("span", { class: "cw-sr-only" }, "Model"));
+    head.appendChild(actionHead);
+    table.appendChild(h("thead")).appendChild(head);
+    const body = h("tbody");
+    for (const r of degreeRows(t)) {
+      const attrs: Record<string, string> = { "data-degree": String(r.degree) };
+      const cls = [r.suggested ? "cw-suggested" : "", r.current ? "cw-current" : "", r.significant ? "" : "cw-not-significant"].filter(Boolean);
+      if (cls.length) attrs["class"] = cls.join(" ");
+      if (r.current) attrs["aria-current"] = "true";
+      const tr = h("tr", attrs);
+      const th = h("th", { scope: "row" }, degreeLabel(r.degree));
+      if (r.suggested) th.appendChild(h("span", { class: "cw-tag" }, " suggested"));
+      tr.appendChild(th);
+      for (const c of r.cells) tr.appendChild(h("td", {}, c));
+      const act = h("td", { class: "cw-degree-action" });
+      if (r.current) {
+        act.appendChild(h("span", { class: "cw-tag" }, "shown"));
+      } else {
+        const b = h("button", { type: "button", class: "cw-btn cw-use-degree" }, `Use degree ${r.degree}`);
+        b.addEventListener("click", () => send(model, { type: "use_degree", degree: r.degree }));
+        act.appendChild(b);
+      }
+      tr.appendChild(act);
+      body.appendChild(tr);
+    }
+    table.appendChild(body);
+    degreesEl.appendChild(table);
+    degreesEl.appendChild(h("p", { class: "cw-recommendation" }, degreeSuggestion(t)));
+    degreesEl.appendChild(h("p", { class: "cw-degree-reasoning" }, t.reasoning));
+    if (t.warnings.length) {
+      const ul = h("ul", { class: "cw-diagnostics" });
+      for (const w of t.warnings) ul.appendChild(h("li", { class: "cw-warning" }, w));
+      degreesEl.appendChild(ul);
+    }
   }
 
   function drawCompare(): void {
@@ -492,6 +613,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     drawCurrent();
     drawFitted();
     drawCompare();
+    drawDegrees();
   }
 
   function loadData(resetViewToo: boolean): void {
@@ -704,6 +826,19 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     });
   });
   on(cancelBtn, "click", () => send(model, { type: "cancel" }));
+  const onToggle = (
+    box: HTMLInputElement,
+    trait: "show_confidence_band" | "show_prediction_band" | "show_residuals",
+  ): void => {
+    on(box, "change", () => {
+      model.set(trait, box.checked);
+      model.save_changes();
+      drawBands(); // hide at once; a band switched on appears when Python sends it
+    });
+  };
+  onToggle(confBox, "show_confidence_band");
+  onToggle(predBox, "show_prediction_band");
+  onToggle(residBox, "show_residuals");
   on(exclInput, "keydown", (e) => {
     if (e.key === "Enter") {
       e.preventDefault();
@@ -754,6 +889,11 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     drawCurrent();
   });
   listen("change:fitted", drawFitted);
+  listen("change:bands_json", drawBands);
+  listen("change:show_confidence_band", drawBands);
+  listen("change:show_prediction_band", drawBands);
+  listen("change:show_residuals", drawBands);
+  listen("change:degree_table_json", drawDegrees);
   listen("change:compare", drawCompare);
   listen("change:comparison_json", drawCompare);
   listen("change:status", showStatus);
