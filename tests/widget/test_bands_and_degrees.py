@@ -132,6 +132,51 @@ def test_straight_line_bands_match_statsmodels_ols() -> None:
     np.testing.assert_allclose(hi_p, frame["obs_ci_upper"].to_numpy(), rtol=1e-9)
 
 
+def test_weighted_straight_line_bands_match_statsmodels_wls() -> None:
+    rng = np.random.default_rng(8)
+    x = np.linspace(1.0, 20.0, 24)
+    sigma = 0.1 + 0.03 * x
+    y = 0.5 + 0.8 * x + rng.normal(0.0, sigma)
+    w = CurveFitter(x, y, model="straight_line", sigma=sigma)
+    w.fit()
+    page_sets(w, show_confidence_band=True, show_prediction_band=True)
+    b = w.bands_json
+    xs = np.array(b["x"], dtype=float)
+    # Reference: statsmodels WLS with weights 1/sigma**2 (sigma relative, scaled by the residual
+    # variance). A new observation's variance is scale / weight; its sigma at a grid x is the
+    # data's sigma interpolated linearly in x, held beyond the ends (prediction_band's rule).
+    wls = sm.WLS(y, sm.add_constant(x), weights=1.0 / sigma**2).fit()
+    sd_new = np.interp(xs, x, sigma)
+    frame = wls.get_prediction(sm.add_constant(xs), weights=1.0 / sd_new**2).summary_frame(
+        alpha=0.05
+    )
+    lo, hi = band_arrays(b, "confidence")
+    np.testing.assert_allclose(lo, frame["mean_ci_lower"].to_numpy(), rtol=1e-9)
+    np.testing.assert_allclose(hi, frame["mean_ci_upper"].to_numpy(), rtol=1e-9)
+    lo_p, hi_p = band_arrays(b, "prediction")
+    np.testing.assert_allclose(lo_p, frame["obs_ci_lower"].to_numpy(), rtol=1e-9)
+    np.testing.assert_allclose(hi_p, frame["obs_ci_upper"].to_numpy(), rtol=1e-9)
+
+
+def test_callable_model_bands_equal_the_results() -> None:
+    def decay(x: Any, a: float, k: float) -> Any:
+        return a * np.exp(-k * np.asarray(x))
+
+    rng = np.random.default_rng(4)
+    x = np.linspace(0.1, 10.0, 25)
+    y = decay(x, 5.0, 0.4) + rng.normal(0.0, 0.1, x.size)
+    w = CurveFitter(x, y, model=decay)
+    r = w.fit()
+    assert r is not None and r.success
+    w.show_prediction_band = True
+    b = w.bands_json
+    xs = np.array(b["x"], dtype=float)
+    lo_p, hi_p = band_arrays(b, "prediction")
+    ref = r.prediction_band(xs)
+    np.testing.assert_allclose(lo_p, ref["lower"].to_numpy(), rtol=1e-12)
+    np.testing.assert_allclose(hi_p, ref["upper"].to_numpy(), rtol=1e-12)
+
+
 def test_bands_without_a_fit_or_for_a_robust_fit_say_why() -> None:
     df = assay()
     w = CurveFitter(
