@@ -582,3 +582,40 @@ def test_zoom_and_reset_view(
     assert back.y.slope == pytest.approx(start.y.slope, rel=1e-6)
     assert back.x.offset - back.left == pytest.approx(start.x.offset - start.left, abs=0.5)
     assert harness.real_page_errors(page.cw_errors) == []
+
+
+def test_callable_model_pins_are_solved_by_the_kernel(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    # A Python callable cannot be evaluated in the browser: its pins go to the kernel, which
+    # solves for the parameters and sends the curve back (issue 4). Checked with numpy on the
+    # parameter values the kernel then holds.
+    state = "print('STATE', json.dumps({'settings': w.settings}))"
+    name = notebook(cells=[SLOW_SETUP, state])
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, 0)
+    root = cwpage.wait_rendered(page)  # its pins are its handles
+    pins = root.locator('[role="slider"][data-handle^="pin:"]')
+    assert pins.count() == 2, "two free parameters (a, k) should give two pins"
+    s0 = cwpage.kernel_json(page, 1, "STATE")
+    before = _pins(root)
+    cwpage.show_plot(root)
+    ax = cwpage.axes(root)
+    d0 = cwpage.curve_d(root)
+    cwpage.drag(page, pins.nth(0), 0, -40)
+    # The curve is redrawn from the kernel's samples; then the final solve is in Python.
+    page.wait_for_function(
+        "([el, d]) => el.querySelector('path.cw-curve').getAttribute('d') !== d",
+        arg=[root.element_handle(), d0],
+    )
+    harness.flush(root)
+    s1 = cwpage.kernel_json(page, 1, "STATE")
+    a, k = (float(s1["settings"][p]["value"]) for p in ("a", "k"))
+    assert (a, k) != (float(s0["settings"]["a"]["value"]), float(s0["settings"]["k"]["value"]))
+    px_per_unit = abs(ax.y.slope)
+    # Through the pin left alone, and 40 px higher at the dragged one (within the solver's
+    # 1.5 px and the mouse's few px).
+    (x0, y0), (x1, y1) = before
+    assert abs(a * math.exp(-k * x1) - y1) * px_per_unit < 1.5
+    assert (a * math.exp(-k * x0) - y0) * px_per_unit == pytest.approx(40, abs=4)
+    assert harness.real_page_errors(page.cw_errors) == []
