@@ -246,12 +246,12 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   const confBox = toggle(
     "show_confidence_band",
     "Confidence band",
-    "95% pointwise confidence band of the fitted curve: where the true curve lies",
+    "95% pointwise confidence band of the fitted curve over the data's x range: where the true curve lies",
   );
   const predBox = toggle(
     "show_prediction_band",
     "Prediction band",
-    "95% pointwise prediction band: where a new single observation falls",
+    "95% pointwise prediction band over the data's x range: where a new single observation falls",
   );
   const residBox = toggle("show_residuals", "Residuals", "The strip of residuals (data minus fit) under the plot");
   const bandNote = h("span", { class: "cw-band-note", "aria-live": "polite" });

@@ -162,6 +162,15 @@ class CurveFitter(anywidget.AnyWidget):
         The latest fit (an observable trait: ``widget.observe(fn, "result")``).
     history : tuple of FitResult
         Every fit made in this widget, oldest first, across models.
+    show_confidence_band, show_prediction_band : bool
+        Draw the shown fit's 95% confidence band (where the true curve lies) / prediction band
+        (where a new observation falls) under the fitted curve; the page's checkboxes. The
+        numbers are :meth:`bands`.
+    show_residuals : bool
+        Show the residual strip under the plot after a fit (default True).
+
+    For a polynomial model (``straight_line``, ``polynomial_k``) the page shows the degree
+    table of :meth:`degree_table`; picking a row is :meth:`use_degree`.
 
     Raises
     ------
