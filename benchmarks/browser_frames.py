@@ -183,11 +183,23 @@ def open_widget(
 
 
 def drag_frames(
-    page: Any, root: Any, moves: int, amplitude: float, *, pan: bool = False
+    page: Any,
+    root: Any,
+    moves: int,
+    amplitude: float,
+    *,
+    pan: bool = False,
+    handle_css: str | None = None,
 ) -> dict[str, list[float]]:
-    """Drag the midpoint handle (or, with ``pan``, the empty top-left of the plot, which pans
-    the view and redraws the points too) back and forth while recording frames."""
-    if pan:
+    """Drag the midpoint handle back and forth while recording frames; or, with ``pan``, the
+    empty top-left of the plot (which pans the view and redraws the points too); or, with
+    ``handle_css``, that handle up and down (a callable model's pin)."""
+    vertical = handle_css is not None
+    if handle_css is not None:
+        handle = root.locator(handle_css).first
+        handle.scroll_into_view_if_needed()
+        x, y = cwpage.centre(handle)
+    elif pan:
         cwpage.show_plot(root)
         box = root.locator(".cw-surface").first.bounding_box()
         x, y = box["x"] + 20, box["y"] + 20
@@ -202,7 +214,9 @@ def drag_frames(
     # page gets input in (nearly) every frame, as with a real mouse.
     steps = 4
     for i in range(1, moves // steps + 1):
-        page.mouse.move(x + amplitude * math.sin(2 * math.pi * i * steps / 160), y, steps=steps)
+        off = amplitude * math.sin(2 * math.pi * i * steps / 160)
+        tx, ty = (x, y - off) if vertical else (x + off, y)
+        page.mouse.move(tx, ty, steps=steps)
     page.mouse.up()
     page.wait_for_timeout(200)  # let the last frames land (a benchmark may wait by the clock)
     rec = root.evaluate(STOP_JS)
@@ -332,6 +346,9 @@ def main() -> None:
                 }
                 results[f"callable typed value to redraw, {label}"] = typed_round_trips(
                     page, root, max(10, args.trips // 2)
+                )
+                results[f"callable pin drag (kernel solves), {label}"] = drag_frames(
+                    page, root, args.moves, 60, handle_css='[data-handle="pin:0"]'
                 )
                 ctx.close()
             finally:
