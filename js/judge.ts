@@ -94,7 +94,7 @@ function lowest(rows: readonly DegreeRowJson[], key: "aicc" | "bic"): number | n
  * F (a perfect fit) arrives as null and reads "inf" (its p is 0).
  */
 export function degreeRows(t: DegreeTableJson): DegreeRow[] {
-  if ("error" in t) return [];
+  if (!("rows" in t)) return [];
   const aicc = lowest(t.rows, "aicc");
   const bic = lowest(t.rows, "bic");
   return t.rows.map((r) => ({
@@ -115,7 +115,7 @@ export function degreeRows(t: DegreeTableJson): DegreeRow[] {
 
 /** The table's caption: what was tested, on which points, with which weights. */
 export function degreeCaption(t: DegreeTableJson): string {
-  if ("error" in t) return "Polynomial degree";
+  if (!("rows" in t)) return "Polynomial degree";
   const weights = t.weighting === "none" ? "" : `, weighted as the fit is (${t.weighting})`;
   return (
     `Polynomial degree: each added power of x tested against the fit one degree lower ` +
@@ -126,6 +126,9 @@ export function degreeCaption(t: DegreeTableJson): string {
 /** One line naming the suggested degree (the reasoning follows it on the page). */
 export function degreeSuggestion(t: DegreeTableJson): string {
   if ("error" in t) return `No degree table: ${t.error}`;
+  if ("deferred" in t) {
+    return `The degree table fits every degree to all ${t.n.toLocaleString("en-US")} included points; it is computed when asked for.`;
+  }
   if (t.suggested === 0) return "Suggested: a constant (degree 0), which is not offered as a model here; see the reasoning.";
   return `Suggested degree: ${degreeLabel(t.suggested)}${t.suggested === t.current ? " — the model shown" : ""}.`;
 }

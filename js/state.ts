@@ -205,7 +205,8 @@ export interface DegreeRowJson {
 
 /**
  * The `degree_table_json` trait for a polynomial model: the degree table on the included
- * points, or why there is none; null for other models.
+ * points, or why there is none, or (large data) a table that waits to be asked for with a
+ * `degree_table` message; null for other models.
  */
 export type DegreeTableJson =
   | {
@@ -219,7 +220,8 @@ export type DegreeTableJson =
       rows: DegreeRowJson[];
       warnings: string[];
     }
-  | { current: number; error: string };
+  | { current: number; error: string }
+  | { current: number; deferred: true; n: number };
 
 /** "stopped": the fit ended without converging (cancelled, time or evaluation limit). */
 export type FitState = "idle" | "fitting" | "done" | "stopped" | "error";
@@ -283,6 +285,8 @@ export type FrontMessage =
   | { type: "guided_start" }
   /** A row of the degree table picked: show the polynomial of this degree. */
   | { type: "use_degree"; degree: number }
+  /** Large data: compute the degree table now. */
+  | { type: "degree_table" }
   | { type: "preview"; values: Record<string, number>; x_min: number; x_max: number }
   | {
       type: "pins";

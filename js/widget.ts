@@ -50,7 +50,8 @@
 //                         <tr data-degree=k> per degree (th = degree), the suggested row has class
 //                         .cw-suggested, the model's row aria-current="true"; every other row has
 //                         a <button> "Use degree <k>" (.cw-use-degree) that switches the model;
-//                         root data-cw-degree-suggested = suggested degree ("" without a table)
+//                         root data-cw-degree-suggested = suggested degree ("" without a table);
+//                         above 20k included points a <button> "Compute degree table" asks first
 //   error area            .cw-error (role="alert"), text in .cw-error-text, button "Dismiss"
 //   announcements         .cw-live (aria-live="polite", visually hidden)
 //   test hook             root._cwModel is the anywidget model (get/set/save_changes/on/off);
@@ -432,10 +433,20 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   function drawDegrees(): void {
     const t = model.get("degree_table_json");
     degreesEl.replaceChildren();
-    root.dataset["cwDegreeSuggested"] = t && !("error" in t) ? String(t.suggested) : "";
+    root.dataset["cwDegreeSuggested"] = t && "rows" in t ? String(t.suggested) : "";
     if (!t) return;
-    if ("error" in t) {
-      degreesEl.appendChild(h("p", { class: "cw-degree-note" }, degreeSuggestion(t)));
+    if (!("rows" in t)) {
+      const note = h("p", { class: "cw-degree-note" }, degreeSuggestion(t));
+      if ("deferred" in t) {
+        const b = h("button", { type: "button", class: "cw-btn cw-degree-compute" }, "Compute degree table");
+        b.addEventListener("click", () => {
+          b.disabled = true;
+          b.textContent = "Computing…";
+          send(model, { type: "degree_table" });
+        });
+        note.append(" ", b);
+      }
+      degreesEl.appendChild(note);
       return;
     }
     const table = h("table", { class: "cw-degree-table" });

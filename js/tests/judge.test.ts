@@ -143,3 +143,14 @@ describe("degree table", () => {
     expect(degreeLabel(7)).toBe("7");
   });
 });
+
+describe("degree table on large data", () => {
+  it("waits to be asked for and says why", () => {
+    const t: DegreeTableJson = { current: 2, deferred: true, n: 100000 };
+    expect(degreeRows(t)).toEqual([]);
+    expect(degreeCaption(t)).toBe("Polynomial degree");
+    expect(degreeSuggestion(t)).toBe(
+      "The degree table fits every degree to all 100,000 included points; it is computed when asked for.",
+    );
+  });
+});

@@ -347,3 +347,30 @@ def test_no_table_for_other_models_and_a_reason_for_too_few_points() -> None:
     assert t["current"] == 1 and "needs at least 3 points" in t["error"]
     with pytest.raises(cw.DataError, match="needs at least 3 points"):
         few.degree_table()
+
+
+def test_large_data_degree_table_waits_to_be_asked_for(monkeypatch: pytest.MonkeyPatch) -> None:
+    from curvewright.widget import _widget
+
+    # The threshold lowered so a small set stands in for 100k points (same code path).
+    monkeypatch.setattr(_widget, "_DEGREE_TABLE_AUTO_POINTS", 20)
+    x, y = curved()
+    w = CurveFitter(x, y, model="straight_line")
+    assert w.degree_table_json == {"current": 1, "deferred": True, "n": 30}
+    page_sends(w, {"type": "degree_table"})
+    ref = cw.select_degree(x, y, max_degree=4)
+    t = w.degree_table_json
+    assert t["suggested"] == ref.suggested and t["n"] == 30
+    assert [r["F"] for r in t["rows"]] == pytest.approx(ref.table["F"].tolist(), rel=1e-12)
+    # Kept while the points stay the same (a fit, an axis change) ...
+    w.fit()
+    w.y_scale = "log"
+    assert w.degree_table_json is t
+    # ... and asked for again once they change.
+    w.exclude([3])
+    assert w.degree_table_json == {"current": 1, "deferred": True, "n": 29}
+    # Python's own call always computes.
+    assert w.degree_table().table["F"].tolist() == pytest.approx(
+        cw.select_degree(np.delete(x, 3), np.delete(y, 3), max_degree=4).table["F"].tolist(),
+        rel=1e-12,
+    )

@@ -74,6 +74,9 @@ _PREVIEW_SAMPLES = 240
 _COMPARE_SAMPLES = 200
 # The degree table fits degrees 1..max(this, current degree + 1), as far as the data allow.
 _DEGREE_TABLE_MAX = 4
+# Beyond this many included points the degree table waits for the page to ask for it: its fits
+# take about a second on 100k points, too long to redo on every click that excludes a point.
+_DEGREE_TABLE_AUTO_POINTS = 20_000
 
 FitState = Literal["idle", "fitting", "done", "stopped", "error"]
 
@@ -209,7 +212,8 @@ class CurveFitter(anywidget.AnyWidget):
     # (_state.bands_json), or None.
     bands_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     # For a polynomial model: select_degree's table on the included points (_state.degree_json),
-    # or {"current": k, "error": why not}; None for other models.
+    # or {"current": k, "error": why not}, or on large data {"current": k, "deferred": True,
+    # "n": points} until the page asks for it; None for other models.
     degree_table_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     # Model comparison of the latest converged fit of each model (stats.compare's to_dict), or
     # {"error": why not} when they cannot be compared, or None with fewer than two.
@@ -803,6 +807,9 @@ class CurveFitter(anywidget.AnyWidget):
                 self.error = ""
             elif kind == "use_degree":
                 self.use_degree(content.get("degree"))
+            elif kind == "degree_table":
+                with self.hold_sync(), self._internal():
+                    self.degree_table_json = self._degree_json(force=True)
             else:
                 raise DataError(f"Unknown message from the page: {content!r}.")
         except Exception as exc:
@@ -1041,13 +1048,16 @@ class CurveFitter(anywidget.AnyWidget):
             sel = select_degree(x, y, max_degree=max_degree, alpha=alpha, weights=weights)
         return sel, weighting, [str(c.message) for c in caught]
 
-    def _degree_json(self) -> dict[str, Any] | None:
+    def _degree_json(self, *, force: bool = False) -> dict[str, Any] | None:
         k = self.model.polynomial_degree
         if k is None:
             return None
         key = (k, tuple(self._excluded))
         if self._degree_cache is not None and self._degree_cache[0] == key:
             return self._degree_cache[1]
+        n_used = int(self.dataset.x_used.size)
+        if n_used > _DEGREE_TABLE_AUTO_POINTS and not force:
+            return {"current": k, "deferred": True, "n": n_used}
         out: dict[str, Any]
         try:
             sel, weighting, notes = self._select_degree(k, None, 0.05, record=True)
