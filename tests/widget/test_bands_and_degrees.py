@@ -195,6 +195,18 @@ def test_bands_without_a_fit_or_for_a_robust_fit_say_why() -> None:
         w.bands()
 
 
+def test_no_bands_for_a_fit_that_did_not_converge() -> None:
+    df = assay()
+    w = CurveFitter(df, x="conc", y="response", model="inhibition_4pl", fit_options={"max_nfev": 3})
+    r = w.fit()
+    assert r is not None and not r.success  # stopped by the evaluation limit
+    page_sets(w, show_confidence_band=True)
+    b = w.bands_json
+    assert b["confidence"] is None and b["note"] == "No bands: the fit did not converge."
+    with pytest.raises(cw.FitError, match="did not converge"):
+        w.bands()
+
+
 def test_bad_toggle_values_raise_and_change_nothing() -> None:
     x, y = curved()
     w = CurveFitter(x, y, model="polynomial_2")
@@ -296,6 +308,17 @@ def test_a_higher_degree_model_gets_a_table_reaching_past_it() -> None:
     assert w.model_name == "polynomial_5" and "polynomial_5" in w.model_names
     t = w.degree_table_json
     assert t["current"] == 5 and t["max_degree"] == 6
+
+
+def test_a_picked_degree_survives_a_snapshot() -> None:
+    x, y = curved(n=40)
+    w = CurveFitter(x, y, model="straight_line")
+    w.use_degree(5)
+    snap = json.loads(json.dumps(w.snapshot()))
+    other = CurveFitter(x, y, model="straight_line")
+    other.restore(snap)  # polynomial_5 is not in the chooser: rebuilt from the snapshot
+    assert other.model_name == "polynomial_5" and other.model.polynomial_degree == 5
+    assert other.degree_table_json == w.degree_table_json
 
 
 def test_picking_a_degree_on_the_page_switches_the_model() -> None:
