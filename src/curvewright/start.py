@@ -31,9 +31,11 @@ from typing import Any, NamedTuple
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import least_squares, lsq_linear
+from scipy.signal import find_peaks, lombscargle, peak_prominences
 from scipy.stats import qmc
 
 from .errors import DataError, ParameterError
+from .expr import Expr
 from .models import Model, Param, unknown_name_message
 
 __all__ = [
@@ -455,8 +457,12 @@ class _Problem:
 
     def project(self, values: dict[str, float]) -> dict[str, float]:
         """Solve the linear parameters exactly for the given nonlinear ones."""
+        return self._project(values)[0]
+
+    def _project(self, values: dict[str, float]) -> tuple[dict[str, float], FloatArray | None]:
+        """The projected values and, when they were solved, the curve they give (f0 + A c)."""
         if not self.linear:
-            return values
+            return values, None
         v0 = dict(values)
         for n in self.linear:
             v0[n] = 0.0
@@ -469,7 +475,7 @@ class _Problem:
         A = np.column_stack(cols)
         rhs = self.y - f0
         if not (np.all(np.isfinite(A)) and np.all(np.isfinite(rhs))):
-            return values
+            return values, None
         norms = np.linalg.norm(A, axis=0)
         norms[norms == 0] = 1.0
         As = A / norms
@@ -482,13 +488,27 @@ class _Problem:
         out = dict(values)
         for n, ci, s in zip(self.linear, c, norms, strict=True):
             out[n] = float(ci / s)
-        return out
+        # the model is affine in these parameters, so its curve is f0 + A c: one evaluation saved
+        return out, f0 + As @ c
 
     def full(self, u: FloatArray, base: Mapping[str, float]) -> dict[str, float]:
+        return self._full(u, base)[0]
+
+    def _full(
+        self, u: FloatArray, base: Mapping[str, float]
+    ) -> tuple[dict[str, float], FloatArray | None]:
         v = {**base, **self.held}
         for n, ui in zip(self.nonlinear, u, strict=True):
             v[n] = self.from_u(n, float(ui))
-        return self.project(v)
+        return self._project(v)
+
+    def _residual_of(self, u: FloatArray, base: Mapping[str, float]) -> FloatArray:
+        v, f = self._full(u, base)
+        if f is None:
+            return self.residual(v)
+        r = f - self.y
+        out: FloatArray = np.where(np.isfinite(r), r, self.big) / self.scale
+        return out
 
     def ssr(self, values: Mapping[str, float]) -> float:
         r = self.residual(values)
@@ -510,7 +530,7 @@ class _Problem:
         typ = np.where(typ > 0, typ, 1.0)
 
         def fun(w: FloatArray) -> FloatArray:
-            return self.residual(self.full(w * typ, base))
+            return self._residual_of(w * typ, base)
 
         try:
             sol = least_squares(
@@ -1154,7 +1174,11 @@ def _infer_dims(model: Model) -> dict[str, tuple[float, float]]:
     A = np.array([r[0] for r in rows])
     B = -np.array([r[1] for r in rows])
     D = np.linalg.lstsq(A, B, rcond=None)[0]
-    return {n: (float(D[i, 0]), float(D[i, 1])) for i, n in enumerate(names)}
+    # rounded so that exact dimensions compare equal (lstsq gives 0.9999999999999996 for 1)
+    return {
+        n: (round(float(D[i, 0]), 9) + 0.0, round(float(D[i, 1]), 9) + 0.0)
+        for i, n in enumerate(names)
+    }
 
 
 def _locations(model: Model) -> set[str]:
@@ -1226,7 +1250,7 @@ def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) ->
         if dims in ((1.0, 0.0), (-1.0, 0.0)) and fine > 0 and coarse > 0:
             # an x scale (a width, a time constant) or its inverse (a rate): between the finest
             # and the coarsest scale of the data, half a decade beyond each
-            a, b = math.log10(fine) - 0.5, math.log10(coarse) + 0.5
+            a, b = math.log10(fine), math.log10(coarse) + 0.5
             lo_l, hi_l = (a, b) if dims[0] > 0 else (-b, -a)
         signs: tuple[float, ...]
         if p.lower >= 0:
@@ -1372,6 +1396,142 @@ def _sample(
     return out
 
 
+def _features(x: FloatArray, y: FloatArray) -> FloatArray:
+    """x of the prominent local maxima and minima of the (lightly smoothed) data.
+
+    Positions such as a peak's centre or a sigmoid's midpoint usually sit at a feature of the
+    data; seeding them there finds overlapping peaks a uniform draw rarely does.
+    """
+    ux, my = _means_by_x(x, y)
+    if ux.size < 7:
+        return np.zeros(0)
+    w = max(3, (ux.size // 25) | 1)  # odd window, about 4 % of the points
+    sm = np.convolve(np.pad(my, w // 2, mode="edge"), np.ones(w) / w, mode="valid")
+    prom = 0.02 * _span(sm)
+    found = [find_peaks(sgn * sm, prominence=prom)[0] for sgn in (1.0, -1.0)]
+    idx = np.concatenate(found)
+    if idx.size == 0:
+        return np.zeros(0)
+    # the most prominent first, at most eight
+    prominences = np.concatenate(
+        [peak_prominences(sgn * sm, f)[0] for sgn, f in zip((1.0, -1.0), found, strict=True)]
+    )
+    return np.asarray(ux[idx[np.argsort(-prominences)][:8]], dtype=float)
+
+
+def _trig_rates(model: Model) -> dict[str, tuple[float, float]]:
+    """Parameters setting how fast a sine or cosine turns with x.
+
+    For each, ``(s1, power)``: the argument's slope in x is ``s1 * value**power`` (power -1 for
+    a period as in ``cos(2*pi*x/P)``, +1 for an angular frequency as in ``sin(w*x + p)``),
+    measured on the formula with every other parameter at 1. Only arguments linear in x count.
+    """
+    if model.expr is None:
+        return {}
+    inferred = _infer_dims(model)
+    out: dict[str, tuple[float, float]] = {}
+
+    def walk(n: Mapping[str, Any]) -> None:
+        if n.get("type") == "call" and n.get("fn") in ("sin", "cos", "tan"):
+            arg = Expr.from_json(n["args"][0])
+            if "x" in arg.names:
+                for name in arg.names:
+                    power = {(1.0, 0.0): -1.0, (-1.0, 0.0): 1.0}.get(inferred.get(name, (0, 0)))
+                    if name == "x" or power is None:
+                        continue
+                    env: dict[str, Any] = {k: 1.0 for k in arg.names}
+                    env["x"] = np.array([0.0, 1.0, 2.0])
+                    with np.errstate(all="ignore"):
+                        v = np.broadcast_to(np.asarray(arg.evaluate(env), dtype=float), (3,))
+                    s1 = float(v[1] - v[0])
+                    if math.isfinite(s1) and s1 != 0 and abs((v[2] - v[1]) - s1) <= 1e-9 * abs(s1):
+                        out[name] = (s1, power)
+        for k in ("arg", "left", "right"):
+            if k in n:
+                walk(n[k])
+        for a in n.get("args", []):
+            walk(a)
+
+    walk(model.expr.to_json())
+    return out
+
+
+def _spectral_peaks(x: FloatArray, y: FloatArray) -> FloatArray:
+    """Angular frequencies of the strongest peaks of the data's Lomb-Scargle periodogram.
+
+    Uneven spacing is fine (Lomb 1976, Scargle 1982); a straight-line trend is removed first.
+    """
+    ux, my = _means_by_x(x, y)
+    if ux.size < 8:
+        return np.zeros(0)
+    span = float(np.ptp(ux))
+    fine = float(np.min(np.diff(ux)))
+    if not (span > 0 and fine > 0):
+        return np.zeros(0)
+    resid = my - np.polyval(np.polyfit(ux, my, 1), ux)
+    omega = np.linspace(2 * math.pi / (3 * span), math.pi / fine, 4000)
+    power = lombscargle(ux, resid, omega)
+    idx, _ = find_peaks(power)
+    if idx.size == 0:
+        return np.zeros(0)
+    top = idx[np.argsort(-power[idx])][:6]
+    return np.asarray(omega[top], dtype=float)
+
+
+def _feature_starts(
+    model: Model,
+    x: FloatArray,
+    y: FloatArray,
+    names: Sequence[str],
+    ranges: Mapping[str, _Range],
+    base: dict[str, float],
+    seed: int,
+) -> list[dict[str, float]]:
+    """Extra starts with the location parameters put on features of the data."""
+    inferred = _infer_dims(model)
+    where = _locations(model)
+
+    def x_sized(n: str) -> bool:
+        unit = model.param(n).unit
+        dims = _unit_dims(unit) if unit else None
+        return (dims if dims is not None else inferred.get(n)) == (1.0, 0.0)
+
+    # positions on the x axis only (a phase added to w*x is not one)
+    locs = [n for n in names if n in where and x_sized(n)]
+    feats = _features(x, y) if locs else np.zeros(0)
+    rates = {n: r for n, r in _trig_rates(model).items() if n in names}
+    omegas = _spectral_peaks(x, y) if rates else np.zeros(0)
+    if feats.size == 0 and omegas.size == 0:
+        return []
+    rng = np.random.default_rng(seed + 17)
+
+    def assignments(cands: FloatArray, k: int) -> list[tuple[float, ...]]:
+        # distinct candidates, the most prominent combinations first; random when too few
+        if k == 0 or cands.size == 0:
+            return []
+        if cands.size < k:
+            return [tuple(rng.choice(cands, size=k)) for _ in range(8)]
+        combos = list(itertools.permutations(range(min(cands.size, 5)), k))
+        combos.sort(key=sum)
+        return [tuple(float(cands[i]) for i in c) for c in combos]
+
+    loc_sets = assignments(feats, len(locs))
+    rate_sets = assignments(omegas, len(rates))
+    out = []
+    n_out = 4 + 4 * len(names)
+    for i, s in enumerate(_sample(ranges, names, n_out, seed + 31)):
+        if loc_sets:
+            s.update(dict(zip(locs, loc_sets[i % len(loc_sets)], strict=True)))
+        if rate_sets:
+            # a sine's rate from a peak of the periodogram: slope s1*value**power = omega
+            pick = rate_sets[(i // max(len(loc_sets), 1)) % len(rate_sets)]
+            for (n, (s1, power)), om in zip(rates.items(), pick, strict=True):
+                v = (om / abs(s1)) ** (1.0 / power)
+                s[n] = math.copysign(v, s[n]) if n in s and s[n] != 0 else v
+        out.append(_clip_into_bounds(model, {**base, **s}))
+    return out
+
+
 def _generic(
     model: Model,
     x: FloatArray,
@@ -1391,7 +1551,7 @@ def _generic(
     prob = _Problem.make(model, x, y, held, linear)
     d = len(prob.nonlinear)
     n = n_starts if n_starts is not None else 12 + 8 * d
-    nfev = 25 * (d + 1)
+    nfev = 15 * (d + 1)
     results: list[tuple[float, dict[str, float]]] = []
     polished: list[tuple[float, dict[str, float]]] = []
     done: set[int] = set()
@@ -1403,6 +1563,8 @@ def _generic(
             _clip_into_bounds(model, {**base0, **s})
             for s in _sample(ranges, prob.nonlinear, n, seed + 1009 * rnd)
         ]
+        if rnd == 0:
+            starts += _feature_starts(model, x, y, prob.nonlinear, ranges, base0, seed)
         for s in starts:
             r = prob.search(s, nfev) if prob.nonlinear else prob.project(s)
             results.append((prob.ssr(r), r))
