@@ -1333,12 +1333,17 @@ def generic_start(
     1. Each free parameter gets a plausible range from the data: from its unit hint (``"x"``,
        ``"1/x"``, ``"y"``, ``"log10(x)"``, ...) or, failing that, its dimension inferred from
        the formula, a magnitude ``|x|**a * |y|**b`` give or take two decades, sampled in log
-       space with either sign unless the bounds fix the sign; bounds are respected.
+       space with either sign unless the bounds fix the sign; bounds are respected. Positions
+       on the x axis (``x0`` in ``x - x0``) are drawn across the data; x scales (widths, time
+       constants) and their inverses (rates) between the data's finest spacing and its span.
     2. Parameters the model is affine in (detected numerically) are not sampled: for each trial
        of the others they are solved by linear least squares.
     3. A Latin hypercube (``scipy.stats.qmc``) of ``n_starts`` points, plus the model's default
-       values, each followed by a short least-squares run; the best few by residual sum of
-       squares are polished and the best is returned.
+       values, plus starts with the x positions on prominent extrema of the data and the rates
+       of sines and cosines on peaks of its Lomb-Scargle periodogram; each is followed by a
+       short least-squares run, and the best few by residual sum of squares are polished.
+    4. When the best minimum was reached from only one start, the landscape is rugged (periodic
+       or multi-peak models): up to three more rounds of fresh starts are run.
 
     Parameters
     ----------
