@@ -105,12 +105,14 @@ def page(request: pytest.FixtureRequest, browser: Any, server: harness.Server) -
     errors: list[str] = []
     pg.on("pageerror", lambda e: errors.append(str(e)))  # exceptions thrown in the _esm code
     pg.cw_errors = errors
+    # A failure screenshot left by an earlier run of this test would tell a stale story.
+    shot = ARTIFACTS / f"fail-{re.sub(r'[^A-Za-z0-9_-]+', '_', request.node.name)}.png"
+    shot.unlink(missing_ok=True)
     yield pg
     rep = getattr(request.node, "rep_call", None)
     if rep is not None and rep.failed:
         ARTIFACTS.mkdir(exist_ok=True)
-        name = re.sub(r"[^A-Za-z0-9_-]+", "_", request.node.name)
-        pg.screenshot(path=str(ARTIFACTS / f"fail-{name}.png"), full_page=True)
+        pg.screenshot(path=str(shot), full_page=True)
     ctx.close()
 
 
