@@ -432,6 +432,8 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
 
   function drawDegrees(): void {
     const t = model.get("degree_table_json");
+    // A keyboard user who picked a degree keeps focus in the table when it is rebuilt.
+    const hadFocus = degreesEl.contains(document.activeElement);
     degreesEl.replaceChildren();
     root.dataset["cwDegreeSuggested"] = t && "rows" in t ? String(t.suggested) : "";
     if (!t) return;
@@ -481,6 +483,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     }
     table.appendChild(body);
     degreesEl.appendChild(table);
+    if (hadFocus) table.querySelector<HTMLButtonElement>("button")?.focus({ preventScroll: true });
     degreesEl.appendChild(h("p", { class: "cw-recommendation" }, degreeSuggestion(t)));
     degreesEl.appendChild(h("p", { class: "cw-degree-reasoning" }, t.reasoning));
     if (t.warnings.length) {

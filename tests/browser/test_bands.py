@@ -192,6 +192,12 @@ def test_degree_table_shows_select_degree_and_a_pick_switches_the_model(
     page.keyboard.press("Enter")
     cwpage.wait_root_attr(page, root, "data-cw-model", "polynomial_3")
     assert root.get_by_role("combobox", name="Model").input_value() == "polynomial_3"
+    # The table was rebuilt under the keyboard user: focus stays in it, on a "Use degree" button.
+    page.wait_for_function(
+        "(el) => el.querySelector('.cw-degrees').contains(document.activeElement)"
+        " && /^Use degree/.test(document.activeElement.textContent)",
+        arg=root.element_handle(),
+    )
     harness.ARTIFACTS.mkdir(exist_ok=True)
     root.screenshot(path=str(harness.ARTIFACTS / f"degree-table-{server.app}.png"))
     assert harness.real_page_errors(page.cw_errors) == []
