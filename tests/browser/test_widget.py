@@ -457,7 +457,7 @@ def test_generic_pins_drag_keeps_the_curve_through_the_other_pins(
     assert harness.real_page_errors(page.cw_errors) == []
 
 
-def test_box_select_excludes_and_a_click_includes_again(
+def test_box_select_click_and_typed_rows_exclude_points(
     page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
 ) -> None:
     root = _open_flow(page, server, notebook)
@@ -486,6 +486,17 @@ def test_box_select_excludes_and_a_click_includes_again(
     cwpage.wait_root_attr(page, root, "data-cw-excluded", "[33,35]")
     s1 = _state(page, root)
     assert s1["excluded"] == [33, 35]
+    # The keyboard route: rows typed into the "Excluded rows" field replace the exclusion.
+    rows_field = root.get_by_role("textbox", name="Excluded rows")
+    assert re.fullmatch(r"33,\s*35", rows_field.input_value().strip())
+    rows_field.fill("5, 7-8")
+    rows_field.press("Enter")
+    cwpage.wait_root_attr(page, root, "data-cw-excluded", "[5,7,8]")
+    rows_field.fill("7-99")  # past the last row: shown as invalid, not applied
+    rows_field.press("Enter")
+    assert rows_field.get_attribute("aria-invalid") == "true"
+    s2 = _state(page, root)
+    assert s2["excluded"] == [5, 7, 8]
     assert harness.real_page_errors(page.cw_errors) == []
 
 
