@@ -17,6 +17,8 @@ from types import ModuleType
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from curvewright.catalog import catalog
 from curvewright.errors import HandleError, ParameterError
@@ -291,3 +293,34 @@ def test_log_space_rule_matches_the_front_end() -> None:
         for p in m.params:
             if p.positive:
                 assert p.log_scale, (m.name, p.name)
+
+
+@settings(max_examples=60)
+@given(
+    st.sampled_from(HANDLES),
+    st.lists(st.floats(0.3, 3.0), min_size=2, max_size=2),
+    st.booleans(),
+)
+def test_round_trip_for_any_reachable_target(
+    which: tuple[str, str], factors: list[float], x_log: bool
+) -> None:
+    # Targets are where the handle sits after changing its moved parameters by random factors
+    # (log-space ones) or shifts (the others): reachable by construction, so the drag lands.
+    model, handle = which
+    m = catalog()[model]
+    h = next(h for h in m.handles if h.name == handle)
+    v0 = START[model]
+    logs = log_params(m)
+    moved = dict(v0)
+    for i, n in enumerate(h.moves):
+        f = factors[i % 2]
+        # a log10 dose moves by up to two decades (a drag stays on the plot), others by their size
+        size = 1.0 if m.param(n).unit == "log10(x)" else max(abs(v0[n]), 1.0)
+        moved[n] = v0[n] * f if n in logs else v0[n] + (f - 1.0) * size
+    target = h.position(moved)
+    x_log = x_log and m.domain != "all"  # a log x axis only for models of positive x
+    sol = solve_handle(m, v0, handle, target, x_log=x_log)
+    assert sol.reached, (sol.message, sol.distance)
+    got = h.position(sol.values)
+    assert got[0] == pytest.approx(target[0], rel=1e-7, abs=1e-9)
+    assert got[1] == pytest.approx(target[1], rel=1e-7, abs=1e-9)
