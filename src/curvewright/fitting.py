@@ -40,7 +40,7 @@ from .stats.information import aicc as _aicc
 from .stats.information import bic as _bic
 from .stats.uncertainty import HIGH_CORRELATION, finite_difference_jacobian
 
-__all__ = ["fit", "resolve_model"]
+__all__ = ["fit", "point_weights", "resolve_model"]
 
 FloatArray = NDArray[np.float64]
 Weighting = Literal["none", "sigma", "relative", "poisson"]
@@ -291,6 +291,32 @@ def _weights(
             "those points or choose weights='none'."
         )
     return weighting, (1.0 / ay if weighting == "relative" else 1.0 / np.sqrt(ay))
+
+
+def point_weights(
+    weighting: str | None, datasets: Sequence[Dataset]
+) -> tuple[str, FloatArray | None]:
+    """The weighting :func:`fit` would use and its ``1/sigma`` per used point.
+
+    Parameters
+    ----------
+    weighting : {"none", "sigma", "relative", "poisson"} or None
+        As ``fit(weights=...)``; None picks "sigma" when every dataset has sigma.
+    datasets : sequence of Dataset
+
+    Returns
+    -------
+    (str, ndarray or None)
+        The resolved weighting and ``1/sigma`` over the used points (None when unweighted).
+
+    Raises
+    ------
+    ParameterError, DataError
+        As :func:`fit` does for the same weighting.
+    """
+    ds = tuple(datasets)
+    y = np.concatenate([d.y_used for d in ds])
+    return _weights(weighting, ds, y)
 
 
 def _build_problem(

@@ -39,7 +39,7 @@ from ..errors import (
     ModelError,
     ParameterError,
 )
-from ..fitting import _weights, resolve_model
+from ..fitting import point_weights, resolve_model
 from ..models import Model, unknown_name_message
 from ..result import FitResult
 from ..start import guided_start
@@ -1032,7 +1032,7 @@ class CurveFitter(anywidget.AnyWidget):
         """
         ds = self.dataset
         x, y = ds.x_used, ds.y_used
-        weighting, w = _weights(self._fit_options.get("weights"), (ds,), y)
+        weighting, w = point_weights(self._fit_options.get("weights"), (ds,))
         if max_degree is None:
             n_distinct = int(np.unique(x).size)
             top = min(max(_DEGREE_TABLE_MAX, k + 1), MAX_DEGREE, x.size - 2, n_distinct - 1)
