@@ -535,3 +535,23 @@ def test_large_data_guided_start_uses_a_subset_but_the_fit_uses_every_point() ->
     assert r.success and r.n == x.size
     for k, v in truth.items():
         assert abs(r.values[k] - v) < 5 * r.stderr[k], k
+
+
+def test_cancel_stops_model_evaluations_at_once() -> None:
+    # After cancel no more evaluations are made (a slow Python model would otherwise need two
+    # per parameter for a Jacobian at the point where the fit stopped).
+    x, y = _decay_data()
+    ev = threading.Event()
+    calls = {"n": 0}
+
+    def decay(x: np.ndarray, plateau: float, span: float, k: float) -> np.ndarray:
+        calls["n"] += 1
+        if calls["n"] == 8:
+            ev.set()
+        return plateau + span * np.exp(-k * x)
+
+    r = cw.fit(decay, x, y, start={"plateau": 1.0, "span": 5.0, "k": 0.2}, cancel=ev)
+    assert r.code == "cancelled" and not r.success
+    assert calls["n"] <= 10  # the cancelling call, then the value at the best point
+    assert np.isnan(r.covariance).all()
+    assert all(math.isnan(r.stderr[n]) for n in ("plateau", "span", "k"))

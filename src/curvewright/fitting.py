@@ -870,10 +870,16 @@ def _finish(prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] 
     dof = n - p
     code = kept.code if kept is not None else "nothing_to_fit"
     success = outcome(code).success
-    J = _model_jacobian(prob, theta, values)
-    jw = J if prob.w is None else J * prob.w[:, None]
     scale = 1.0 if prob.absolute_sigma else (ssr / dof if dof > 0 else math.nan)
-    cov, cond, singular = _covariance(jw, scale)
+    if code in ("cancelled", "stopped_time"):
+        # The user asked to stop: no further model evaluations (a slow callable would need
+        # 2 per parameter for its Jacobian). The point where it stopped has no covariance.
+        J = np.full((n, p), np.nan)
+        cov, cond, singular = np.full((p, p), np.nan), math.nan, False
+    else:
+        J = _model_jacobian(prob, theta, values)
+        jw = J if prob.w is None else J * prob.w[:, None]
+        cov, cond, singular = _covariance(jw, scale)
     pj = _param_jacobian(prob, values)
     with np.errstate(all="ignore"):
         var_all = np.einsum("ij,jk,ik->i", pj, cov, pj) if p else np.zeros(len(values))
