@@ -40,7 +40,7 @@ help:
 	@echo "make test-browser   JupyterLab / Notebook 7 tests in Debian's chromium (pytest -m browser)"
 	@echo "make test-notebooks execute examples/*.ipynb into a temporary directory"
 	@echo "make demo           set up, then open examples/quickstart.ipynb in JupyterLab"
-	@echo "make bench          run benchmarks/run.py"
+	@echo "make bench          fit speed vs scipy/lmfit, JS drag frame, in-browser frames (figures for README)"
 	@echo "make wheel          build sdist + wheel into dist/ and check the wheel ships the bundle"
 	@echo "make clean          remove build output and stamps (keeps $(VENV) and node_modules)"
 
@@ -126,8 +126,10 @@ demo: $(PY_STAMP) $(BUNDLE)
 	$(BIN)/jupyter lab $$( [ "$$(id -u)" = 0 ] && echo --allow-root ) examples/quickstart.ipynb
 
 bench: $(PY_STAMP) $(BUNDLE)
-	@if [ -f benchmarks/run.py ]; then $(PY) benchmarks/run.py; \
-	else echo "WARNING: benchmarks/run.py does not exist yet; nothing measured."; fi
+	$(PY) benchmarks/run.py
+	node js/bench/expr-speed.mjs
+	node js/bench/drag-frame.mjs
+	$(PY) benchmarks/browser_frames.py
 
 # The sdist is built first and the wheel from the unpacked sdist (python -m build), so this also
 # checks that the sdist carries the bundle and that building from it needs no rebuild.
