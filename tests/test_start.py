@@ -696,6 +696,31 @@ def _inhibition(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     )
 
 
+def _rise_or_growth(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
+    k = 10 ** d(st.floats(-3, 2))
+    if d(st.booleans()):
+        y0 = d(st.floats(-10, 10))
+        return (
+            "rise_to_plateau",
+            np.linspace(0, 6 / k, 15),
+            {"y0": y0, "plateau": y0 + d(st.floats(1, 100)), "k": k},
+        )
+    return (
+        "exponential_growth",
+        np.linspace(0, 4 / k, 12),
+        {"y0": 10 ** d(st.floats(-2, 3)), "k": k},
+    )
+
+
+def _three(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
+    mid = d(st.floats(-10, -2))
+    return (
+        "stimulation_3pl",
+        np.r_[0.0, 10 ** (mid + np.linspace(-3, 3, 13))],
+        {"top": 10 ** d(st.floats(-1, 3)), "logEC50": mid, "hill": d(st.floats(0.5, 3.0))},
+    )
+
+
 @st.composite
 def catalog_cases(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     makers: list[Callable[[st.DrawFn], tuple[str, FloatArray, dict[str, float]]]] = [
@@ -711,6 +736,8 @@ def catalog_cases(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
         _lorentz,
         _power,
         _inhibition,
+        _rise_or_growth,
+        _three,
     ]
     make = d(st.sampled_from(makers))
     out: tuple[str, FloatArray, dict[str, float]] = make(d)
