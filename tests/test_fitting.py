@@ -555,3 +555,15 @@ def test_cancel_stops_model_evaluations_at_once() -> None:
     assert calls["n"] <= 10  # the cancelling call, then the value at the best point
     assert np.isnan(r.covariance).all()
     assert all(math.isnan(r.stderr[n]) for n in ("plateau", "span", "k"))
+
+
+@pytest.mark.parametrize("factor", [1e-9, 1e6])
+def test_fit_does_not_depend_on_the_unit_of_y(factor: float) -> None:
+    # Least squares is unit-free: y in mol/L or in nmol/L must give the same curve. NIST
+    # Misra1a's data (NIST StRD) rescaled; b1 scales with y, b2 does not.
+    p = read("Misra1a")
+    ref = cw.fit("b1*(1-exp(-b2*x))", p.x, p.y, start={"b1": 500.0, "b2": 1e-4})
+    r = cw.fit("b1*(1-exp(-b2*x))", p.x, p.y * factor, start={"b1": 500.0 * factor, "b2": 1e-4})
+    assert lre(r.values["b1"] / factor, p.certified[0]) >= 6.0  # NIST certified b1
+    assert lre(r.values["b2"], p.certified[1]) >= 6.0  # NIST certified b2
+    assert r.values["b2"] == pytest.approx(ref.values["b2"], rel=1e-8)

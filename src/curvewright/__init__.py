@@ -27,6 +27,7 @@ from .errors import (
     RankDeficiencyWarning,
 )
 from .fitting import fit
+from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
 from .result import CAUTION, FitResult
 from .start import generic_start, guided_start
@@ -76,6 +77,8 @@ __all__ = [
     "linearized_fit",
     "linearized_fits",
     "make_dataset",
+    "move_handle",
+    "pin_through",
     "polynomial",
     "polynomial_fit",
     "profile_intervals",

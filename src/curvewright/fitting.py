@@ -136,7 +136,15 @@ class _Problem:
     # d f / d parameter for every model parameter, compiled once (formula models only).
     deriv_fns: list[Callable[..., Any]] | None = None
 
+    # Residuals are handed to the solvers divided by this, so their tolerances (scipy checks
+    # the gradient in absolute terms) mean the same whatever the unit of y: y in mol/L or in
+    # counts per million converges alike. Weighted residuals are already dimensionless.
+    rscale: float = 1.0
+
     def __post_init__(self) -> None:
+        if self.w is None:
+            rms = float(np.sqrt(np.mean(self.y**2))) if self.y.size else 0.0
+            self.rscale = rms if math.isfinite(rms) and rms > 0 else 1.0
         order = [*self.free, *self.fixed]
         self._link_fns = [(n, e.compile(order)) for n, e in self.links.items()]
         expr = self.model.expr
@@ -490,7 +498,7 @@ class _Watch:
             if now - self._last_report >= 0.1:
                 self._last_report = now
                 self.progress(self.nfev, self.best_ssr)
-        return r
+        return r / self.prob.rscale
 
 
 def _objective(prob: _Problem, r: FloatArray) -> float:
@@ -530,7 +538,7 @@ def _solve(
         kws = {"ftol": _TOL, "xtol": _TOL, "gtol": _TOL, "max_nfev": budget}
         if prob.loss != "linear":
             kws["loss"] = prob.loss
-            kws["f_scale"] = prob.loss_scale or 1.0
+            kws["f_scale"] = (prob.loss_scale or 1.0) / prob.rscale
         if x_scale is not None:
             kws["x_scale"] = x_scale
     nfev0 = watch.nfev
@@ -645,7 +653,7 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
 
     def jac(theta: FloatArray) -> FloatArray:
         J = _model_jacobian(prob, theta, prob.values(theta))
-        return -(J if w is None else J * w[:, None])
+        return -(J if w is None else J * w[:, None]) / prob.rscale
 
     eps = float(np.finfo(float).eps)
     kws: dict[str, Any] = {"ftol": eps, "xtol": eps, "gtol": eps, "max_nfev": budget}
@@ -653,7 +661,7 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
         kws["jac"] = jac
     if meth == "trf":
         kws["loss"] = prob.loss
-        kws["f_scale"] = prob.loss_scale or 1.0
+        kws["f_scale"] = (prob.loss_scale or 1.0) / prob.rscale
         kws["bounds"] = (prob.lower, prob.upper)
         kws["x_scale"] = "jac"
     theta0 = np.clip(best.theta, prob.lower, prob.upper)
@@ -718,7 +726,8 @@ def _model_jacobian(prob: _Problem, theta: FloatArray, values: Mapping[str, floa
         full = np.column_stack(
             [np.broadcast_to(np.asarray(fn(prob.x, *args), float), (n,)) for fn in prob.deriv_fns]
         )
-    J = full @ _param_jacobian(prob, values)
+    with np.errstate(all="ignore"):
+        J = full @ _param_jacobian(prob, values)
     bad = ~np.all(np.isfinite(J), axis=1)
     if bad.any():
         # e.g. d/dlogEC50 of 10**(log10(x)...) at a zero-dose control: inf * 0 analytically,
