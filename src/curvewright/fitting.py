@@ -33,7 +33,7 @@ from .errors import DataError, FitError, FormulaError, ModelError, ParameterErro
 from .expr import Expr
 from .linear import solve_polynomial
 from .messages import LEAST_SQUARES_STATUS, LEASTSQ_IER, outcome
-from .models import Model, unknown_name_message
+from .models import Model, as_number, unknown_name_message
 from .result import NOT_IDENTIFIED_RSE, Attempt, Diagnostic, FitResult
 from .start import guided_start
 from .stats.information import aicc as _aicc
@@ -179,15 +179,6 @@ def _as_names(fixed: Mapping[str, float] | Iterable[str] | None) -> dict[str, fl
     return {str(k): None for k in fixed}
 
 
-def _number(v: object, what: str) -> float:
-    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
-        raise ParameterError(f"{what} must be a number, got {v!r} ({type(v).__name__}).")
-    f = float(v)
-    if math.isnan(f):
-        raise ParameterError(f"{what} is NaN; give a finite number.")
-    return f
-
-
 def _check_names(model: Model, names: Iterable[str], where: str) -> None:
     for n in names:
         if n not in model.param_names:
@@ -212,8 +203,8 @@ def _bounds(
                 f"bounds[{name!r}] must be a pair (lower, upper) with None for no bound; "
                 f"got {pair!r}."
             )
-        lo = -math.inf if pair[0] is None else _number(pair[0], f"lower bound of {name!r}")
-        hi = math.inf if pair[1] is None else _number(pair[1], f"upper bound of {name!r}")
+        lo = -math.inf if pair[0] is None else as_number(pair[0], f"lower bound of {name!r}")
+        hi = math.inf if pair[1] is None else as_number(pair[1], f"upper bound of {name!r}")
         if lo > hi:
             raise ParameterError(
                 f"bounds[{name!r}]: lower bound {lo:g} is above upper bound {hi:g}; swap them."
@@ -347,7 +338,7 @@ def _build_problem(
     if loss not in _LOSSES:
         raise ParameterError(f"loss must be one of {_LOSSES}, got {loss!r}.")
     if loss_scale is not None:
-        loss_scale = _number(loss_scale, "loss_scale")
+        loss_scale = as_number(loss_scale, "loss_scale")
         if not loss_scale > 0 or math.isinf(loss_scale):
             raise ParameterError(f"loss_scale must be a positive number, got {loss_scale!r}.")
     weighting, w = _weights(weights, datasets, y)
@@ -356,7 +347,7 @@ def _build_problem(
         raise ParameterError(
             f"start must be a mapping {{name: value}}, got {type(start).__name__}."
         )
-    user_start = {str(k): _number(v, f"start value of {k!r}") for k, v in (start or {}).items()}
+    user_start = {str(k): as_number(v, f"start value of {k!r}") for k, v in (start or {}).items()}
     _check_names(model, user_start, "start")
     for k, v in user_start.items():
         if math.isinf(v):
@@ -365,7 +356,7 @@ def _build_problem(
     _check_names(model, held_raw, "fixed")
     held: dict[str, float] = {}
     for k, raw in held_raw.items():
-        fv = _number(
+        fv = as_number(
             user_start.get(k, model.param(k).value) if raw is None else raw,
             f"fixed value of {k!r}",
         )
@@ -1079,7 +1070,7 @@ def fit(
     ):
         raise ParameterError(f"max_nfev must be a positive whole number, got {max_nfev!r}.")
     if timeout is not None:
-        timeout = _number(timeout, "timeout")
+        timeout = as_number(timeout, "timeout")
         if not timeout > 0:
             raise ParameterError(f"timeout must be a positive number of seconds, got {timeout}.")
     cancel_fn: Callable[[], bool] | None

@@ -20,13 +20,33 @@ from numpy.typing import ArrayLike, NDArray
 from .errors import DomainError, FormulaError, ModelError, ParameterError
 from .expr import Expr
 
-__all__ = ["Derived", "Domain", "Handle", "Model", "Param", "StartRule"]
+__all__ = ["Derived", "Domain", "Handle", "Model", "Param", "StartRule", "as_number"]
 
 Domain = Literal["all", "x>0", "x>=0"]
 StartRule = Callable[[NDArray[np.float64], NDArray[np.float64]], Mapping[str, float]]
 FloatArray = NDArray[np.float64]
 
 _DOMAINS: tuple[Domain, ...] = ("all", "x>0", "x>=0")
+
+
+def as_number(v: object, what: str, *, allow_nan: bool = False) -> float:
+    """``v`` as a float, or :class:`ParameterError` naming ``what`` (bools are not numbers).
+
+    Parameters
+    ----------
+    v : object
+        The value a user gave.
+    what : str
+        How to name it in the message, e.g. ``"start value of 'k'"``.
+    allow_nan : bool
+        Accept NaN (otherwise it is an error, since no fit can use it).
+    """
+    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
+        raise ParameterError(f"{what} must be a number, got {v!r} ({type(v).__name__}).")
+    f = float(v)
+    if math.isnan(f) and not allow_nan:
+        raise ParameterError(f"{what} is NaN; give a finite number.")
+    return f
 
 
 def _check_identifier(name: str, what: str) -> None:

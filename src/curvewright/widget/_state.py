@@ -17,7 +17,7 @@ from numpy.typing import NDArray
 
 from ..data import Dataset
 from ..errors import CurvewrightError, DataError, ParameterError
-from ..models import Model, unknown_name_message
+from ..models import Model, as_number, unknown_name_message
 from ..result import CAUTION, FitResult
 from ..stats.polynomial import DegreeSelection
 
@@ -59,12 +59,6 @@ BAND_LEVEL = 0.95
 ParamSetting = dict[str, Any]
 
 
-def _num(v: object, what: str) -> float:
-    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
-        raise ParameterError(f"{what} must be a number, got {v!r} ({type(v).__name__}).")
-    return float(v)
-
-
 def validate_setting(
     model: Model, name: str, value: float, lower: float, upper: float, fixed: bool
 ) -> ParamSetting:
@@ -102,7 +96,7 @@ def validate_setting(
 def _bound_from_json(v: object, side: str, name: str) -> float:
     if v is None:
         return -math.inf if side == "lower" else math.inf
-    return _num(v, f"Parameter {name!r}: {side} bound")
+    return as_number(v, f"Parameter {name!r}: {side} bound", allow_nan=True)
 
 
 def parse_params(model: Model, raw: object) -> dict[str, ParamSetting]:
@@ -130,7 +124,7 @@ def parse_params(model: Model, raw: object) -> dict[str, ParamSetting]:
                 f"params[{name!r}] must be a mapping with value, lower, upper, fixed; "
                 f"got {type(entry).__name__}."
             )
-        value = _num(entry.get("value"), f"Parameter {name!r}: value")
+        value = as_number(entry.get("value"), f"Parameter {name!r}: value", allow_nan=True)
         lower = _bound_from_json(entry.get("lower"), "lower", name)
         upper = _bound_from_json(entry.get("upper"), "upper", name)
         fixed = entry.get("fixed", False)

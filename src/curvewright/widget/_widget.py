@@ -40,7 +40,7 @@ from ..errors import (
     ParameterError,
 )
 from ..fitting import point_weights, resolve_model
-from ..models import Model, unknown_name_message
+from ..models import Model, as_number, unknown_name_message
 from ..result import FitResult
 from ..start import guided_start
 from ..stats.compare import Comparison, compare
@@ -387,9 +387,9 @@ class CurveFitter(anywidget.AnyWidget):
         new = _state.validate_setting(
             model,
             name,
-            float(cur["value"] if value is None else _num(value, f"{name} value")),
-            float(cur["lower"] if lower is None else _num(lower, f"{name} lower")),
-            float(cur["upper"] if upper is None else _num(upper, f"{name} upper")),
+            float(cur["value"] if value is None else as_number(value, f"{name} value")),
+            float(cur["lower"] if lower is None else as_number(lower, f"{name} lower")),
+            float(cur["upper"] if upper is None else as_number(upper, f"{name} upper")),
             bool(cur["fixed"] if fixed is None else fixed),
         )
         settings = {**self._mem().settings, name: new}
@@ -932,11 +932,11 @@ class CurveFitter(anywidget.AnyWidget):
             return out[name]
 
         for n, v in (start or {}).items():
-            entry(n, "start")["value"] = _num(v, f"start[{n!r}]")
+            entry(n, "start")["value"] = as_number(v, f"start[{n!r}]")
         if isinstance(fixed, Mapping):
             for n, v in fixed.items():
                 e = entry(n, "fixed")
-                e["value"] = _num(v, f"fixed[{n!r}]")
+                e["value"] = as_number(v, f"fixed[{n!r}]")
                 e["fixed"] = True
         elif fixed is not None:
             if isinstance(fixed, str):
@@ -956,8 +956,8 @@ class CurveFitter(anywidget.AnyWidget):
                     raise ParameterError(
                         f"bounds[{n!r}] must be a pair (lower, upper), got {pair!r}."
                     ) from exc
-                e["lower"] = -math.inf if lo is None else _num(lo, f"bounds[{n!r}] lower")
-                e["upper"] = math.inf if hi is None else _num(hi, f"bounds[{n!r}] upper")
+                e["lower"] = -math.inf if lo is None else as_number(lo, f"bounds[{n!r}] lower")
+                e["upper"] = math.inf if hi is None else as_number(hi, f"bounds[{n!r}] upper")
         return {
             n: _state.validate_setting(
                 model, n, float(s["value"]), float(s["lower"]), float(s["upper"]), bool(s["fixed"])
@@ -1134,7 +1134,7 @@ class CurveFitter(anywidget.AnyWidget):
             return  # the page draws formula models itself
         if not isinstance(raw, Mapping):
             raise ParameterError("preview: values must be a mapping name -> number.")
-        values = {n: _num(raw.get(n), f"preview value of {n!r}") for n in model.param_names}
+        values = {n: as_number(raw.get(n), f"preview value of {n!r}") for n in model.param_names}
         lo, hi = content.get("x_min"), content.get("x_max")
         lo_f = float(lo) if isinstance(lo, (int, float)) and math.isfinite(lo) else None
         hi_f = float(hi) if isinstance(hi, (int, float)) and math.isfinite(hi) else None
@@ -1156,7 +1156,7 @@ class CurveFitter(anywidget.AnyWidget):
         raw_values = content.get("values")
         if not isinstance(raw_values, Mapping):
             raise ParameterError("pins: values must be a mapping name -> number.")
-        values = {n: _num(raw_values.get(n), f"value of {n!r}") for n in model.param_names}
+        values = {n: as_number(raw_values.get(n), f"value of {n!r}") for n in model.param_names}
         raw_pins = content.get("pins")
         if not isinstance(raw_pins, Sequence) or not 1 <= len(raw_pins) <= _MAX_PINS:
             raise DataError(f"pins: expected 1 to {_MAX_PINS} points [x, y], got {raw_pins!r}.")
@@ -1164,7 +1164,7 @@ class CurveFitter(anywidget.AnyWidget):
         for p in raw_pins:
             if not isinstance(p, Sequence) or len(p) != 2:
                 raise DataError(f"pins: each pin is [x, y], got {p!r}.")
-            pts.append((_num(p[0], "pin x"), _num(p[1], "pin y")))
+            pts.append((as_number(p[0], "pin x"), as_number(p[1], "pin y")))
         px = np.array([p[0] for p in pts])
         py = np.array([p[1] for p in pts])
         settings = self._mem().settings
@@ -1368,15 +1368,6 @@ def _catalog() -> Mapping[str, Model]:
     from ..catalog import catalog
 
     return catalog()
-
-
-def _num(v: object, what: str) -> float:
-    if isinstance(v, bool) or not isinstance(v, (int, float, np.integer, np.floating)):
-        raise ParameterError(f"{what} must be a number, got {v!r}.")
-    f = float(v)
-    if math.isnan(f):
-        raise ParameterError(f"{what} must be a number, not NaN.")
-    return f
 
 
 def _opt(v: float) -> float | None:
