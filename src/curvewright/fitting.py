@@ -381,8 +381,7 @@ def _build_problem(
                 "start inside them or widen the bounds."
             )
     if free and any(k not in user_start for k in free):
-        gx, gy = _start_subset(x, y)
-        guess = guided_start(model, gx, gy, fixed={**held, **user_start})
+        guess = guided_start(model, x, y, fixed={**held, **user_start})
     else:
         guess = model.defaults()
     values0 = {**model.defaults(), **guess, **user_start, **held}
@@ -411,19 +410,6 @@ def _build_problem(
         user_start=user_start,
         link_texts={k: str(v).strip() for k, v in (links or {}).items()},
     )
-
-
-# The guided start needs the curve's shape, not every point: above this many points it runs on
-# an evenly spaced subset along x (the fit itself always uses every point).
-_START_POINTS = 5000
-
-
-def _start_subset(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray]:
-    if x.size <= _START_POINTS:
-        return x, y
-    order = np.argsort(x, kind="stable")
-    pick = order[np.linspace(0, x.size - 1, _START_POINTS).round().astype(np.intp)]
-    return x[pick], y[pick]
 
 
 def _inside(lo: float, hi: float, v: float) -> float:

@@ -66,9 +66,6 @@ FIT_OPTIONS = (
     "links",
 )
 
-# Beyond this many points the guided start works on an evenly spaced subset (see
-# _guided_settings); starts on 100k points otherwise take seconds.
-_START_POINTS = 5000
 # Samples of a curve computed in Python (callable models, earlier fits drawn for comparison).
 _PREVIEW_SAMPLES = 240
 _COMPARE_SAMPLES = 200
@@ -900,13 +897,7 @@ class CurveFitter(anywidget.AnyWidget):
             keep = x >= 0
         else:
             keep = np.ones(x.shape, dtype=bool)
-        xs, ys = x[keep], y[keep]
-        if xs.size > _START_POINTS:
-            # A start needs the curve's shape, not every point: evenly spaced points in x order
-            # keep it and make the guided start fast on large data (the fit uses every point).
-            order = np.argsort(xs, kind="stable")
-            pick = order[np.linspace(0, xs.size - 1, _START_POINTS).astype(np.int64)]
-            xs, ys = xs[pick], ys[pick]
+        xs, ys = x[keep], y[keep]  # guided_start thins large data itself
         try:
             values = guided_start(model, xs, ys, fixed=held or None)
         except Exception as exc:  # a start is a convenience: fall back, never fail the widget
