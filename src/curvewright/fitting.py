@@ -130,7 +130,6 @@ class _Problem:
     links: dict[str, Expr]
     lower: FloatArray  # bounds of the free parameters
     upper: FloatArray
-    user_start: dict[str, float]
     link_texts: dict[str, str] = field(default_factory=dict)
     _link_fns: list[tuple[str, Callable[..., Any]]] = field(default_factory=list)
     # d f / d parameter for every model parameter, compiled once (formula models only).
@@ -407,7 +406,6 @@ def _build_problem(
         links=link_exprs,
         lower=np.array([bnd[n][0] for n in free], dtype=float),
         upper=np.array([bnd[n][1] for n in free], dtype=float),
-        user_start=user_start,
         link_texts={k: str(v).strip() for k, v in (links or {}).items()},
     )
 
@@ -841,7 +839,7 @@ def _diagnostics(
     return out
 
 
-def _finish(prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] = ()) -> FitResult:
+def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
     kept = min(runs, key=lambda r: (not outcome(r.code).success, r.objective)) if runs else None
     if kept is not None and not outcome(kept.code).success:
         kept = min(runs, key=lambda r: r.objective)
@@ -879,7 +877,7 @@ def _finish(prob: _Problem, runs: list[_Run], attempts_extra: Sequence[Attempt] 
     ybar = float(np.sum(wts**2 * prob.y) / np.sum(wts**2))
     sst = float(np.sum((wts * (prob.y - ybar)) ** 2))
     diags = _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
-    attempts = [*attempts_extra] + [
+    attempts = [
         Attempt(
             strategy=r.strategy,
             method=r.method,
