@@ -34,11 +34,11 @@ from .expr import Expr
 from .linear import solve_polynomial
 from .messages import LEAST_SQUARES_STATUS, LEASTSQ_IER, outcome
 from .models import Model, as_number, unknown_name_message
-from .result import NOT_IDENTIFIED_RSE, Attempt, Diagnostic, FitResult
+from .numerics import aicc as _aicc
+from .numerics import bic as _bic
+from .numerics import finite_difference_jacobian
+from .result import HIGH_CORRELATION, NOT_IDENTIFIED_RSE, Attempt, Diagnostic, FitResult
 from .start import guided_start
-from .stats.information import aicc as _aicc
-from .stats.information import bic as _bic
-from .stats.uncertainty import HIGH_CORRELATION, finite_difference_jacobian
 
 __all__ = ["fit", "point_weights", "resolve_model"]
 
@@ -913,7 +913,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         dof=dof,
         sigma_resid=math.sqrt(ssr / dof) if dof > 0 else math.nan,
         r2=1.0 - ssr / sst if sst > 0 else math.nan,
-        aicc=_aicc(ssr, n, p + 1) if n - p - 2 > 0 else math.nan,
+        aicc=_aicc(ssr, n, p + 1),
         bic=_bic(ssr, n, p + 1),
         condition=cond,
         fitted=fitted,

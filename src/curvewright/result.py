@@ -46,6 +46,8 @@ CAUTION = (
 #: A free parameter whose standard error exceeds this multiple of its absolute value is reported
 #: as "not identified": its asymptotic 95% interval spans zero and about twice its own size in
 #: each direction, so the data say little more than its sign, if that.
+#: |correlation| above which two parameters are reported as not separately determined.
+HIGH_CORRELATION = 0.99
 NOT_IDENTIFIED_RSE = 1.0
 
 _FORMAT = "curvewright.FitResult"

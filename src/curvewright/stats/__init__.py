@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
+from curvewright.numerics import aic, aicc, bic
 from curvewright.stats.compare import Comparison, akaike_weights, compare, extra_ss_f_test
-from curvewright.stats.information import aic, aicc, bic
 from curvewright.stats.linearized import (
     TRANSFORMS,
     LinearizedFit,

@@ -12,7 +12,7 @@ Anderson, *Model Selection and Multimodel Inference*, 2002, from memory):
 * **AICc with Akaike weights**, for any set of models fitted to the same data:
   ``w_i = exp(-Delta_i / 2) / sum_j exp(-Delta_j / 2)`` with ``Delta_i = AICc_i - min AICc``,
   the weight of evidence that model i is the best of the set (in Kullback-Leibler terms).
-  AICc uses ``K = free parameters + 1`` (see :mod:`curvewright.stats.information`).
+  AICc uses ``K = free parameters + 1`` (see :mod:`curvewright.numerics`).
 
 Nesting is detected when two fits use the same model and one holds parameters fixed that the
 other estimates (at values consistent with the other's fixed ones), and for known pairs of

@@ -44,7 +44,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from curvewright import start as _start
 from curvewright.errors import DataError, FitError, ParameterError
-from curvewright.stats.uncertainty import finite_difference_jacobian
+from curvewright.numerics import finite_difference_jacobian
 
 if TYPE_CHECKING:
     from curvewright.result import FitResult

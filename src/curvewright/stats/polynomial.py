@@ -2,7 +2,7 @@
 
 All fits go through :func:`curvewright.linear.solve_polynomial` (QR in an orthogonal basis,
 exact conversion to plain coefficients), so the statistics keep their accuracy on badly
-conditioned data. Information criteria follow :mod:`curvewright.stats.information`.
+conditioned data. Information criteria follow :mod:`curvewright.numerics`.
 """
 
 from __future__ import annotations
@@ -19,8 +19,8 @@ from scipy import stats as sps
 
 from curvewright.errors import DataError, ModelError, ParameterError
 from curvewright.linear import LinearSolution, solve_polynomial
-from curvewright.stats.information import aicc as _aicc
-from curvewright.stats.information import bic as _bic
+from curvewright.numerics import aicc as _aicc
+from curvewright.numerics import bic as _bic
 
 __all__ = ["DegreeSelection", "PolynomialFit", "polynomial_fit", "select_degree"]
 
@@ -51,7 +51,7 @@ class PolynomialFit:
         NaN when y is constant.
     aicc, bic : float
         AICc and BIC with ``K = number of determined coefficients + 1`` (the variance); see
-        :mod:`curvewright.stats.information`.
+        :mod:`curvewright.numerics`.
     """
 
     degree: int

@@ -35,6 +35,8 @@ import scipy.stats
 from numpy.typing import ArrayLike, NDArray
 
 from curvewright.errors import DataError, ExtrapolationWarning, FitError, ParameterError
+from curvewright.numerics import finite_difference_jacobian
+from curvewright.result import HIGH_CORRELATION
 
 if TYPE_CHECKING:
     from curvewright.result import FitResult
@@ -50,7 +52,6 @@ __all__ = [
     "delta_method_se",
     "derived_quantity",
     "derived_table",
-    "finite_difference_jacobian",
     "inverse_predict",
     "model_gradient",
     "parameter_table",
@@ -67,7 +68,6 @@ FloatArray = NDArray[np.float64]
 
 #: Correlations beyond this (in absolute value) mean two parameters trade off so closely that the
 #: data barely tell them apart (common practice: 0.99 is the usual alarm level).
-HIGH_CORRELATION = 0.99
 
 
 def _check_level(level: float) -> float:
@@ -176,46 +176,6 @@ def delta_method_se(gradient: ArrayLike, cov: ArrayLike) -> FloatArray:
     var = np.einsum("ij,jk,ik->i", g, c, g)
     with np.errstate(invalid="ignore"):
         return np.asarray(np.sqrt(np.where(var >= 0, var, np.nan)), dtype=float)
-
-
-def finite_difference_jacobian(
-    func: Callable[[FloatArray], FloatArray],
-    theta: ArrayLike,
-    *,
-    lower: ArrayLike | None = None,
-    upper: ArrayLike | None = None,
-) -> FloatArray:
-    """Jacobian of ``func(theta) -> array of shape (n,)`` by central differences.
-
-    The step is ``eps**(1/3) * max(|theta_j|, 1e-8 * (1 + |theta_j|))`` (common practice: it
-    balances truncation against rounding error for central differences); near a bound the
-    difference becomes one-sided so ``func`` is never evaluated outside ``[lower, upper]``.
-
-    Returns
-    -------
-    ndarray, shape (n, p)
-    """
-    th = np.asarray(theta, dtype=float)
-    p = th.size
-    lo = np.full(p, -np.inf) if lower is None else np.asarray(lower, dtype=float)
-    hi = np.full(p, np.inf) if upper is None else np.asarray(upper, dtype=float)
-    f0 = np.asarray(func(th), dtype=float)
-    J = np.empty((f0.size, p))
-    base = np.finfo(float).eps ** (1.0 / 3.0)
-    for j in range(p):
-        h = base * max(abs(th[j]), 1.0e-8 * (1.0 + abs(th[j])), 1e-300)
-        up, dn = th.copy(), th.copy()
-        if th[j] + h <= hi[j] and th[j] - h >= lo[j]:
-            up[j] += h
-            dn[j] -= h
-            J[:, j] = (np.asarray(func(up)) - np.asarray(func(dn))) / (2.0 * h)
-        elif th[j] + h <= hi[j]:
-            up[j] += h
-            J[:, j] = (np.asarray(func(up)) - f0) / h
-        else:
-            dn[j] -= h
-            J[:, j] = (f0 - np.asarray(func(dn))) / h
-    return J
 
 
 # ------------------------------------------------------------------------------ bands

@@ -1,4 +1,7 @@
-"""Information criteria (AIC, AICc, BIC) from a residual sum of squares, one convention for all.
+"""Numeric pieces shared by the fitting core and the statistics layer.
+
+Information criteria (AIC, AICc, BIC) from a residual sum of squares, one convention for all,
+and central-difference Jacobians (for models given as Python functions).
 
 The convention, used by every fit curvewright reports (linear, polynomial and nonlinear), is the
 Gaussian log-likelihood with the residual variance estimated by maximum likelihood and the
@@ -20,10 +23,16 @@ Only differences between fits to the same data (and weights) mean anything.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
 
 from curvewright.errors import DataError
 
-__all__ = ["aic", "aicc", "bic"]
+__all__ = ["aic", "aicc", "bic", "finite_difference_jacobian"]
+
+FloatArray = NDArray[np.float64]
 
 
 def _check(ssr: float, n: int, k: int) -> float:
@@ -79,7 +88,7 @@ def aicc(ssr: float, n: int, k: int) -> float:
         ``inf`` when ``n <= k + 1``: the correction is undefined there, and a model with that
         many quantities for so few points cannot be preferred on this criterion.
     """
-    base = _check(ssr, n, k) + 2.0 * k
+    base = aic(ssr, n, k)
     if n - k - 1 <= 0:
         return math.inf
     return base + 2.0 * k * (k + 1) / (n - k - 1)
@@ -103,3 +112,43 @@ def bic(ssr: float, n: int, k: int) -> float:
         ``-inf`` for a perfect fit (``ssr == 0``).
     """
     return _check(ssr, n, k) + k * math.log(n)
+
+
+def finite_difference_jacobian(
+    func: Callable[[FloatArray], FloatArray],
+    theta: ArrayLike,
+    *,
+    lower: ArrayLike | None = None,
+    upper: ArrayLike | None = None,
+) -> FloatArray:
+    """Jacobian of ``func(theta) -> array of shape (n,)`` by central differences.
+
+    The step is ``eps**(1/3) * max(|theta_j|, 1e-8 * (1 + |theta_j|))`` (common practice: it
+    balances truncation against rounding error for central differences); near a bound the
+    difference becomes one-sided so ``func`` is never evaluated outside ``[lower, upper]``.
+
+    Returns
+    -------
+    ndarray, shape (n, p)
+    """
+    th = np.asarray(theta, dtype=float)
+    p = th.size
+    lo = np.full(p, -np.inf) if lower is None else np.asarray(lower, dtype=float)
+    hi = np.full(p, np.inf) if upper is None else np.asarray(upper, dtype=float)
+    f0 = np.asarray(func(th), dtype=float)
+    J = np.empty((f0.size, p))
+    base = np.finfo(float).eps ** (1.0 / 3.0)
+    for j in range(p):
+        h = base * max(abs(th[j]), 1.0e-8 * (1.0 + abs(th[j])), 1e-300)
+        up, dn = th.copy(), th.copy()
+        if th[j] + h <= hi[j] and th[j] - h >= lo[j]:
+            up[j] += h
+            dn[j] -= h
+            J[:, j] = (np.asarray(func(up)) - np.asarray(func(dn))) / (2.0 * h)
+        elif th[j] + h <= hi[j]:
+            up[j] += h
+            J[:, j] = (np.asarray(func(up)) - f0) / h
+        else:
+            dn[j] -= h
+            J[:, j] = (f0 - np.asarray(func(dn))) / h
+    return J
