@@ -6,17 +6,12 @@
 import { evalCurve, evalScalar } from "./expr";
 import { type HandleSpec, type Point, type SolveOptions, type SolveResult, solveHandle, solvePins } from "./handles";
 import { type ModelJson, type ParamSetting, boundsOf } from "./state";
+import type { HandleView } from "./plot";
 import { formatNumber } from "./validate";
 
-/** What the plot needs to draw one handle (same shape as plot.ts's HandleView). */
-export interface HandleViewData {
-  key: string;
-  ariaLabel: string;
-  valueNow: number;
-  valueText: string;
-  pos: Point;
-  pin: boolean;
-}
+/** What the plot needs to draw one handle (plot.ts draws it). */
+export type HandleViewData = HandleView;
+
 
 export const PIN_PREFIX = "pin:";
 // More pins than this are hard to tell apart on a plot; models with more free parameters keep

@@ -2,6 +2,7 @@
 // after a fit its estimate, standard error, confidence interval and flags. Edits are checked
 // here (validate.ts) and shown inline when invalid; only valid settings reach the widget.
 
+import { el } from "./dom";
 import type { FittedJson, ModelJson, ParamInfo, ParamSetting } from "./state";
 import { type FieldKind, checkSetting, formatNumber, parseField } from "./validate";
 
@@ -45,16 +46,6 @@ const FLAG_WORDS: Record<string, string> = {
 
 let uid = 0;
 
-function el<K extends keyof HTMLElementTagNameMap>(
-  tag: K,
-  attrs: Record<string, string> = {},
-  text?: string,
-): HTMLElementTagNameMap[K] {
-  const e = document.createElement(tag);
-  for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, v);
-  if (text !== undefined) e.textContent = text;
-  return e;
-}
 
 function sameSetting(a: ParamSetting, b: ParamSetting): boolean {
   return a.value === b.value && a.lower === b.lower && a.upper === b.upper && a.fixed === b.fixed;

@@ -60,6 +60,7 @@
 
 import type { AnyModel, RenderProps } from "@anywidget/types";
 import css from "./widget.css";
+import { el as h } from "./dom";
 import { ExprError, evalCurve, evalScalar } from "./expr";
 import { SolveError, type Point } from "./handles";
 import {
@@ -107,16 +108,6 @@ const NUDGE_COMMIT_MS = 350;
 // Kernel round trips for callable-model previews: at most one per this interval.
 const KERNEL_PREVIEW_MS = 120;
 
-function h<K extends keyof HTMLElementTagNameMap>(
-  tag: K,
-  attrs: Record<string, string> = {},
-  text?: string,
-): HTMLElementTagNameMap[K] {
-  const e = document.createElement(tag);
-  for (const [k, v] of Object.entries(attrs)) e.setAttribute(k, v);
-  if (text !== undefined) e.textContent = text;
-  return e;
-}
 
 function rowsText(rows: readonly number[]): string {
   const shown = rows.slice(0, 8).join(", ");
