@@ -100,7 +100,7 @@ def resolve_model(model: Model | str | Callable[..., Any]) -> Model:
             return cat[model]
         if model.isidentifier():
             # A bare word is almost always a misspelt catalog name, not a one-symbol formula.
-            raise ModelError(unknown_name_message(model, list(cat), "the catalog"))
+            raise ModelError(unknown_name_message(model, list(cat), "the catalog", kind="model"))
         return Model.from_formula(model)
     if callable(model):
         return Model.from_callable(model)
@@ -181,7 +181,9 @@ def _as_names(fixed: Mapping[str, float] | Iterable[str] | None) -> dict[str, fl
 def _check_names(model: Model, names: Iterable[str], where: str) -> None:
     for n in names:
         if n not in model.param_names:
-            raise ParameterError(unknown_name_message(n, model.param_names, where))
+            raise ParameterError(
+                unknown_name_message(n, model.param_names, f"model {model.name!r} (in {where}=)")
+            )
 
 
 def _bounds(

@@ -359,11 +359,7 @@ def _find_handle(model: Model, name: str) -> Handle:
             f"Model {model.name!r} has no handles; use pin_through(model, values, pins) to make "
             "the curve pass through points instead."
         )
-    raise HandleError(
-        unknown_name_message(name, known, f"model {model.name!r}")
-        .replace("is not a parameter of", "is not a handle of")
-        .replace("its parameters are", "its handles are")
-    )
+    raise HandleError(unknown_name_message(name, known, f"model {model.name!r}", kind="handle"))
 
 
 def solve_handle(

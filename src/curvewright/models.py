@@ -574,13 +574,15 @@ class Model:
 
 
 # ---------------------------------------------------------------------- helpers
-def unknown_name_message(name: str, known: Sequence[str], where: str) -> str:
-    """Message for an unknown parameter name, with a spelling hint."""
+def unknown_name_message(
+    name: str, known: Sequence[str], where: str, *, kind: str = "parameter"
+) -> str:
+    """Message for an unknown name (a parameter unless ``kind`` says), with a spelling hint."""
     # the commonest slip with trade names (Km, EC50, Vmax) is the case of a letter
     same_case = [k for k in known if k.lower() == name.lower()]
     hint = same_case or difflib.get_close_matches(name, list(known), n=1)
     did = f" Did you mean {hint[0]!r}?" if hint else ""
-    return f"{name!r} is not a parameter of {where}; its parameters are {list(known)}.{did}"
+    return f"{name!r} is not a {kind} of {where}; its {kind}s are {list(known)}.{did}"
 
 
 def _param_list(

@@ -771,7 +771,9 @@ class CurveFitter(anywidget.AnyWidget):
                     new = change["new"]
                     if new not in self._models:
                         raise ModelError(
-                            unknown_name_message(str(new), list(self._models), "the chooser")
+                            unknown_name_message(
+                                str(new), list(self._models), "the chooser", kind="model"
+                            )
                         )
                     self._switch(str(new))
                 elif name in ("show_confidence_band", "show_prediction_band"):
@@ -857,7 +859,9 @@ class CurveFitter(anywidget.AnyWidget):
             raise ParameterError(f"fit_options must be a mapping, got {type(opts).__name__}.")
         for k in opts:
             if k not in FIT_OPTIONS:
-                raise ParameterError(unknown_name_message(str(k), FIT_OPTIONS, "fit_options"))
+                raise ParameterError(
+                    unknown_name_message(str(k), FIT_OPTIONS, "fit_options", kind="option")
+                )
         return dict(opts)
 
     def _resolve(self, spec: Model | str | Callable[..., Any]) -> Model:
@@ -919,7 +923,11 @@ class CurveFitter(anywidget.AnyWidget):
 
         def entry(name: str, what: str) -> dict[str, Any]:
             if name not in out:
-                raise ParameterError(unknown_name_message(name, model.param_names, what))
+                raise ParameterError(
+                    unknown_name_message(
+                        name, model.param_names, f"model {model.name!r} (in {what}=)"
+                    )
+                )
             return out[name]
 
         for n, v in (start or {}).items():
