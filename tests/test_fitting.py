@@ -391,7 +391,7 @@ def test_formula_errors() -> None:
 
 
 def test_unknown_catalog_name_gets_a_spelling_hint() -> None:
-    with pytest.raises(ModelError, match="not a model of the catalog.*'michaelis_menten'"):
+    with pytest.raises(ModelError, match=r"not a model of the catalog.*'michaelis_menten'"):
         cw.fit("michaelis_mentn", [1, 2, 3, 4], [1, 2, 3, 4])
     with pytest.raises(ParameterError, match=r"model 'hill' \(in fixed=\).*'n_hill'"):
         cw.fit("hill", [1, 2, 3, 4, 5], [1, 2, 3, 4, 5], fixed={"n": 1.0})
