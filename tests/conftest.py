@@ -13,7 +13,8 @@ import pytest
 from hypothesis import HealthCheck, settings
 
 # Hypothesis' per-example deadline is a wall-clock assertion, and a loaded CI machine would
-# trip it; RULES.md keeps timing out of tests, so no profile has one.
+# trip it; tests never assert wall-clock time (DEVELOPERS.md, "Rules for tests"), so no profile
+# has one.
 settings.register_profile("default", deadline=None)
 # CI: the same search, plus the failing example's blob printed for `@reproduce_failure`.
 settings.register_profile(

@@ -46,8 +46,13 @@ class Dataset:
         exclusions and residuals map back to the user's table.
     n_dropped : int
         How many input rows were dropped because x, y or sigma was NaN.
+    n_input : int
+        How many rows the user's input had, dropped ones included (the range of valid row
+        numbers for exclusions).
     x_label, y_label, name : str
         Labels for display (column names when built from a DataFrame).
+    notes : tuple of str
+        What validation did to the input (e.g. how many NaN rows were dropped), for the summary.
     """
 
     x: FloatArray

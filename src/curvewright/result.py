@@ -43,11 +43,12 @@ CAUTION = (
     "regulations; not for clinical or dosing decisions."
 )
 
+#: |correlation| above which two parameters are reported as not separately determined (common
+#: practice: 0.99 is the usual alarm level).
+HIGH_CORRELATION = 0.99
 #: A free parameter whose standard error exceeds this multiple of its absolute value is reported
 #: as "not identified": its asymptotic 95% interval spans zero and about twice its own size in
 #: each direction, so the data say little more than its sign, if that.
-#: |correlation| above which two parameters are reported as not separately determined.
-HIGH_CORRELATION = 0.99
 NOT_IDENTIFIED_RSE = 1.0
 
 _FORMAT = "curvewright.FitResult"
@@ -92,10 +93,13 @@ class Attempt:
     ----------
     strategy : str
         Why this run was made: ``"first run"``, ``"restart from best point"``,
-        ``"switch method"``, ``"rescaled parameters"``, ``"multi-start"`` or ``"linear"``.
+        ``"switch method"``, ``"rescaled parameters"``, ``"multi-start"``, ``"polish"`` (the
+        last run, from the best point with the analytic Jacobian) or ``"linear"``.
     method : str
-        ``"leastsq"`` (Levenberg-Marquardt, MINPACK), ``"trf"`` or ``"dogbox"``
-        (``scipy.optimize.least_squares``), or ``"linear"`` (QR, no iteration).
+        ``"leastsq"`` (Levenberg-Marquardt, MINPACK, numerical derivatives), ``"lm"`` or
+        ``"lm-analytic"`` (MINPACK through ``scipy.optimize.least_squares``, the latter with the
+        model's analytic Jacobian), ``"trf"`` (scipy's trust-region reflective method), or
+        ``"linear"`` (QR, no iteration).
     nfev : int
         Model evaluations this run used (finite-difference evaluations included).
     ssr : float

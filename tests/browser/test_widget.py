@@ -3,8 +3,9 @@
 Every check of what the page did is made twice where it matters: on the page (the curve's path,
 a handle's aria-valuenow, an input's text) and in the kernel (a cell prints the widget's state
 and ``widget.result`` as JSON). The data are generated in the notebook from known parameters,
-so the fit's recovery of them is checked against that truth (RULES.md: synthetic truth is a
-reference). Waits are on conditions only; timings are never asserted.
+so the fit's recovery of them checks that the page drove a real fit (a functional check of the
+page; the numerics themselves are checked against NIST StRD, statsmodels and scipy in the unit
+tests). Waits are on conditions only; timings are never asserted.
 """
 
 from __future__ import annotations

@@ -66,9 +66,6 @@ __all__ = [
 
 FloatArray = NDArray[np.float64]
 
-#: Correlations beyond this (in absolute value) mean two parameters trade off so closely that the
-#: data barely tell them apart (common practice: 0.99 is the usual alarm level).
-
 
 def _check_level(level: float) -> float:
     lv = float(level)
