@@ -5,20 +5,17 @@
 // once into JavaScript source built only from that validated tree (names become array slots,
 // numbers become literals, nothing from the wire is pasted in as code). Where `new Function`
 // is forbidden (a strict Content-Security-Policy), an equivalent closure tree is used instead.
+//
+// The function whitelist, the constants and the depth limit come from the same JSON file the
+// Python side reads (src/curvewright/expr_spec.json), bundled in by esbuild; the function and
+// constant names below are typed from it, so `npm run typecheck` fails if FNS stops covering
+// exactly the spec's functions.
+
+import spec from "../src/curvewright/expr_spec.json";
 
 export type BinOp = "+" | "-" | "*" | "/" | "**";
-export type FnName =
-  | "exp"
-  | "log"
-  | "log10"
-  | "sqrt"
-  | "abs"
-  | "sin"
-  | "cos"
-  | "tan"
-  | "arctan"
-  | "tanh";
-export type ConstName = "pi" | "e";
+export type FnName = keyof typeof spec.functions;
+export type ConstName = keyof typeof spec.constants;
 
 export type ExprNode =
   | { type: "num"; value: number }
@@ -49,8 +46,8 @@ const FNS: Readonly<Record<FnName, (v: number) => number>> = {
   arctan: Math.atan,
   tanh: Math.tanh,
 };
-// numpy.pi and numpy.e are the same doubles as Math.PI and Math.E.
-const CONSTS: Readonly<Record<ConstName, number>> = { pi: Math.PI, e: Math.E };
+// The spec's pi and e are the doubles numpy.pi, numpy.e, Math.PI and Math.E (tests check).
+const CONSTS: Readonly<Record<ConstName, number>> = spec.constants;
 const NODE_KEYS: Readonly<Record<string, readonly string[]>> = {
   num: ["value"],
   name: ["id"],
@@ -59,8 +56,9 @@ const NODE_KEYS: Readonly<Record<string, readonly string[]>> = {
   bin: ["op", "left", "right"],
   call: ["fn", "args"],
 };
-// Far deeper than any formula a person writes; keeps recursion well inside the JS stack.
-const MAX_DEPTH = 400;
+// Deepest tree accepted, the root counted as 0, as Python's Expr.from_json counts. Far deeper
+// than any formula a person writes, and keeps recursion well inside the JS stack.
+const MAX_JSON_DEPTH: number = spec.max_json_depth;
 
 // ---------------------------------------------------------------------------------------------
 // numpy.power semantics
@@ -117,8 +115,8 @@ function describe(v: unknown): string {
 export function validateTree(tree: unknown, argNames: readonly string[]): ExprNode {
   const allowed = new Set(argNames);
   const walk = (node: unknown, path: string, depth: number): ExprNode => {
-    if (depth > MAX_DEPTH) {
-      throw new ExprError(`${path}: tree is nested more than ${MAX_DEPTH} levels deep.`);
+    if (depth > MAX_JSON_DEPTH) {
+      throw new ExprError(`${path}: tree is nested more than ${MAX_JSON_DEPTH} levels deep.`);
     }
     if (typeof node !== "object" || node === null || Array.isArray(node)) {
       throw new ExprError(`${path}: expected a node object, got ${describe(node)}.`);
@@ -154,10 +152,11 @@ export function validateTree(tree: unknown, argNames: readonly string[]): ExprNo
       }
       case "const": {
         const id = obj["id"];
-        if (id !== "pi" && id !== "e") {
-          throw new ExprError(`${path}: const id must be "pi" or "e", got ${describe(id)}.`);
+        if (typeof id !== "string" || !Object.prototype.hasOwnProperty.call(CONSTS, id)) {
+          const known = Object.keys(CONSTS).join(", ");
+          throw new ExprError(`${path}: const id must be one of ${known}, got ${describe(id)}.`);
         }
-        return { type: "const", id };
+        return { type: "const", id: id as ConstName };
       }
       case "neg":
         return { type: "neg", arg: walk(obj["arg"], `${path}.arg`, depth + 1) };
@@ -176,10 +175,10 @@ export function validateTree(tree: unknown, argNames: readonly string[]): ExprNo
       default: {
         // "call"
         const fn = obj["fn"];
-        if (typeof fn !== "string" || !Object.prototype.hasOwnProperty.call(FNS, fn)) {
-          throw new ExprError(
-            `${path}: fn must be one of ${Object.keys(FNS).join(", ")}, got ${describe(fn)}.`,
-          );
+        // The spec decides what may be called; FNS only says how (typecheck keeps them equal).
+        if (typeof fn !== "string" || !Object.prototype.hasOwnProperty.call(spec.functions, fn)) {
+          const known = Object.keys(spec.functions).join(", ");
+          throw new ExprError(`${path}: fn must be one of ${known}, got ${describe(fn)}.`);
         }
         const args = obj["args"];
         if (!Array.isArray(args) || args.length !== 1) {
@@ -222,7 +221,7 @@ export function treeNames(tree: ExprNode): Set<string> {
 function rawNames(tree: unknown): Set<string> {
   const out = new Set<string>();
   const walk = (n: unknown, depth: number): void => {
-    if (depth > MAX_DEPTH || typeof n !== "object" || n === null) return;
+    if (depth > MAX_JSON_DEPTH || typeof n !== "object" || n === null) return;
     const o = n as Record<string, unknown>;
     if (o["type"] === "name" && typeof o["id"] === "string") out.add(o["id"]);
     for (const k of ["arg", "left", "right"]) walk(o[k], depth + 1);

@@ -10,6 +10,8 @@ from __future__ import annotations
 import ast
 import builtins
 import contextlib
+import copy
+import importlib.resources
 import importlib.util
 import json
 import math
@@ -26,6 +28,7 @@ from hypothesis import strategies as st
 
 from curvewright.errors import FormulaError
 from curvewright.expr import (
+    _UFUNCS,
     CONSTANTS,
     FUNCTIONS,
     MAX_DEPTH,
@@ -38,12 +41,15 @@ from curvewright.expr import (
     Name,
     Neg,
     Num,
+    _read_spec,
     parse,
 )
 
 ROOT = Path(__file__).resolve().parent.parent
 VECTORS = ROOT / "tests" / "data" / "expr_vectors.json"
 GENERATOR = ROOT / "tools" / "gen_expr_vectors.py"
+# The whitelist and limits both sides read; js/tests/expr-parity.test.ts checks the JS side.
+SPEC = ROOT / "src" / "curvewright" / "expr_spec.json"
 
 
 def num(v: float) -> dict[str, Any]:
@@ -95,6 +101,83 @@ def test_function_and_constant_tables() -> None:
     assert dict(CONSTANTS) == {"pi": math.pi, "e": math.e}
     with pytest.raises(TypeError):
         FUNCTIONS["eval"] = np.exp  # type: ignore[index]
+
+
+def _spec() -> dict[str, Any]:
+    data = json.loads(SPEC.read_text(encoding="utf-8"))
+    assert isinstance(data, dict)
+    return data
+
+
+def test_tables_are_those_of_the_shared_spec() -> None:
+    # js/expr.ts bundles this same file, so the two sides cannot list different functions,
+    # constants or depth limits; here the Python side is held to it.
+    spec = _spec()
+    assert list(FUNCTIONS) == list(spec["functions"])
+    assert dict(CONSTANTS) == spec["constants"]
+    assert spec["max_depth"] == MAX_DEPTH
+    assert spec["max_json_depth"] == MAX_JSON_DEPTH
+    # The package reads the file it ships (importlib.resources), not a copy kept elsewhere.
+    shipped = importlib.resources.files("curvewright").joinpath("expr_spec.json")
+    assert json.loads(shipped.read_text(encoding="utf-8")) == spec
+
+
+def _with(change: Callable[[dict[str, Any]], object]) -> dict[str, Any]:
+    spec = copy.deepcopy(_spec())
+    change(spec)
+    return spec
+
+
+SPEC_DRIFT: list[tuple[str, dict[str, Any], dict[str, Any], str]] = [
+    (
+        "spec gains a function",
+        _with(lambda s: s["functions"].update(sinh="hyperbolic sine")),
+        dict(_UFUNCS),
+        r"lists functions with no numpy implementation in expr\.py: sinh",
+    ),
+    (
+        "spec loses a function",
+        _with(lambda s: s["functions"].pop("tan")),
+        dict(_UFUNCS),
+        r"expr\.py implements functions that curvewright/expr_spec\.json does not list: tan",
+    ),
+    (
+        "implementation gains a function",
+        _spec(),
+        {**_UFUNCS, "sinh": np.sinh},
+        r"implements functions that .* does not list: sinh",
+    ),
+    (
+        "tree depth below formula depth",
+        _with(lambda s: s.update(max_json_depth=50)),
+        dict(_UFUNCS),
+        r"max_json_depth \(50\) must be at least max_depth \(100\)",
+    ),
+    (
+        "depth not an integer",
+        _with(lambda s: s.update(max_depth=True)),
+        dict(_UFUNCS),
+        r"'max_depth' and 'max_json_depth' must be positive integers",
+    ),
+    (
+        "constant not a number",
+        _with(lambda s: s["constants"].update(pi="3.14")),
+        dict(_UFUNCS),
+        r"'constants' must be an object of name: finite number",
+    ),
+]
+
+
+@pytest.mark.parametrize(
+    ("data", "ufuncs", "pattern"),
+    [case[1:] for case in SPEC_DRIFT],
+    ids=[case[0] for case in SPEC_DRIFT],
+)
+def test_spec_and_implementations_that_disagree_are_refused(
+    data: dict[str, Any], ufuncs: dict[str, np.ufunc], pattern: str
+) -> None:
+    with pytest.raises(RuntimeError, match=pattern):
+        _read_spec(data, ufuncs)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import importlib.metadata
 import json
+import re
 import shutil
 import subprocess
 from pathlib import Path
@@ -20,6 +21,19 @@ JS_DIR = ROOT / "js"
 
 # Files under js/ that esbuild never bundles, so editing them cannot make the bundle stale.
 _NOT_BUNDLED_SUFFIXES = (".test.ts", ".test.js", ".test.mjs", ".spec.ts", ".spec.js")
+# A relative import in a front-end source, e.g. `from "../src/curvewright/expr_spec.json"`.
+_RELATIVE_IMPORT = re.compile(r"""\bfrom\s+["'](\.\.?/[^"']+)["']""")
+
+
+def _imported_from_outside_js(sources: list[Path]) -> set[Path]:
+    """Files outside js/ that the front-end sources import, which esbuild bundles too."""
+    found = set()
+    for source in sources:
+        for spec in _RELATIVE_IMPORT.findall(source.read_text(encoding="utf-8")):
+            target = (source.parent / spec).resolve()
+            if target.is_file() and JS_DIR.resolve() not in target.parents:
+                found.add(target)
+    return found
 
 
 def _package_json() -> dict[str, object]:
@@ -72,6 +86,10 @@ def test_bundle_is_newer_than_every_js_source() -> None:
         p for p in JS_DIR.rglob("*") if p.is_file() and not p.name.endswith(_NOT_BUNDLED_SUFFIXES)
     ]
     assert sources, f"no front-end sources found under {JS_DIR}"
+    # The expression spec is shared with the Python side, so it lives in the package, not js/.
+    outside = _imported_from_outside_js(sources)
+    assert ROOT / "src" / "curvewright" / "expr_spec.json" in outside, outside
+    sources += sorted(outside)
     newer = sorted(str(p.relative_to(ROOT)) for p in sources if p.stat().st_mtime > bundle_mtime)
     assert not newer, f"the bundle is older than {newer}: rebuild with `make build-js`"
 

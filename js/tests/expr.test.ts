@@ -1,6 +1,8 @@
 // Unit tests of the expression evaluator: validation, numpy's float semantics, and agreement
-// between the generated-source and closure compilers (parity with the Python side is in
-// expr-parity.test.ts).
+// between the generated-source and closure compilers. Parity with the Python side is in
+// expr-parity.test.ts: every case of tests/data/expr_vectors.json (numpy's values, checked on the
+// Python side by tests/test_expr.py), and the whitelist and depth limit of the spec both sides
+// read, src/curvewright/expr_spec.json.
 import { describe, expect, it } from "vitest";
 import {
   type ExprNode,
@@ -39,7 +41,7 @@ describe("validateTree", () => {
     ["arity", { type: "call", fn: "exp", args: [num(1), num(2)] }, /exp takes exactly one argument/],
     ["args not array", { type: "call", fn: "exp", args: num(1) }, /exp takes exactly one/],
     ["unknown name", name("k"), /unknown name "k"; known names: x/],
-    ["const id", { type: "const", id: "tau" }, /const id must be "pi" or "e"/],
+    ["const id", { type: "const", id: "tau" }, /const id must be one of pi, e, got "tau"/],
     ["NaN literal", num(NaN), /num value must be a number/],
     ["string literal", { type: "num", value: "1" }, /num value must be a number, got "1"/],
     ["extra field", { type: "num", value: 1, code: "x" }, /unexpected field "code"/],

@@ -3,6 +3,8 @@
 A formula is parsed with Python's ``ast`` under a whitelist and never evaluated while parsing.
 The tree is made of small immutable node objects that serialise to the JSON contract of
 DEVELOPERS.md ("The expression tree"), which ``js/expr.ts`` evaluates for live preview.
+The function whitelist, the constants and the depth limits are read from ``expr_spec.json``
+beside this module, the one file both sides take them from (esbuild bundles it into js/expr.ts).
 
 Numeric semantics are numpy's on float64: ``**`` is ``numpy.power`` (including numpy's fast paths
 for a scalar exponent of 2, 0.5 and -1), division is true division, and every operation runs under
@@ -15,6 +17,8 @@ import ast
 import builtins
 import difflib
 import functools
+import importlib.resources
+import json
 import keyword
 import math
 import re
@@ -22,7 +26,7 @@ import warnings
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from types import MappingProxyType
-from typing import Any, Final, TypeAlias
+from typing import Any, Final, NamedTuple, TypeAlias
 
 import numpy as np
 from numpy.typing import NDArray
@@ -48,8 +52,9 @@ __all__ = [
 
 FloatArray: TypeAlias = NDArray[np.float64]
 
-#: The functions a formula may call, each with exactly one argument (``log`` is natural).
-FUNCTIONS: Final[Mapping[str, np.ufunc]] = MappingProxyType(
+#: numpy's implementation of each function; which functions a formula may call is decided by
+#: expr_spec.json, and loading fails when the two name different functions.
+_UFUNCS: Final[Mapping[str, np.ufunc]] = MappingProxyType(
     {
         "exp": np.exp,
         "log": np.log,
@@ -64,17 +69,92 @@ FUNCTIONS: Final[Mapping[str, np.ufunc]] = MappingProxyType(
     }
 )
 
-#: The named constants a formula may use.
-CONSTANTS: Final[Mapping[str, float]] = MappingProxyType({"pi": math.pi, "e": math.e})
+_SPEC_FILE: Final = "expr_spec.json"
+
+
+class _Spec(NamedTuple):
+    functions: Mapping[str, np.ufunc]
+    constants: Mapping[str, float]
+    max_depth: int
+    max_json_depth: int
+
+
+def _read_spec(data: object, ufuncs: Mapping[str, np.ufunc]) -> _Spec:
+    """The tables of a parsed expr_spec.json, checked against the numpy implementations.
+
+    A mismatch is a fault of the package, not of a user's input, so it is a RuntimeError
+    raised at import time rather than a wrong whitelist discovered later.
+    """
+    where = f"curvewright/{_SPEC_FILE}"
+    if not isinstance(data, dict):
+        raise RuntimeError(f"{where} must hold a JSON object, got {type(data).__name__}.")
+    functions = data.get("functions")
+    if not isinstance(functions, dict) or not functions:
+        raise RuntimeError(f"{where}: 'functions' must be a non-empty object of name: meaning.")
+    missing = [name for name in functions if name not in ufuncs]
+    if missing:
+        raise RuntimeError(
+            f"{where} lists functions with no numpy implementation in expr.py: "
+            f"{', '.join(missing)}; add them to expr._UFUNCS (and js/expr.ts) or drop them."
+        )
+    unlisted = [name for name in ufuncs if name not in functions]
+    if unlisted:
+        raise RuntimeError(
+            f"expr.py implements functions that {where} does not list: {', '.join(unlisted)}; "
+            "add them to the spec or remove them from expr._UFUNCS."
+        )
+    constants = data.get("constants")
+    if not isinstance(constants, dict) or not all(
+        isinstance(v, float) and math.isfinite(v) for v in constants.values()
+    ):
+        raise RuntimeError(f"{where}: 'constants' must be an object of name: finite number.")
+    max_depth = data.get("max_depth")
+    max_json_depth = data.get("max_json_depth")
+    # type(...) is int: JSON true would pass isinstance(..., int).
+    if (
+        type(max_depth) is not int
+        or type(max_json_depth) is not int
+        or min(max_depth, max_json_depth) < 1
+    ):
+        raise RuntimeError(f"{where}: 'max_depth' and 'max_json_depth' must be positive integers.")
+    # A parsed formula of max_depth levels is a JSON tree of depth max_depth - 1 (the root is
+    # 0 there), and its derivatives nest deeper still; both sides must accept it.
+    if max_json_depth < max_depth:
+        raise RuntimeError(
+            f"{where}: max_json_depth ({max_json_depth}) must be at least max_depth "
+            f"({max_depth}), or trees of valid formulas would be refused."
+        )
+    return _Spec(
+        functions=MappingProxyType({name: ufuncs[name] for name in functions}),
+        constants=MappingProxyType(dict(constants)),
+        max_depth=max_depth,
+        max_json_depth=max_json_depth,
+    )
+
+
+_SPEC: Final = _read_spec(
+    json.loads(
+        importlib.resources.files("curvewright").joinpath(_SPEC_FILE).read_text(encoding="utf-8")
+    ),
+    _UFUNCS,
+)
+
+#: The functions a formula may call, each with exactly one argument (``log`` is natural), in
+#: the order of expr_spec.json.
+FUNCTIONS: Final[Mapping[str, np.ufunc]] = _SPEC.functions
+
+#: The named constants a formula may use (from expr_spec.json: the doubles math.pi and math.e).
+CONSTANTS: Final[Mapping[str, float]] = _SPEC.constants
 
 #: Longest formula text accepted by :meth:`Expr.parse` (after stripping).
 MAX_LENGTH: Final = 2000
 #: Deepest nesting of a parsed formula, counted in tree levels (``x`` is 1, ``-x`` is 2).
-MAX_DEPTH: Final = 100
+MAX_DEPTH: Final = _SPEC.max_depth
 #: Deepest JSON tree accepted by :meth:`Expr.from_json`, counted from 0 at the root exactly as
-#: ``js/expr.ts`` counts, so the two sides accept the same trees. It is larger than MAX_DEPTH
-#: because derivatives and substitutions of a formula may nest deeper than the formula itself.
-MAX_JSON_DEPTH: Final = 400
+#: ``js/expr.ts`` counts; both read it from expr_spec.json, so the two sides accept the same
+#: trees. It is larger than MAX_DEPTH because derivatives and substitutions of a formula may
+#: nest deeper than the formula itself.
+MAX_JSON_DEPTH: Final = _SPEC.max_json_depth
 
 _BINARY_UFUNCS: Final[Mapping[str, np.ufunc]] = MappingProxyType(
     {"+": np.add, "-": np.subtract, "*": np.multiply, "/": np.true_divide, "**": np.power}
