@@ -69,7 +69,7 @@ dev: venv
 
 # ---- front end ------------------------------------------------------------------------------
 
-$(BUNDLE): $(JS_SOURCES) package.json $(NODE_STAMP)
+$(BUNDLE): $(JS_SOURCES) src/curvewright/expr_spec.json package.json $(NODE_STAMP)
 	$(NPM) run build
 	@test -s $@ || { echo "error: npm run build did not write $@" >&2; exit 1; }
 	@# esbuild may leave an unchanged output untouched; the mtime records "built from these sources".
@@ -121,9 +121,10 @@ test: lint test-py test-js test-browser test-notebooks
 
 # ---- running --------------------------------------------------------------------------------
 
+# tools/demo_server.py holds the command and its configuration (tests/test_demo.py starts the
+# same server): it keeps yarn's "Fail to get yarn configuration" page out of the log.
 demo: $(PY_STAMP) $(BUNDLE)
-	@test -f examples/quickstart.ipynb || { echo "error: examples/quickstart.ipynb does not exist yet" >&2; exit 1; }
-	$(BIN)/jupyter lab $$( [ "$$(id -u)" = 0 ] && echo --allow-root ) examples/quickstart.ipynb
+	$(PY) tools/demo_server.py
 
 bench: $(PY_STAMP) $(BUNDLE)
 	$(PY) benchmarks/run.py
