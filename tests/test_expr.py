@@ -1206,3 +1206,36 @@ def test_combinations_of_snippets_are_safe(parts: list[str]) -> None:
     expr = _parse_safely(text)
     if any(p in FORBIDDEN_SNIPPETS for p in parts):
         assert expr is None
+
+
+# ------------------------------------------------------------------------------ compile_many
+def test_compile_many_gives_each_formulas_own_numbers() -> None:
+    # One generated function for a formula and all its derivatives must give, bit for bit, what
+    # compiling each alone gives: the same ufuncs run on the same inputs, only shared.
+    from curvewright.expr import compile_many
+
+    data = json.loads(VECTORS.read_text(encoding="utf-8"))
+    for case in data["cases"]:
+        e = Expr.parse(case["formula"])
+        names = ["x", *sorted(case["env"])]
+        family = [e, *(e.derivative(n) for n in names)]
+        x = np.array([_decode(v) for v in case["x"]])
+        args = [x, *(case["env"][n] for n in names[1:])]
+        joint = compile_many(family, names)(*args)
+        assert len(joint) == len(family)
+        for got, f in zip(joint, family, strict=True):
+            want = f.compile(names)(*args)
+            np.testing.assert_array_equal(got, want, err_msg=f"{case['id']}: {f.text}")
+            assert isinstance(got, np.ndarray) == isinstance(want, np.ndarray), case["id"]
+
+
+def test_compile_many_checks_arguments_like_compile() -> None:
+    from curvewright.expr import compile_many
+
+    with pytest.raises(FormulaError, match=r"uses k, which is not among the arguments"):
+        compile_many([Expr.parse("a*x"), Expr.parse("exp(-k*x)")], ["x", "a"])
+    bare = compile_many([Expr.parse("x"), Expr.parse("2*x")], ["x"])
+    x = np.array([1.0, 2.0])
+    first, _ = bare(x)
+    first[0] = 99.0  # a bare name is a copy, never the caller's array
+    assert x[0] == 1.0

@@ -47,6 +47,7 @@ __all__ = [
     "Neg",
     "Node",
     "Num",
+    "compile_many",
     "parse",
 ]
 
@@ -849,6 +850,12 @@ def _codegen(tree: Node) -> tuple[list[str], str]:
     One assignment per node rather than one nested expression keeps deep trees clear of the
     parser's nesting limit, and reusing equal subtrees removes the repetition derivatives have.
     """
+    lines, results = _codegen_many((tree,))
+    return lines, results[0]
+
+
+def _codegen_many(trees: Sequence[Node]) -> tuple[list[str], list[str]]:
+    """As :func:`_codegen` for several trees at once, sharing every common subtree."""
     lines: list[str] = []
     memo: dict[Node, str] = {}
 
@@ -873,7 +880,7 @@ def _codegen(tree: Node) -> tuple[list[str], str]:
         memo[node] = temp
         return temp
 
-    return lines, emit(tree)
+    return lines, [emit(t) for t in trees]
 
 
 @functools.lru_cache(maxsize=512)
@@ -893,6 +900,58 @@ def _compiled(tree: Node, argnames: tuple[str, ...]) -> Callable[..., FloatArray
     exec(code, namespace)
     function: Callable[..., FloatArray | float] = namespace["_formula"]
     return function
+
+
+@functools.lru_cache(maxsize=256)
+def _compiled_many(
+    trees: tuple[Node, ...], argnames: tuple[str, ...]
+) -> Callable[..., tuple[FloatArray | float, ...]]:
+    body, results = _codegen_many(trees)
+    results = [
+        f"_copy({r})" if isinstance(t, Name) else r for t, r in zip(trees, results, strict=True)
+    ]
+    signature = ", ".join(argnames) + (", /" if argnames else "")
+    source = [f"def _formulas({signature}):"]
+    source += [f"    {a} = _as_float({a}, {a!r})" for a in argnames]
+    source.append("    with _errstate(all='ignore'):")
+    source += [f"        {line}" for line in body]
+    source.append(f"        return ({''.join(f'_finish({r}), ' for r in results)})")
+    code = builtins.compile("\n".join(source), "<curvewright formulas>", "exec")
+    namespace = dict(_CODE_GLOBALS)
+    exec(code, namespace)
+    function: Callable[..., tuple[FloatArray | float, ...]] = namespace["_formulas"]
+    return function
+
+
+def compile_many(
+    exprs: Sequence[Expr], argnames: Sequence[str]
+) -> Callable[..., tuple[FloatArray | float, ...]]:
+    """One vectorised function that evaluates several formulas, sharing common subexpressions.
+
+    A model's value and its partial derivatives repeat most of their work (the 4PL's
+    ``10**(n*(log10(x) - c))`` appears in every derivative); evaluating them in one generated
+    function computes each distinct subexpression once.
+
+    Parameters
+    ----------
+    exprs : sequence of Expr
+    argnames : sequence of str
+        As for :meth:`Expr.compile`; must cover every formula's free names.
+
+    Returns
+    -------
+    callable
+        ``f(*args) -> tuple`` with one result per formula, each as :meth:`Expr.compile` gives.
+
+    Raises
+    ------
+    FormulaError
+        As :meth:`Expr.compile`.
+    """
+    names = tuple(argnames)
+    for e in exprs:
+        e.compile(names)  # the same argument checks (and messages) as a single formula
+    return _compiled_many(tuple(e.tree for e in exprs), names)
 
 
 # ---------------------------------------------------------------------------------------------
