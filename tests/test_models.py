@@ -161,3 +161,36 @@ def test_models_are_immutable() -> None:
         m.name = "other"  # type: ignore[misc]
     m2 = m.with_param("a", lower=0.0)
     assert m.param("a").lower == -math.inf and m2.param("a").lower == 0.0
+
+
+def test_value_and_jacobian_match_scipy_differentiation() -> None:
+    # Reference: scipy.differentiate.jacobian (adaptive finite differences with an error
+    # estimate) on every catalog model at its default values, over points in its domain.
+    from scipy.differentiate import jacobian
+
+    from curvewright.catalog import catalog
+
+    for m in catalog().values():
+        x = np.linspace(0.5, 8.0, 7) if m.domain != "all" else np.linspace(-3.0, 8.0, 7)
+        theta = np.array([p.value for p in m.params])
+        f, J = m.value_and_jacobian(x, theta)
+        np.testing.assert_array_equal(f, m.eval(x, m.defaults()))
+        assert J.shape == (x.size, len(m.params))
+
+        def f_of(t: np.ndarray, m: Model = m, x: np.ndarray = x) -> np.ndarray:
+            # scipy passes t with extra trailing axes (its step sizes); x goes in front of them.
+            xs = x.reshape(x.shape + (1,) * (t.ndim - 1))
+            return np.broadcast_to(m.func(xs, *t), xs.shape[:1] + t.shape[1:])
+
+        ref = jacobian(f_of, theta)
+        scale = np.max(np.abs(ref.df), axis=0) + 1e-300
+        # scipy's own error estimate (entries near zero may miss its relative tolerance).
+        assert np.all(ref.error <= 1e-7 * scale), m.name
+        np.testing.assert_allclose(J / scale, ref.df / scale, rtol=0, atol=1e-6, err_msg=m.name)
+
+
+def test_value_and_jacobian_needs_a_formula() -> None:
+    m = Model.from_callable(lambda x, a: a * x, name="scaled")
+    assert not m.has_jacobian
+    with pytest.raises(ModelError, match=r"'scaled' is a Python callable; it has no analytic"):
+        m.value_and_jacobian(np.ones(2), [1.0])

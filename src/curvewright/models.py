@@ -8,6 +8,7 @@ Models are immutable; ``replace``/``with_param`` return new ones.
 from __future__ import annotations
 
 import difflib
+import functools
 import inspect
 import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -18,7 +19,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import DomainError, FormulaError, ModelError, ParameterError
-from .expr import Expr
+from .expr import Expr, compile_many
 
 __all__ = ["Derived", "Domain", "Handle", "Model", "Param", "StartRule", "as_number"]
 
@@ -471,6 +472,56 @@ class Model:
     def __call__(self, x: ArrayLike, **values: float) -> FloatArray:
         """Shorthand for :meth:`eval`."""
         return self.eval(x, values)
+
+    @functools.cached_property
+    def _value_and_gradient(self) -> Callable[..., tuple[Any, ...]] | None:
+        # Differentiated and compiled once per Model (not once per fit): a batch of fits, a
+        # drag or a profile reuses it. None for a Python callable.
+        if self.expr is None:
+            return None
+        family = [self.expr, *(self.expr.derivative(n) for n in self.param_names)]
+        return compile_many(family, ["x", *self.param_names])
+
+    @property
+    def has_jacobian(self) -> bool:
+        """Whether :meth:`value_and_jacobian` is analytic (formula models)."""
+        return self.expr is not None
+
+    def value_and_jacobian(
+        self, x: NDArray[np.float64], theta: Sequence[float]
+    ) -> tuple[FloatArray, FloatArray]:
+        """The curve at ``x`` and its analytic partial derivatives, in one evaluation.
+
+        Parameters
+        ----------
+        x : ndarray
+            Points, float64.
+        theta : sequence of float
+            Every parameter's value, in ``param_names`` order.
+
+        Returns
+        -------
+        (ndarray, ndarray)
+            ``f`` of shape ``x.shape`` and ``J`` of shape ``(x.size, len(params))`` (C order).
+            Non-finite entries are left as they are; the caller decides what they mean.
+
+        Raises
+        ------
+        ModelError
+            For a Python-callable model, which has no analytic derivatives.
+        """
+        fn = self._value_and_gradient
+        if fn is None:
+            raise ModelError(
+                f"Model {self.name!r} is a Python callable; it has no analytic Jacobian "
+                "(use finite differences)."
+            )
+        out = fn(x, *theta)
+        n = x.size
+        J = np.empty((n, len(out) - 1))
+        for j, col in enumerate(out[1:]):
+            J[:, j] = col  # broadcasts a constant derivative (e.g. d/d baseline = 1)
+        return np.broadcast_to(out[0], x.shape).astype(float, copy=True), J
 
     def derived_values(self, values: Mapping[str, float]) -> dict[str, float]:
         """Evaluate every derived quantity at the given parameter values."""
