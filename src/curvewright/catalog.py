@@ -21,7 +21,7 @@ import numpy as np
 
 from .errors import ModelError
 from .expr import Expr
-from .models import Derived, Domain, Handle, Model, Param
+from .models import Derived, Domain, Handle, Model, Param, register_builtin_resolver
 from .start import (
     GridFn,
     PolynomialRule,
@@ -717,3 +717,6 @@ def find_builtin(name: str, formula: str | None) -> Model | None:
     except Exception:  # a formula that does not parse is simply not ours
         return None
     return cand if same else None
+
+
+register_builtin_resolver(find_builtin)

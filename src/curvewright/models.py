@@ -11,6 +11,7 @@ import difflib
 import functools
 import inspect
 import math
+import pickle
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any, Literal
@@ -584,9 +585,7 @@ class Model:
                 f"Model {d.get('name')!r} was a Python callable; it cannot be rebuilt from JSON. "
                 "Pass the callable again."
             )
-        from .catalog import find_builtin  # late import: the catalog is built on this module
-
-        builtin = find_builtin(d["name"], d["formula"])
+        builtin = _builtin_resolver(d["name"], d["formula"]) if _builtin_resolver else None
         params = [Param.from_dict(p) for p in d["params"]]
         model = cls.from_formula(
             d["formula"],
@@ -601,6 +600,28 @@ class Model:
         if d.get("polynomial_degree") is not None:
             model = replace(model, polynomial_degree=int(d["polynomial_degree"]))
         return model
+
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        # Pickled through the exact JSON form, so process pools and a cluster carry what a saved
+        # result carries. A callable model carries its function by reference (pickle imports it
+        # by name), and a start rule that is not the built-in one is carried the same way.
+        inner = getattr(self.func, "__wrapped__", self.func) if self.expr is None else None
+        rule = self.start_rule
+        if self.expr is not None and rule is not None:
+            builtin = _builtin_resolver(self.name, self.formula) if _builtin_resolver else None
+            if builtin is not None and builtin.start_rule is rule:
+                rule = None  # from_dict gives it back
+        for what, obj in (("function", inner), ("start rule", rule)):
+            if obj is not None:
+                try:
+                    pickle.dumps(obj)
+                except (pickle.PicklingError, AttributeError, TypeError) as exc:
+                    raise ModelError(
+                        f"Model {self.name!r} cannot be pickled: its {what} {obj!r} cannot be "
+                        "pickled by reference (a lambda, or a function defined inside another "
+                        "function). Define it at module level in an importable module."
+                    ) from exc
+        return (_model_from_pickle, (self.to_dict(), inner, rule))
 
     def same_form(self, other: Model) -> bool:
         """Whether two models have the same function (same formula tree and parameter names)."""
@@ -625,6 +646,35 @@ class Model:
 
 
 # ---------------------------------------------------------------------- helpers
+# The catalog is built on this module, so this module cannot import it; instead the catalog
+# registers how to find a built-in model by name and formula (to give a saved built-in model its
+# start rule back) when it is imported.
+_builtin_resolver: Callable[[str, str | None], Model | None] | None = None
+
+
+def register_builtin_resolver(resolve: Callable[[str, str | None], Model | None]) -> None:
+    """Tell :meth:`Model.from_dict` how to find a built-in model (called by the catalog)."""
+    global _builtin_resolver
+    _builtin_resolver = resolve
+
+
+def _model_from_pickle(
+    d: Mapping[str, Any], func: Callable[..., Any] | None, rule: StartRule | None
+) -> Model:
+    if func is None:
+        m = Model.from_dict(d)
+        return m if rule is None else replace(m, start_rule=rule)
+    return Model.from_callable(
+        func,
+        name=str(d["name"]),
+        params=[Param.from_dict(p) for p in d["params"]],
+        derived=[Derived.from_dict(x) for x in d.get("derived", [])],
+        start_rule=rule,
+        domain=d.get("domain", "all"),
+        description=str(d.get("description", "")),
+    )
+
+
 def unknown_name_message(
     name: str, known: Sequence[str], where: str, *, kind: str = "parameter"
 ) -> str:

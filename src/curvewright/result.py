@@ -907,6 +907,12 @@ class FitResult:
         """
         return json.dumps(self.to_dict(), allow_nan=False, **kwargs)
 
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        # Pickled through the exact JSON form (so a process pool or a cluster carries what a
+        # saved result carries), with the model alongside: it pickles itself, and a Python
+        # callable travels by reference.
+        return (_result_from_pickle, (self.to_json(), self.model))
+
     @classmethod
     def from_dict(
         cls, d: Mapping[str, Any], *, model: Model | Callable[..., Any] | None = None
@@ -995,6 +1001,10 @@ class FitResult:
 
 
 # ------------------------------------------------------------------------ helpers
+def _result_from_pickle(text: str, model: Model) -> FitResult:
+    return FitResult.from_json(text, model=model)
+
+
 def _need(a: FloatArray | None) -> FloatArray:
     if a is None:
         raise ModelError("a saved fit result is missing an array; the file is damaged.")
