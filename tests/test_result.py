@@ -15,6 +15,7 @@ import scipy.stats
 
 import curvewright as cw
 from curvewright.errors import ModelError
+from curvewright.result import FitResult
 from nist_nonlinear import read
 
 
@@ -153,3 +154,26 @@ def test_ic50_interval_is_the_log_interval_transformed(dose: cw.FitResult) -> No
     assert der.loc["IC50", "upper"] == pytest.approx(10 ** ci.loc["logIC50", "upper"], rel=1e-12)
     v = der.loc["IC50", "value"]
     assert v - der.loc["IC50", "lower"] < der.loc["IC50", "upper"] - v
+
+
+def test_diagnostics_are_data_not_text() -> None:
+    # A bound the data push against, and two parameters the data cannot tell apart: the
+    # findings name their parameters and numbers in fields, and survive the JSON round trip.
+    x = np.array([0.0, 1, 2, 3, 4, 6, 8, 12])
+    y = np.array([9.8, 7.4, 5.7, 4.4, 3.5, 2.4, 1.8, 1.3])
+    r = cw.fit("base + amp*exp(-k*x)", x, y, bounds={"k": (0.0, 0.2)})
+    at = [d for d in r.diagnostics if d.code == "at_bound"]
+    assert [d.params for d in at] == [("k",)]
+    assert at[0].extra == {"side": "upper", "bound": 0.2}
+    assert r.at_bound == {"k": "upper"}
+    back = FitResult.from_json(r.to_json())
+    assert back.diagnostics == r.diagnostics
+    assert {d.params for d in r.diagnostics if d.code == "not_identified"} == {("base",)}
+    # A short window of a slow decay: every pair trades off, each finding names its pair.
+    x = np.linspace(0, 0.3, 8)
+    wiggle = np.array([0.01, -0.02, 0.015, 0, -0.01, 0.02, -0.015, 0.005])
+    r = cw.fit("base + amp*exp(-k*x)", x, 5 + 3 * np.exp(-0.5 * x) + wiggle)
+    pairs = {d.params: d.extra["r"] for d in r.diagnostics if d.code == "high_correlation"}
+    assert set(pairs) == {("base", "amp"), ("base", "k"), ("amp", "k")}
+    assert all(abs(v) > 0.99 for v in pairs.values())
+    assert FitResult.from_json(r.to_json()).diagnostics == r.diagnostics

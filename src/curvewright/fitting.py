@@ -767,6 +767,8 @@ def _diagnostics(
                         "warning",
                         f"'{n}' is at its {side} bound ({b:g}); the data may want it beyond. Its "
                         "standard error and interval assume it is not, so treat them with care.",
+                        params=(n,),
+                        extra={"side": side, "bound": float(b)},
                     )
                 )
     if singular:
@@ -776,6 +778,7 @@ def _diagnostics(
                 "error",
                 "The covariance is singular: some parameters cannot be told apart by these data "
                 "(standard errors are not available). Fix a parameter or simplify the model.",
+                params=prob.free,
             )
         )
     elif cond > _NEAR_SINGULAR:
@@ -785,6 +788,8 @@ def _diagnostics(
                 "warning",
                 f"The covariance is nearly singular (condition number {cond:.2g}): standard "
                 "errors are large and unreliable in some directions.",
+                params=prob.free,
+                extra={"condition": cond},
             )
         )
     for n in prob.free:
@@ -796,6 +801,8 @@ def _diagnostics(
                     "warning",
                     f"'{n}' is not identified by the data: its standard error ({se:.3g}) exceeds "
                     f"its value ({v:.3g}). Collect data where it matters, or fix it.",
+                    params=(n,),
+                    extra={"stderr": se, "value": v},
                 )
             )
     if cov.size and not singular:
@@ -812,6 +819,8 @@ def _diagnostics(
                             f"'{prob.free[i]}' and '{prob.free[j]}' are correlated "
                             f"(r = {corr[i, j]:+.4f}): the data pin down a combination of them "
                             "better than either alone.",
+                            params=(prob.free[i], prob.free[j]),
+                            extra={"r": float(corr[i, j])},
                         )
                     )
     x_lo, x_hi = float(np.min(prob.x)), float(np.max(prob.x))
@@ -827,6 +836,8 @@ def _diagnostics(
                         "warning",
                         f"{q.name} = {val:.4g} lies outside the range of the data "
                         f"[{x_lo:.4g}, {x_hi:.4g}]: it is an extrapolation, not a measurement.",
+                        params=tuple(n for n in prob.model.param_names if n in q.expr.names),
+                        extra={"quantity": q.name, "value": val, "range": [x_lo, x_hi]},
                     )
                 )
     if prob.loss != "linear":

@@ -68,21 +68,49 @@ class Diagnostic:
         ``error``: the numbers should not be used as they are (not converged, singular);
         ``warning``: use with care; ``info``: a note about the data or the procedure.
     text : str
-        One or two plain sentences.
+        One or two plain sentences, for people; code reads the fields, never the text.
+    params : tuple of str
+        The parameters the finding is about (e.g. the one at a bound, the correlated pair).
+    extra : mapping
+        Numbers and words that qualify it, JSON-ready: ``side`` and ``bound`` for
+        ``at_bound``, ``r`` for ``high_correlation``, ``condition`` for ``near_singular``,
+        ``quantity``, ``value`` and ``range`` for ``extrapolation``, ``stderr`` and ``value``
+        for ``not_identified``.
     """
 
     code: str
     severity: Severity
     text: str
+    params: tuple[str, ...] = ()
+    extra: Mapping[str, Any] = field(default_factory=dict, hash=False)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form."""
-        return {"code": self.code, "severity": self.severity, "text": self.text}
+        return {
+            "code": self.code,
+            "severity": self.severity,
+            "text": self.text,
+            "params": list(self.params),
+            "extra": {k: _enc(v) if isinstance(v, float) else v for k, v in self.extra.items()},
+        }
 
     @classmethod
     def from_dict(cls, d: Mapping[str, Any]) -> Diagnostic:
         """Inverse of :meth:`to_dict`."""
-        return cls(code=str(d["code"]), severity=d["severity"], text=str(d["text"]))
+        extra = {
+            k: _dec(v) if k in _FLOAT_EXTRAS else v for k, v in dict(d.get("extra", {})).items()
+        }
+        return cls(
+            code=str(d["code"]),
+            severity=d["severity"],
+            text=str(d["text"]),
+            params=tuple(str(n) for n in d.get("params", ())),
+            extra=extra,
+        )
+
+
+# Entries of Diagnostic.extra that are floats (encoded like every other float in the JSON).
+_FLOAT_EXTRAS = frozenset({"bound", "r", "condition", "value", "stderr"})
 
 
 @dataclass(frozen=True)
@@ -416,14 +444,7 @@ class FitResult:
     @property
     def at_bound(self) -> dict[str, str]:
         """Free parameters at a bound: name -> ``"lower"`` or ``"upper"``."""
-        out: dict[str, str] = {}
-        for d in self.diagnostics:
-            if d.code == "at_bound":
-                name, side = d.text.split(" ", 1)[0], ""
-                name = name.strip("'")
-                side = "lower" if "lower bound" in d.text else "upper"
-                out[name] = side
-        return out
+        return {d.params[0]: str(d.extra["side"]) for d in self.diagnostics if d.code == "at_bound"}
 
     # ------------------------------------------------------------------ evaluation
     def predict(self, x: ArrayLike) -> FloatArray:
@@ -558,11 +579,7 @@ class FitResult:
         ci = self.ci(level)
         ci_lo, ci_hi = _bounds_of(ci)
         at = self.at_bound
-        flagged = {
-            d.text.split(" ", 1)[0].strip("'")
-            for d in self.diagnostics
-            if d.code == "not_identified"
-        }
+        flagged = {n for d in self.diagnostics if d.code == "not_identified" for n in d.params}
         rows = []
         for p in self.model.params:
             n = p.name

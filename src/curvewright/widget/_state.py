@@ -458,11 +458,7 @@ def fitted_json(
             "nfev": int(result.nfev),
         },
         "excluded": [int(r) for d in result.datasets for r in d.excluded_rows],
-        "diagnostics": [
-            {"code": d.code, "severity": d.severity, "text": d.text}
-            for d in result.diagnostics
-            if d.severity != "info"
-        ],
+        "diagnostics": [d.to_dict() for d in result.diagnostics if d.severity != "info"],
         "caution": CAUTION,
     }
 
