@@ -17,8 +17,8 @@ Anderson, *Model Selection and Multimodel Inference*, 2002, from memory):
 Nesting is detected when two fits use the same model and one holds parameters fixed that the
 other estimates (at values consistent with the other's fixed ones), and for known pairs of
 catalog models (a straight line inside any polynomial, polynomials of increasing degree, the
-3PL inside the 4PL with bottom = 0, the 4PL inside the 5PL with s = 1, Michaelis-Menten inside
-the Hill equation with n_hill = 1), each confirmed numerically: the larger model with those
+3PL inside the 4PL with zero_dose = 0, the 4PL inside the 5PL with g = 1, Michaelis-Menten inside
+the Hill equation with n_h = 1), each confirmed numerically: the larger model with those
 values fixed must reproduce the simpler model's curve. Any other nesting can be declared.
 """
 
@@ -290,10 +290,10 @@ def _poly_degree(r: FitResult) -> int | None:
 
 #: Catalog models nested in others: (simpler, larger) -> values to fix in the larger one.
 _KNOWN_NESTINGS: dict[tuple[str, str], dict[str, float]] = {
-    ("stimulation_3pl", "stimulation_4pl"): {"bottom": 0.0},
-    ("stimulation_4pl", "stimulation_5pl"): {"s": 1.0},
-    ("inhibition_4pl", "inhibition_5pl"): {"s": 1.0},
-    ("michaelis_menten", "hill"): {"n_hill": 1.0},
+    ("stimulation_3pl", "stimulation_4pl"): {"zero_dose": 0.0},
+    ("stimulation_4pl", "stimulation_5pl"): {"g": 1.0},
+    ("inhibition_4pl", "inhibition_5pl"): {"g": 1.0},
+    ("michaelis_menten", "hill"): {"n_h": 1.0},
 }
 
 
@@ -320,9 +320,9 @@ def _known_mapping(simple: FitResult, large: FitResult) -> dict[str, float] | No
 
 
 def _rename_for(simple: FitResult, large: FitResult) -> dict[str, str]:
-    # Michaelis-Menten's Km is the Hill equation's K_half.
+    # Michaelis-Menten's Km is the Hill equation's K0.5.
     if (simple.model.name, large.model.name) == ("michaelis_menten", "hill"):
-        return {"Km": "K_half"}
+        return {"Km": "K05"}
     if simple.model.polynomial_degree is not None and large.model.polynomial_degree is not None:
         # polynomial coefficients in order of power, whatever they are called
         return dict(zip(simple.model.param_names, large.model.param_names, strict=False))

@@ -679,7 +679,7 @@ def derived_quantity(
     """Any function of the parameters, with its delta-method standard error and interval.
 
     For quantities the model does not list among its derived ones (see :func:`derived_table`),
-    e.g. ``"log(2)/k"``, ``"Vmax/Km"`` or ``"10**logEC50"``.
+    e.g. ``"log(2)/k"``, ``"Vmax/Km"`` or ``"10**log_ec50"``.
 
     Parameters
     ----------
