@@ -262,6 +262,10 @@ def test_solver_methods_are_named_by_their_algorithms() -> None:
         assert r.attempts[0].method == method
         got = [r.values[n] for n in ("baseline", "amplitude", "k")]
         np.testing.assert_allclose(got, ref.x, rtol=1e-6)
+    # ordinary least squares is the "squared" loss, the default
+    plain = cw.fit("baseline + amplitude*exp(-k*x)", x, y, loss="squared")
+    assert plain.loss == "squared" and plain.loss_scale is None
+    assert dict(plain.values) == dict(cw.fit("baseline + amplitude*exp(-k*x)", x, y).values)
     # a robust loss runs on the trust-region method whatever "auto" would pick
     robust = cw.fit("baseline + amplitude*exp(-k*x)", x, y, loss="huber")
     assert robust.attempts[0].method == "trust_region"

@@ -44,17 +44,17 @@ __all__ = ["fit", "point_weights", "resolve_model"]
 
 FloatArray = NDArray[np.float64]
 Weighting = Literal["none", "sigma", "relative", "poisson"]
-Loss = Literal["linear", "pseudo_huber", "huber"]
+Loss = Literal["squared", "pseudo_huber", "huber"]
 Method = Literal["auto", "levenberg_marquardt", "trust_region"]
 
 _WEIGHTINGS = ("none", "sigma", "relative", "poisson")
-_LOSSES = ("linear", "pseudo_huber", "huber")
+_LOSSES = ("squared", "pseudo_huber", "huber")
 _METHODS = ("auto", "levenberg_marquardt", "trust_region")
 _LM = "levenberg_marquardt"
 _TR = "trust_region"
-# Our loss names by their published names; scipy's least_squares calls the pseudo-Huber loss
-# 2*(sqrt(1 + z) - 1) "soft_l1".
-_SCIPY_LOSS = {"linear": "linear", "pseudo_huber": "soft_l1", "huber": "huber"}
+# Our losses by what they are; scipy's least_squares calls the sum of squares "linear" (rho(z) = z
+# of the squared residual z) and the pseudo-Huber loss 2*(sqrt(1 + z) - 1) "soft_l1".
+_SCIPY_LOSS = {"squared": "linear", "pseudo_huber": "soft_l1", "huber": "huber"}
 # Tolerances far below what double precision can resolve: MINPACK then stops when no further
 # reduction is possible (ier 6-8, "converged_precision"), which is how certified NIST values are
 # reached to 6+ digits. Runs stay short because each step at the minimum is rejected quickly.
@@ -484,7 +484,7 @@ class _Watch:
 
 
 def _objective(prob: _Problem, r: FloatArray) -> float:
-    if prob.loss == "linear":
+    if prob.loss == "squared":
         return float(r @ r)
     c = prob.loss_scale or 1.0
     z = (r / c) ** 2
@@ -518,7 +518,7 @@ def _solve(
         kws = {"ftol": _TOL, "xtol": _TOL, "gtol": 0.0, "maxfev": budget}
     else:
         kws = {"ftol": _TOL, "xtol": _TOL, "gtol": _TOL, "max_nfev": budget}
-        if prob.loss != "linear":
+        if prob.loss != "squared":
             kws["loss"] = _SCIPY_LOSS[prob.loss]
             kws["f_scale"] = (prob.loss_scale or 1.0) / prob.rscale
         if x_scale is not None:
@@ -572,7 +572,7 @@ def _ladder(
 ) -> list[_Run]:
     """Run solvers until one converges and a restart from its point cannot improve it."""
     theta0 = np.array([prob.values0[n] for n in prob.free], dtype=float)
-    first = _TR if (method == _TR or prob.loss != "linear") else _LM
+    first = _TR if (method == _TR or prob.loss != "squared") else _LM
     other = _TR if first == _LM else _LM
     runs = [_solve(prob, watch, theta0, first, "first run", budget)]
     stop_codes = ("cancelled", "stopped_time")
@@ -594,8 +594,8 @@ def _ladder(
     if outcome(b.code).success and not improved:
         return runs
     ladder: list[tuple[str, str, str | None]] = []
-    if prob.loss == "linear" or other == _TR:
-        ladder.append((other if prob.loss == "linear" else _TR, "switch method", None))
+    if prob.loss == "squared" or other == _TR:
+        ladder.append((other if prob.loss == "squared" else _TR, "switch method", None))
     ladder.append((_TR, "rescaled parameters", "jac"))
     for meth, strategy, xs in ladder:
         runs.append(_solve(prob, watch, best().theta, meth, strategy, budget, xs))
@@ -630,7 +630,7 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
     robust loss are in force), which takes certified NIST values to ten digits or more.
     """
     bounded = bool(np.any(np.isfinite(prob.lower)) or np.any(np.isfinite(prob.upper)))
-    meth: Literal["trf", "lm"] = "trf" if (bounded or prob.loss != "linear") else "lm"
+    meth: Literal["trf", "lm"] = "trf" if (bounded or prob.loss != "squared") else "lm"
     w = prob.w
 
     def jac(theta: FloatArray) -> FloatArray:
@@ -834,7 +834,7 @@ def _diagnostics(
                         f"[{x_lo:.4g}, {x_hi:.4g}]: it is an extrapolation, not a measurement.",
                     )
                 )
-    if prob.loss != "linear":
+    if prob.loss != "squared":
         out.append(
             Diagnostic(
                 "robust_loss",
@@ -951,7 +951,7 @@ def _linear_run(prob: _Problem) -> _Run | None:
         k is None
         or prob.fixed
         or prob.links
-        or prob.loss != "linear"
+        or prob.loss != "squared"
         or np.any(np.isfinite(prob.lower))
         or np.any(np.isfinite(prob.upper))
     ):
@@ -978,7 +978,7 @@ def fit(
     bounds: Mapping[str, tuple[float | None, float | None]] | None = None,
     links: Mapping[str, str] | None = None,
     weights: Weighting | None = None,
-    loss: Loss = "linear",
+    loss: Loss = "squared",
     loss_scale: float | None = None,
     exclude: ArrayLike | None = None,
     absolute_sigma: bool = False,
@@ -1015,8 +1015,9 @@ def fit(
     weights : {"none", "sigma", "relative", "poisson"}, optional
         ``"sigma"``: 1/sigma²; ``"relative"``: 1/y² (constant coefficient of variation);
         ``"poisson"``: 1/|y| (counts). Default: ``"sigma"`` when sigma is given, else none.
-    loss : {"linear", "pseudo_huber", "huber"}
-        ``"linear"`` is ordinary least squares; the robust losses down-weight outliers:
+    loss : {"squared", "pseudo_huber", "huber"}
+        ``"squared"`` is ordinary least squares (the sum of squared residuals); the robust
+        losses down-weight outliers:
         ``"pseudo_huber"`` (``2*(sqrt(1 + z) - 1)`` of the squared scaled residual z, a smooth
         version of Huber's) and ``"huber"`` (quadratic up to the scale, linear beyond).
     loss_scale : float, optional

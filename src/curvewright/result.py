@@ -104,7 +104,7 @@ class Attempt:
     ssr : float
         Weighted sum of squared residuals at the run's end point.
     objective : float
-        What the run minimised: ``ssr`` for the linear loss, else the robust loss sum.
+        What the run minimised: ``ssr`` for the squared loss, else the robust loss sum.
     code : str
         Outcome code (see :mod:`curvewright.messages`).
     message : str
@@ -271,7 +271,7 @@ class FitResult:
         ``"none"``, ``"sigma"``, ``"relative"`` or ``"poisson"`` (after resolving "auto").
     loss : str
     loss_scale : float or None
-        The robust loss's residual scale (None for the linear loss).
+        The robust loss's residual scale (None for the squared loss).
     absolute_sigma : bool
     method : str
         Method of the attempt whose solution was kept.
@@ -722,7 +722,7 @@ class FitResult:
         lines.append(
             f"weighting:  {wt}" + ("; sigma taken as exact" if self.absolute_sigma else "")
         )
-        if self.loss != "linear":
+        if self.loss != "squared":
             lines.append(f"loss:       {self.loss} (residual scale {self.loss_scale:.6g})")
         lines.append(f"outcome:    {'OK' if self.success else 'NOT CONVERGED'} - {self.message}")
         lines.append(

@@ -245,10 +245,10 @@ def _check_fit(r: object, label: str) -> FitResult:
         raise ComparisonError(
             f"{label} is a {type(r).__name__}, not a FitResult; pass results of curvewright.fit."
         )
-    if r.loss != "linear":
+    if r.loss != "squared":
         raise ComparisonError(
             f"{label!r} used the robust {r.loss!r} loss: the F test and AICc compare least-"
-            "squares fits. Refit with loss='linear' (after excluding outliers) to compare."
+            "squares fits. Refit with loss='squared' (after excluding outliers) to compare."
         )
     if not r.success:
         raise ComparisonError(

@@ -529,10 +529,10 @@ def linearized_fit(
             raise ParameterError(
                 "Give either result= (its data are used) or x=/y=/data=, not both."
             )
-        if result.loss != "linear":
+        if result.loss != "squared":
             raise FitError(
                 f"The nonlinear fit used the robust {result.loss!r} loss; the side-by-side "
-                "table compares least-squares estimates. Refit with loss='linear'."
+                "table compares least-squares estimates. Refit with loss='squared'."
             )
         xa, ya = np.asarray(result.x, dtype=float), np.asarray(result.y, dtype=float)
     else:

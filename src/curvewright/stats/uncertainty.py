@@ -354,11 +354,11 @@ def _quantile(result: FitResult, level: float) -> float:
 
 
 def _require_least_squares(result: FitResult, what: str) -> None:
-    if result.loss != "linear":
+    if result.loss != "squared":
         raise FitError(
             f"{what} assumes a least-squares fit, but this fit used the robust {result.loss!r} "
             "loss, whose sum of squares does not follow the same distribution. Refit with "
-            "loss='linear' (after excluding the outliers the robust fit revealed)."
+            "loss='squared' (after excluding the outliers the robust fit revealed)."
         )
 
 
