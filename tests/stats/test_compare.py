@@ -112,6 +112,14 @@ def test_aicc_and_akaike_weights_follow_the_formula() -> None:
     assert float(c.table["akaike_weight"].sum()) == pytest.approx(1.0)
     # the straight line is far worse on saturating data
     assert float(c.table.loc["straight_line", "akaike_weight"]) < 1e-3
+    # the evidence ratio of the best fit over the next best is w_best / w_second (Burnham and
+    # Anderson 2002, section 2.10), said in the reasoning
+    order = np.argsort(-w)
+    ratio = w[order[0]] / w[order[1]]
+    assert (
+        f"its evidence ratio over the next best, {c.table.index[order[1]]!r}, is {ratio:.3g}"
+        in (c.reasoning[0])
+    )
     # Michaelis-Menten is nested in Hill (n_h = 1); the line is nested in neither.
     assert list(zip(c.f_tests["simpler"], c.f_tests["larger"], strict=True)) == [
         ("michaelis_menten", "hill")
@@ -148,7 +156,7 @@ def test_same_model_with_a_parameter_fixed_is_detected_as_nested() -> None:
     assert bool(got["significant"])
     assert c.preferred == "exponential_decay" and c.criterion == "F test"
     assert "support the larger model" in " ".join(c.reasoning)
-    assert "Prefer 'exponential_decay'" in c.recommendation
+    assert c.recommendation == "Recommended fit: 'exponential_decay' (decided by the F test)."
 
 
 def test_simpler_model_recommended_when_extra_term_is_not_needed() -> None:

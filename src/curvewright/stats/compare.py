@@ -552,10 +552,11 @@ def _recommend(
             if d[second] > 10
             else "moderate support for it"
         )
+        # w_best / w_second is Burnham and Anderson's evidence ratio (2002, section 2.10)
         reasons.append(
-            f"AICc is lowest for {aicc_choice!r} (Akaike weight {w[best]:.3f}); it is "
-            f"{ratio:.3g} times as likely as the runner-up {labels[second]!r} (difference "
-            f"{d[second]:.3g}) to be the better model of these: {closeness}."
+            f"AICc is lowest for {aicc_choice!r} (Akaike weight {w[best]:.3f}); its evidence "
+            f"ratio over the next best, {labels[second]!r}, is {ratio:.3g} (AICc difference "
+            f"{d[second]:.3g}): {closeness}."
         )
     else:
         reasons.append(f"AICc is lowest for {aicc_choice!r} (Akaike weight {w[best]:.3f}).")
@@ -617,5 +618,5 @@ def _recommend(
     warn = [dg.text for dg in fits[i_pref].diagnostics if dg.severity in ("warning", "error")]
     if warn:
         reasons.append(f"Note on {preferred!r}: " + " ".join(warn))
-    recommendation = f"Prefer {preferred!r} (by the {criterion})."
+    recommendation = f"Recommended fit: {preferred!r} (decided by the {criterion})."
     return preferred, criterion, recommendation, reasons
