@@ -213,13 +213,15 @@ def _dose_params(mid: str, *, asymmetry: bool = False, zero_dose: bool = True) -
     what = "inhibitor" if mid == "log_ic50" else "agonist"
     ps = []
     if zero_dose:
-        ps.append(_p("zero_dose", 0.0, "y", "response with no compound (the low-dose level)"))
+        ps.append(
+            _p("zero_dose", 0.0, "y", "response with no compound (the level at very low doses)")
+        )
     ps += [
         _p(
             "full_effect",
             100.0,
             "y",
-            "response at a saturating dose (the level the curve reaches at high doses)",
+            "response at a saturating dose (the level at very high doses)",
         ),
         _p(
             mid,

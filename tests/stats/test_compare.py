@@ -156,7 +156,7 @@ def test_same_model_with_a_parameter_fixed_is_detected_as_nested() -> None:
     assert bool(got["significant"])
     assert c.preferred == "exponential_decay" and c.criterion == "F test"
     assert "support the larger model" in " ".join(c.reasoning)
-    assert c.recommendation == "Recommended fit: 'exponential_decay' (decided by the F test)."
+    assert c.recommendation == "Use 'exponential_decay' (decided by the F test)."
 
 
 def test_simpler_model_recommended_when_extra_term_is_not_needed() -> None:

@@ -618,5 +618,5 @@ def _recommend(
     warn = [dg.text for dg in fits[i_pref].diagnostics if dg.severity in ("warning", "error")]
     if warn:
         reasons.append(f"Note on {preferred!r}: " + " ".join(warn))
-    recommendation = f"Recommended fit: {preferred!r} (decided by the {criterion})."
+    recommendation = f"Use {preferred!r} (decided by the {criterion})."
     return preferred, criterion, recommendation, reasons
