@@ -159,7 +159,7 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     zero_in = root.get_by_role("textbox", name="zero_dose", exact=True)
     zero_in.fill("4")
     zero_in.press("Enter")
-    fixed = root.get_by_role("checkbox", name=re.compile(r"\bbottom\b"))
+    fixed = root.get_by_role("checkbox", name=re.compile(r"\bzero_dose\b"))
     fixed.check()
     assert fixed.is_checked()
     s3 = _state(page, root)
