@@ -96,7 +96,7 @@ CASES: list[tuple[str, str, dict[str, float], list[float]]] = [
     # Model formulas of the kind the catalog holds.
     (
         "dose_response_4pl",
-        "full_effect + (zero_dose - full_effect)/(1 + 10**(n_h*(log10(x) - log_ec50)))",
+        "full_effect + (zero_dose - full_effect)/(1 + (x/10**log_ec50)**n_h)",
         {"zero_dose": 5.0, "full_effect": 95.0, "log_ec50": -6.0, "n_h": 1.2},
         X_DOSE,
     ),
@@ -108,7 +108,7 @@ CASES: list[tuple[str, str, dict[str, float], list[float]]] = [
     ),
     (
         "dose_response_3pl",
-        "full_effect/(1 + 10**(n_h*(log_ec50 - log10(x))))",
+        "full_effect/(1 + (10**log_ec50/x)**n_h)",
         {"full_effect": 2.0, "log_ec50": -6.0, "n_h": 1.5},
         X_DOSE,
     ),

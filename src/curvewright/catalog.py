@@ -207,8 +207,8 @@ def _straight_line() -> Model:
 # ----------------------------------------------------------------------- dose-response pieces
 # The dose-response family is written with the level at zero dose and the level at a saturating
 # dose, so one formula serves stimulation (the response climbs to full_effect) and inhibition
-# (it falls to full_effect): the Hill term 10**(n_h*(log10(x) - log_c50)) grows from 0 at zero
-# dose to infinity at a saturating one either way.
+# (it falls to full_effect): the Hill term (x/c50)**n_h grows from 0 at zero dose to infinity at a
+# saturating one either way (c50 = 10**log_ic50 or 10**log_ec50).
 def _dose_params(mid: str, *, asymmetry: bool = False, zero_dose: bool = True) -> list[Param]:
     what = "inhibitor" if mid == "log_ic50" else "agonist"
     ps = []
@@ -261,7 +261,9 @@ def _dose_models() -> list[Model]:
     out = []
     for kind, mid in (("inhibition", "log_ic50"), ("stimulation", "log_ec50")):
         c = mid[4:]  # ic50 / ec50
-        hill = f"10**(n_h*(log10(x) - {mid}))"
+        # the Hill term (x/c50)**n_h as a ratio, not 10**(n_h*(log10(x) - mid)): the same
+        # curve for one power instead of a logarithm and a power per point, on the hot path
+        hill = f"(x/10**{mid})**n_h"
         f4 = f"full_effect + (zero_dose - full_effect)/(1 + {hill})"
         if kind == "inhibition":
             amplitude = _d(
@@ -372,7 +374,7 @@ def _dose_models() -> list[Model]:
     out.append(
         _model(
             "stimulation_3pl",
-            "full_effect/(1 + 10**(n_h*(log_ec50 - log10(x))))",
+            "full_effect/(1 + (10**log_ec50/x)**n_h)",
             _dose_params("log_ec50", zero_dose=False),
             "Three-parameter logistic for stimulation from a zero response at zero dose (e.g. "
             "blank-subtracted signals) up to full_effect, half-way at ec50 = 10**log_ec50 with "
