@@ -51,8 +51,8 @@ rng = np.random.default_rng(7)
 n = {n}
 conc = 10 ** rng.uniform(-9, -3.5, n)
 resp = 96 + (4 - 96) / (1 + (conc / 10 ** -6.3) ** 1.1) + rng.normal(0, 3, n)
-w = cw.CurveFitter(pd.DataFrame({{"conc": conc, "response": resp}}), x="conc", y="response",
-                   model="stimulation_4pl")
+w = cw.CurveBench(pd.DataFrame({{"conc": conc, "response": resp}}), x="conc", y="response",
+                  model="stimulation_4pl")
 w
 """
 
@@ -63,7 +63,7 @@ def rate(x, Vmax, Km):
 rng = np.random.default_rng(7)
 s = np.repeat(np.array([0.5, 1, 2, 4, 8, 16, 32, 64]), 3)
 v = rate(s, 12.0, 5.0) + rng.normal(0, 0.3, s.size)
-w = cw.CurveFitter(s, v, model=rate)
+w = cw.CurveBench(s, v, model=rate)
 w
 """
 
@@ -169,8 +169,8 @@ def with_bundle(cell: str, bundle: Path | None) -> str:
     """Make the cell's widget load ``bundle`` instead of the package's (to compare builds)."""
     if bundle is None:
         return cell
-    sub = f"class _Bench(cw.CurveFitter):\n    _esm = __import__('pathlib').Path({str(bundle)!r})\n"
-    return cell.replace("w = cw.CurveFitter(", sub + "w = _Bench(")
+    sub = f"class _Bench(cw.CurveBench):\n    _esm = __import__('pathlib').Path({str(bundle)!r})\n"
+    return cell.replace("w = cw.CurveBench(", sub + "w = _Bench(")
 
 
 def open_widget(

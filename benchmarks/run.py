@@ -38,13 +38,13 @@ def _problems() -> list[tuple[str, str, np.ndarray, np.ndarray, dict[str, float]
     # Invented demo-style data (speed only; accuracy is checked in tests/ against references).
     for n in (50, 5000):
         x = np.logspace(-9, -4, n)
-        truth = {"bottom": 5.0, "top": 100.0, "logIC50": -6.5, "hill": 1.2}
+        truth = {"zero_dose": 100.0, "full_effect": 5.0, "log_ic50": -6.5, "n_h": 1.2}
         y = catalog()["inhibition_4pl"].eval(x, truth) + rng.normal(0, 2.0, n)
         out.append((f"4PL inhibition, n={n}", "inhibition_4pl", x, y, truth))
         xd = np.linspace(0, 30, n)
-        td = {"plateau": 10.0, "span": 90.0, "k": 0.25}
-        yd = catalog()["decay_to_plateau"].eval(xd, td) + rng.normal(0, 1.0, n)
-        out.append((f"decay to plateau, n={n}", "decay_to_plateau", xd, yd, td))
+        td = {"baseline": 10.0, "amplitude": 90.0, "k": 0.25}
+        yd = catalog()["exponential_decay"].eval(xd, td) + rng.normal(0, 1.0, n)
+        out.append((f"exponential decay, n={n}", "exponential_decay", xd, yd, td))
     return out
 
 
@@ -69,7 +69,7 @@ def _time_problem(
         def resid(ps: lmfit.Parameters) -> np.ndarray:
             return model.func(x, *(ps[k].value for k in names)) - y
 
-        return lmfit.minimize(resid, params, method="leastsq")
+        return lmfit.minimize(resid, params, method="leastsq")  # lmfit's Levenberg-Marquardt
 
     def run_ours_start() -> object:
         return fit(model, x, y, start=p0)

@@ -35,7 +35,7 @@ export function usesPins(model: ModelJson): boolean {
 
 /**
  * The accessible name of a handle: the feature and the parameters it moves, e.g.
- * "midpoint (IC50): moves logIC50". Moved parameters that are fixed are named as held.
+ * "midpoint (IC50): moves log_ic50". Moved parameters that are fixed are named as held.
  */
 export function handleAriaLabel(label: string, moves: readonly string[], fixed: ReadonlySet<string>): string {
   const free = moves.filter((m) => !fixed.has(m));

@@ -125,7 +125,7 @@ export interface FittedJson {
     r2: number | null;
     aicc: number | null;
     sigma_resid: number | null;
-    nfev: number;
+    evaluations: number;
   };
   /** Input rows the fit left out. */
   excluded?: number[];

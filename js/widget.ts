@@ -15,7 +15,7 @@
 //     data-cw-fitted      JSON {param: value} of the shown fit, or "" before a fit
 //     data-cw-dragging    key of the handle being dragged/nudged, or ""
 //   handles               role="slider", focusable (tabindex 0), class .cw-handle,
-//                         aria-label "<feature>: moves <params>" (e.g. "EC50: moves logEC50"),
+//                         aria-label "<feature>: moves <params>" (e.g. "EC50: moves log_ec50"),
 //                         aria-valuenow (value of the first moved parameter, or the pin's y),
 //                         aria-valuetext, data-handle=<handle name> or "pin:<i>";
 //                         Arrow keys nudge (1% of the plot), Shift+Arrow 10%. Models without

@@ -49,27 +49,35 @@ CASES: dict[str, Case] = {
     "straight_line": Case(np.linspace(0, 10, 12), {"intercept": 2.0, "slope": -0.7}),
     "polynomial_2": Case(np.linspace(-3, 5, 15), {"c0": 1.0, "c1": -2.0, "c2": 0.5}),
     "polynomial_3": Case(np.linspace(-3, 5, 15), {"c0": 1.0, "c1": -2.0, "c2": 0.5, "c3": 0.1}),
-    "decay_to_plateau": Case(np.linspace(0, 30, 20), {"plateau": 12.0, "span": 80.0, "k": 0.25}),
-    "two_phase_decay": Case(
-        np.geomspace(0.05, 60, 30),
-        {"plateau": 5.0, "span_fast": 60.0, "k_fast": 2.0, "span_slow": 35.0, "k_slow": 0.1},
+    "exponential_decay": Case(
+        np.linspace(0, 30, 20), {"baseline": 12.0, "amplitude": 80.0, "k": 0.25}
     ),
-    "rise_to_plateau": Case(np.linspace(0, 60, 20), {"y0": 3.0, "plateau": 48.0, "k": 0.08}),
+    "biexponential_decay": Case(
+        np.geomspace(0.05, 60, 30),
+        {"baseline": 5.0, "a1": 60.0, "k1": 2.0, "a2": 35.0, "k2": 0.1},
+    ),
+    "exponential_rise": Case(
+        np.linspace(0, 60, 20), {"baseline": 3.0, "amplitude": 45.0, "k": 0.08}
+    ),
     "exponential_growth": Case(np.linspace(0, 8, 15), {"y0": 150.0, "k": 0.45}),
     "michaelis_menten": Case(
         np.array([0.5, 1, 2, 4, 8, 16, 32, 64, 128.0]), {"Vmax": 42.0, "Km": 7.5}
     ),
     "substrate_inhibition": Case(np.geomspace(0.5, 500, 14), {"Vmax": 60.0, "Km": 5.0, "Ki": 80.0}),
-    "hill": Case(np.geomspace(0.1, 100, 14), {"Vmax": 9.0, "K_half": 4.0, "n_hill": 2.3}),
-    "inhibition_4pl": Case(DOSES, {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3}),
+    "hill": Case(np.geomspace(0.1, 100, 14), {"Vmax": 9.0, "K05": 4.0, "n_h": 2.3}),
+    "inhibition_4pl": Case(
+        DOSES, {"zero_dose": 98.0, "full_effect": 4.0, "log_ic50": -6.6, "n_h": 1.3}
+    ),
     "inhibition_5pl": Case(
-        DOSES, {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3, "s": 2.0}
+        DOSES, {"zero_dose": 98.0, "full_effect": 4.0, "log_ic50": -6.6, "n_h": 1.3, "g": 2.0}
     ),
-    "stimulation_4pl": Case(DOSES, {"bottom": 120.0, "top": 860.0, "logEC50": -7.2, "hill": 0.9}),
+    "stimulation_4pl": Case(
+        DOSES, {"zero_dose": 120.0, "full_effect": 860.0, "log_ec50": -7.2, "n_h": 0.9}
+    ),
     "stimulation_5pl": Case(
-        DOSES, {"bottom": 120.0, "top": 860.0, "logEC50": -7.2, "hill": 0.9, "s": 0.5}
+        DOSES, {"zero_dose": 120.0, "full_effect": 860.0, "log_ec50": -7.2, "n_h": 0.9, "g": 0.5}
     ),
-    "stimulation_3pl": Case(DOSES, {"top": 1.8, "logEC50": -6.0, "hill": 1.6}),
+    "stimulation_3pl": Case(DOSES, {"full_effect": 1.8, "log_ec50": -6.0, "n_h": 1.6}),
     "logistic_growth": Case(np.linspace(0, 24, 25), {"N0": 0.02, "K": 1.6, "r": 0.55}),
     "gompertz_growth": Case(np.linspace(0, 24, 25), {"N0": 0.05, "K": 1.6, "r": 0.3}),
     "gaussian_peak": Case(
@@ -80,18 +88,18 @@ CASES: dict[str, Case] = {
         np.linspace(400, 600, 41),
         {"baseline": 0.1, "amplitude": 2.5, "center": 512.0, "hwhm": 9.0},
     ),
-    "boltzmann_sigmoid": Case(
-        np.linspace(-90, 30, 25), {"bottom": 0.02, "top": 1.0, "V50": -35.0, "slope": 7.5}
+    "boltzmann": Case(
+        np.linspace(-90, 30, 25), {"low": 0.02, "high": 1.0, "x_half": -35.0, "width": 7.5}
     ),
     "power_law": Case(np.geomspace(0.1, 1000, 16), {"a": 3.2, "b": 0.75}),
 }
 
 # Extra shapes the same models must handle: a falling sigmoid, a dip, a rise written as a
-# decay with negative span, a substrate-inhibition curve whose peak is inside the data.
+# decay with negative amplitude, a shallow Hill curve.
 EXTRA_CASES: dict[str, tuple[str, Case]] = {
     "boltzmann_falling": (
-        "boltzmann_sigmoid",
-        Case(np.linspace(-120, 0, 25), {"bottom": 0.05, "top": 1.0, "V50": -62.0, "slope": -6.0}),
+        "boltzmann",
+        Case(np.linspace(-120, 0, 25), {"low": 0.05, "high": 1.0, "x_half": -62.0, "width": -6.0}),
     ),
     "gaussian_dip": (
         "gaussian_peak",
@@ -100,13 +108,13 @@ EXTRA_CASES: dict[str, tuple[str, Case]] = {
             {"baseline": 5.0, "amplitude": -2.0, "center": 3.3, "sigma": 0.6},
         ),
     ),
-    "decay_negative_span": (
-        "decay_to_plateau",
-        Case(np.linspace(0, 5, 16), {"plateau": 10.0, "span": -7.0, "k": 1.2}),
+    "decay_negative_amplitude": (
+        "exponential_decay",
+        Case(np.linspace(0, 5, 16), {"baseline": 10.0, "amplitude": -7.0, "k": 1.2}),
     ),
     "hill_shallow": (
         "hill",
-        Case(np.geomspace(0.01, 1000, 16), {"Vmax": 150.0, "K_half": 2.0, "n_hill": 0.6}),
+        Case(np.geomspace(0.01, 1000, 16), {"Vmax": 150.0, "K05": 2.0, "n_h": 0.6}),
     ),
 }
 
@@ -137,12 +145,14 @@ def test_catalog_is_a_read_only_mapping_of_models() -> None:
 Ref = Callable[..., FloatArray]
 
 
-def _ref_5pl(x: FloatArray, lo: float, hi: float, logc: float, hill: float, s: float) -> FloatArray:
-    # The usual 5PL, y = hi + (lo - hi)/(1 + (x/c)**b)**g with c the "inflection" constant
-    # (common practice); the catalog's logC is the true half-way dose, which relates to c by
-    # (x/c)**b = (2**(1/s) - 1)*(x/C)**hill, i.e. c = C*(2**(1/s) - 1)**(-1/hill).
-    c = 10**logc * (2 ** (1 / s) - 1) ** (-1 / hill)
-    out: FloatArray = hi + (lo - hi) / (1 + (x / c) ** hill) ** s
+def _ref_5pl(x: FloatArray, a: float, d: float, logc: float, b: float, g: float) -> FloatArray:
+    # The five-parameter logistic as the literature writes it (Gottschalk and Dunn 2005, from
+    # memory): y = d + (a - d)/(1 + (x/c)**b)**g, a the response at zero dose, d at an infinite
+    # dose, c a scale constant that is the half-way dose only when g = 1. The catalog's
+    # log_c50 is the true half-way dose C, which relates to c by (x/c)**b = (2**(1/g) - 1)*(x/C)**b,
+    # i.e. c = C*(2**(1/g) - 1)**(-1/b).
+    c = 10**logc * (2 ** (1 / g) - 1) ** (-1 / b)
+    out: FloatArray = d + (a - d) / (1 + (x / c) ** b) ** g
     return out
 
 
@@ -153,19 +163,25 @@ REFERENCE_FORMS: dict[str, tuple[str, Ref]] = {
         "polynomial degree 3",
         lambda x, c0, c1, c2, c3: c0 + c1 * x + c2 * x**2 + c3 * x**3,
     ),
-    "decay_to_plateau": (
-        "exponential decay to a plateau",
-        lambda x, plateau, span, k: plateau + span * np.exp(-k * x),
-    ),
-    "two_phase_decay": (
-        "two-phase decay",
-        lambda x, plateau, span_fast, k_fast, span_slow, k_slow: (
-            plateau + span_fast * np.exp(-k_fast * x) + span_slow * np.exp(-k_slow * x)
+    "exponential_decay": (
+        "first-order decay above a constant background",
+        # y(t) = y_inf + (y_0 - y_inf) exp(-k t), the solution of dy/dt = -k (y - y_inf)
+        # (common practice); here the catalog's baseline is y_inf and its amplitude y_0 - y_inf
+        lambda x, baseline, amplitude, k: (
+            (baseline + amplitude) * np.exp(-k * x) + baseline * (1 - np.exp(-k * x))
         ),
     ),
-    "rise_to_plateau": (
-        "exponential rise to a plateau",
-        lambda x, y0, plateau, k: plateau - (plateau - y0) * np.exp(-k * x),
+    "biexponential_decay": (
+        "biexponential (two-compartment) decay",
+        # C(t) = A exp(-alpha t) + B exp(-beta t) plus a constant background (common practice
+        # in pharmacokinetics); written by phases, slowest last
+        lambda x, baseline, a1, k1, a2, k2: a2 * np.exp(-k2 * x) + a1 * np.exp(-k1 * x) + baseline,
+    ),
+    "exponential_rise": (
+        "first-order approach to a final level",
+        # y(t) = y_inf - (y_inf - y_0) exp(-k t), the solution of dy/dt = k (y_inf - y) with
+        # y(0) = y_0 (common practice); the catalog's baseline is y_0, its amplitude y_inf - y_0
+        lambda x, baseline, amplitude, k: (baseline + amplitude) - amplitude * np.exp(-k * x),
     ),
     "exponential_growth": ("exponential growth", lambda x, y0, k: y0 * np.exp(k * x)),
     "michaelis_menten": ("Michaelis-Menten", lambda x, Vmax, Km: Vmax * x / (Km + x)),
@@ -175,31 +191,42 @@ REFERENCE_FORMS: dict[str, tuple[str, Ref]] = {
     ),
     "hill": (
         "Hill equation",
-        lambda x, Vmax, K_half, n_hill: Vmax / (1 + (K_half / x) ** n_hill),
+        # fractional saturation Y = S**n/(K**n + S**n) times Vmax (common practice)
+        lambda x, Vmax, K05, n_h: Vmax / (1 + (K05 / x) ** n_h),
     ),
     "inhibition_4pl": (
-        "4PL inhibition",
-        lambda x, bottom, top, logIC50, hill: (
-            bottom + (top - bottom) / (1 + (x / 10**logIC50) ** hill)
+        "4PL inhibition (Imax model)",
+        # E = E0 - Imax*C**n/(IC50**n + C**n) (common practice in pharmacology): E0 is the
+        # zero-dose response, E0 - Imax the response at a saturating dose
+        lambda x, zero_dose, full_effect, log_ic50, n_h: (
+            zero_dose - (zero_dose - full_effect) * x**n_h / ((10**log_ic50) ** n_h + x**n_h)
         ),
     ),
     "stimulation_4pl": (
-        "4PL stimulation",
-        lambda x, bottom, top, logEC50, hill: (
-            bottom + (top - bottom) / (1 + (10**logEC50 / x) ** hill)
+        "4PL stimulation (sigmoid Emax model)",
+        # E = E0 + Emax*C**n/(EC50**n + C**n) (common practice in pharmacology)
+        lambda x, zero_dose, full_effect, log_ec50, n_h: (
+            zero_dose + (full_effect - zero_dose) * x**n_h / ((10**log_ec50) ** n_h + x**n_h)
         ),
     ),
     "inhibition_5pl": (
         "5PL inhibition",
-        lambda x, bottom, top, logIC50, hill, s: _ref_5pl(x, top, bottom, logIC50, hill, s),
+        lambda x, zero_dose, full_effect, log_ic50, n_h, g: _ref_5pl(
+            x, zero_dose, full_effect, log_ic50, n_h, g
+        ),
     ),
     "stimulation_5pl": (
         "5PL stimulation",
-        lambda x, bottom, top, logEC50, hill, s: _ref_5pl(x, bottom, top, logEC50, hill, s),
+        lambda x, zero_dose, full_effect, log_ec50, n_h, g: _ref_5pl(
+            x, zero_dose, full_effect, log_ec50, n_h, g
+        ),
     ),
     "stimulation_3pl": (
-        "3PL",
-        lambda x, top, logEC50, hill: top / (1 + (10**logEC50 / x) ** hill),
+        "3PL (sigmoid Emax model without baseline)",
+        # E = Emax*C**n/(EC50**n + C**n) (common practice)
+        lambda x, full_effect, log_ec50, n_h: (
+            full_effect * x**n_h / ((10**log_ec50) ** n_h + x**n_h)
+        ),
     ),
     "logistic_growth": (
         "logistic growth",
@@ -223,9 +250,13 @@ REFERENCE_FORMS: dict[str, tuple[str, Ref]] = {
             baseline + amplitude * hwhm**2 / ((x - center) ** 2 + hwhm**2)
         ),
     ),
-    "boltzmann_sigmoid": (
-        "Boltzmann sigmoid",
-        lambda x, bottom, top, V50, slope: top + (bottom - top) / (1 + np.exp((x - V50) / slope)),
+    "boltzmann": (
+        "Boltzmann function",
+        # G/Gmax = 1/(1 + exp((V_1/2 - V)/k)) scaled between two levels (common practice in
+        # electrophysiology)
+        lambda x, low, high, x_half, width: (
+            high + (low - high) / (1 + np.exp((x - x_half) / width))
+        ),
     ),
     "power_law": ("power law", lambda x, a, b: a * x**b),
 }
@@ -289,14 +320,14 @@ def test_dose_response_midpoint_on_log_scale_and_zero_dose_controls() -> None:
         "stimulation_3pl",
     ):
         m = catalog()[name]
-        mid = "logIC50" if name.startswith("inhibition") else "logEC50"
+        mid = "log_ic50" if name.startswith("inhibition") else "log_ec50"
         assert mid in m.param_names
         assert m.param(mid).unit == "log10(x)"
         assert m.domain == "x>=0"
         truth = CASES[name].truth
         y0 = m.eval(np.array([0.0]), truth)[0]
-        # the value at zero dose is the low-dose plateau (top for inhibition, bottom or 0 else)
-        want = truth["top"] if name.startswith("inhibition") else truth.get("bottom", 0.0)
+        # the value at zero dose is the response with no compound (0 for the 3PL)
+        want = truth.get("zero_dose", 0.0)
         assert y0 == pytest.approx(want, rel=1e-14, abs=1e-14)
         m.check_domain(np.array([0.0, 1e-6]))  # zero dose is valid data
         with pytest.raises(DomainError, match=r"needs non-negative x \(x>=0\) but 1 value"):
@@ -326,20 +357,20 @@ def test_parameters_are_sane(name: str) -> None:
 
 
 def test_rates_widths_and_concentrations_are_positive() -> None:
-    # A negative rate constant, width, Km or Hill slope is not physical: the bounds say so.
+    # A negative rate constant, width, Km or Hill coefficient is not physical: the bounds say so.
     positive = {
-        "decay_to_plateau": ["k"],
-        "two_phase_decay": ["k_fast", "k_slow"],
-        "rise_to_plateau": ["k"],
+        "exponential_decay": ["k"],
+        "biexponential_decay": ["k1", "k2"],
+        "exponential_rise": ["k"],
         "exponential_growth": ["k"],
         "michaelis_menten": ["Vmax", "Km"],
         "substrate_inhibition": ["Vmax", "Km", "Ki"],
-        "hill": ["Vmax", "K_half", "n_hill"],
-        "inhibition_4pl": ["hill"],
-        "inhibition_5pl": ["hill", "s"],
-        "stimulation_4pl": ["hill"],
-        "stimulation_5pl": ["hill", "s"],
-        "stimulation_3pl": ["hill"],
+        "hill": ["Vmax", "K05", "n_h"],
+        "inhibition_4pl": ["n_h"],
+        "inhibition_5pl": ["n_h", "g"],
+        "stimulation_4pl": ["n_h"],
+        "stimulation_5pl": ["n_h", "g"],
+        "stimulation_3pl": ["n_h"],
         "logistic_growth": ["N0", "K", "r"],
         "gompertz_growth": ["N0", "K", "r"],
         "gaussian_peak": ["sigma"],
@@ -385,32 +416,45 @@ def _derived_expectations() -> dict[tuple[str, str], Callable[[Model, dict[str, 
 
     return {
         ("straight_line", "x_intercept"): lambda m, v: _root(_curve(m, v), -100, 100),
-        ("decay_to_plateau", "half_life"): lambda m, v: halfway_time(
-            m, v, v["plateau"] + v["span"], v["plateau"], 100
+        ("exponential_decay", "half_life"): lambda m, v: halfway_time(
+            m, v, _curve(m, v)(0.0), _curve(m, v)(1e6), 100
         ),
-        # the time constant: the curve has covered 1 - 1/e of the way (common practice)
-        ("decay_to_plateau", "tau"): lambda m, v: _root(
-            lambda t: _curve(m, v)(t) - (v["plateau"] + v["span"] / math.e), 0, 100
+        # the mean lifetime (time constant): the curve has covered 1 - 1/e of the way
+        # (common practice)
+        ("exponential_decay", "mean_lifetime"): lambda m, v: _root(
+            lambda t: (
+                _curve(m, v)(t)
+                - (_curve(m, v)(1e6) + (_curve(m, v)(0.0) - _curve(m, v)(1e6)) / math.e)
+            ),
+            0,
+            100,
         ),
-        ("decay_to_plateau", "y_at_0"): lambda m, v: _curve(m, v)(0.0),
+        ("exponential_decay", "value_at_0"): lambda m, v: _curve(m, v)(0.0),
         # each phase's half-life is ln 2 over its own rate (common practice); checked on that
-        # phase's own term, which is the curve with the other span set to zero
-        ("two_phase_decay", "half_life_fast"): lambda m, v: halfway_time(
-            m, {**v, "span_slow": 0.0}, v["plateau"] + v["span_fast"], v["plateau"], 100
+        # phase's own term, which is the curve with the other amplitude set to zero
+        ("biexponential_decay", "t_half_1"): lambda m, v: halfway_time(
+            m, {**v, "a2": 0.0}, v["baseline"] + v["a1"], v["baseline"], 100
         ),
-        ("two_phase_decay", "half_life_slow"): lambda m, v: halfway_time(
-            m, {**v, "span_fast": 0.0}, v["plateau"] + v["span_slow"], v["plateau"], 1000
+        ("biexponential_decay", "t_half_2"): lambda m, v: halfway_time(
+            m, {**v, "a1": 0.0}, v["baseline"] + v["a2"], v["baseline"], 1000
         ),
-        ("two_phase_decay", "fraction_fast"): lambda m, v: (
-            (_curve(m, v)(0.0) - _curve(m, {**v, "span_fast": 0.0})(0.0))
-            / (_curve(m, v)(0.0) - v["plateau"])
+        ("biexponential_decay", "share_1"): lambda m, v: (
+            (_curve(m, v)(0.0) - _curve(m, {**v, "a1": 0.0})(0.0))
+            / (_curve(m, v)(0.0) - _curve(m, v)(1e6))
         ),
-        ("rise_to_plateau", "half_life"): lambda m, v: halfway_time(
-            m, v, v["y0"], v["plateau"], 500
+        # the rise: half-way and 1 - 1/e of the way from the value at 0 to the final level
+        ("exponential_rise", "half_life"): lambda m, v: halfway_time(
+            m, v, _curve(m, v)(0.0), _curve(m, v)(1e6), 500
         ),
-        ("rise_to_plateau", "tau"): lambda m, v: _root(
-            lambda t: _curve(m, v)(t) - (v["plateau"] - (v["plateau"] - v["y0"]) / math.e), 0, 500
+        ("exponential_rise", "mean_lifetime"): lambda m, v: _root(
+            lambda t: (
+                _curve(m, v)(t)
+                - (_curve(m, v)(1e6) - (_curve(m, v)(1e6) - _curve(m, v)(0.0)) / math.e)
+            ),
+            0,
+            500,
         ),
+        ("exponential_rise", "plateau"): lambda m, v: _curve(m, v)(1e6),
         ("exponential_growth", "doubling_time"): lambda m, v: _root(
             lambda t: _curve(m, v)(t) - 2 * _curve(m, v)(0.0), 0, 100
         ),
@@ -420,15 +464,24 @@ def _derived_expectations() -> dict[tuple[str, str], Callable[[Model, dict[str, 
         ("substrate_inhibition", "y_peak"): lambda m, v: _curve(m, v)(
             _argmax(_curve(m, v), 1e-3, 1e4)
         ),
-        ("inhibition_4pl", "IC50"): lambda m, v: mid_dose(m, v, v["top"], v["bottom"]),
-        ("inhibition_4pl", "span"): lambda m, v: _curve(m, v)(0.0) - _curve(m, v)(1e6),
-        ("inhibition_5pl", "IC50"): lambda m, v: mid_dose(m, v, v["top"], v["bottom"]),
-        ("inhibition_5pl", "span"): lambda m, v: _curve(m, v)(0.0) - _curve(m, v)(1e12),
-        ("stimulation_4pl", "EC50"): lambda m, v: mid_dose(m, v, v["bottom"], v["top"]),
-        ("stimulation_4pl", "span"): lambda m, v: _curve(m, v)(1e12) - _curve(m, v)(0.0),
-        ("stimulation_5pl", "EC50"): lambda m, v: mid_dose(m, v, v["bottom"], v["top"]),
-        ("stimulation_5pl", "span"): lambda m, v: _curve(m, v)(1e20) - _curve(m, v)(0.0),
-        ("stimulation_3pl", "EC50"): lambda m, v: mid_dose(m, v, 0.0, v["top"]),
+        # the half-way dose between the curve's own ends, and the size of its fall or rise
+        ("inhibition_4pl", "ic50"): lambda m, v: mid_dose(
+            m, v, _curve(m, v)(0.0), _curve(m, v)(1e12)
+        ),
+        ("inhibition_4pl", "amplitude"): lambda m, v: _curve(m, v)(0.0) - _curve(m, v)(1e6),
+        ("inhibition_5pl", "ic50"): lambda m, v: mid_dose(
+            m, v, _curve(m, v)(0.0), _curve(m, v)(1e20)
+        ),
+        ("inhibition_5pl", "amplitude"): lambda m, v: _curve(m, v)(0.0) - _curve(m, v)(1e12),
+        ("stimulation_4pl", "ec50"): lambda m, v: mid_dose(
+            m, v, _curve(m, v)(0.0), _curve(m, v)(1e12)
+        ),
+        ("stimulation_4pl", "amplitude"): lambda m, v: _curve(m, v)(1e12) - _curve(m, v)(0.0),
+        ("stimulation_5pl", "ec50"): lambda m, v: mid_dose(
+            m, v, _curve(m, v)(0.0), _curve(m, v)(1e20)
+        ),
+        ("stimulation_5pl", "amplitude"): lambda m, v: _curve(m, v)(1e20) - _curve(m, v)(0.0),
+        ("stimulation_3pl", "ec50"): lambda m, v: mid_dose(m, v, 0.0, _curve(m, v)(1e12)),
         # early growth is exponential at rate r, so it doubles in ln 2 / r (common practice)
         ("logistic_growth", "doubling_time"): lambda m, v: (
             math.log(2) / _slope(lambda t: math.log(_curve(m, v)(t)), -40.0, 1e-4)
@@ -488,13 +541,13 @@ def test_derived_quantity_matches_the_curve(model: str, quantity: str) -> None:
 
 
 def test_common_practice_formulas_for_derived_quantities() -> None:
-    # half-life = ln 2 / k, IC50 = 10**logIC50, FWHM = 2*sqrt(2 ln 2)*sigma (common practice)
-    d = catalog()["decay_to_plateau"].derived_values({"plateau": 0, "span": 1, "k": 0.3})
+    # half-life = ln 2 / k, IC50 = 10**log_ic50, FWHM = 2*sqrt(2 ln 2)*sigma (common practice)
+    d = catalog()["exponential_decay"].derived_values({"baseline": 0, "amplitude": 1, "k": 0.3})
     assert d["half_life"] == pytest.approx(LN2 / 0.3, rel=1e-15)
     d = catalog()["inhibition_4pl"].derived_values(
-        {"bottom": 0, "top": 100, "logIC50": -7.25, "hill": 1}
+        {"zero_dose": 100, "full_effect": 0, "log_ic50": -7.25, "n_h": 1}
     )
-    assert d["IC50"] == pytest.approx(10**-7.25, rel=1e-14)
+    assert d["ic50"] == pytest.approx(10**-7.25, rel=1e-14)
     d = catalog()["gaussian_peak"].derived_values(
         {"baseline": 0, "amplitude": 1, "center": 0, "sigma": 2.0}
     )
@@ -514,16 +567,16 @@ def _level(side: float, within: float) -> tuple[str, float, float]:
 
 HANDLE_KINDS: dict[tuple[str, str], tuple[str, float, float]] = {
     ("straight_line", "intercept"): ON,
-    ("decay_to_plateau", "start"): ON,
-    ("decay_to_plateau", "plateau"): _level(+1, 0.01),
-    ("decay_to_plateau", "half_life"): ON,
-    ("two_phase_decay", "start"): ON,
-    ("two_phase_decay", "plateau"): _level(+1, 0.01),
-    ("two_phase_decay", "half_life_fast"): ON,
-    ("two_phase_decay", "half_life_slow"): ON,
-    ("rise_to_plateau", "start"): ON,
-    ("rise_to_plateau", "plateau"): _level(+1, 0.01),
-    ("rise_to_plateau", "half_life"): ON,
+    ("exponential_decay", "start"): ON,
+    ("exponential_decay", "baseline"): _level(+1, 0.01),
+    ("exponential_decay", "half_life"): ON,
+    ("biexponential_decay", "start"): ON,
+    ("biexponential_decay", "baseline"): _level(+1, 0.01),
+    ("biexponential_decay", "t_half_1"): ON,
+    ("biexponential_decay", "t_half_2"): ON,
+    ("exponential_rise", "start"): ON,
+    ("exponential_rise", "plateau"): _level(+1, 0.01),
+    ("exponential_rise", "half_life"): ON,
     ("exponential_growth", "start"): ON,
     ("exponential_growth", "doubling"): ON,
     ("michaelis_menten", "vmax"): _level(+1, 0.15),
@@ -531,7 +584,7 @@ HANDLE_KINDS: dict[tuple[str, str], tuple[str, float, float]] = {
     ("substrate_inhibition", "peak"): ON,
     ("substrate_inhibition", "km"): ON,
     ("hill", "vmax"): _level(+1, 0.15),
-    ("hill", "k_half"): ON,
+    ("hill", "k05"): ON,
     ("hill", "steepness"): ON,
     ("logistic_growth", "start"): ON,
     ("logistic_growth", "capacity"): _level(+1, 0.02),
@@ -545,20 +598,20 @@ HANDLE_KINDS: dict[tuple[str, str], tuple[str, float, float]] = {
     ("lorentzian_peak", "apex"): ON,
     ("lorentzian_peak", "width"): ON,
     ("lorentzian_peak", "baseline"): _level(+1, 0.03),
-    ("boltzmann_sigmoid", "midpoint"): ON,
-    ("boltzmann_sigmoid", "steepness"): ON,
-    ("boltzmann_sigmoid", "bottom"): _level(-1, 0.01),
-    ("boltzmann_sigmoid", "top"): _level(+1, 0.01),
+    ("boltzmann", "midpoint"): ON,
+    ("boltzmann", "steepness"): ON,
+    ("boltzmann", "low"): _level(-1, 0.01),
+    ("boltzmann", "high"): _level(+1, 0.01),
 }
 for _name in ("inhibition_4pl", "inhibition_5pl", "stimulation_4pl", "stimulation_5pl"):
-    _low, _high = ("top", "bottom") if _name.startswith("inhibition") else ("bottom", "top")
-    HANDLE_KINDS[(_name, f"{_low}_plateau")] = _level(-1, 0.05)
-    HANDLE_KINDS[(_name, f"{_high}_plateau")] = _level(+1, 0.05)
+    # the response with no compound is the low-dose limit, a saturating dose's the high-dose one
+    HANDLE_KINDS[(_name, "zero_dose")] = _level(-1, 0.05)
+    HANDLE_KINDS[(_name, "full_effect")] = _level(+1, 0.05)
     HANDLE_KINDS[(_name, "midpoint")] = ON
     HANDLE_KINDS[(_name, "steepness")] = ON
     if "5pl" in _name:
         HANDLE_KINDS[(_name, "asymmetry")] = ON
-HANDLE_KINDS[("stimulation_3pl", "top_plateau")] = _level(+1, 0.05)
+HANDLE_KINDS[("stimulation_3pl", "full_effect")] = _level(+1, 0.05)
 HANDLE_KINDS[("stimulation_3pl", "midpoint")] = ON
 HANDLE_KINDS[("stimulation_3pl", "steepness")] = ON
 
@@ -582,10 +635,8 @@ def test_handle_sits_where_it_should(model: str, handle: str) -> None:
     m = catalog()[model]
     h = next(h for h in m.handles if h.name == handle)
     v = dict(CASES[model].truth)
-    if model == "boltzmann_sigmoid":
-        cases = [v, {**v, "bottom": v["top"], "top": v["bottom"]}]  # a falling curve too
-    else:
-        cases = [v]
+    # the Boltzmann function is checked on a falling curve too
+    cases = [v, {**v, "low": v["high"], "high": v["low"]}] if model == "boltzmann" else [v]
     kind, side, within = HANDLE_KINDS[(model, handle)]
     for vals in cases:
         hx, hy = h.position(vals)
@@ -609,9 +660,11 @@ def test_named_handles_mean_what_they_say() -> None:
     cat = catalog()
     v = CASES["inhibition_4pl"].truth
     mid = next(h for h in cat["inhibition_4pl"].handles if h.name == "midpoint")
-    assert mid.position(v) == pytest.approx((10 ** v["logIC50"], (v["top"] + v["bottom"]) / 2))
-    v = CASES["decay_to_plateau"].truth
-    hl = next(h for h in cat["decay_to_plateau"].handles if h.name == "half_life")
+    assert mid.position(v) == pytest.approx(
+        (10 ** v["log_ic50"], (v["zero_dose"] + v["full_effect"]) / 2)
+    )
+    v = CASES["exponential_decay"].truth
+    hl = next(h for h in cat["exponential_decay"].handles if h.name == "half_life")
     assert hl.position(v)[0] == pytest.approx(LN2 / v["k"])
     v = CASES["michaelis_menten"].truth
     km = next(h for h in cat["michaelis_menten"].handles if h.name == "km")
@@ -716,15 +769,16 @@ def test_published_fits_reached_from_the_guided_start() -> None:
     assert res.values["Km"] == pytest.approx(0.06412, rel=3e-4)
     # DNase run 1 (tests/data/r_datasets/SOURCES.md): R's nls documentation fits
     # SSlogis(log(conc), Asym, xmid, scal): Asym 2.34518, xmid 1.48309, scal 1.04146 (from
-    # memory); our 3PL is that curve with top = Asym, logEC50 = xmid/ln 10, hill = 1/scal.
+    # memory); our 3PL is that curve with full_effect = Asym, log_ec50 = xmid/ln 10,
+    # n_h = 1/scal.
     d = _csv("r_datasets", "DNase")
     d = d[d["Run"] == 1]
     m = catalog()["stimulation_3pl"]
     x, y = d["conc"].to_numpy(float), d["density"].to_numpy(float)
     res = cw.fit(m, x, y, start=guided_start(m, x, y))
-    assert res.values["top"] == pytest.approx(2.34518, rel=2e-5)
-    assert res.values["logEC50"] == pytest.approx(1.48309 / ln10, rel=2e-5)
-    assert res.values["hill"] == pytest.approx(1 / 1.04146, rel=2e-5)
+    assert res.values["full_effect"] == pytest.approx(2.34518, rel=2e-5)
+    assert res.values["log_ec50"] == pytest.approx(1.48309 / ln10, rel=2e-5)
+    assert res.values["n_h"] == pytest.approx(1 / 1.04146, rel=2e-5)
     # Orange, all trees pooled (tests/data/r_datasets/SOURCES.md): R's nls examples fit
     # SSlogis(age, Asym, xmid, scal): Asym 192.69, xmid 728.76, scal 353.53 (from memory);
     # in logistic_growth K = Asym, r = 1/scal and the inflection time is xmid.

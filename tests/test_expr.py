@@ -410,19 +410,19 @@ def test_depth_limit() -> None:
 @pytest.mark.parametrize(
     ("text", "names"),
     [
-        ("plateau + span*exp(-k*x)", ("plateau", "span", "k", "x")),
+        ("baseline + amplitude*exp(-k*x)", ("baseline", "amplitude", "k", "x")),
         ("b*x + a*exp(-k*x) + b", ("b", "x", "a", "k")),
         ("a**b**c", ("a", "b", "c")),
         ("exp(k)*x", ("k", "x")),
         ("-(z - y) / x", ("z", "y", "x")),
         ("2*pi*e + log(2)", ()),
-        ("bottom + (top-bottom)/(1 + 10**((logEC50 - log10(x))*hill))", None),
+        ("full_effect + (zero_dose - full_effect)/(1 + 10**(n_h*(log10(x) - log_ec50)))", None),
     ],
 )
 def test_names_in_order_of_first_appearance(text: str, names: tuple[str, ...] | None) -> None:
     expr = Expr.parse(text)
     if names is None:
-        names = ("bottom", "top", "logEC50", "x", "hill")
+        names = ("full_effect", "zero_dose", "n_h", "x", "log_ec50")
     assert expr.names == names
 
 
@@ -439,12 +439,16 @@ def test_python_builtin_names_are_plain_variables() -> None:
 
 
 def test_json_round_trip_through_text() -> None:
-    expr = Expr.parse("bottom + (top-bottom)/(1 + 10**((logEC50 - log10(x))*hill))")
+    expr = Expr.parse(
+        "full_effect + (zero_dose - full_effect)/(1 + 10**(n_h*(log10(x) - log_ec50)))"
+    )
     wire = json.dumps(expr.to_json())
     back = Expr.from_json(json.loads(wire))
     assert back.tree == expr.tree
     assert back.names == expr.names
-    assert back.text == "bottom + (top - bottom) / (1 + 10 ** ((logEC50 - log10(x)) * hill))"
+    assert back.text == (
+        "full_effect + (zero_dose - full_effect) / (1 + 10 ** (n_h * (log10(x) - log_ec50)))"
+    )
     assert back.to_json() == expr.to_json()
 
 
@@ -576,8 +580,8 @@ def _reference_cases() -> list[tuple[str, dict[str, float], np.ndarray, np.ndarr
     with np.errstate(all="ignore"):
         return [
             (
-                "plateau + span*exp(-k*x)",
-                {"plateau": 2.0, "span": 10.0, "k": 0.35},
+                "baseline + amplitude*exp(-k*x)",
+                {"baseline": 2.0, "amplitude": 10.0, "k": 0.35},
                 X,
                 2.0 + 10.0 * np.exp(-0.35 * X),
             ),
@@ -588,10 +592,10 @@ def _reference_cases() -> list[tuple[str, dict[str, float], np.ndarray, np.ndarr
                 12.0 * X / (0.8 + X),
             ),
             (
-                "bottom + (top-bottom)/(1 + 10**((logEC50 - log10(x))*hill))",
-                {"bottom": 5.0, "top": 95.0, "logEC50": -6.0, "hill": 1.2},
+                "full_effect + (zero_dose - full_effect)/(1 + 10**(n_h*(log10(x) - log_ec50)))",
+                {"zero_dose": 5.0, "full_effect": 95.0, "log_ec50": -6.0, "n_h": 1.2},
                 XPOS,
-                5.0 + (95.0 - 5.0) / (1.0 + np.power(10.0, (-6.0 - np.log10(XPOS)) * 1.2)),
+                95.0 + (5.0 - 95.0) / (1.0 + np.power(10.0, 1.2 * (np.log10(XPOS) - -6.0))),
             ),
             (
                 "base + amp*exp(-0.5*((x - mu)/sigma)**2)",
@@ -669,11 +673,11 @@ def test_non_finite_results_come_back_silently() -> None:
 
 
 def test_compile_errors() -> None:
-    expr = Expr.parse("plateau + span*exp(-k*x)")
-    with pytest.raises(FormulaError, match=r"uses span, k, which are not among the arguments"):
-        expr.compile(["x", "plateau"])
+    expr = Expr.parse("baseline + amplitude*exp(-k*x)")
+    with pytest.raises(FormulaError, match=r"uses amplitude, k, which are not among the arguments"):
+        expr.compile(["x", "baseline"])
     with pytest.raises(FormulaError, match=r"uses k, which is not among the arguments \(x, "):
-        expr.compile(["x", "plateau", "span"])
+        expr.compile(["x", "baseline", "amplitude"])
     with pytest.raises(FormulaError, match=r"not the string 'x'; write \['x'\]"):
         Expr.parse("x").compile("x")
     with pytest.raises(FormulaError, match=r"argument names must be distinct; repeated: x"):
@@ -717,10 +721,10 @@ def test_generated_code_sees_no_builtins() -> None:
 
 def test_substitute_a_rate_constant_by_a_half_life() -> None:
     # k = ln 2 / t_half (common practice: first-order half-life).
-    expr = Expr.parse("plateau + span*exp(-k*x)").substitute({"k": parse("log(2)/t_half")})
-    assert expr.names == ("plateau", "span", "t_half", "x")
-    assert expr.text == "plateau + span * exp(-(log(2) / t_half) * x)"
-    got = expr.evaluate({"plateau": 1.0, "span": 4.0, "t_half": 3.0, "x": X})
+    expr = Expr.parse("baseline + amplitude*exp(-k*x)").substitute({"k": parse("log(2)/t_half")})
+    assert expr.names == ("baseline", "amplitude", "t_half", "x")
+    assert expr.text == "baseline + amplitude * exp(-(log(2) / t_half) * x)"
+    got = expr.evaluate({"baseline": 1.0, "amplitude": 4.0, "t_half": 3.0, "x": X})
     np.testing.assert_allclose(got, 1.0 + 4.0 * np.exp(-np.log(2.0) / 3.0 * X), rtol=1e-15)
 
 
@@ -757,12 +761,12 @@ def _central_difference(expr: Expr, env: dict[str, float], var: str, step: float
 
 
 FD_CASES: list[tuple[str, dict[str, float]]] = [
-    ("plateau + span*exp(-k*x)", {"plateau": 2.0, "span": 10.0, "k": 0.35, "x": 1.7}),
+    ("baseline + amplitude*exp(-k*x)", {"baseline": 2.0, "amplitude": 10.0, "k": 0.35, "x": 1.7}),
     ("Vmax*x/(Km + x)", {"Vmax": 12.0, "Km": 0.8, "x": 2.5}),
     ("Vmax*x**n/(K**n + x**n)", {"Vmax": 1.0, "K": 2.0, "n": 2.3, "x": 1.5}),
     (
-        "bottom + (top-bottom)/(1 + 10**((logEC50 - log10(x))*hill))",
-        {"bottom": 5.0, "top": 95.0, "logEC50": -6.0, "hill": 1.2, "x": 2e-6},
+        "full_effect + (zero_dose - full_effect)/(1 + 10**(n_h*(log10(x) - log_ec50)))",
+        {"zero_dose": 5.0, "full_effect": 95.0, "log_ec50": -6.0, "n_h": 1.2, "x": 2e-6},
     ),
     (
         "base + amp*exp(-0.5*((x - mu)/sigma)**2)",
@@ -790,9 +794,9 @@ def test_derivatives_worked_by_hand() -> None:
     # Each expected value is the derivative worked out by hand and written in numpy.
     x = np.linspace(0.1, 4.0, 11)
 
-    # d/dk [plateau + span*exp(-k*x)] = -span*x*exp(-k*x)
-    decay = Expr.parse("plateau + span*exp(-k*x)")
-    got = decay.derivative("k").evaluate({"plateau": 2.0, "span": 10.0, "k": 0.35, "x": x})
+    # d/dk [baseline + amplitude*exp(-k*x)] = -amplitude*x*exp(-k*x)
+    decay = Expr.parse("baseline + amplitude*exp(-k*x)")
+    got = decay.derivative("k").evaluate({"baseline": 2.0, "amplitude": 10.0, "k": 0.35, "x": x})
     np.testing.assert_allclose(got, -10.0 * x * np.exp(-0.35 * x), rtol=1e-14)
 
     # d/dKm [Vmax*x/(Km + x)] = -Vmax*x/(Km + x)**2 ; d/dVmax = x/(Km + x)
@@ -801,11 +805,11 @@ def test_derivatives_worked_by_hand() -> None:
     np.testing.assert_allclose(mm.derivative("Km").evaluate(env), -12.0 * x / (0.8 + x) ** 2)
     np.testing.assert_allclose(mm.derivative("Vmax").evaluate(env), x / (0.8 + x), rtol=1e-15)
 
-    # 4PL: with u = 10**((L - log10 x)*h), dy/dL = -(top - bottom)*u*ln(10)*h/(1 + u)**2
-    fpl = Expr.parse("bottom + (top-bottom)/(1 + 10**((L - log10(x))*h))")
+    # 4PL: with u = 10**(h*(log10 x - L)), dy/dL = (zd - fe)*u*ln(10)*h/(1 + u)**2
+    fpl = Expr.parse("fe + (zd - fe)/(1 + 10**(h*(log10(x) - L)))")
     dose = np.geomspace(1e-8, 1e-4, 9)
-    u = 10.0 ** ((-6.0 - np.log10(dose)) * 1.2)
-    got = fpl.derivative("L").evaluate({"bottom": 5.0, "top": 95.0, "L": -6.0, "h": 1.2, "x": dose})
+    u = 10.0 ** (1.2 * (np.log10(dose) + 6.0))
+    got = fpl.derivative("L").evaluate({"zd": 5.0, "fe": 95.0, "L": -6.0, "h": 1.2, "x": dose})
     np.testing.assert_allclose(got, -90.0 * u * np.log(10.0) * 1.2 / (1.0 + u) ** 2, rtol=1e-13)
 
     # The elementary derivatives.
@@ -934,7 +938,7 @@ def test_vectors_hold_values_numpy_gives_by_hand() -> None:
     assert cases["div_by_zero"]["y"][:2] == ["-Infinity", "Infinity"]
     x = np.array([_decode(v) for v in cases["dose_response_4pl"]["x"]])
     with np.errstate(all="ignore"):
-        expected = 5.0 + (95.0 - 5.0) / (1.0 + np.power(10.0, (-6.0 - np.log10(x)) * 1.2))
+        expected = 95.0 + (5.0 - 95.0) / (1.0 + np.power(x / np.power(10.0, -6.0), 1.2))
     np.testing.assert_allclose(cases["dose_response_4pl"]["y"], expected, rtol=1e-14)
 
 

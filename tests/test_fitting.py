@@ -169,30 +169,30 @@ def _decay_data(seed: int = 3) -> tuple[np.ndarray, np.ndarray]:
 
 def test_fixed_parameter_is_held_and_has_no_stderr() -> None:
     x, y = _decay_data()
-    r = cw.fit("plateau + span*exp(-k*x)", x, y, fixed={"plateau": 1.5})
-    assert r.values["plateau"] == 1.5
-    assert math.isnan(r.stderr["plateau"])
-    assert r.fixed == ("plateau",)
-    assert r.free == ("span", "k")
+    r = cw.fit("baseline + amplitude*exp(-k*x)", x, y, fixed={"baseline": 1.5})
+    assert r.values["baseline"] == 1.5
+    assert math.isnan(r.stderr["baseline"])
+    assert r.fixed == ("baseline",)
+    assert r.free == ("amplitude", "k")
     assert r.dof == x.size - 2
     assert r.values["k"] == pytest.approx(0.35, rel=0.02)
     # fixed given as names: held at the start value
-    r2 = cw.fit("plateau + span*exp(-k*x)", x, y, start={"plateau": 1.4}, fixed=["plateau"])
-    assert r2.values["plateau"] == 1.4
+    r2 = cw.fit("baseline + amplitude*exp(-k*x)", x, y, start={"baseline": 1.4}, fixed=["baseline"])
+    assert r2.values["baseline"] == 1.4
 
 
 def test_fixed_fit_equals_fit_of_reduced_formula() -> None:
     # Holding a parameter must give exactly the fit of the formula with that number written in.
     x, y = _decay_data()
-    a = cw.fit("plateau + span*exp(-k*x)", x, y, fixed={"plateau": 1.5})
-    b = cw.fit("1.5 + span*exp(-k*x)", x, y)
+    a = cw.fit("baseline + amplitude*exp(-k*x)", x, y, fixed={"baseline": 1.5})
+    b = cw.fit("1.5 + amplitude*exp(-k*x)", x, y)
     assert a.values["k"] == pytest.approx(b.values["k"], rel=1e-9)
     assert a.stderr["k"] == pytest.approx(b.stderr["k"], rel=1e-6)
 
 
 def test_bounds_hold_and_at_bound_is_reported() -> None:
     x, y = _decay_data()
-    r = cw.fit("plateau + span*exp(-k*x)", x, y, bounds={"k": (0.0, 0.3)})
+    r = cw.fit("baseline + amplitude*exp(-k*x)", x, y, bounds={"k": (0.0, 0.3)})
     assert r.values["k"] <= 0.3
     assert r.at_bound == {"k": "upper"}
     assert any(d.code == "at_bound" for d in r.diagnostics)
@@ -201,32 +201,33 @@ def test_bounds_hold_and_at_bound_is_reported() -> None:
 def test_links_tie_parameters_and_propagate_errors() -> None:
     # Linked fit == fit of the formula with the link substituted (same least-squares problem).
     x, y = _decay_data()
-    a = cw.fit("plateau + span*exp(-k*x)", x, y, links={"span": "4*plateau"})
-    b = cw.fit("plateau + 4*plateau*exp(-k*x)", x, y)
-    assert a.values["plateau"] == pytest.approx(b.values["plateau"], rel=1e-9)
-    assert a.values["span"] == pytest.approx(4 * b.values["plateau"], rel=1e-9)
-    assert a.stderr["span"] == pytest.approx(4 * b.stderr["plateau"], rel=1e-6)
-    assert a.linked == {"span": "4*plateau"}
+    a = cw.fit("baseline + amplitude*exp(-k*x)", x, y, links={"amplitude": "4*baseline"})
+    b = cw.fit("baseline + 4*baseline*exp(-k*x)", x, y)
+    assert a.values["baseline"] == pytest.approx(b.values["baseline"], rel=1e-9)
+    assert a.values["amplitude"] == pytest.approx(4 * b.values["baseline"], rel=1e-9)
+    assert a.stderr["amplitude"] == pytest.approx(4 * b.stderr["baseline"], rel=1e-6)
+    assert a.linked == {"amplitude": "4*baseline"}
 
 
 def test_exclusion_mask_leaves_points_out() -> None:
     x, y = _decay_data()
     y = y.copy()
     y[5] += 3.0  # an outlier
-    r = cw.fit("plateau + span*exp(-k*x)", x, y, exclude=[5])
+    r = cw.fit("baseline + amplitude*exp(-k*x)", x, y, exclude=[5])
     keep = np.arange(x.size) != 5
-    ref = cw.fit("plateau + span*exp(-k*x)", x[keep], y[keep])
+    ref = cw.fit("baseline + amplitude*exp(-k*x)", x[keep], y[keep])
     assert r.n == x.size - 1
     assert r.dataset.excluded_rows == [5]
     assert r.values["k"] == pytest.approx(ref.values["k"], rel=1e-9)
 
 
 def test_robust_loss_resists_an_outlier() -> None:
-    # Reference: scipy.optimize.least_squares with the same soft_l1 loss and scale.
+    # Reference: scipy.optimize.least_squares with the same loss (scipy calls the pseudo-Huber
+    # loss "soft_l1") and scale.
     x, y = _decay_data()
     y = y.copy()
     y[[4, 20]] += [2.5, -2.0]
-    r = cw.fit("plateau + span*exp(-k*x)", x, y, loss="soft_l1", loss_scale=0.1)
+    r = cw.fit("baseline + amplitude*exp(-k*x)", x, y, loss="pseudo_huber", loss_scale=0.1)
     ref = scipy.optimize.least_squares(
         lambda p: y - (p[0] + p[1] * np.exp(-p[2] * x)),
         [1.0, 5.0, 0.3],
@@ -236,10 +237,42 @@ def test_robust_loss_resists_an_outlier() -> None:
         ftol=1e-15,
         gtol=1e-15,
     )
-    np.testing.assert_allclose([r.values[n] for n in ("plateau", "span", "k")], ref.x, rtol=1e-6)
+    np.testing.assert_allclose(
+        [r.values[n] for n in ("baseline", "amplitude", "k")], ref.x, rtol=1e-6
+    )
     assert r.values["k"] == pytest.approx(0.35, rel=0.03)
-    plain = cw.fit("plateau + span*exp(-k*x)", x, y)
+    plain = cw.fit("baseline + amplitude*exp(-k*x)", x, y)
     assert abs(r.values["k"] - 0.35) < abs(plain.values["k"] - 0.35)
+
+
+def test_solver_methods_are_named_by_their_algorithms() -> None:
+    # Reference: scipy.optimize.least_squares (MINPACK's Levenberg-Marquardt) on the same data.
+    x, y = _decay_data()
+    ref = scipy.optimize.least_squares(
+        lambda p: y - (p[0] + p[1] * np.exp(-p[2] * x)),
+        [1.0, 5.0, 0.3],
+        method="lm",
+        xtol=1e-15,
+        ftol=1e-15,
+        gtol=1e-15,
+    )
+    for method in ("levenberg_marquardt", "trust_region"):
+        r = cw.fit("baseline + amplitude*exp(-k*x)", x, y, method=method)
+        assert r.success, r.message
+        assert r.attempts[0].method == method
+        got = [r.values[n] for n in ("baseline", "amplitude", "k")]
+        np.testing.assert_allclose(got, ref.x, rtol=1e-6)
+    # ordinary least squares is the "squared" loss, the default
+    plain = cw.fit("baseline + amplitude*exp(-k*x)", x, y, loss="squared")
+    assert plain.loss == "squared" and plain.loss_scale is None
+    assert dict(plain.values) == dict(cw.fit("baseline + amplitude*exp(-k*x)", x, y).values)
+    # a robust loss runs on the trust-region method whatever "auto" would pick
+    robust = cw.fit("baseline + amplitude*exp(-k*x)", x, y, loss="huber")
+    assert robust.attempts[0].method == "trust_region"
+    with pytest.raises(ParameterError, match=r"method must be one of .*'levenberg_marquardt'"):
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, method="lm")  # type: ignore[arg-type]
+    with pytest.raises(ParameterError, match=r"loss must be one of .*'pseudo_huber'"):
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, loss="l1")  # type: ignore[arg-type]
 
 
 def test_poisson_weights() -> None:
@@ -267,18 +300,18 @@ def test_dataframe_input_and_nan_rows_are_dropped_with_a_note() -> None:
     y = y.copy()
     y[[2, 7]] = np.nan
     df = pd.DataFrame({"time_h": x, "signal": y})
-    r = cw.fit("decay_to_plateau", data=df, x="time_h", y="signal")
+    r = cw.fit("exponential_decay", data=df, x="time_h", y="signal")
     assert r.n == x.size - 2
     assert r.dataset.n_dropped == 2
     assert any("dropped" in d.text for d in r.diagnostics)
     assert r.dataset.x_label == "time_h"
 
 
-def test_max_nfev_and_cancel_return_an_unconverged_result() -> None:
+def test_max_evaluations_and_cancel_return_an_unconverged_result() -> None:
     p = read("MGH17")
     model = cw.Model.from_formula(FORMULAS["MGH17"], params=list(p.names))
     start = dict(zip(p.names, p.start1, strict=True))
-    r = cw.fit(model, p.x, p.y, start=start, max_nfev=5)
+    r = cw.fit(model, p.x, p.y, start=start, max_evaluations=5)
     assert not r.success
     assert r.code == "stopped_evaluations"
     ev = threading.Event()
@@ -293,7 +326,7 @@ def test_max_nfev_and_cancel_return_an_unconverged_result() -> None:
 def test_progress_is_reported() -> None:
     x, y = _decay_data()
     seen: list[tuple[int, float]] = []
-    cw.fit("plateau + span*exp(-k*x)", x, y, progress=lambda n, s: seen.append((n, s)))
+    cw.fit("baseline + amplitude*exp(-k*x)", x, y, progress=lambda n, s: seen.append((n, s)))
     assert seen and seen[-1][0] > 0 and math.isfinite(seen[-1][1])
 
 
@@ -318,14 +351,14 @@ def test_fallback_ladder_is_reported(monkeypatch: pytest.MonkeyPatch) -> None:
     assert strategies[:2] == ["first run", "restart from best point"]
     assert r.attempts[0].code == "stopped_evaluations"
     assert r.success
-    assert r.nfev == sum(a.nfev for a in r.attempts)
+    assert r.evaluations == sum(a.evaluations for a in r.attempts)
     assert all(a.message for a in r.attempts)
     assert lre(r.values["b1"], p.certified[0]) >= 6.0  # NIST StRD certified value
 
 
 def test_guided_start_needs_no_numbers() -> None:
     x, y = _decay_data()
-    r = cw.fit("decay_to_plateau", x, y)
+    r = cw.fit("exponential_decay", x, y)
     assert r.success
     vals = list(r.values.values())
     assert all(math.isfinite(v) for v in vals)
@@ -344,7 +377,7 @@ def test_extrapolated_derived_quantity_is_flagged() -> None:
     rng = np.random.default_rng(2)
     x = np.linspace(0, 1.0, 20)
     y = 5.0 * np.exp(-0.05 * x) + 1.0 + rng.normal(0, 0.002, x.size)
-    r = cw.fit("decay_to_plateau", x, y)
+    r = cw.fit("exponential_decay", x, y)
     assert any(d.code == "extrapolation" for d in r.diagnostics)
 
 
@@ -356,7 +389,7 @@ def test_length_mismatch() -> None:
 
 def test_fewer_points_than_free_parameters() -> None:
     with pytest.raises(DataError, match="more points than free parameters"):
-        cw.fit("plateau + span*exp(-k*x)", [0.0, 1.0, 2.0], [3.0, 2.0, 1.5])
+        cw.fit("baseline + amplitude*exp(-k*x)", [0.0, 1.0, 2.0], [3.0, 2.0, 1.5])
 
 
 def test_infinite_values_are_an_error() -> None:
@@ -393,30 +426,36 @@ def test_formula_errors() -> None:
 def test_unknown_catalog_name_gets_a_spelling_hint() -> None:
     with pytest.raises(ModelError, match=r"not a model of the catalog.*'michaelis_menten'"):
         cw.fit("michaelis_mentn", [1, 2, 3, 4], [1, 2, 3, 4])
-    with pytest.raises(ParameterError, match=r"model 'hill' \(in fixed=\).*'n_hill'"):
-        cw.fit("hill", [1, 2, 3, 4, 5], [1, 2, 3, 4, 5], fixed={"n": 1.0})
+    with pytest.raises(ParameterError, match=r"model 'hill' \(in fixed=\).*'n_h'"):
+        cw.fit("hill", [1, 2, 3, 4, 5], [1, 2, 3, 4, 5], fixed={"nh": 1.0})
 
 
 def test_bad_bounds() -> None:
     x, y = _decay_data()
     with pytest.raises(ParameterError, match="above upper bound"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, bounds={"k": (1.0, 0.1)})
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, bounds={"k": (1.0, 0.1)})
     with pytest.raises(ParameterError, match="outside its bounds"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, start={"k": 2.0}, bounds={"k": (0.0, 1.0)})
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, start={"k": 2.0}, bounds={"k": (0.0, 1.0)})
     with pytest.raises(ParameterError, match=r"Did you mean|unknown|not a parameter"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, bounds={"kk": (0.0, 1.0)})
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, bounds={"kk": (0.0, 1.0)})
 
 
 def test_bad_links_and_fixed() -> None:
     x, y = _decay_data()
     with pytest.raises(ParameterError, match="both fixed and linked"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, fixed={"span": 1.0}, links={"span": "2*k"})
+        cw.fit(
+            "baseline + amplitude*exp(-k*x)",
+            x,
+            y,
+            fixed={"amplitude": 1.0},
+            links={"amplitude": "2*k"},
+        )
     with pytest.raises(ParameterError, match="uses x"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, links={"span": "2*x"})
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, links={"amplitude": "2*x"})
     with pytest.raises(ParameterError, match="cannot be parsed"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, links={"span": "2*("})
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, links={"amplitude": "2*("})
     with pytest.raises(ParameterError, match="must be a number"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, fixed={"span": "five"})
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, fixed={"amplitude": "five"})
 
 
 def test_callable_that_raises_or_returns_the_wrong_shape() -> None:
@@ -444,15 +483,15 @@ def test_non_finite_residuals_at_the_start() -> None:
 def test_bad_options() -> None:
     x, y = _decay_data()
     with pytest.raises(ParameterError, match="loss must be one of"):
-        cw.fit("decay_to_plateau", x, y, loss="cauchy")  # type: ignore[arg-type]
+        cw.fit("exponential_decay", x, y, loss="cauchy")  # type: ignore[arg-type]
     with pytest.raises(ParameterError, match="weights must be one of"):
-        cw.fit("decay_to_plateau", x, y, weights="inverse")  # type: ignore[arg-type]
+        cw.fit("exponential_decay", x, y, weights="inverse")  # type: ignore[arg-type]
     with pytest.raises(DataError, match="needs a standard deviation"):
-        cw.fit("decay_to_plateau", x, y, weights="sigma")
+        cw.fit("exponential_decay", x, y, weights="sigma")
     with pytest.raises(ParameterError, match="method must be one of"):
-        cw.fit("decay_to_plateau", x, y, method="nelder")  # type: ignore[arg-type]
+        cw.fit("exponential_decay", x, y, method="nelder")  # type: ignore[arg-type]
     with pytest.raises(ParameterError, match="timeout must be a positive"):
-        cw.fit("decay_to_plateau", x, y, timeout=-1.0)
+        cw.fit("exponential_decay", x, y, timeout=-1.0)
 
 
 def test_result_is_immutable_and_json_round_trips_exactly() -> None:
@@ -477,21 +516,21 @@ def test_result_is_immutable_and_json_round_trips_exactly() -> None:
 # --------------------------------------------------------------------------- properties
 @settings(max_examples=25)
 @given(
-    plateau=st.floats(-50, 50),
-    span=st.floats(1, 200).flatmap(lambda v: st.sampled_from([v, -v])),
+    baseline=st.floats(-50, 50),
+    amplitude=st.floats(1, 200).flatmap(lambda v: st.sampled_from([v, -v])),
     k=st.floats(0.05, 2.0),
 )
 def test_recovers_known_parameters_from_noiseless_data(
-    plateau: float, span: float, k: float
+    baseline: float, amplitude: float, k: float
 ) -> None:
     # Data computed from known parameters: a fit from the guided start must return them.
     x = np.linspace(0.0, 6.0 / k, 25)
-    y = plateau + span * np.exp(-k * x)
-    r = cw.fit("plateau + span*exp(-k*x)", x, y)
+    y = baseline + amplitude * np.exp(-k * x)
+    r = cw.fit("baseline + amplitude*exp(-k*x)", x, y)
     assert r.success
     assert r.values["k"] == pytest.approx(k, rel=1e-6)
-    assert r.values["span"] == pytest.approx(span, rel=1e-6)
-    assert r.values["plateau"] == pytest.approx(plateau, rel=1e-6, abs=1e-6 * abs(span))
+    assert r.values["amplitude"] == pytest.approx(amplitude, rel=1e-6)
+    assert r.values["baseline"] == pytest.approx(baseline, rel=1e-6, abs=1e-6 * abs(amplitude))
 
 
 @settings(max_examples=15)
@@ -502,7 +541,7 @@ def test_noisy_recovery_within_reported_uncertainty(seed: int, k: float) -> None
     rng = np.random.default_rng(seed)
     x = np.linspace(0.0, 6.0 / k, 40)
     y = 2.0 + 8.0 * np.exp(-k * x) + rng.normal(0.0, 0.1, x.size)
-    r = cw.fit("plateau + span*exp(-k*x)", x, y)
+    r = cw.fit("baseline + amplitude*exp(-k*x)", x, y)
     assert r.success
     assert abs(r.values["k"] - k) < 5 * r.stderr["k"]
 
@@ -514,15 +553,15 @@ def test_several_datasets_share_parameters() -> None:
     x2, y2 = _decay_data(2)
     d1 = cw.make_dataset(x, y, name="run 1")
     d2 = cw.make_dataset(x2, y2, name="run 2")
-    joint = cw.fit("plateau + span*exp(-k*x)", dataset=[d1, d2])
-    pooled = cw.fit("plateau + span*exp(-k*x)", np.r_[x, x2], np.r_[y, y2])
+    joint = cw.fit("baseline + amplitude*exp(-k*x)", dataset=[d1, d2])
+    pooled = cw.fit("baseline + amplitude*exp(-k*x)", np.r_[x, x2], np.r_[y, y2])
     assert joint.n == pooled.n == 2 * x.size
-    for n in ("plateau", "span", "k"):
+    for n in ("baseline", "amplitude", "k"):
         assert joint.values[n] == pytest.approx(pooled.values[n], rel=1e-9)
         assert joint.stderr[n] == pytest.approx(pooled.stderr[n], rel=1e-6)
     assert len(joint.datasets) == 2
     with pytest.raises(DataError, match="either dataset"):
-        cw.fit("plateau + span*exp(-k*x)", x, y, dataset=d1)
+        cw.fit("baseline + amplitude*exp(-k*x)", x, y, dataset=d1)
 
 
 def test_large_data_guided_start_uses_a_subset_but_the_fit_uses_every_point() -> None:
@@ -531,7 +570,7 @@ def test_large_data_guided_start_uses_a_subset_but_the_fit_uses_every_point() ->
     rng = np.random.default_rng(0)
     x = np.logspace(-9, -4, 100_000)
     m = cw.catalog()["inhibition_4pl"]
-    truth = {"bottom": 5.0, "top": 95.0, "logIC50": -6.5, "hill": 1.2}
+    truth = {"zero_dose": 95.0, "full_effect": 5.0, "log_ic50": -6.5, "n_h": 1.2}
     y = m.eval(x, truth) + rng.normal(0, 3, x.size)
     r = cw.fit(m, x, y)
     assert r.success and r.n == x.size
@@ -546,17 +585,17 @@ def test_cancel_stops_model_evaluations_at_once() -> None:
     ev = threading.Event()
     calls = {"n": 0}
 
-    def decay(x: np.ndarray, plateau: float, span: float, k: float) -> np.ndarray:
+    def decay(x: np.ndarray, baseline: float, amplitude: float, k: float) -> np.ndarray:
         calls["n"] += 1
         if calls["n"] == 8:
             ev.set()
-        return plateau + span * np.exp(-k * x)
+        return baseline + amplitude * np.exp(-k * x)
 
-    r = cw.fit(decay, x, y, start={"plateau": 1.0, "span": 5.0, "k": 0.2}, cancel=ev)
+    r = cw.fit(decay, x, y, start={"baseline": 1.0, "amplitude": 5.0, "k": 0.2}, cancel=ev)
     assert r.code == "cancelled" and not r.success
     assert calls["n"] <= 10  # the cancelling call, then the value at the best point
     assert np.isnan(r.covariance).all()
-    assert all(math.isnan(r.stderr[n]) for n in ("plateau", "span", "k"))
+    assert all(math.isnan(r.stderr[n]) for n in ("baseline", "amplitude", "k"))
 
 
 @pytest.mark.parametrize("factor", [1e-9, 1e6])

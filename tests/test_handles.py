@@ -40,29 +40,35 @@ DOSE = ("inhibition_4pl", "inhibition_5pl", "stimulation_4pl", "stimulation_5pl"
 # Parameter values to drag from (invented; physically sensible for each model).
 START: dict[str, dict[str, float]] = {
     "straight_line": {"intercept": 2.0, "slope": -0.7},
-    "decay_to_plateau": {"plateau": 12.0, "span": 80.0, "k": 0.25},
-    "two_phase_decay": {
-        "plateau": 5.0,
-        "span_fast": 60.0,
-        "k_fast": 2.0,
-        "span_slow": 35.0,
-        "k_slow": 0.1,
-    },
-    "rise_to_plateau": {"y0": 3.0, "plateau": 48.0, "k": 0.08},
+    "exponential_decay": {"baseline": 12.0, "amplitude": 80.0, "k": 0.25},
+    "biexponential_decay": {"baseline": 5.0, "a1": 60.0, "k1": 2.0, "a2": 35.0, "k2": 0.1},
+    "exponential_rise": {"baseline": 3.0, "amplitude": 45.0, "k": 0.08},
     "exponential_growth": {"y0": 150.0, "k": 0.45},
     "michaelis_menten": {"Vmax": 42.0, "Km": 7.5},
     "substrate_inhibition": {"Vmax": 60.0, "Km": 5.0, "Ki": 80.0},
-    "hill": {"Vmax": 9.0, "K_half": 4.0, "n_hill": 2.3},
-    "inhibition_4pl": {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3},
-    "inhibition_5pl": {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3, "s": 2.0},
-    "stimulation_4pl": {"bottom": 120.0, "top": 860.0, "logEC50": -7.2, "hill": 0.9},
-    "stimulation_5pl": {"bottom": 120.0, "top": 860.0, "logEC50": -7.2, "hill": 0.9, "s": 0.5},
-    "stimulation_3pl": {"top": 1.8, "logEC50": -6.0, "hill": 1.6},
+    "hill": {"Vmax": 9.0, "K05": 4.0, "n_h": 2.3},
+    "inhibition_4pl": {"zero_dose": 98.0, "full_effect": 4.0, "log_ic50": -6.6, "n_h": 1.3},
+    "inhibition_5pl": {
+        "zero_dose": 98.0,
+        "full_effect": 4.0,
+        "log_ic50": -6.6,
+        "n_h": 1.3,
+        "g": 2.0,
+    },
+    "stimulation_4pl": {"zero_dose": 120.0, "full_effect": 860.0, "log_ec50": -7.2, "n_h": 0.9},
+    "stimulation_5pl": {
+        "zero_dose": 120.0,
+        "full_effect": 860.0,
+        "log_ec50": -7.2,
+        "n_h": 0.9,
+        "g": 0.5,
+    },
+    "stimulation_3pl": {"full_effect": 1.8, "log_ec50": -6.0, "n_h": 1.6},
     "logistic_growth": {"N0": 0.02, "K": 1.6, "r": 0.55},
     "gompertz_growth": {"N0": 0.05, "K": 1.6, "r": 0.3},
     "gaussian_peak": {"baseline": 0.1, "amplitude": 2.5, "center": 512.0, "sigma": 14.0},
     "lorentzian_peak": {"baseline": 0.1, "amplitude": 2.5, "center": 512.0, "hwhm": 9.0},
-    "boltzmann_sigmoid": {"bottom": 0.02, "top": 1.0, "V50": -35.0, "slope": 7.5},
+    "boltzmann": {"low": 0.02, "high": 1.0, "x_half": -35.0, "width": 7.5},
 }
 
 HANDLES = sorted((m.name, h.name) for m in catalog().values() for h in m.handles)
@@ -117,8 +123,8 @@ def test_move_handle_recovers_both_parameters_of_a_two_way_handle() -> None:
 
 def test_half_life_drag_sets_k_from_ln2() -> None:
     # half-life = ln 2 / k (common practice): dropping it at t = 2 gives k = ln 2 / 2
-    m = catalog()["decay_to_plateau"]
-    v = move_handle(m, {"plateau": 0.0, "span": 10.0, "k": 1.0}, "half_life", (2.0, 5.0))
+    m = catalog()["exponential_decay"]
+    v = move_handle(m, {"baseline": 0.0, "amplitude": 10.0, "k": 1.0}, "half_life", (2.0, 5.0))
     assert v["k"] == pytest.approx(math.log(2) / 2, rel=1e-10)
 
 
@@ -126,23 +132,27 @@ def test_midpoint_drag_on_log_axis_sets_log_ic50() -> None:
     m = catalog()["inhibition_4pl"]
     v0 = START["inhibition_4pl"]
     v = move_handle(m, v0, "midpoint", (3.0e-8, 51.0), x_log=True)
-    assert v["logIC50"] == pytest.approx(math.log10(3.0e-8), rel=1e-10)
-    assert (v["top"], v["bottom"], v["hill"]) == (v0["top"], v0["bottom"], v0["hill"])
+    assert v["log_ic50"] == pytest.approx(math.log10(3.0e-8), rel=1e-10)
+    assert (v["zero_dose"], v["full_effect"], v["n_h"]) == (
+        v0["zero_dose"],
+        v0["full_effect"],
+        v0["n_h"],
+    )
 
 
 def test_unreachable_target_gives_closest_point_and_says_so() -> None:
-    m = catalog()["decay_to_plateau"]
-    v0 = {"plateau": 1.0, "span": 10.0, "k": 0.5}
+    m = catalog()["exponential_decay"]
+    v0 = {"baseline": 1.0, "amplitude": 10.0, "k": 0.5}
     sol = solve_handle(m, v0, "half_life", (3.0, 9.0))
-    # k alone moves the half-life point along y = plateau + span/2 = 6: x reaches 3, y cannot
+    # k alone moves the half-life point along y = baseline + amplitude/2 = 6: x reaches 3, y cannot
     assert not sol.reached and sol.converged
     assert sol.values["k"] == pytest.approx(math.log(2) / 3.0, rel=1e-8)
     assert sol.distance == pytest.approx(3.0 / 9.0, rel=1e-8)  # |6 - 9| / span 9
 
 
 def test_bound_stops_the_drag_and_is_reported() -> None:
-    m = catalog()["decay_to_plateau"].with_param("k", value=0.5, upper=0.6)
-    sol = solve_handle(m, {"plateau": 1.0, "span": 10.0, "k": 0.5}, "half_life", (0.5, 6.0))
+    m = catalog()["exponential_decay"].with_param("k", value=0.5, upper=0.6)
+    sol = solve_handle(m, {"baseline": 1.0, "amplitude": 10.0, "k": 0.5}, "half_life", (0.5, 6.0))
     assert not sol.reached
     assert sol.clamped == ("k",)
     assert sol.values["k"] == pytest.approx(0.6, rel=1e-14)
@@ -150,8 +160,8 @@ def test_bound_stops_the_drag_and_is_reported() -> None:
 
 def test_positive_parameters_stay_positive() -> None:
     # Dropping the half-life at negative time would need k < 0; k moves in log space.
-    m = catalog()["decay_to_plateau"]
-    sol = solve_handle(m, {"plateau": 0.0, "span": 10.0, "k": 1.0}, "half_life", (-2.0, 5.0))
+    m = catalog()["exponential_decay"]
+    sol = solve_handle(m, {"baseline": 0.0, "amplitude": 10.0, "k": 1.0}, "half_life", (-2.0, 5.0))
     assert sol.values["k"] > 0
     assert not sol.reached
 
@@ -209,11 +219,11 @@ def test_pins_with_a_callable_model_and_fixed_parameter() -> None:
 
 # -------------------------------------------------------------------------------- bad input
 def test_bad_input_raises_our_errors() -> None:
-    m = catalog()["decay_to_plateau"]
-    v0 = {"plateau": 0.0, "span": 10.0, "k": 1.0}
+    m = catalog()["exponential_decay"]
+    v0 = {"baseline": 0.0, "amplitude": 10.0, "k": 1.0}
     with pytest.raises(
         HandleError,
-        match=r"'half_lfe' is not a handle of model 'decay_to_plateau'.*Did you mean 'half_life'",
+        match=r"'half_lfe' is not a handle of model 'exponential_decay'.*Did you mean 'half_life'",
     ):
         move_handle(m, v0, "half_lfe", (1.0, 5.0))
     with pytest.raises(HandleError, match=r"'power_law' has no handles; use pin_through"):
@@ -245,8 +255,8 @@ def test_bad_input_raises_our_errors() -> None:
 
 
 def test_a_failed_request_leaves_the_values_alone() -> None:
-    m = catalog()["decay_to_plateau"]
-    v0 = {"plateau": 0.0, "span": 10.0, "k": 1.0}
+    m = catalog()["exponential_decay"]
+    v0 = {"baseline": 0.0, "amplitude": 10.0, "k": 1.0}
     before = dict(v0)
     with pytest.raises(HandleError):
         move_handle(m, v0, "half_life", (math.inf, 5.0))

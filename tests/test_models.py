@@ -17,11 +17,11 @@ from curvewright.models import Derived, Handle, Model, Param
 
 
 def test_formula_model_names_in_order_and_evaluates_like_numpy() -> None:
-    m = Model.from_formula("plateau + span*exp(-k*x)")
-    assert m.param_names == ("plateau", "span", "k")
-    assert m.formula == "plateau + span*exp(-k*x)"
+    m = Model.from_formula("baseline + amplitude*exp(-k*x)")
+    assert m.param_names == ("baseline", "amplitude", "k")
+    assert m.formula == "baseline + amplitude*exp(-k*x)"
     x = np.linspace(0, 5, 11)
-    got = m.eval(x, plateau=1.5, span=2.0, k=0.7)
+    got = m.eval(x, baseline=1.5, amplitude=2.0, k=0.7)
     np.testing.assert_array_equal(got, 1.5 + 2.0 * np.exp(-0.7 * x))
     assert m.has_preview
 
@@ -95,28 +95,28 @@ def test_param_validation() -> None:
 
 
 def test_unknown_parameter_name_has_hint() -> None:
-    m = Model.from_formula("plateau + span*exp(-k*x)")
+    m = Model.from_formula("baseline + amplitude*exp(-k*x)")
     with pytest.raises(
-        ParameterError, match=r"'platau' is not a parameter.*Did you mean 'plateau'"
+        ParameterError, match=r"'baselin' is not a parameter.*Did you mean 'baseline'"
     ):
-        m.eval([1.0], platau=1.0)
+        m.eval([1.0], baselin=1.0)
 
 
 def test_handles_and_derived() -> None:
     m = Model.from_formula(
-        "plateau + span*exp(-k*x)",
+        "baseline + amplitude*exp(-k*x)",
         derived=[Derived("half_life", Expr.parse("log(2)/k"), axis="x")],
         handles=[
             Handle(
                 "half",
                 "half-life point",
                 Expr.parse("log(2)/k"),
-                Expr.parse("plateau + span/2"),
+                Expr.parse("baseline + amplitude/2"),
                 ("k",),
             )
         ],
     )
-    vals = {"plateau": 1.0, "span": 4.0, "k": 0.5}
+    vals = {"baseline": 1.0, "amplitude": 4.0, "k": 0.5}
     hx, hy = m.handles[0].position(vals)
     assert hx == pytest.approx(math.log(2) / 0.5)
     # the half-life point lies on the curve: common practice definition of a half-life
@@ -130,14 +130,14 @@ def test_handles_and_derived() -> None:
 
 def test_json_round_trip_is_exact() -> None:
     m = Model.from_formula(
-        "bottom + (top - bottom)/(1 + (x/10**logEC50)**hill)",
+        "full_effect + (zero_dose - full_effect)/(1 + (x/10**log_ec50)**n_h)",
         params=[
-            Param("bottom", 0.0),
-            Param("top", 100.0),
-            Param("logEC50", -6.0),
-            Param("hill", 1.0, lower=0),
+            Param("zero_dose", 0.0),
+            Param("full_effect", 100.0),
+            Param("log_ec50", -6.0),
+            Param("n_h", 1.0, lower=0),
         ],
-        derived={"EC50": "10**logEC50"},
+        derived={"ec50": "10**log_ec50"},
         domain="x>=0",
     )
     d = json.loads(json.dumps(m.to_dict()))

@@ -31,9 +31,9 @@ def dose() -> cw.FitResult:
     rng = np.random.default_rng(11)
     x = np.repeat([0.0, 1e-9, 1e-8, 3e-8, 1e-7, 3e-7, 1e-6, 1e-5], 3)
     m = cw.catalog()["inhibition_4pl"]
-    y = m.eval(x, {"bottom": 5, "top": 95, "logIC50": -7.0, "hill": 1.0})
+    y = m.eval(x, {"zero_dose": 95, "full_effect": 5, "log_ic50": -7.0, "n_h": 1.0})
     y = y + rng.normal(0, 2.0, x.size)
-    return cw.fit(m, x, y, fixed={"bottom": 5.0})
+    return cw.fit(m, x, y, fixed={"full_effect": 5.0})
 
 
 def test_json_round_trip_is_exact(misra: cw.FitResult, dose: cw.FitResult) -> None:
@@ -117,29 +117,32 @@ def test_statistics_are_consistent(misra: cw.FitResult) -> None:
 
 def test_tables_and_derived_quantities(dose: cw.FitResult) -> None:
     df = dose.to_frame()
-    assert list(df.index) == ["bottom", "top", "logIC50", "hill"]
-    assert bool(df.loc["bottom", "fixed"]) and df.loc["bottom", "status"] == "fixed"
+    assert list(df.index) == ["zero_dose", "full_effect", "log_ic50", "n_h"]
+    assert bool(df.loc["full_effect", "fixed"]) and df.loc["full_effect", "status"] == "fixed"
     der = dose.derived()
-    # IC50 = 10**logIC50 (common practice for a midpoint fitted on a log scale).
-    assert der.loc["IC50", "value"] == pytest.approx(10 ** dose.values["logIC50"], rel=1e-12)
+    # IC50 = 10**log_ic50 (common practice for a midpoint fitted on a log scale).
+    assert der.loc["ic50", "value"] == pytest.approx(10 ** dose.values["log_ic50"], rel=1e-12)
     # delta method: se(10**u) = ln(10) * 10**u * se(u)
-    expected_se = math.log(10) * 10 ** dose.values["logIC50"] * dose.stderr["logIC50"]
-    assert der.loc["IC50", "stderr"] == pytest.approx(expected_se, rel=1e-9)
-    assert bool(der.loc["IC50", "in_data_range"])
+    expected_se = math.log(10) * 10 ** dose.values["log_ic50"] * dose.stderr["log_ic50"]
+    assert der.loc["ic50", "stderr"] == pytest.approx(expected_se, rel=1e-9)
+    assert bool(der.loc["ic50", "in_data_range"])
+    # amplitude = zero_dose - full_effect: with full_effect fixed its error is zero_dose's
+    assert der.loc["amplitude", "value"] == pytest.approx(dose.values["zero_dose"] - 5.0)
+    assert der.loc["amplitude", "stderr"] == pytest.approx(dose.stderr["zero_dose"], rel=1e-12)
 
 
 def test_summary_and_html_carry_the_caution(dose: cw.FitResult) -> None:
     text = dose.summary()
     assert cw.CAUTION in text
-    assert "logIC50" in text and "held fixed" in text
+    assert "log_ic50" in text and "held fixed" in text
     html = dose._repr_html_()
-    assert "logIC50" in html and "<table" in html
+    assert "log_ic50" in html and "<table" in html
     assert "not for clinical or dosing decisions" in html
 
 
 def test_unconverged_result_says_so() -> None:
     p = read("Misra1a")
-    r = cw.fit("b1*(1-exp(-b2*x))", p.x, p.y, start={"b1": 500.0, "b2": 1e-4}, max_nfev=3)
+    r = cw.fit("b1*(1-exp(-b2*x))", p.x, p.y, start={"b1": 500.0, "b2": 1e-4}, max_evaluations=3)
     assert not r.success
     assert "not converged" in r.summary().lower() or "did not converge" in r.summary()
     assert any(d.severity == "error" for d in r.diagnostics)
@@ -147,13 +150,34 @@ def test_unconverged_result_says_so() -> None:
 
 def test_ic50_interval_is_the_log_interval_transformed(dose: cw.FitResult) -> None:
     # Common practice for a midpoint fitted as log10: the IC50 interval is 10**(interval of
-    # logIC50), asymmetric about the IC50 and always positive.
+    # log_ic50), asymmetric about the IC50 and always positive.
     der = dose.derived(0.95)
     ci = dose.ci(0.95)
-    assert der.loc["IC50", "lower"] == pytest.approx(10 ** ci.loc["logIC50", "lower"], rel=1e-12)
-    assert der.loc["IC50", "upper"] == pytest.approx(10 ** ci.loc["logIC50", "upper"], rel=1e-12)
-    v = der.loc["IC50", "value"]
-    assert v - der.loc["IC50", "lower"] < der.loc["IC50", "upper"] - v
+    assert der.loc["ic50", "lower"] == pytest.approx(10 ** ci.loc["log_ic50", "lower"], rel=1e-12)
+    assert der.loc["ic50", "upper"] == pytest.approx(10 ** ci.loc["log_ic50", "upper"], rel=1e-12)
+    v = der.loc["ic50", "value"]
+    assert v - der.loc["ic50", "lower"] < der.loc["ic50", "upper"] - v
+
+
+def test_a_result_saved_in_the_old_format_is_refused_by_name(dose: cw.FitResult) -> None:
+    # Format 1 wrote other model, parameter and option names (e.g. a logIC50 midpoint and an
+    # "nfev" count); it is refused with a message naming the format, not half read.
+    old = dose.to_dict()
+    old["version"] = 1
+    old["nfev"] = old.pop("evaluations")
+    old["values"] = {"bottom": 5.0, "top": 95.0, "logIC50": -7.0, "hill": 1.0}
+    with pytest.raises(ModelError, match=r"saved in curvewright result format 1.*[Rr]efit"):
+        cw.FitResult.from_dict(old)
+    with pytest.raises(ModelError, match=r"saved in curvewright result format 1"):
+        cw.FitResult.from_json(json.dumps(old))
+    # a format from a later version, or none at all, is refused too
+    newer = {**dose.to_dict(), "version": 3}
+    with pytest.raises(ModelError, match=r"format 3; this version reads format 2 only"):
+        cw.FitResult.from_dict(newer)
+    unversioned = {k: v for k, v in dose.to_dict().items() if k != "version"}
+    with pytest.raises(ModelError, match=r"format None; this version reads format 2 only"):
+        cw.FitResult.from_dict(unversioned)
+    assert dose.to_dict()["version"] == 2
 
 
 def test_diagnostics_are_data_not_text() -> None:

@@ -138,26 +138,26 @@ def test_michaelis_menten_plots_are_exact_on_exact_data(plot: str) -> None:
 def test_semilog_rate_matches_ols_on_the_points_it_uses() -> None:
     rng = np.random.default_rng(11)
     x = np.linspace(0, 12, 30)
-    plateau = 2.0
-    y = plateau + 40.0 * np.exp(-0.35 * x) + rng.normal(0, 0.3, x.size)
-    est = semilog_rate(x, y, plateau)
-    # the documented selection: the majority side of the plateau, more than 5 % of the largest
+    baseline = 2.0
+    y = baseline + 40.0 * np.exp(-0.35 * x) + rng.normal(0, 0.3, x.size)
+    est = semilog_rate(x, y, baseline)
+    # the documented selection: the majority side of the baseline, more than 5 % of the largest
     # distance from it
-    d = y - plateau
+    d = y - baseline
     use = (d > 0) & (d > 0.05 * d.max())
     ols = sm.OLS(np.log(d[use]), sm.add_constant(x[use])).fit()  # statsmodels reference
     a, b = ols.params
     assert est.k == pytest.approx(-b, rel=1e-10)
-    assert est.span == pytest.approx(math.exp(a), rel=1e-10)
+    assert est.amplitude == pytest.approx(math.exp(a), rel=1e-10)
 
 
-def test_semilog_rate_growth_and_falling_below_plateau() -> None:
+def test_semilog_rate_growth_and_falling_below_baseline() -> None:
     x = np.linspace(0, 5, 11)
     est = semilog_rate(x, 3.0 * np.exp(0.4 * x), 0.0)  # growth: a negative k
     assert est.k == pytest.approx(-0.4, rel=1e-12)
-    assert est.span == pytest.approx(3.0, rel=1e-12)
+    assert est.amplitude == pytest.approx(3.0, rel=1e-12)
     est = semilog_rate(x, 10.0 - 6.0 * np.exp(-0.8 * x), 10.0)  # approach from below
-    assert est.span == pytest.approx(-6.0, rel=1e-12)
+    assert est.amplitude == pytest.approx(-6.0, rel=1e-12)
     assert est.k == pytest.approx(0.8, rel=1e-12)
 
 
@@ -173,9 +173,9 @@ def test_loglog_power_matches_linregress_on_danwood() -> None:
 
 def test_logit_line_matches_linregress_on_dnase() -> None:
     x, y = dnase_run1()
-    bottom, top = 0.0, 1.05 * float(y.max())
-    est = logit_line(x, y, bottom, top)
-    f = (y - bottom) / (top - bottom)
+    low, high = 0.0, 1.05 * float(y.max())
+    est = logit_line(x, y, low, high)
+    f = (y - low) / (high - low)
     use = (x > 0) & (f > 0.05) & (f < 0.95)  # the documented trim
     ref = scipy.stats.linregress(np.log10(x[use]), np.log10(f[use] / (1 - f[use])))
     assert est.slope == pytest.approx(ref.slope, rel=1e-12)
@@ -205,10 +205,11 @@ def test_linearisation_bad_input() -> None:
         eadie_hofstee([1.0, 2.0, 3.0], [1.0, 2.0])
     with pytest.raises(DataError, match=r"x and y must be numeric arrays"):
         loglog_power(["a", "b"], [1.0, 2.0])
-    with pytest.raises(DataError, match=r"plateau must be finite, got nan"):
+    with pytest.raises(DataError, match=r"baseline must be finite, got nan"):
         semilog_rate([1.0, 2.0], [1.0, 2.0], math.nan)
     with pytest.raises(
-        DataError, match=r"bottom and top must be finite and different; got 1.0, 1.0"
+        DataError,
+        match=r"low_x_level and high_x_level must be finite and different; got 1.0, 1.0",
     ):
         logit_line([1.0, 2.0], [1.0, 2.0], 1.0, 1.0)
     with pytest.raises(DataError, match=r"logit_line needs at least two usable points; got 0"):
@@ -221,17 +222,18 @@ def test_linearisation_bad_input() -> None:
 NIST_CATALOG: dict[
     str, tuple[str, dict[str, float], Callable[[Mapping[str, float]], tuple[float, ...]]]
 ] = {
-    # y = b1*(1 - exp(-b2*x)): a rise to a plateau from y0 = 0
-    "Misra1a": ("rise_to_plateau", {"y0": 0.0}, lambda v: (v["plateau"], v["k"])),
+    # y = b1*(1 - exp(-b2*x)): an exponential rise from a baseline of 0
+    "Misra1a": ("exponential_rise", {"baseline": 0.0}, lambda v: (v["amplitude"], v["k"])),
     # y = b1*b2*x/(1 + b2*x) = b1*x/(1/b2 + x): Michaelis-Menten with Vmax = b1, Km = 1/b2
     "Misra1d": ("michaelis_menten", {}, lambda v: (v["Vmax"], 1 / v["Km"])),
     # y = b1*x**b2: the power law
     "DanWood": ("power_law", {}, lambda v: (v["a"], v["b"])),
-    # y = b1 + b2*exp(-x*b4) + b3*exp(-x*b5): a two-phase decay with b5 > b4 the fast rate
+    # y = b1 + b2*exp(-x*b4) + b3*exp(-x*b5): a biexponential decay with b5 > b4 the faster
+    # rate, our phase 1
     "MGH17": (
-        "two_phase_decay",
+        "biexponential_decay",
         {},
-        lambda v: (v["plateau"], v["span_slow"], v["span_fast"], v["k_slow"], v["k_fast"]),
+        lambda v: (v["baseline"], v["a2"], v["a1"], v["k2"], v["k1"]),
     ),
 }
 
@@ -434,14 +436,14 @@ def test_generic_start_is_reproducible_and_within_bounds() -> None:
 def test_fixed_parameters_are_respected_by_rules_and_generic() -> None:
     m = catalog()["inhibition_4pl"]
     x = np.repeat(np.r_[0.0, np.geomspace(1e-9, 1e-4, 11)], 2)
-    truth = {"bottom": 4.0, "top": 98.0, "logIC50": -6.6, "hill": 1.3}
+    truth = {"zero_dose": 98.0, "full_effect": 4.0, "log_ic50": -6.6, "n_h": 1.3}
     y = m.eval(x, truth)
-    s = guided_start(m, x, y, fixed={"bottom": 0.0, "hill": 1.0})
-    assert s["bottom"] == 0.0 and s["hill"] == 1.0
+    s = guided_start(m, x, y, fixed={"full_effect": 0.0, "n_h": 1.0})
+    assert s["full_effect"] == 0.0 and s["n_h"] == 1.0
     # the others are the least-squares values given the fixed ones: a fit agrees
-    res = cw.fit(m, x, y, start={"bottom": 0.0, "hill": 1.0}, fixed=["bottom", "hill"])
-    assert s["top"] == pytest.approx(res.values["top"], rel=1e-6)
-    assert s["logIC50"] == pytest.approx(res.values["logIC50"], rel=1e-6)
+    res = cw.fit(m, x, y, start={"full_effect": 0.0, "n_h": 1.0}, fixed=["full_effect", "n_h"])
+    assert s["zero_dose"] == pytest.approx(res.values["zero_dose"], rel=1e-6)
+    assert s["log_ic50"] == pytest.approx(res.values["log_ic50"], rel=1e-6)
     f = Model.from_formula("a*exp(-k*x) + c")
     xs = np.linspace(0, 5, 12)
     g = generic_start(f, xs, f.eval(xs, {"a": 3.0, "k": 0.9, "c": 2.0}), fixed={"c": 2.0})
@@ -450,14 +452,14 @@ def test_fixed_parameters_are_respected_by_rules_and_generic() -> None:
 
 
 def test_boltzmann_tidy_up_never_overrides_a_fixed_level() -> None:
-    m = catalog()["boltzmann_sigmoid"]
+    m = catalog()["boltzmann"]
     v = np.linspace(-100, 20, 25)
-    y = m.eval(v, {"bottom": 0.0, "top": 1.0, "V50": -40.0, "slope": -7.0})  # a fall
+    y = m.eval(v, {"low": 0.0, "high": 1.0, "x_half": -40.0, "width": -7.0})  # a fall
     free = guided_start(m, v, y)
-    assert free["bottom"] <= free["top"] and free["slope"] < 0  # canonical: bottom <= top
-    held = guided_start(m, v, y, fixed={"bottom": 1.0})  # the user names the high level bottom
-    assert held["bottom"] == 1.0
-    assert held["top"] == pytest.approx(0.0, abs=1e-6) and held["slope"] > 0
+    assert free["low"] <= free["high"] and free["width"] < 0  # canonical: low <= high
+    held = guided_start(m, v, y, fixed={"low": 1.0})  # the user names the upper level low
+    assert held["low"] == 1.0
+    assert held["high"] == pytest.approx(0.0, abs=1e-6) and held["width"] > 0
 
 
 def test_a_user_rule_that_fails_falls_back_to_the_generic_start() -> None:
@@ -516,31 +518,33 @@ def _fit_4pl(name: str, x: FloatArray, y: FloatArray) -> dict[str, float]:
 @settings(max_examples=25)
 @given(
     log_mid=st.floats(-9.0, -5.0),
-    hill=st.floats(0.5, 2.5),
-    bottom=st.floats(-10.0, 20.0),
-    span=st.floats(30.0, 500.0),
+    n_h=st.floats(0.5, 2.5),
+    low=st.floats(-10.0, 20.0),
+    change=st.floats(30.0, 500.0),
     seed=st.integers(0, 2**16),
     inhibition=st.booleans(),
 )
-def test_scaling_x_by_10_scales_ec50_by_10_and_keeps_the_hill_slope(
-    log_mid: float, hill: float, bottom: float, span: float, seed: int, inhibition: bool
+def test_scaling_x_by_10_scales_ec50_by_10_and_keeps_the_hill_coefficient(
+    log_mid: float, n_h: float, low: float, change: float, seed: int, inhibition: bool
 ) -> None:
     name = "inhibition_4pl" if inhibition else "stimulation_4pl"
-    mid = "logIC50" if inhibition else "logEC50"
+    mid = "log_ic50" if inhibition else "log_ec50"
     m = catalog()[name]
-    # doses every 0.25 decade: the 10 %-90 % rise (1.9/hill decades, common practice) holds at
-    # least three of them, so the Hill slope is determined by the data
+    # doses every 0.25 decade: the 10 %-90 % rise (1.9/n_h decades, common practice) holds at
+    # least three of them, so the Hill coefficient is determined by the data
     x = np.repeat(np.r_[0.0, 10 ** (log_mid + np.linspace(-2.5, 2.5, 21))], 2)
-    truth = {"bottom": bottom, "top": bottom + span, mid: log_mid, "hill": hill}
+    high = low + change
+    levels = (high, low) if inhibition else (low, high)
+    truth = {"zero_dose": levels[0], "full_effect": levels[1], mid: log_mid, "n_h": n_h}
     rng = np.random.default_rng(seed)
-    y = m.eval(x, truth) + rng.normal(0, 0.02 * span, x.size)
+    y = m.eval(x, truth) + rng.normal(0, 0.02 * change, x.size)
     a = _fit_4pl(name, x, y)
     b = _fit_4pl(name, 10 * x, y)
     # a change of concentration unit moves the curve, not its shape (common practice)
     assert 10 ** b[mid] == pytest.approx(10 * 10 ** a[mid], rel=1e-5)
-    assert b["hill"] == pytest.approx(a["hill"], rel=1e-5)
-    assert b["top"] == pytest.approx(a["top"], rel=1e-5, abs=1e-6 * span)
-    assert b["bottom"] == pytest.approx(a["bottom"], rel=1e-5, abs=1e-6 * span)
+    assert b["n_h"] == pytest.approx(a["n_h"], rel=1e-5)
+    assert b["full_effect"] == pytest.approx(a["full_effect"], rel=1e-5, abs=1e-6 * change)
+    assert b["zero_dose"] == pytest.approx(a["zero_dose"], rel=1e-5, abs=1e-6 * change)
 
 
 # For the noiseless recovery property: each model with a strategy for its true values and a
@@ -548,11 +552,11 @@ def test_scaling_x_by_10_scales_ec50_by_10_and_keeps_the_hill_slope(
 def _decay(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     k = d(st.floats(1e-3, 1e3))
     return (
-        "decay_to_plateau",
+        "exponential_decay",
         np.linspace(0, 6 / k, 15),
         {
-            "plateau": d(st.floats(-50, 50)),
-            "span": d(st.floats(1, 200)) * d(st.sampled_from([-1, 1])),
+            "baseline": d(st.floats(-50, 50)),
+            "amplitude": d(st.floats(1, 200)) * d(st.sampled_from([-1, 1])),
             "k": k,
         },
     )
@@ -569,16 +573,16 @@ def _mm(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
 
 def _dose(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     mid = d(st.floats(-10, -2))
-    bottom = d(st.floats(-20, 20))
+    low = d(st.floats(-20, 20))
     return (
         "stimulation_5pl",
         np.r_[0.0, 10 ** (mid + np.linspace(-3, 3, 13))],
         {
-            "bottom": bottom,
-            "top": bottom + d(st.floats(20, 1000)),
-            "logEC50": mid,
-            "hill": d(st.floats(0.6, 2.5)),
-            "s": d(st.floats(0.5, 2.0)),
+            "zero_dose": low,
+            "full_effect": low + d(st.floats(20, 1000)),
+            "log_ec50": mid,
+            "n_h": d(st.floats(0.6, 2.5)),
+            "g": d(st.floats(0.5, 2.0)),
         },
     )
 
@@ -603,22 +607,22 @@ def _hill(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     return (
         "hill",
         k * np.geomspace(0.02, 50, 12),
-        {"Vmax": 10 ** d(st.floats(-2, 3)), "K_half": k, "n_hill": d(st.floats(0.5, 4.0))},
+        {"Vmax": 10 ** d(st.floats(-2, 3)), "K05": k, "n_h": d(st.floats(0.5, 4.0))},
     )
 
 
-def _two_phase(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
-    k_slow = 10 ** d(st.floats(-3, 2))
-    k_fast = k_slow * 10 ** d(st.floats(0.7, 2))  # rates at least 5-fold apart
+def _biexponential(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
+    k2 = 10 ** d(st.floats(-3, 2))
+    k1 = k2 * 10 ** d(st.floats(0.7, 2))  # rates at least 5-fold apart
     return (
-        "two_phase_decay",
-        np.geomspace(0.02 / k_fast, 6 / k_slow, 30),
+        "biexponential_decay",
+        np.geomspace(0.02 / k1, 6 / k2, 30),
         {
-            "plateau": d(st.floats(-10, 10)),
-            "span_fast": d(st.floats(5, 100)),
-            "k_fast": k_fast,
-            "span_slow": d(st.floats(5, 100)),
-            "k_slow": k_slow,
+            "baseline": d(st.floats(-10, 10)),
+            "a1": d(st.floats(5, 100)),
+            "k1": k1,
+            "a2": d(st.floats(5, 100)),
+            "k2": k2,
         },
     )
 
@@ -633,13 +637,13 @@ def _substrate(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
 
 
 def _sigmoid(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
-    v50 = d(st.floats(-100, 100))
-    slope = 10 ** d(st.floats(-1, 1.5)) * d(st.sampled_from([-1, 1]))
-    bottom = d(st.floats(-5, 5))
+    x_half = d(st.floats(-100, 100))
+    width = 10 ** d(st.floats(-1, 1.5)) * d(st.sampled_from([-1, 1]))
+    low = d(st.floats(-5, 5))
     return (
-        "boltzmann_sigmoid",
-        v50 + abs(slope) * np.linspace(-8, 8, 25),
-        {"bottom": bottom, "top": bottom + d(st.floats(0.5, 50)), "V50": v50, "slope": slope},
+        "boltzmann",
+        x_half + abs(width) * np.linspace(-8, 8, 25),
+        {"low": low, "high": low + d(st.floats(0.5, 50)), "x_half": x_half, "width": width},
     )
 
 
@@ -683,15 +687,15 @@ def _power(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
 
 def _inhibition(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     mid = d(st.floats(-10, -2))
-    bottom = d(st.floats(-20, 20))
+    low = d(st.floats(-20, 20))
     return (
         "inhibition_4pl",
         np.r_[0.0, 10 ** (mid + np.linspace(-3, 3, 13))],
         {
-            "bottom": bottom,
-            "top": bottom + d(st.floats(20, 1000)),
-            "logIC50": mid,
-            "hill": d(st.floats(0.5, 3.0)),
+            "zero_dose": low + d(st.floats(20, 1000)),
+            "full_effect": low,
+            "log_ic50": mid,
+            "n_h": d(st.floats(0.5, 3.0)),
         },
     )
 
@@ -699,11 +703,10 @@ def _inhibition(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
 def _rise_or_growth(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     k = 10 ** d(st.floats(-3, 2))
     if d(st.booleans()):
-        y0 = d(st.floats(-10, 10))
         return (
-            "rise_to_plateau",
+            "exponential_rise",
             np.linspace(0, 6 / k, 15),
-            {"y0": y0, "plateau": y0 + d(st.floats(1, 100)), "k": k},
+            {"baseline": d(st.floats(-10, 10)), "amplitude": d(st.floats(1, 100)), "k": k},
         )
     return (
         "exponential_growth",
@@ -717,7 +720,7 @@ def _three(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
     return (
         "stimulation_3pl",
         np.r_[0.0, 10 ** (mid + np.linspace(-3, 3, 13))],
-        {"top": 10 ** d(st.floats(-1, 3)), "logEC50": mid, "hill": d(st.floats(0.5, 3.0))},
+        {"full_effect": 10 ** d(st.floats(-1, 3)), "log_ec50": mid, "n_h": d(st.floats(0.5, 3.0))},
     )
 
 
@@ -729,7 +732,7 @@ def catalog_cases(d: st.DrawFn) -> tuple[str, FloatArray, dict[str, float]]:
         _dose,
         _peak,
         _hill,
-        _two_phase,
+        _biexponential,
         _substrate,
         _sigmoid,
         _growth,
@@ -774,7 +777,7 @@ def test_noisy_data_guided_start_reaches_the_least_squares_minimum(
     y = clean + noise * float(np.ptp(clean)) * np.random.default_rng(seed).standard_normal(x.size)
     from_truth = cw.fit(m, x, y, start=truth)
     # Only where the data determine the parameters: with much noise a 5PL can slide into a
-    # valley (asymmetry -> 0, slope -> infinity) where no single minimum exists to be reached.
+    # valley (asymmetry -> 0, steepness -> infinity) where no single minimum exists to be reached.
     assume(
         all(
             math.isfinite(from_truth.stderr[n]) and from_truth.stderr[n] < 0.5 * max(abs(v), 1e-3)

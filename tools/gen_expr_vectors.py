@@ -96,26 +96,32 @@ CASES: list[tuple[str, str, dict[str, float], list[float]]] = [
     # Model formulas of the kind the catalog holds.
     (
         "dose_response_4pl",
-        "bottom + (top-bottom)/(1 + 10**((logEC50 - log10(x))*hill))",
-        {"bottom": 5.0, "top": 95.0, "logEC50": -6.0, "hill": 1.2},
+        "full_effect + (zero_dose - full_effect)/(1 + (x/10**log_ec50)**n_h)",
+        {"zero_dose": 5.0, "full_effect": 95.0, "log_ec50": -6.0, "n_h": 1.2},
         X_DOSE,
     ),
     (
         "dose_response_5pl",
-        "bottom + (top - bottom)/(1 + 10**((logEC50 - log10(x))*hill))**s",
-        {"bottom": 0.0, "top": 100.0, "logEC50": -5.5, "hill": -0.8, "s": 1.7},
+        "full_effect + (zero_dose - full_effect)/(1 + (2**(1/g) - 1)*10**(n_h*(log10(x) - m)))**g",
+        {"zero_dose": 0.0, "full_effect": 100.0, "m": -5.5, "n_h": -0.8, "g": 1.7},
         X_DOSE,
     ),
     (
-        "decay_to_plateau",
-        "plateau + span*exp(-k*x)",
-        {"plateau": 2.0, "span": 10.0, "k": 0.35},
+        "dose_response_3pl",
+        "full_effect/(1 + (10**log_ec50/x)**n_h)",
+        {"full_effect": 2.0, "log_ec50": -6.0, "n_h": 1.5},
+        X_DOSE,
+    ),
+    (
+        "exponential_decay",
+        "baseline + amplitude*exp(-k*x)",
+        {"baseline": 2.0, "amplitude": 10.0, "k": 0.35},
         [0.0, 0.5, 1.0, 2.0, 5.0, 20.0, 2000.0],
     ),
     (
-        "two_phase_decay",
-        "plateau + fast*exp(-kfast*x) + slow*exp(-kslow*x)",
-        {"plateau": 0.5, "fast": 6.0, "kfast": 2.0, "slow": 3.0, "kslow": 0.1},
+        "biexponential_decay",
+        "baseline + a1*exp(-k1*x) + a2*exp(-k2*x)",
+        {"baseline": 0.5, "a1": 6.0, "k1": 2.0, "a2": 3.0, "k2": 0.1},
         [0.0, 0.1, 1.0, 10.0, 100.0],
     ),
     ("michaelis_menten", "Vmax*x/(Km + x)", {"Vmax": 12.0, "Km": 0.8}, [0.0, *X_POSITIVE]),
@@ -139,8 +145,8 @@ CASES: list[tuple[str, str, dict[str, float], list[float]]] = [
     ),
     (
         "boltzmann",
-        "bottom + (top - bottom)/(1 + exp((V50 - x)/slope))",
-        {"bottom": -70.0, "top": 20.0, "V50": -30.0, "slope": 5.0},
+        "low + (high - low)/(1 + exp((x_half - x)/width))",
+        {"low": -70.0, "high": 20.0, "x_half": -30.0, "width": 5.0},
         [-1e4, -100.0, -30.0, 0.0, 50.0, 1e4],
     ),
     (

@@ -138,8 +138,8 @@ def build() -> dict[str, Any]:
             target = h.position(shifted(m, base, h.moves))
             cases.append(handle_case(f"{name}/{h.name}", m, base, h.name, target, x_log=x_log))
     # Not reachable: the half-life point moves k only, so it slides along one curve.
-    decay = cat["decay_to_plateau"]
-    d0 = {"plateau": 1.0, "span": 10.0, "k": 0.5}
+    decay = cat["exponential_decay"]
+    d0 = {"baseline": 1.0, "amplitude": 10.0, "k": 0.5}
     cases.append(handle_case("unreachable/half_life", decay, d0, "half_life", (3.0, 9.0)))
     # A bound stops the drag: k at most 0.6, the target needs k = ln 2 / 0.5.
     capped = decay.with_param("k", value=0.5, upper=0.6)

@@ -39,12 +39,12 @@ const PLOT_W = 600; // plot area of a 680 px wide widget
 const PLOT_H = 302;
 
 // The catalog's inhibition 4PL as the Python side sends it (tree of the formula
-// bottom + (top - bottom)/(1 + (x/10**logIC50)**hill)).
+// full_effect + (zero_dose - full_effect)/(1 + (x/10**log_ic50)**n_h)).
 const n = (value) => ({ type: "num", value });
 const v = (id) => ({ type: "name", id });
 const b = (op, left, right) => ({ type: "bin", op, left, right });
-const ic50 = b("**", n(10), v("logIC50"));
-const tree = b("+", v("bottom"), b("/", b("-", v("top"), v("bottom")), b("+", n(1), b("**", b("/", v("x"), ic50), v("hill")))));
+const ic50 = b("**", n(10), v("log_ic50"));
+const tree = b("+", v("full_effect"), b("/", b("-", v("zero_dose"), v("full_effect")), b("+", n(1), b("**", b("/", v("x"), ic50), v("n_h")))));
 const p = (name, value, extra = {}) => ({ name, value, lower: null, upper: null, log_scale: false, positive: false, unit: "", description: "", ...extra });
 const model = {
   name: "inhibition_4pl",
@@ -52,12 +52,12 @@ const model = {
   tree,
   domain: "x>=0",
   has_preview: true,
-  params: [p("bottom", 5), p("top", 95), p("logIC50", -6.7), p("hill", 1.1, { lower: 0, log_scale: true, positive: true })],
+  params: [p("full_effect", 5), p("zero_dose", 95), p("log_ic50", -6.7), p("n_h", 1.1, { lower: 0, log_scale: true, positive: true })],
   handles: [
-    { name: "midpoint", label: "IC50", x: ic50, y: b("/", b("+", v("top"), v("bottom")), n(2)), moves: ["logIC50"] },
-    { name: "top_plateau", label: "top", x: b("**", n(10), b("-", v("logIC50"), b("/", n(1.5), v("hill")))), y: v("top"), moves: ["top"] },
-    { name: "bottom_plateau", label: "bottom", x: b("**", n(10), b("+", v("logIC50"), b("/", n(1.5), v("hill")))), y: v("bottom"), moves: ["bottom"] },
-    { name: "steepness", label: "Hill slope", x: b("*", ic50, b("**", n(3), b("/", n(1), v("hill")))), y: b("+", v("bottom"), b("/", b("-", v("top"), v("bottom")), n(4))), moves: ["hill"] },
+    { name: "midpoint", label: "IC50", x: ic50, y: b("/", b("+", v("zero_dose"), v("full_effect")), n(2)), moves: ["log_ic50"] },
+    { name: "zero_dose", label: "zero-dose level", x: b("**", n(10), b("-", v("log_ic50"), b("/", n(1.5), v("n_h")))), y: v("zero_dose"), moves: ["zero_dose"] },
+    { name: "full_effect", label: "full-effect level", x: b("**", n(10), b("+", v("log_ic50"), b("/", n(1.5), v("n_h")))), y: v("full_effect"), moves: ["full_effect"] },
+    { name: "steepness", label: "Hill coefficient", x: b("*", ic50, b("**", n(3), b("/", n(1), v("n_h")))), y: b("+", v("full_effect"), b("/", b("-", v("zero_dose"), v("full_effect")), n(4))), moves: ["n_h"] },
   ],
 };
 const settings = Object.fromEntries(model.params.map((q) => [q.name, { value: q.value, lower: q.lower, upper: q.upper, fixed: false }]));

@@ -22,17 +22,17 @@ const b = (op, left, right) => ({ type: "bin", op, left, right });
 const c = (fn, a) => ({ type: "call", fn, args: [a] });
 
 const cases = {
-  // bottom + (top - bottom) / (1 + (ec50 / x) ** hill)
+  // zero_dose + (full_effect - zero_dose) / (1 + (ec50 / x) ** n_h)
   logistic4: [
-    b("+", v("bottom"), b("/", b("-", v("top"), v("bottom")), b("+", n(1), b("**", b("/", v("ec50"), v("x")), v("hill"))))),
-    { bottom: 5, top: 95, ec50: 1e-6, hill: 1.2 },
+    b("+", v("zero_dose"), b("/", b("-", v("full_effect"), v("zero_dose")), b("+", n(1), b("**", b("/", v("ec50"), v("x")), v("n_h"))))),
+    { zero_dose: 5, full_effect: 95, ec50: 1e-6, n_h: 1.2 },
   ],
   // vmax * x / (km + x)
   michaelis: [b("/", b("*", v("vmax"), v("x")), b("+", v("km"), v("x"))), { vmax: 6, km: 2 }],
-  // plateau + (y0 - plateau) * exp(-k * x)
+  // baseline + (y0 - baseline) * exp(-k * x)
   decay: [
-    b("+", v("plateau"), b("*", b("-", v("y0"), v("plateau")), c("exp", { type: "neg", arg: b("*", v("k"), v("x")) }))),
-    { plateau: 10, y0: 100, k: 0.2 },
+    b("+", v("baseline"), b("*", b("-", v("y0"), v("baseline")), c("exp", { type: "neg", arg: b("*", v("k"), v("x")) }))),
+    { baseline: 10, y0: 100, k: 0.2 },
   ],
 };
 

@@ -23,34 +23,35 @@ const bin = (op: "+" | "-" | "*" | "/" | "**", left: ExprNode, right: ExprNode):
 });
 const call = (fn: "exp" | "log" | "log10", arg: ExprNode): ExprNode => ({ type: "call", fn, args: [arg] });
 
-// Four-parameter logistic, bottom + (top - bottom) / (1 + (ec50 / x) ** hill): the usual
-// dose-response form (common practice); at x = ec50 the response is halfway, (top + bottom) / 2.
+// Four-parameter logistic for stimulation, zero_dose + (full_effect - zero_dose) / (1 + (ec50 / x) **
+// n_h): the Hill-type dose-response form (common practice); at x = ec50 the response is halfway,
+// (full_effect + zero_dose) / 2.
 const logistic4 = bin(
   "+",
-  name("bottom"),
+  name("zero_dose"),
   bin(
     "/",
-    bin("-", name("top"), name("bottom")),
-    bin("+", num(1), bin("**", bin("/", name("ec50"), name("x")), name("hill"))),
+    bin("-", name("full_effect"), name("zero_dose")),
+    bin("+", num(1), bin("**", bin("/", name("ec50"), name("x")), name("n_h"))),
   ),
 );
 const midpointOnlyEc50: HandleSpec = {
   name: "midpoint",
   label: "Midpoint",
   x: name("ec50"),
-  y: bin("/", bin("+", name("top"), name("bottom")), num(2)),
+  y: bin("/", bin("+", name("full_effect"), name("zero_dose")), num(2)),
   moves: ["ec50"],
 };
-const midpointFree: HandleSpec = { ...midpointOnlyEc50, moves: ["ec50", "bottom", "top"] };
+const midpointFree: HandleSpec = { ...midpointOnlyEc50, moves: ["ec50", "zero_dose", "full_effect"] };
 
-// Exponential decay to a plateau, plateau + (y0 - plateau) * exp(-k x) (common practice); the
-// half-life is ln 2 / k, where the curve has fallen halfway from y0 to the plateau.
+// Exponential decay to a baseline, baseline + (y0 - baseline) * exp(-k x) (common practice); the
+// half-life is ln 2 / k, where the curve has fallen halfway from y0 to the baseline.
 const decay = bin(
   "+",
-  name("plateau"),
+  name("baseline"),
   bin(
     "*",
-    bin("-", name("y0"), name("plateau")),
+    bin("-", name("y0"), name("baseline")),
     call("exp", { type: "neg", arg: bin("*", name("k"), name("x")) }),
   ),
 );
@@ -58,7 +59,7 @@ const halfLife: HandleSpec = {
   name: "half_life",
   label: "Half-life",
   x: bin("/", call("log", num(2)), name("k")),
-  y: bin("+", name("plateau"), bin("/", bin("-", name("y0"), name("plateau")), num(2))),
+  y: bin("+", name("baseline"), bin("/", bin("-", name("y0"), name("baseline")), num(2))),
   moves: ["k"],
 };
 
@@ -69,11 +70,11 @@ function relClose(a: number, b: number, rel: number): boolean {
 }
 
 describe("solveHandle", () => {
-  const dose = { bottom: 5, top: 95, ec50: 1e-6, hill: 1.2 };
+  const dose = { zero_dose: 5, full_effect: 95, ec50: 1e-6, n_h: 1.2 };
   const logOpts: SolveOptions = {
     xLog: true,
     yLog: false,
-    bounds: { ec50: [1e-12, 1], bottom: [-1000, 1000], top: [-1000, 1000] },
+    bounds: { ec50: [1e-12, 1], zero_dose: [-1000, 1000], full_effect: [-1000, 1000] },
     logParams: new Set(["ec50"]),
     span: { x: 6, y: 100 },
   };
@@ -88,14 +89,14 @@ describe("solveHandle", () => {
     expect(relClose(pos.x, target.x, 1e-9)).toBe(true);
     expect(pos.y).toBe(50);
     // Only the moved parameter changed.
-    expect(res.params["hill"]).toBe(1.2);
-    expect(res.params["top"]).toBe(95);
+    expect(res.params["n_h"]).toBe(1.2);
+    expect(res.params["full_effect"]).toBe(95);
     // The curve is halfway at its new EC50 (the model's definition, not the handle's).
     const y = evalCurve(logistic4, res.params, Float64Array.of(res.params["ec50"]!));
     expect(y[0]).toBeCloseTo(50, 10);
   });
 
-  it("reaches a 2-D target when the midpoint also moves the plateaus", () => {
+  it("reaches a 2-D target when the midpoint also moves the two levels", () => {
     const target = { x: 4e-5, y: 62.5 };
     const res = solveHandle(midpointFree, dose, target, logOpts);
     expect(res.reached).toBe(true);
@@ -116,7 +117,7 @@ describe("solveHandle", () => {
   });
 
   it("moves a half-life handle: k = ln 2 / t_half", () => {
-    const start = { y0: 100, plateau: 10, k: 0.2 };
+    const start = { y0: 100, baseline: 10, k: 0.2 };
     const opts: SolveOptions = {
       xLog: false,
       yLog: false,
@@ -130,13 +131,13 @@ describe("solveHandle", () => {
     expect(relClose(res.params["k"]!, Math.LN2 / 7.5, 1e-9)).toBe(true);
     const pos = handlePosition(halfLife, res.params);
     expect(relClose(pos.x, 7.5, 1e-9)).toBe(true);
-    // At one half-life the decay has covered half the distance to the plateau.
+    // At one half-life the decay has covered half the distance to the baseline.
     const y = evalCurve(decay, res.params, Float64Array.of(7.5));
     expect(y[0]).toBeCloseTo(55, 7); // the solver stops within 1e-10 of the 20-wide view
   });
 
   it("stops at a bound and says so", () => {
-    const start = { y0: 100, plateau: 10, k: 0.2 };
+    const start = { y0: 100, baseline: 10, k: 0.2 };
     const opts: SolveOptions = {
       xLog: false,
       yLog: false,
@@ -155,10 +156,10 @@ describe("solveHandle", () => {
   it("leaves fixed parameters alone", () => {
     const res = solveHandle(midpointFree, dose, { x: 1e-7, y: 70 }, {
       ...logOpts,
-      fixed: new Set(["top", "bottom"]),
+      fixed: new Set(["full_effect", "zero_dose"]),
     });
-    expect(res.params["top"]).toBe(95);
-    expect(res.params["bottom"]).toBe(5);
+    expect(res.params["full_effect"]).toBe(95);
+    expect(res.params["zero_dose"]).toBe(5);
     expect(relClose(res.params["ec50"]!, 1e-7, 1e-9)).toBe(true);
   });
 

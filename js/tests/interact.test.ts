@@ -38,12 +38,13 @@ const bin = (op: "+" | "-" | "*" | "/" | "**", left: ExprNode, right: ExprNode):
 });
 
 // Inhibition 4PL with the midpoint in log10 units (common practice):
-// bottom + (top - bottom) / (1 + (x / 10**logIC50)**hill); at x = IC50 the response is halfway.
-const ic50 = bin("**", num(10), name("logIC50"));
+// full_effect + (zero_dose - full_effect) / (1 + (x / 10**log_ic50)**n_h); at x = IC50 the response
+// is halfway.
+const ic50 = bin("**", num(10), name("log_ic50"));
 const fourPL = bin(
   "+",
-  name("bottom"),
-  bin("/", bin("-", name("top"), name("bottom")), bin("+", num(1), bin("**", bin("/", name("x"), ic50), name("hill")))),
+  name("full_effect"),
+  bin("/", bin("-", name("zero_dose"), name("full_effect")), bin("+", num(1), bin("**", bin("/", name("x"), ic50), name("n_h")))),
 );
 const param = (n: string, value: number, extra: Partial<ModelJson["params"][number]> = {}) => ({
   name: n,
@@ -62,10 +63,10 @@ const dose: ModelJson = {
   tree: fourPL,
   domain: "x>=0",
   has_preview: true,
-  params: [param("bottom", 5), param("top", 95), param("logIC50", -6), param("hill", 1, { lower: 0, positive: true, log_scale: true })],
+  params: [param("full_effect", 5), param("zero_dose", 95), param("log_ic50", -6), param("n_h", 1, { lower: 0, positive: true, log_scale: true })],
   handles: [
-    { name: "midpoint", label: "IC50", x: ic50, y: bin("/", bin("+", name("top"), name("bottom")), num(2)), moves: ["logIC50"] },
-    { name: "top_plateau", label: "top plateau", x: num(1e-9), y: name("top"), moves: ["top"] },
+    { name: "midpoint", label: "IC50", x: ic50, y: bin("/", bin("+", name("zero_dose"), name("full_effect")), num(2)), moves: ["log_ic50"] },
+    { name: "zero_dose", label: "zero-dose level", x: num(1e-9), y: name("zero_dose"), moves: ["zero_dose"] },
   ],
 };
 const settings = (over: Record<string, Partial<ParamSetting>> = {}): Record<string, ParamSetting> => {
@@ -73,7 +74,7 @@ const settings = (over: Record<string, Partial<ParamSetting>> = {}): Record<stri
   for (const p of dose.params) out[p.name] = { value: p.value, lower: p.lower, upper: p.upper, fixed: false, ...over[p.name] };
   return out;
 };
-const values = { bottom: 5, top: 95, logIC50: -6, hill: 1 };
+const values = { full_effect: 5, zero_dose: 95, log_ic50: -6, n_h: 1 };
 
 // A quadratic without declared handles: dragged through generic pins.
 const quad: ModelJson = {
@@ -88,9 +89,9 @@ const quad: ModelJson = {
 
 describe("handles and their accessible names", () => {
   it("names the feature and what it moves, fixed ones said so", () => {
-    expect(handleAriaLabel("IC50", ["logIC50"], new Set())).toBe("IC50: moves logIC50");
+    expect(handleAriaLabel("IC50", ["log_ic50"], new Set())).toBe("IC50: moves log_ic50");
     expect(handleAriaLabel("corner", ["a", "b"], new Set(["b"]))).toBe("corner: moves a (b fixed)");
-    expect(handleAriaLabel("top", ["top"], new Set(["top"]))).toBe("top: moves nothing (top fixed)");
+    expect(handleAriaLabel("zero_dose", ["zero_dose"], new Set(["zero_dose"]))).toBe("zero_dose: moves nothing (zero_dose fixed)");
   });
 
   it("places a handle where its trees say and reports the moved parameter as its value", () => {
@@ -99,7 +100,7 @@ describe("handles and their accessible names", () => {
     expect(mid.pos.x).toBeCloseTo(1e-6, 18);
     expect(mid.pos.y).toBe(50);
     expect(mid.valueNow).toBe(-6);
-    expect(mid.valueText).toBe("logIC50 = -6");
+    expect(mid.valueText).toBe("log_ic50 = -6");
     expect(mid.pin).toBe(false);
   });
 
@@ -107,7 +108,7 @@ describe("handles and their accessible names", () => {
     expect(usesPins(dose)).toBe(false);
     expect(usesPins(quad)).toBe(true);
     expect(usesPins({ ...quad, tree: null })).toBe(false); // a callable: no preview in the page
-    expect(freeParams(dose, settings({ top: { fixed: true } }))).toEqual(["bottom", "logIC50", "hill"]);
+    expect(freeParams(dose, settings({ zero_dose: { fixed: true } }))).toEqual(["full_effect", "log_ic50", "n_h"]);
   });
 });
 
@@ -118,26 +119,26 @@ describe("dragging", () => {
     const opts = solveOptions(dose, settings(), true, false, span);
     const res = solveDrag(dose, "midpoint", values, { x: 3e-7, y: 50 }, [], opts)!;
     expect(res.reached).toBe(true);
-    expect(10 ** res.params["logIC50"]!).toBeCloseTo(3e-7, 12);
-    // The curve at the new IC50 is half-way between the plateaus (closed form).
+    expect(10 ** res.params["log_ic50"]!).toBeCloseTo(3e-7, 12);
+    // The curve at the new IC50 is half-way between the two levels (closed form).
     // solveOptions stops at a screen-normalised distance of 1e-9, here 1e-7 in y (span 100).
     const y = evalCurve(fourPL, res.params, [3e-7])[0]!;
     expect(Math.abs(y - 50)).toBeLessThan(1e-6);
-    expect(res.params["top"]).toBe(95); // only what the handle moves changes
+    expect(res.params["zero_dose"]).toBe(95); // only what the handle moves changes
   });
 
   it("leaves a fixed parameter alone and says so", () => {
-    const opts = solveOptions(dose, settings({ logIC50: { fixed: true } }), true, false, span);
+    const opts = solveOptions(dose, settings({ log_ic50: { fixed: true } }), true, false, span);
     const res = solveDrag(dose, "midpoint", values, { x: 3e-7, y: 50 }, [], opts)!;
-    expect(res.params["logIC50"]).toBe(-6);
+    expect(res.params["log_ic50"]).toBe(-6);
     expect(dragNote(res)).toMatch(/fixed/);
   });
 
   it("stops at a bound and names it", () => {
-    const opts = solveOptions(dose, settings({ top: { upper: 100 } }), true, false, span);
-    const res = solveDrag(dose, "top_plateau", values, { x: 1e-9, y: 130 }, [], opts)!;
-    expect(res.params["top"]).toBe(100);
-    expect(dragNote(res)).toBe("stopped at a bound of top");
+    const opts = solveOptions(dose, settings({ zero_dose: { upper: 100 } }), true, false, span);
+    const res = solveDrag(dose, "zero_dose", values, { x: 1e-9, y: 130 }, [], opts)!;
+    expect(res.params["zero_dose"]).toBe(100);
+    expect(dragNote(res)).toBe("stopped at a bound of zero_dose");
   });
 
   it("solves pins: the quadratic through three points (Lagrange interpolation)", () => {
@@ -189,13 +190,13 @@ describe("pins", () => {
 
 describe("withValues", () => {
   it("replaces values inside the bounds, keeps fixed ones and the bounds", () => {
-    const s = settings({ hill: { upper: 4 }, top: { fixed: true } });
-    const out = withValues(s, { hill: 9, top: 10, bottom: -2, logIC50: NaN });
-    expect(out["hill"]).toEqual({ value: 4, lower: 0, upper: 4, fixed: false });
-    expect(out["top"]!.value).toBe(95);
-    expect(out["bottom"]!.value).toBe(-2);
-    expect(out["logIC50"]!.value).toBe(-6);
-    expect(s["hill"]!.value).toBe(1); // the input is not changed
+    const s = settings({ n_h: { upper: 4 }, zero_dose: { fixed: true } });
+    const out = withValues(s, { n_h: 9, zero_dose: 10, full_effect: -2, log_ic50: NaN });
+    expect(out["n_h"]).toEqual({ value: 4, lower: 0, upper: 4, fixed: false });
+    expect(out["zero_dose"]!.value).toBe(95);
+    expect(out["full_effect"]!.value).toBe(-2);
+    expect(out["log_ic50"]!.value).toBe(-6);
+    expect(s["n_h"]!.value).toBe(1); // the input is not changed
   });
 });
 

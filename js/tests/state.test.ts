@@ -77,8 +77,8 @@ describe("parseField", () => {
 });
 
 describe("checkSetting (the Python side's rules)", () => {
-  const free = { name: "top", positive: false };
-  const positive = { name: "hill", positive: true };
+  const free = { name: "zero_dose", positive: false };
+  const positive = { name: "n_h", positive: true };
   it("accepts a value inside its bounds", () => {
     expect(checkSetting(free, { value: 1, lower: 0, upper: 2, fixed: false })).toBeNull();
     expect(checkSetting(free, { value: 2, lower: 0, upper: 2, fixed: true })).toBeNull();
@@ -89,7 +89,7 @@ describe("checkSetting (the Python side's rules)", () => {
     expect(checkSetting(free, { value: 1, lower: 3, upper: 2, fixed: false })).toBe("lower bound 3 is above upper bound 2");
     expect(checkSetting(free, { value: 5, lower: 0, upper: 2, fixed: false })).toBe("5 lies outside the bounds [0, 2]");
     expect(checkSetting(positive, { value: -1, lower: null, upper: null, fixed: false })).toBe(
-      "hill is positive: value and lower bound must not be negative",
+      "n_h is positive: value and lower bound must not be negative",
     );
     expect(checkSetting(free, { value: NaN, lower: null, upper: null, fixed: false })).toBe("the value must be a finite number");
   });

@@ -1,7 +1,7 @@
 """curvewright: guided nonlinear model fitting for notebooks.
 
 The headless library (models, guided starting values, fitting, results, statistics) is imported
-here; the notebook widget is imported lazily on first use (``curvewright.CurveFitter``) so that
+here; the notebook widget is imported lazily on first use (``curvewright.CurveBench``) so that
 scripts never load traitlets or IPython.
 """
 
@@ -48,7 +48,7 @@ __all__ = [
     "CAUTION",
     "Comparison",
     "ComparisonError",
-    "CurveFitter",
+    "CurveBench",
     "CurvewrightError",
     "CurvewrightWarning",
     "DataError",
@@ -89,8 +89,8 @@ __all__ = [
 
 def __getattr__(name: str) -> Any:
     # The widget layer pulls in anywidget/traitlets; load it only when asked for.
-    if name == "CurveFitter":
-        from .widget import CurveFitter
+    if name == "CurveBench":
+        from .widget import CurveBench
 
-        return CurveFitter
+        return CurveBench
     raise AttributeError(f"module 'curvewright' has no attribute {name!r}")

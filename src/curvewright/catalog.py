@@ -3,9 +3,10 @@
 Every model is a formula (so the front end can preview it) with parameters named in the trade's
 terms, bounds where the quantity is physical, derived quantities, draggable handles and a
 data-driven starting-value rule from :mod:`curvewright.start`. Dose-response models take the
-midpoint as ``logEC50``/``logIC50`` (log10 units; a concentration spans decades, and the fit is
-far better conditioned in its logarithm) yet are written in ``x`` itself, so zero-dose controls
-(x = 0) are valid data.
+midpoint as ``log_ec50``/``log_ic50`` (log10 units; a concentration spans decades, and the fit is
+far better conditioned in its logarithm) and their levels as ``zero_dose`` (no compound) and
+``full_effect`` (a saturating dose); they take ``x`` itself, so zero-dose controls (x = 0) are
+valid data.
 """
 
 from __future__ import annotations
@@ -27,8 +28,9 @@ from .start import (
     PolynomialRule,
     SeedFn,
     SeparableRule,
+    finish_biexponential,
     finish_boltzmann,
-    finish_two_phase,
+    grid_biexponential,
     grid_boltzmann,
     grid_conc,
     grid_growth,
@@ -37,7 +39,7 @@ from .start import (
     grid_peak,
     grid_power,
     grid_rate,
-    grid_two_phase,
+    seed_biexponential,
     seed_boltzmann,
     seed_decay,
     seed_gauss,
@@ -51,7 +53,6 @@ from .start import (
     seed_power,
     seed_rise,
     seed_substrate_inhibition,
-    seed_two_phase,
 )
 
 __all__ = ["catalog", "find_builtin", "polynomial"]
@@ -204,25 +205,37 @@ def _straight_line() -> Model:
 
 
 # ----------------------------------------------------------------------- dose-response pieces
-def _dose_params(mid: str, *, asymmetry: bool = False, bottom: bool = True) -> list[Param]:
-    what = "inhibitor" if mid == "logIC50" else "agonist"
+# The dose-response family is written with the level at zero dose and the level at a saturating
+# dose, so one formula serves stimulation (the response climbs to full_effect) and inhibition
+# (it falls to full_effect): the Hill term (x/c50)**n_h grows from 0 at zero dose to infinity at a
+# saturating one either way (c50 = 10**log_ic50 or 10**log_ec50).
+def _dose_params(mid: str, *, asymmetry: bool = False, zero_dose: bool = True) -> list[Param]:
+    what = "inhibitor" if mid == "log_ic50" else "agonist"
     ps = []
-    if bottom:
-        ps.append(_p("bottom", 0.0, "y", "response plateau at high (inhibition) or low dose"))
+    if zero_dose:
+        ps.append(
+            _p("zero_dose", 0.0, "y", "response with no compound (the level at very low doses)")
+        )
     ps += [
-        _p("top", 100.0, "y", "response plateau at low (inhibition) or high dose"),
+        _p(
+            "full_effect",
+            100.0,
+            "y",
+            "response at a saturating dose (the level at very high doses)",
+        ),
         _p(
             mid,
             0.0,
             "log10(x)",
-            f"log10 of the {what} concentration giving a response halfway between the plateaus",
+            f"log10 of the {what} concentration giving a response halfway from zero_dose to "
+            "full_effect",
         ),
         _p(
-            "hill",
+            "n_h",
             1.0,
             "",
-            "Hill slope: steepness (positive; at 1 the response moves from 10% to 90% of the "
-            "way over 1.9 decades of dose)",
+            "Hill coefficient: steepness (positive; at 1 the response covers 10% to 90% of its "
+            "change over 1.9 decades of dose)",
             lower=0.0,
             positive=True,
             log_scale=True,
@@ -231,10 +244,11 @@ def _dose_params(mid: str, *, asymmetry: bool = False, bottom: bool = True) -> l
     if asymmetry:
         ps.append(
             _p(
-                "s",
+                "g",
                 1.0,
                 "",
-                "asymmetry factor (1 = symmetric 4PL; other values stretch one end)",
+                "asymmetry exponent (1 gives the symmetric 4PL; above or below 1 one end of "
+                "the curve bends more sharply than the other)",
                 lower=0.0,
                 positive=True,
                 log_scale=True,
@@ -245,102 +259,149 @@ def _dose_params(mid: str, *, asymmetry: bool = False, bottom: bool = True) -> l
 
 def _dose_models() -> list[Model]:
     out = []
-    mid_hi = "10**({m} + 1.5/hill)"
-    mid_lo = "10**({m} - 1.5/hill)"
-    for kind, mid in (("inhibition", "logIC50"), ("stimulation", "logEC50")):
-        c = mid[3:]
-        u = f"(x/10**{mid})**hill"
+    for kind, mid in (("inhibition", "log_ic50"), ("stimulation", "log_ec50")):
+        c = mid[4:]  # ic50 / ec50
+        # the Hill term (x/c50)**n_h as a ratio, not 10**(n_h*(log10(x) - mid)): the same
+        # curve for one power instead of a logarithm and a power per point, on the hot path
+        hill = f"(x/10**{mid})**n_h"
+        f4 = f"full_effect + (zero_dose - full_effect)/(1 + {hill})"
         if kind == "inhibition":
-            f4 = f"bottom + (top - bottom)/(1 + {u})"
-            low, high = "top", "bottom"
+            amplitude = _d(
+                "amplitude",
+                "zero_dose - full_effect",
+                "how far a saturating dose lowers the response (zero_dose - full_effect)",
+                "y",
+                "y",
+            )
         else:
-            f4 = f"top + (bottom - top)/(1 + {u})"
-            low, high = "bottom", "top"
-        # quarter point: a quarter of the way from the high-dose plateau, x = C * 3**(1/hill)
-        q4 = f"10**{mid}*3**(1/hill)"
-        handles4 = [
-            _h(f"{low}_plateau", f"plateau at low dose ({low})", mid_lo.format(m=mid), low, low),
-            _h(
-                f"{high}_plateau",
-                f"plateau at high dose ({high})",
-                mid_hi.format(m=mid),
-                high,
-                high,
-            ),
-            _h("midpoint", c, f"10**{mid}", "(top + bottom)/2", mid),
-            _h("steepness", "Hill slope", q4, f"{high} + ({low} - {high})/4", "hill"),
-        ]
+            amplitude = _d(
+                "amplitude",
+                "full_effect - zero_dose",
+                "how far a saturating dose raises the response (full_effect - zero_dose)",
+                "y",
+                "y",
+            )
         derived = [
-            _d(c, f"10**{mid}", f"concentration giving a half-way response ({c})", "x", "x"),
-            _d("span", "top - bottom", "distance between the plateaus", "y", "y"),
+            _d(
+                c, f"10**{mid}", f"concentration giving a half-way response ({c.upper()})", "x", "x"
+            ),
+            amplitude,
         ]
+        midpoint = _h("midpoint", c.upper(), f"10**{mid}", "(zero_dose + full_effect)/2", mid)
+        # a quarter of the way from the full-effect level: the Hill term is 3 there
+        handles4 = [
+            _h("zero_dose", "zero-dose level", f"10**({mid} - 1.5/n_h)", "zero_dose", "zero_dose"),
+            _h(
+                "full_effect",
+                "full-effect level",
+                f"10**({mid} + 1.5/n_h)",
+                "full_effect",
+                "full_effect",
+            ),
+            midpoint,
+            _h(
+                "steepness",
+                "Hill coefficient",
+                f"10**{mid}*3**(1/n_h)",
+                "full_effect + (zero_dose - full_effect)/4",
+                "n_h",
+            ),
+        ]
+        direction = "falls" if kind == "inhibition" else "climbs"
         out.append(
             _model(
                 f"{kind}_4pl",
                 f4,
                 _dose_params(mid),
-                f"Four-parameter logistic dose-response, {kind}: the response goes from "
-                f"{low} at zero dose to {high} at high dose with midpoint {c} = 10**{mid}; "
-                "zero-dose controls are valid data.",
+                f"Four-parameter logistic for {kind}: the response {direction} from zero_dose "
+                f"(no compound) to full_effect (a saturating dose), half-way at "
+                f"{c} = 10**{mid} with Hill coefficient n_h; zero-dose controls are valid data.",
                 derived=derived,
                 handles=handles4,
                 seed=seed_logistic(kind),
-                linear=("bottom", "top"),
+                linear=("zero_dose", "full_effect"),
                 grid=grid_logistic(mid),
                 domain="x>=0",
             )
         )
-        # 5PL written with the true half-way concentration as its parameter: at x = 10**mid the
-        # denominator is (1 + (2**(1/s) - 1))**s = 2 for every s, so the derived C is exact.
-        w = f"(1 + (2**(1/s) - 1)*{u})**s"
-        f5 = f"bottom + (top - bottom)/{w}" if kind == "inhibition" else f"top + (bottom - top)/{w}"
-        # a quarter of the way from the high-dose plateau: w = 4 there
-        q5 = f"10**{mid}*((4**(1/s) - 1)/(2**(1/s) - 1))**(1/hill)"
-        t5 = f"10**{mid}*(((4/3)**(1/s) - 1)/(2**(1/s) - 1))**(1/hill)"
-        # plateau handles where the curve is 1/32 of the span from its plateau (w = 32/31 and
-        # w = 32), as the 4PL's +-1.5/hill decades nearly are; with s != 1 the two ends approach
-        # their plateaus at different speeds, so fixed decades would not do
-        p5 = f"10**{mid}*(({{w}}**(1/s) - 1)/(2**(1/s) - 1))**(1/hill)"
+        # The five-parameter logistic with asymmetry exponent g, written so that 10**mid is the
+        # true half-way concentration: at x = 10**mid the denominator is
+        # (1 + (2**(1/g) - 1))**g = 2 for every g, so the derived concentration is exact.
+        w5 = f"(1 + (2**(1/g) - 1)*{hill})**g"
+        f5 = f"full_effect + (zero_dose - full_effect)/{w5}"
+        # the x where the denominator w5 equals v
+        at5 = f"10**{mid}*(({{v}}**(1/g) - 1)/(2**(1/g) - 1))**(1/n_h)"
+        # the level handles where the curve is 1/32 of its change from each level (w5 = 32/31 and
+        # w5 = 32), about where the 4PL's +-1.5/n_h decades put them; with g != 1 the two ends
+        # approach their levels at different speeds, so fixed decades would not do
         handles5 = [
-            _h(f"{low}_plateau", f"plateau at low dose ({low})", p5.format(w="(32/31)"), low, low),
-            _h(f"{high}_plateau", f"plateau at high dose ({high})", p5.format(w="32"), high, high),
-            handles4[2],
-            _h("steepness", "Hill slope", q5, f"{high} + ({low} - {high})/4", "hill"),
-            _h("asymmetry", "asymmetry", t5, f"{high} + 3*({low} - {high})/4", "s"),
+            _h("zero_dose", "zero-dose level", at5.format(v="(32/31)"), "zero_dose", "zero_dose"),
+            _h(
+                "full_effect", "full-effect level", at5.format(v="32"), "full_effect", "full_effect"
+            ),
+            midpoint,
+            _h(
+                "steepness",
+                "Hill coefficient",
+                at5.format(v="4"),
+                "full_effect + (zero_dose - full_effect)/4",
+                "n_h",
+            ),
+            _h(
+                "asymmetry",
+                "asymmetry",
+                at5.format(v="(4/3)"),
+                "full_effect + 3*(zero_dose - full_effect)/4",
+                "g",
+            ),
         ]
         out.append(
             _model(
                 f"{kind}_5pl",
                 f5,
                 _dose_params(mid, asymmetry=True),
-                f"Five-parameter (asymmetric) logistic dose-response, {kind}: like {kind}_4pl "
-                f"with an asymmetry factor s (s = 1 gives the 4PL). Parameterised so that "
-                f"{c} = 10**{mid} is exactly the half-way concentration for any s.",
+                f"Five-parameter logistic for {kind}: {kind}_4pl with an asymmetry exponent g "
+                f"on the denominator (g = 1 is the 4PL), scaled so that {c} = 10**{mid} stays "
+                "the exact half-way concentration for every g.",
                 derived=derived,
                 handles=handles5,
                 seed=seed_logistic(kind),
-                linear=("bottom", "top"),
+                linear=("zero_dose", "full_effect"),
                 grid=grid_logistic(mid, asymmetry=True),
                 domain="x>=0",
             )
         )
-    u = "(x/10**logEC50)**hill"
     out.append(
         _model(
             "stimulation_3pl",
-            f"top - top/(1 + {u})",
-            _dose_params("logEC50", bottom=False),
-            "Three-parameter logistic: a rise from 0 (bottom fixed at zero, e.g. after "
-            "subtracting the blank) to top, with midpoint EC50 = 10**logEC50 and Hill slope.",
-            derived=[_d("EC50", "10**logEC50", "concentration giving half of top", "x", "x")],
+            "full_effect/(1 + (10**log_ec50/x)**n_h)",
+            _dose_params("log_ec50", zero_dose=False),
+            "Three-parameter logistic for stimulation from a zero response at zero dose (e.g. "
+            "blank-subtracted signals) up to full_effect, half-way at ec50 = 10**log_ec50 with "
+            "Hill coefficient n_h.",
+            derived=[
+                _d("ec50", "10**log_ec50", "concentration giving half of full_effect", "x", "x")
+            ],
             handles=[
-                _h("top_plateau", "plateau (top)", "10**(logEC50 + 1.5/hill)", "top", "top"),
-                _h("midpoint", "EC50", "10**logEC50", "top/2", "logEC50"),
-                _h("steepness", "Hill slope", "10**logEC50*3**(1/hill)", "3*top/4", "hill"),
+                _h(
+                    "full_effect",
+                    "full-effect level",
+                    "10**(log_ec50 + 1.5/n_h)",
+                    "full_effect",
+                    "full_effect",
+                ),
+                _h("midpoint", "EC50", "10**log_ec50", "full_effect/2", "log_ec50"),
+                _h(
+                    "steepness",
+                    "Hill coefficient",
+                    "10**log_ec50*3**(1/n_h)",
+                    "3*full_effect/4",
+                    "n_h",
+                ),
             ],
             seed=seed_logistic("three"),
-            linear=("top",),
-            grid=grid_logistic("logEC50"),
+            linear=("full_effect",),
+            grid=grid_logistic("log_ec50"),
             domain="x>=0",
         )
     )
@@ -351,95 +412,101 @@ def _dose_models() -> list[Model]:
 def _exponential_models() -> list[Model]:
     rate = "rate constant (1/x units of x)"
     decay = _model(
-        "decay_to_plateau",
-        "plateau + span*exp(-k*x)",
+        "exponential_decay",
+        "baseline + amplitude*exp(-k*x)",
         [
-            _p("plateau", 0.0, "y", "level the curve decays to"),
-            _p("span", 1.0, "y", "value at x = 0 minus the plateau"),
+            _p("baseline", 0.0, "y", "level the curve settles to at long times"),
+            _p(
+                "amplitude",
+                1.0,
+                "y",
+                "value at x = 0 above the baseline (negative for a curve rising to the baseline)",
+            ),
             _pos("k", 1.0, "1/x", rate),
         ],
-        "Single exponential decay (or rise, with a negative span) to a plateau.",
+        "Single exponential decay toward a baseline, y = baseline + amplitude*exp(-k*x) (a "
+        "negative amplitude gives an approach from below).",
         derived=[
-            _d("half_life", "log(2)/k", "time to fall half-way to the plateau", "x", "x"),
-            _d("tau", "1/k", "time constant", "x", "x"),
-            _d("y_at_0", "plateau + span", "value at x = 0", "y", "y"),
+            _d(
+                "half_life", "log(2)/k", "time to cover half the distance to the baseline", "x", "x"
+            ),
+            _d("mean_lifetime", "1/k", "mean lifetime (time constant) 1/k", "x", "x"),
+            _d("value_at_0", "baseline + amplitude", "value at x = 0", "y", "y"),
         ],
         handles=[
-            _h("start", "value at x = 0", "0", "plateau + span", "span"),
-            _h("plateau", "plateau", "5/k", "plateau", "plateau"),
-            _h("half_life", "half-life", "log(2)/k", "plateau + span/2", "k"),
+            _h("start", "value at x = 0", "0", "baseline + amplitude", "amplitude"),
+            _h("baseline", "baseline", "5/k", "baseline", "baseline"),
+            _h("half_life", "half-life", "log(2)/k", "baseline + amplitude/2", "k"),
         ],
         seed=seed_decay,
-        linear=("plateau", "span"),
+        linear=("baseline", "amplitude"),
         grid=grid_rate("k"),
     )
-    two = _model(
-        "two_phase_decay",
-        "plateau + span_fast*exp(-k_fast*x) + span_slow*exp(-k_slow*x)",
+    biexp = _model(
+        "biexponential_decay",
+        "baseline + a1*exp(-k1*x) + a2*exp(-k2*x)",
         [
-            _p("plateau", 0.0, "y", "level the curve decays to"),
-            _p("span_fast", 1.0, "y", "amplitude of the fast phase"),
-            _pos("k_fast", 3.0, "1/x", "rate constant of the fast phase"),
-            _p("span_slow", 1.0, "y", "amplitude of the slow phase"),
-            _pos("k_slow", 0.3, "1/x", "rate constant of the slow phase"),
+            _p("baseline", 0.0, "y", "level the curve settles to at long times"),
+            _p("a1", 1.0, "y", "amplitude of phase 1 (the faster phase)"),
+            _pos("k1", 3.0, "1/x", "rate constant of phase 1 (the larger of the two)"),
+            _p("a2", 1.0, "y", "amplitude of phase 2 (the slower phase)"),
+            _pos("k2", 0.3, "1/x", "rate constant of phase 2 (the smaller of the two)"),
         ],
-        "Sum of two exponential decays to a plateau (the start rule names the faster rate k_fast).",
+        "Biexponential decay toward a baseline, y = baseline + a1*exp(-k1*x) + a2*exp(-k2*x) "
+        "(two compartments or two processes); phase 1 is the faster one (the start rule keeps "
+        "k1 >= k2).",
         derived=[
-            _d("half_life_fast", "log(2)/k_fast", "half-life of the fast phase", "x", "x"),
-            _d("half_life_slow", "log(2)/k_slow", "half-life of the slow phase", "x", "x"),
-            _d(
-                "fraction_fast",
-                "span_fast/(span_fast + span_slow)",
-                "share of the total span in the fast phase",
-                "",
-            ),
+            _d("t_half_1", "log(2)/k1", "half-life of phase 1", "x", "x"),
+            _d("t_half_2", "log(2)/k2", "half-life of phase 2", "x", "x"),
+            _d("share_1", "a1/(a1 + a2)", "phase 1's share of the total amplitude", ""),
         ],
         handles=[
-            _h("start", "value at x = 0", "0", "plateau + span_fast + span_slow", "span_fast"),
-            _h("plateau", "plateau", "5/k_slow", "plateau", "plateau"),
+            _h("start", "value at x = 0", "0", "baseline + a1 + a2", "a1"),
+            _h("baseline", "baseline", "5/k2", "baseline", "baseline"),
             # on the curve at each phase's half-life (the other phase's share included), so a
             # dragged point stays under the pointer
             _h(
-                "half_life_fast",
-                "fast half-life",
-                "log(2)/k_fast",
-                "plateau + span_fast/2 + span_slow*exp(-k_slow*log(2)/k_fast)",
-                "k_fast",
+                "t_half_1",
+                "half-life of phase 1",
+                "log(2)/k1",
+                "baseline + a1/2 + a2*exp(-k2*log(2)/k1)",
+                "k1",
             ),
             _h(
-                "half_life_slow",
-                "slow half-life",
-                "log(2)/k_slow",
-                "plateau + span_slow/2 + span_fast*exp(-k_fast*log(2)/k_slow)",
-                "k_slow",
+                "t_half_2",
+                "half-life of phase 2",
+                "log(2)/k2",
+                "baseline + a2/2 + a1*exp(-k1*log(2)/k2)",
+                "k2",
             ),
         ],
-        seed=seed_two_phase,
-        linear=("plateau", "span_fast", "span_slow"),
-        grid=grid_two_phase,
-        finish=finish_two_phase,
+        seed=seed_biexponential,
+        linear=("baseline", "a1", "a2"),
+        grid=grid_biexponential,
+        finish=finish_biexponential,
     )
     rise = _model(
-        "rise_to_plateau",
-        "y0 + (plateau - y0)*(1 - exp(-k*x))",
+        "exponential_rise",
+        "baseline + amplitude*(1 - exp(-k*x))",
         [
-            _p("y0", 0.0, "y", "value at x = 0"),
-            _p("plateau", 1.0, "y", "level the curve rises to"),
+            _p("baseline", 0.0, "y", "value at x = 0 (fix it at 0 for a curve through the origin)"),
+            _p("amplitude", 1.0, "y", "total rise: the curve levels off at baseline + amplitude"),
             _pos("k", 1.0, "1/x", rate),
         ],
-        "Exponential association: a rise from y0 at x = 0 to a plateau (fix y0 = 0 for a curve "
-        "through the origin).",
+        "Exponential rise from a baseline at x = 0 by an amplitude, y = baseline + "
+        "amplitude*(1 - exp(-k*x)), as in first-order binding or product formation.",
         derived=[
-            _d("half_life", "log(2)/k", "time to rise half-way to the plateau", "x", "x"),
-            _d("tau", "1/k", "time constant", "x", "x"),
+            _d("half_life", "log(2)/k", "time to cover half the rise", "x", "x"),
+            _d("mean_lifetime", "1/k", "mean lifetime (time constant) 1/k", "x", "x"),
+            _d("plateau", "baseline + amplitude", "level the curve rises to", "y", "y"),
         ],
         handles=[
-            _h("start", "value at x = 0", "0", "y0", "y0"),
-            _h("plateau", "plateau", "5/k", "plateau", "plateau"),
-            _h("half_life", "half-life", "log(2)/k", "(y0 + plateau)/2", "k"),
+            _h("start", "value at x = 0", "0", "baseline", "baseline"),
+            _h("plateau", "plateau", "5/k", "baseline + amplitude", "amplitude"),
+            _h("half_life", "half-life", "log(2)/k", "baseline + amplitude/2", "k"),
         ],
         seed=seed_rise,
-        linear=("y0", "plateau"),
+        linear=("baseline", "amplitude"),
         grid=grid_rate("k"),
     )
     growth = _model(
@@ -459,7 +526,7 @@ def _exponential_models() -> list[Model]:
         linear=("y0",),
         grid=grid_rate("k"),
     )
-    return [decay, two, rise, growth]
+    return [decay, biexp, rise, growth]
 
 
 def _enzyme_models() -> list[Model]:
@@ -484,14 +551,14 @@ def _enzyme_models() -> list[Model]:
     )
     si = _model(
         "substrate_inhibition",
-        "Vmax*x/(Km + x*(1 + x/Ki))",
+        "Vmax*x/(Km + x + x**2/Ki)",
         [
             vmax,
             km,
             _pos("Ki", 10.0, "x", "substrate inhibition constant"),
         ],
-        "Michaelis-Menten with inhibition by excess substrate: v = Vmax*S/(Km + S + S**2/Ki); "
-        "the rate peaks at S = sqrt(Km*Ki).",
+        "Substrate inhibition in Haldane's form, v = Vmax*S/(Km + S + S**2/Ki): the rate rises "
+        "as for Michaelis-Menten, peaks at S = sqrt(Km*Ki) and falls at excess substrate.",
         derived=[
             _d("x_peak", "sqrt(Km*Ki)", "substrate concentration of the highest rate", "x", "x"),
             _d("y_peak", "Vmax/(1 + 2*sqrt(Km/Ki))", "highest rate", "y", "y"),
@@ -508,18 +575,19 @@ def _enzyme_models() -> list[Model]:
     )
     hill = _model(
         "hill",
-        "Vmax*x**n_hill/(K_half**n_hill + x**n_hill)",
+        "Vmax*x**n_h/(K05**n_h + x**n_h)",
         [
             vmax,
-            _pos("K_half", 1.0, "x", "concentration giving half of Vmax"),
-            _pos("n_hill", 1.0, "", "Hill coefficient (cooperativity; 1 = Michaelis-Menten)"),
+            _pos("K05", 1.0, "x", "K0.5: the concentration giving half of Vmax"),
+            _pos("n_h", 1.0, "", "Hill coefficient (cooperativity; 1 = Michaelis-Menten)"),
         ],
-        "Hill equation: cooperative binding or kinetics, rising from 0 to Vmax.",
+        "Hill equation: cooperative binding or kinetics, rising from 0 to Vmax, half-way at "
+        "K05 with Hill coefficient n_h.",
         derived=[],
         handles=[
-            _h("vmax", "Vmax asymptote", "10*K_half", "Vmax", "Vmax"),
-            _h("k_half", "half saturation", "K_half", "Vmax/2", "K_half"),
-            _h("steepness", "Hill coefficient", "K_half*3**(1/n_hill)", "3*Vmax/4", "n_hill"),
+            _h("vmax", "Vmax asymptote", "10*K05", "Vmax", "Vmax"),
+            _h("k05", "K0.5 (half Vmax)", "K05", "Vmax/2", "K05"),
+            _h("steepness", "Hill coefficient", "K05*3**(1/n_h)", "3*Vmax/4", "n_h"),
         ],
         seed=seed_hill,
         linear=("Vmax",),
@@ -622,32 +690,43 @@ def _peak_models() -> list[Model]:
 
 def _other_models() -> list[Model]:
     boltz = _model(
-        "boltzmann_sigmoid",
-        "bottom + (top - bottom)/(1 + exp((V50 - x)/slope))",
+        "boltzmann",
+        "low + (high - low)/(1 + exp((x_half - x)/width))",
         [
-            _p("bottom", 0.0, "y", "the lower level"),
-            _p("top", 1.0, "y", "the upper level"),
-            _p("V50", 0.0, "x", "x at the midpoint, e.g. half-activation voltage"),
+            _p("low", 0.0, "y", "the lower level"),
+            _p("high", 1.0, "y", "the upper level"),
             _p(
-                "slope",
+                "x_half",
+                0.0,
+                "x",
+                "x half-way between the levels, e.g. the half-activation voltage",
+            ),
+            _p(
+                "width",
                 1.0,
                 "x",
-                "slope factor: x change for an e-fold change of the odds; positive for a rise "
-                "(activation), negative for a fall (inactivation)",
+                "slope factor: the change in x that changes the odds e-fold; positive for a "
+                "rise with x (activation), negative for a fall (inactivation)",
             ),
         ],
-        "Boltzmann sigmoid in x (e.g. channel activation against voltage). Swapping bottom and "
-        "top while negating the slope gives the same curve; the start rule keeps bottom <= top, "
-        "so the sign of the slope tells a rise from a fall.",
+        "Boltzmann function of x (e.g. channel activation against membrane voltage). The "
+        "curve is unchanged when low and high swap and width changes sign; the start rule "
+        "keeps low <= high, so the sign of width tells a rise from a fall.",
         derived=[],
         handles=[
-            _h("midpoint", "midpoint", "V50", "(top + bottom)/2", "V50"),
-            _h("bottom", "bottom", "V50 - 5*slope", "bottom", "bottom"),
-            _h("top", "top", "V50 + 5*slope", "top", "top"),
-            _h("steepness", "slope", "V50 + slope*log(3)", "bottom + 3*(top - bottom)/4", "slope"),
+            _h("midpoint", "midpoint", "x_half", "(low + high)/2", "x_half"),
+            _h("low", "lower level", "x_half - 5*width", "low", "low"),
+            _h("high", "upper level", "x_half + 5*width", "high", "high"),
+            _h(
+                "steepness",
+                "slope factor",
+                "x_half + width*log(3)",
+                "low + 3*(high - low)/4",
+                "width",
+            ),
         ],
         seed=seed_boltzmann,
-        linear=("bottom", "top"),
+        linear=("low", "high"),
         grid=grid_boltzmann,
         finish=finish_boltzmann,
     )

@@ -1172,7 +1172,7 @@ class Expr:
         Parameters
         ----------
         text : str
-            The formula, e.g. ``"plateau + span*exp(-k*x)"``. At most MAX_LENGTH characters
+            The formula, e.g. ``"baseline + amplitude*exp(-k*x)"``. At most MAX_LENGTH characters
             after stripping and at most MAX_DEPTH levels of nesting.
 
         Returns

@@ -44,12 +44,17 @@ __all__ = ["fit", "point_weights", "resolve_model"]
 
 FloatArray = NDArray[np.float64]
 Weighting = Literal["none", "sigma", "relative", "poisson"]
-Loss = Literal["linear", "soft_l1", "huber"]
-Method = Literal["auto", "leastsq", "trf"]
+Loss = Literal["squared", "pseudo_huber", "huber"]
+Method = Literal["auto", "levenberg_marquardt", "trust_region"]
 
 _WEIGHTINGS = ("none", "sigma", "relative", "poisson")
-_LOSSES = ("linear", "soft_l1", "huber")
-_METHODS = ("auto", "leastsq", "trf")
+_LOSSES = ("squared", "pseudo_huber", "huber")
+_METHODS = ("auto", "levenberg_marquardt", "trust_region")
+_LM = "levenberg_marquardt"
+_TR = "trust_region"
+# Our losses by what they are; scipy's least_squares calls the sum of squares "linear" (rho(z) = z
+# of the squared residual z) and the pseudo-Huber loss 2*(sqrt(1 + z) - 1) "soft_l1".
+_SCIPY_LOSS = {"squared": "linear", "pseudo_huber": "soft_l1", "huber": "huber"}
 # Tolerances far below what double precision can resolve: MINPACK then stops when no further
 # reduction is possible (ier 6-8, "converged_precision"), which is how certified NIST values are
 # reached to 6+ digits. Runs stay short because each step at the minimum is rejected quickly.
@@ -427,7 +432,7 @@ class _Run:
     ssr: float
     objective: float
     code: str
-    nfev: int
+    evaluations: int
     method: str
     strategy: str
     raw: Any = None
@@ -440,16 +445,16 @@ class _Watch:
         self,
         prob: _Problem,
         deadline: float | None,
-        max_nfev: int | None,
+        max_evaluations: int | None,
         cancel: Callable[[], bool] | None,
         progress: Callable[[int, float], None] | None,
     ) -> None:
         self.prob = prob
         self.deadline = deadline
-        self.max_nfev = max_nfev
+        self.max_evaluations = max_evaluations
         self.cancel = cancel
         self.progress = progress
-        self.nfev = 0
+        self.evaluations = 0
         self.best_ssr = math.inf
         self.best_theta: FloatArray | None = None
         self._last_report = 0.0
@@ -459,9 +464,9 @@ class _Watch:
             raise _AbortError("cancelled")
         if self.deadline is not None and time.monotonic() > self.deadline:
             raise _AbortError("stopped_time")
-        if self.max_nfev is not None and self.nfev >= self.max_nfev:
+        if self.max_evaluations is not None and self.evaluations >= self.max_evaluations:
             raise _AbortError("stopped_evaluations")
-        self.nfev += 1
+        self.evaluations += 1
         r = self.prob.weighted(self.prob.values(theta))
         bad = ~np.isfinite(r)
         if bad.any():
@@ -474,16 +479,16 @@ class _Watch:
             now = time.monotonic()
             if now - self._last_report >= 0.1:
                 self._last_report = now
-                self.progress(self.nfev, self.best_ssr)
+                self.progress(self.evaluations, self.best_ssr)
         return r / self.prob.rscale
 
 
 def _objective(prob: _Problem, r: FloatArray) -> float:
-    if prob.loss == "linear":
+    if prob.loss == "squared":
         return float(r @ r)
     c = prob.loss_scale or 1.0
     z = (r / c) ** 2
-    if prob.loss == "soft_l1":
+    if prob.loss == "pseudo_huber":
         rho = 2.0 * (np.sqrt(1.0 + z) - 1.0)
     else:  # huber
         rho = np.where(z <= 1.0, z, 2.0 * np.sqrt(z) - 1.0)
@@ -509,24 +514,24 @@ def _solve(
         return watch.residual(np.array([p[f"p{i}"].value for i in range(len(prob.free))]))
 
     kws: dict[str, Any]
-    if method == "leastsq":
+    if method == _LM:
         kws = {"ftol": _TOL, "xtol": _TOL, "gtol": 0.0, "maxfev": budget}
     else:
         kws = {"ftol": _TOL, "xtol": _TOL, "gtol": _TOL, "max_nfev": budget}
-        if prob.loss != "linear":
-            kws["loss"] = prob.loss
+        if prob.loss != "squared":
+            kws["loss"] = _SCIPY_LOSS[prob.loss]
             kws["f_scale"] = (prob.loss_scale or 1.0) / prob.rscale
         if x_scale is not None:
             kws["x_scale"] = x_scale
-    nfev0 = watch.nfev
+    evals0 = watch.evaluations
     minimizer = lmfit.Minimizer(resid, params, nan_policy="propagate")
     raw: Any = None
     try:
         with warnings.catch_warnings(), np.errstate(all="ignore"):
             warnings.simplefilter("ignore")
-            raw = minimizer.minimize(
-                method="leastsq" if method == "leastsq" else "least_squares", **kws
-            )
+            # lmfit's names: "leastsq" is MINPACK's Levenberg-Marquardt, "least_squares" scipy's
+            # trust-region reflective method
+            raw = minimizer.minimize(method="leastsq" if method == _LM else "least_squares", **kws)
         theta = np.array([raw.params[f"p{i}"].value for i in range(len(prob.free))])
         code = _code_of(raw, method)
     except _AbortError as stop:
@@ -542,7 +547,7 @@ def _solve(
         ssr=ssr,
         objective=_objective(prob, r) if math.isfinite(ssr) else math.inf,
         code=code,
-        nfev=watch.nfev - nfev0,
+        evaluations=watch.evaluations - evals0,
         method=method,
         strategy=strategy,
         raw=raw,
@@ -550,7 +555,7 @@ def _solve(
 
 
 def _code_of(raw: Any, method: str) -> str:
-    if method == "leastsq":
+    if method == _LM:
         ier = raw.ier if hasattr(raw, "ier") else raw.call_kws.get("ier", -99)
         return LEASTSQ_IER.get(int(ier), "not_converged")
     status = getattr(raw, "status", None)
@@ -567,8 +572,8 @@ def _ladder(
 ) -> list[_Run]:
     """Run solvers until one converges and a restart from its point cannot improve it."""
     theta0 = np.array([prob.values0[n] for n in prob.free], dtype=float)
-    first = "trf" if (method == "trf" or prob.loss != "linear") else "leastsq"
-    other = "trf" if first == "leastsq" else "leastsq"
+    first = _TR if (method == _TR or prob.loss != "squared") else _LM
+    other = _TR if first == _LM else _LM
     runs = [_solve(prob, watch, theta0, first, "first run", budget)]
     stop_codes = ("cancelled", "stopped_time")
 
@@ -589,9 +594,9 @@ def _ladder(
     if outcome(b.code).success and not improved:
         return runs
     ladder: list[tuple[str, str, str | None]] = []
-    if prob.loss == "linear" or other == "trf":
-        ladder.append((other if prob.loss == "linear" else "trf", "switch method", None))
-    ladder.append(("trf", "rescaled parameters", "jac"))
+    if prob.loss == "squared" or other == _TR:
+        ladder.append((other if prob.loss == "squared" else _TR, "switch method", None))
+    ladder.append((_TR, "rescaled parameters", "jac"))
     for meth, strategy, xs in ladder:
         runs.append(_solve(prob, watch, best().theta, meth, strategy, budget, xs))
         if runs[-1].code in stop_codes:
@@ -625,7 +630,7 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
     robust loss are in force), which takes certified NIST values to ten digits or more.
     """
     bounded = bool(np.any(np.isfinite(prob.lower)) or np.any(np.isfinite(prob.upper)))
-    meth: Literal["trf", "lm"] = "trf" if (bounded or prob.loss != "linear") else "lm"
+    meth: Literal["trf", "lm"] = "trf" if (bounded or prob.loss != "squared") else "lm"
     w = prob.w
 
     def jac(theta: FloatArray) -> FloatArray:
@@ -637,12 +642,12 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
     if prob.model.expr is not None:
         kws["jac"] = jac
     if meth == "trf":
-        kws["loss"] = prob.loss
+        kws["loss"] = _SCIPY_LOSS[prob.loss]
         kws["f_scale"] = (prob.loss_scale or 1.0) / prob.rscale
         kws["bounds"] = (prob.lower, prob.upper)
         kws["x_scale"] = "jac"
     theta0 = np.clip(best.theta, prob.lower, prob.upper)
-    nfev0 = watch.nfev
+    evals0 = watch.evaluations
     try:
         with warnings.catch_warnings(), np.errstate(all="ignore"):
             warnings.simplefilter("ignore")
@@ -663,8 +668,8 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
         ssr=ssr,
         objective=_objective(prob, r) if math.isfinite(ssr) else math.inf,
         code=code if math.isfinite(ssr) else "not_finite",
-        nfev=watch.nfev - nfev0,
-        method="lm-analytic" if meth == "lm" and "jac" in kws else meth,
+        evaluations=watch.evaluations - evals0,
+        method=_LM if meth == "lm" else _TR,
         strategy="polish",
     )
 
@@ -840,7 +845,7 @@ def _diagnostics(
                         extra={"quantity": q.name, "value": val, "range": [x_lo, x_hi]},
                     )
                 )
-    if prob.loss != "linear":
+    if prob.loss != "squared":
         out.append(
             Diagnostic(
                 "robust_loss",
@@ -894,7 +899,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         Attempt(
             strategy=r.strategy,
             method=r.method,
-            nfev=r.nfev,
+            evaluations=r.evaluations,
             ssr=r.ssr,
             objective=r.objective,
             code=r.code,
@@ -945,7 +950,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         loss_scale=prob.loss_scale,
         absolute_sigma=prob.absolute_sigma,
         method=kept.method if kept is not None else "none",
-        nfev=sum(r.nfev for r in runs),
+        evaluations=sum(r.evaluations for r in runs),
         _lmfit=lm,
     )
 
@@ -957,7 +962,7 @@ def _linear_run(prob: _Problem) -> _Run | None:
         k is None
         or prob.fixed
         or prob.links
-        or prob.loss != "linear"
+        or prob.loss != "squared"
         or np.any(np.isfinite(prob.lower))
         or np.any(np.isfinite(prob.upper))
     ):
@@ -984,12 +989,12 @@ def fit(
     bounds: Mapping[str, tuple[float | None, float | None]] | None = None,
     links: Mapping[str, str] | None = None,
     weights: Weighting | None = None,
-    loss: Loss = "linear",
+    loss: Loss = "squared",
     loss_scale: float | None = None,
     exclude: ArrayLike | None = None,
     absolute_sigma: bool = False,
     method: Method = "auto",
-    max_nfev: int | None = None,
+    max_evaluations: int | None = None,
     timeout: float | None = None,
     cancel: threading.Event | Callable[[], bool] | None = None,
     progress: Callable[[int, float], None] | None = None,
@@ -1000,7 +1005,7 @@ def fit(
     ----------
     model : Model, str or callable
         A :class:`Model`, a catalog name (see :func:`curvewright.catalog`), a formula text such
-        as ``"plateau + span*exp(-k*x)"``, or a Python callable ``f(x, a, b, ...)``.
+        as ``"baseline + amplitude*exp(-k*x)"``, or a Python callable ``f(x, a, b, ...)``.
     x, y : array_like or str
         The observations, or column names of ``data``.
     data : DataFrame, optional
@@ -1017,29 +1022,32 @@ def fit(
     bounds : mapping, optional
         ``{name: (lower, upper)}`` with None for no bound; they replace the model's bounds.
     links : mapping, optional
-        ``{name: "expression of other parameters"}``, e.g. ``{"top": "2*bottom"}``.
+        ``{name: "expression of other parameters"}``, e.g. ``{"a2": "2*a1"}``.
     weights : {"none", "sigma", "relative", "poisson"}, optional
         ``"sigma"``: 1/sigma²; ``"relative"``: 1/y² (constant coefficient of variation);
         ``"poisson"``: 1/|y| (counts). Default: ``"sigma"`` when sigma is given, else none.
-    loss : {"linear", "soft_l1", "huber"}
-        ``"linear"`` is ordinary least squares; the others down-weight outliers.
+    loss : {"squared", "pseudo_huber", "huber"}
+        ``"squared"`` is ordinary least squares (the sum of squared residuals); the robust
+        losses down-weight outliers:
+        ``"pseudo_huber"`` (``2*(sqrt(1 + z) - 1)`` of the squared scaled residual z, a smooth
+        version of Huber's) and ``"huber"`` (quadratic up to the scale, linear beyond).
     loss_scale : float, optional
         Residual size (in weighted units) where the robust loss starts to bend; default 1.
     exclude : array_like, optional
         Rows to leave out: integer indices of the input or a boolean mask (True = exclude).
     absolute_sigma : bool
         Take sigma as exact (covariance not scaled by the residual variance).
-    method : {"auto", "leastsq", "trf"}
-        Solver of the first run: Levenberg-Marquardt (MINPACK) or trust-region reflective.
-        "auto" picks Levenberg-Marquardt unless the loss is robust.
-    max_nfev : int, optional
+    method : {"auto", "levenberg_marquardt", "trust_region"}
+        Solver of the first run: Levenberg-Marquardt (MINPACK) or the trust-region reflective
+        method. "auto" picks Levenberg-Marquardt unless the loss is robust.
+    max_evaluations : int, optional
         Limit on model evaluations over all runs.
     timeout : float, optional
         Limit in seconds; the best point so far is returned, marked as not converged.
     cancel : threading.Event or callable, optional
         Polled at every evaluation; when set (or returning True) the fit stops.
     progress : callable, optional
-        ``progress(nfev, best_ssr)``, called at most about ten times a second.
+        ``progress(evaluations, best_ssr)``, called at most about ten times a second.
 
     Returns
     -------
@@ -1062,10 +1070,14 @@ def fit(
     for name, val, allowed in (("method", method, _METHODS),):
         if val not in allowed:
             raise ParameterError(f"{name} must be one of {allowed}, got {val!r}.")
-    if max_nfev is not None and (
-        isinstance(max_nfev, bool) or not isinstance(max_nfev, (int, np.integer)) or max_nfev < 1
+    if max_evaluations is not None and (
+        isinstance(max_evaluations, bool)
+        or not isinstance(max_evaluations, (int, np.integer))
+        or max_evaluations < 1
     ):
-        raise ParameterError(f"max_nfev must be a positive whole number, got {max_nfev!r}.")
+        raise ParameterError(
+            f"max_evaluations must be a positive whole number, got {max_evaluations!r}."
+        )
     if timeout is not None:
         timeout = as_number(timeout, "timeout")
         if not timeout > 0:
@@ -1120,8 +1132,8 @@ def fit(
     if lin is not None:
         return _finish(prob, [lin])
     deadline = None if timeout is None else time.monotonic() + timeout
-    watch = _Watch(prob, deadline, max_nfev, cancel_fn, progress)
-    budget = max_nfev if max_nfev is not None else 2000 * (len(prob.free) + 1)
+    watch = _Watch(prob, deadline, max_evaluations, cancel_fn, progress)
+    budget = max_evaluations if max_evaluations is not None else 2000 * (len(prob.free) + 1)
     runs = _ladder(prob, watch, method, budget)
     best = min(runs, key=lambda r: r.objective)
     if runs[-1].code not in ("cancelled", "stopped_time") and math.isfinite(best.objective):
@@ -1130,7 +1142,7 @@ def fit(
         if polished.objective <= best.objective and outcome(polished.code).success:
             runs.append(polished)
     if progress is not None:
-        progress(watch.nfev, watch.best_ssr)
+        progress(watch.evaluations, watch.best_ssr)
     try:
         return _finish(prob, runs)
     except ModelError:

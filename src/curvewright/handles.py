@@ -455,8 +455,8 @@ def move_handle(
     Examples
     --------
     >>> from curvewright import catalog
-    >>> m = catalog()["decay_to_plateau"]
-    >>> v = move_handle(m, {"plateau": 0, "span": 10, "k": 1.0}, "half_life", (2.0, 5.0))
+    >>> m = catalog()["exponential_decay"]
+    >>> v = move_handle(m, {"baseline": 0, "amplitude": 10, "k": 1.0}, "half_life", (2.0, 5.0))
     >>> round(v["k"], 6)  # ln 2 / 2
     0.346574
     """

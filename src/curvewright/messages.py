@@ -76,7 +76,7 @@ _ROWS: tuple[Outcome, ...] = (
     Outcome(
         "stopped_evaluations",
         False,
-        "stopped: evaluation limit reached before convergence; raise max_nfev or give "
+        "stopped: evaluation limit reached before convergence; raise max_evaluations or give "
         "better starting values",
     ),
     Outcome(

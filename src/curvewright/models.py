@@ -322,7 +322,7 @@ class Model:
         domain: Domain | None = None,
         description: str = "",
     ) -> Model:
-        """Make a model from a formula such as ``"plateau + span*exp(-k*x)"``.
+        """Make a model from a formula such as ``"baseline + amplitude*exp(-k*x)"``.
 
         Parameters
         ----------

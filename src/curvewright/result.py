@@ -52,7 +52,10 @@ HIGH_CORRELATION = 0.99
 NOT_IDENTIFIED_RSE = 1.0
 
 _FORMAT = "curvewright.FitResult"
-_VERSION = 1
+#: Version of the saved form. 2: the catalog's own model and parameter names, the solver option
+#: names levenberg_marquardt / trust_region / pseudo_huber and ``evaluations`` for the
+#: evaluation counts; results saved as version 1 used other names and cannot be read.
+_VERSION = 2
 
 
 # ------------------------------------------------------------------------------- records
@@ -122,18 +125,17 @@ class Attempt:
     strategy : str
         Why this run was made: ``"first run"``, ``"restart from best point"``,
         ``"switch method"``, ``"rescaled parameters"``, ``"multi-start"``, ``"polish"`` (the
-        last run, from the best point with the analytic Jacobian) or ``"linear"``.
+        last run, from the best point, with the analytic Jacobian for a formula) or
+        ``"linear"``.
     method : str
-        ``"leastsq"`` (Levenberg-Marquardt, MINPACK, numerical derivatives), ``"lm"`` or
-        ``"lm-analytic"`` (MINPACK through ``scipy.optimize.least_squares``, the latter with the
-        model's analytic Jacobian), ``"trf"`` (scipy's trust-region reflective method), or
-        ``"linear"`` (QR, no iteration).
-    nfev : int
+        ``"levenberg_marquardt"`` (MINPACK), ``"trust_region"`` (the trust-region reflective
+        method of ``scipy.optimize.least_squares``) or ``"linear"`` (QR, no iteration).
+    evaluations : int
         Model evaluations this run used (finite-difference evaluations included).
     ssr : float
         Weighted sum of squared residuals at the run's end point.
     objective : float
-        What the run minimised: ``ssr`` for the linear loss, else the robust loss sum.
+        What the run minimised: ``ssr`` for the squared loss, else the robust loss sum.
     code : str
         Outcome code (see :mod:`curvewright.messages`).
     message : str
@@ -142,7 +144,7 @@ class Attempt:
 
     strategy: str
     method: str
-    nfev: int
+    evaluations: int
     ssr: float
     objective: float
     code: str
@@ -153,7 +155,7 @@ class Attempt:
         return {
             "strategy": self.strategy,
             "method": self.method,
-            "nfev": self.nfev,
+            "evaluations": self.evaluations,
             "ssr": _enc(self.ssr),
             "objective": _enc(self.objective),
             "code": self.code,
@@ -166,7 +168,7 @@ class Attempt:
         return cls(
             strategy=str(d["strategy"]),
             method=str(d["method"]),
-            nfev=int(d["nfev"]),
+            evaluations=int(d["evaluations"]),
             ssr=_dec(d["ssr"]),
             objective=_dec(d["objective"]),
             code=str(d["code"]),
@@ -300,11 +302,11 @@ class FitResult:
         ``"none"``, ``"sigma"``, ``"relative"`` or ``"poisson"`` (after resolving "auto").
     loss : str
     loss_scale : float or None
-        The robust loss's residual scale (None for the linear loss).
+        The robust loss's residual scale (None for the squared loss).
     absolute_sigma : bool
     method : str
         Method of the attempt whose solution was kept.
-    nfev : int
+    evaluations : int
         Model evaluations over all attempts.
     """
 
@@ -344,7 +346,7 @@ class FitResult:
     loss_scale: float | None
     absolute_sigma: bool
     method: str
-    nfev: int
+    evaluations: int
     _lmfit: Any = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -403,11 +405,6 @@ class FitResult:
         out = np.concatenate([d.y_used for d in self.datasets])
         out.setflags(write=False)
         return out
-
-    @property
-    def chisqr(self) -> float:
-        """Alias of ``ssr`` (the weighted sum of squares; lmfit's name)."""
-        return self.ssr
 
     @property
     def weighted_residuals(self) -> FloatArray:
@@ -549,7 +546,7 @@ class FitResult:
         lower, upper = value - q * se, value + q * se
         base_param = _power_of(d)
         if base_param is not None and base_param[1] in self.free:
-            # EC50 = 10**logEC50 (or exp): the interval is the parameter's interval carried
+            # ec50 = 10**log_ec50 (or exp): the interval is the parameter's interval carried
             # through the transform (common practice), asymmetric and never negative, where
             # the symmetric delta-method interval could cross zero.
             base, name = base_param
@@ -745,11 +742,11 @@ class FitResult:
         lines.append(
             f"weighting:  {wt}" + ("; sigma taken as exact" if self.absolute_sigma else "")
         )
-        if self.loss != "linear":
+        if self.loss != "squared":
             lines.append(f"loss:       {self.loss} (residual scale {self.loss_scale:.6g})")
         lines.append(f"outcome:    {'OK' if self.success else 'NOT CONVERGED'} - {self.message}")
         lines.append(
-            f"            method {self.method}, {self.nfev} model evaluations, "
+            f"            method {self.method}, {self.evaluations} model evaluations, "
             f"{len(self.attempts)} solver run(s)"
         )
         lines.append("")
@@ -911,7 +908,7 @@ class FitResult:
             "loss_scale": _enc(self.loss_scale),
             "absolute_sigma": self.absolute_sigma,
             "method": self.method,
-            "nfev": self.nfev,
+            "evaluations": self.evaluations,
         }
 
     def to_json(self, **kwargs: Any) -> str:
@@ -946,13 +943,27 @@ class FitResult:
         Raises
         ------
         ModelError
-            The result came from a Python function and ``model`` was not given, or the given
-            model does not match the stored one.
+            Not a saved result, or saved in another format version (format 1 used older
+            names: refit); the result came from a Python function and ``model`` was not given,
+            or the given model does not match the stored one.
         """
         if d.get("format") != _FORMAT:
             raise ModelError(
                 f"this is not a saved curvewright fit result (format {d.get('format')!r}); "
                 "load the output of FitResult.to_json()."
+            )
+        version = d.get("version")
+        if version != _VERSION:
+            if version == 1:
+                raise ModelError(
+                    "this result was saved in curvewright result format 1, which used older "
+                    "model, parameter and option names; it cannot be read by this version. "
+                    "Refit the data with this version and save the new result."
+                )
+            raise ModelError(
+                f"this result was saved in curvewright result format {version!r}; this version "
+                f"reads format {_VERSION} only. Refit the data with this version, or load the "
+                "result with the curvewright version that saved it."
             )
         try:
             return cls._from_dict(d, model)
@@ -1008,7 +1019,7 @@ class FitResult:
             loss_scale=None if d["loss_scale"] is None else _dec(d["loss_scale"]),
             absolute_sigma=bool(d["absolute_sigma"]),
             method=str(d["method"]),
-            nfev=int(d["nfev"]),
+            evaluations=int(d["evaluations"]),
         )
 
     @classmethod

@@ -7,7 +7,7 @@ Two layers:
   public because linearised fits (issue 3) reuse them.
 * Start rules. A catalog model's rule (:class:`SeparableRule`) takes a first estimate from a
   linearisation, then improves it cheaply by *separable* least squares: most catalog models are
-  affine in some parameters (plateaus, spans, Vmax, amplitudes), so for trial values of the others
+  affine in some parameters (levels, amplitudes, Vmax), so for trial values of the others
   those are solved exactly by linear least squares (variable projection, Golub & Pereyra 1973) and
   only one to three nonlinear parameters remain to search. That makes the rules robust to noise,
   to curves that do not reach their plateau, and to data in any order.
@@ -71,9 +71,9 @@ class EnzymeEstimate(NamedTuple):
 
 
 class RateEstimate(NamedTuple):
-    """``y = plateau + span*exp(-k*x)``: span (value above the plateau at x = 0) and rate k."""
+    """``y = baseline + amplitude*exp(-k*x)``: amplitude (value above the baseline at x = 0), k."""
 
-    span: float
+    amplitude: float
     k: float
 
 
@@ -85,7 +85,7 @@ class PowerEstimate(NamedTuple):
 
 
 class LogitEstimate(NamedTuple):
-    """``log10(f/(1-f)) = slope*(t - mid)`` with ``f = (y - bottom)/(top - bottom)``."""
+    """``log10(f/(1-f)) = slope*(t - mid)``, f the fraction of the way between the two levels."""
 
     mid: float
     slope: float
@@ -215,25 +215,25 @@ def eadie_hofstee(x: ArrayLike, y: ArrayLike) -> EnzymeEstimate:
     return EnzymeEstimate(a, -b)
 
 
-def semilog_rate(x: ArrayLike, y: ArrayLike, plateau: float) -> RateEstimate:
-    """Span and rate constant of ``y = plateau + span*exp(-k*x)`` from a log-linear line.
+def semilog_rate(x: ArrayLike, y: ArrayLike, baseline: float) -> RateEstimate:
+    """Amplitude and rate constant of ``y = baseline + amplitude*exp(-k*x)`` from a log-linear line.
 
-    ``log|y - plateau| = log|span| - k*x``, fitted by ordinary least squares over the points on
-    the majority side of the plateau whose distance from it is more than 5 % of the largest
-    distance (points near the plateau carry almost no information on k and their logarithm
-    amplifies noise). A rising exponential (growth) gives a negative k.
+    ``log|y - baseline| = log|amplitude| - k*x``, fitted by ordinary least squares over the
+    points on the majority side of the baseline whose distance from it is more than 5 % of the
+    largest distance (points near the baseline carry almost no information on k and their
+    logarithm amplifies noise). A rising exponential (growth) gives a negative k.
 
     Parameters
     ----------
     x, y : array_like
         Data (any order).
-    plateau : float
+    baseline : float
         The level the curve approaches (0 for pure exponential decay or growth).
 
     Returns
     -------
     RateEstimate
-        ``(span, k)``; ``span`` has the sign of ``y - plateau``.
+        ``(amplitude, k)``; ``amplitude`` has the sign of ``y - baseline``.
 
     Raises
     ------
@@ -241,10 +241,10 @@ def semilog_rate(x: ArrayLike, y: ArrayLike, plateau: float) -> RateEstimate:
         Fewer than two usable points, or all at one x.
     """
     xa, ya = _vectors(x, y, "semilog_rate")
-    if not math.isfinite(plateau):
-        raise DataError(f"semilog_rate: plateau must be finite, got {plateau}.")
+    if not math.isfinite(baseline):
+        raise DataError(f"semilog_rate: baseline must be finite, got {baseline}.")
     keep = np.isfinite(xa) & np.isfinite(ya)
-    xa, d = xa[keep], ya[keep] - plateau
+    xa, d = xa[keep], ya[keep] - baseline
     sign = 1.0 if np.sum(d > 0) >= np.sum(d < 0) else -1.0
     dist = sign * d
     use = dist > 0
@@ -282,30 +282,32 @@ def loglog_power(x: ArrayLike, y: ArrayLike) -> PowerEstimate:
 def logit_line(
     x: ArrayLike,
     y: ArrayLike,
-    bottom: float,
-    top: float,
+    low_x_level: float,
+    high_x_level: float,
     *,
     log_x: bool = True,
     trim: float = 0.05,
 ) -> LogitEstimate:
     """Midpoint and slope of a sigmoid from the logit line.
 
-    With ``f = (y - bottom)/(top - bottom)`` and ``t = log10(x)`` (or ``t = x`` when
-    ``log_x=False``), fits ``log10(f/(1-f)) = slope*(t - mid)`` by ordinary least squares over
-    the points with ``trim < f < 1 - trim`` (the logit of points at the plateaus is dominated by
-    noise). For the 4-parameter logistic written as a rise from ``bottom`` to ``top``, ``mid`` is
-    log10 EC50 and ``slope`` the Hill slope; a falling curve gives a negative slope.
+    With ``f = (y - low_x_level)/(high_x_level - low_x_level)`` and ``t = log10(x)`` (or
+    ``t = x`` when ``log_x=False``), fits ``log10(f/(1-f)) = slope*(t - mid)`` by ordinary least
+    squares over the points with ``trim < f < 1 - trim`` (the logit of points at the levels is
+    dominated by noise). For a 4-parameter logistic going from ``zero_dose`` (low x) to
+    ``full_effect`` (high x), ``mid`` is log10 of the EC50 or IC50 and ``slope`` the Hill
+    coefficient, whichever way the response moves.
 
     Parameters
     ----------
     x, y : array_like
         Data; with ``log_x`` only points with ``x > 0`` are used (zero-dose controls are not).
-    bottom, top : float
-        The levels at the low-x and high-x ends (``top < bottom`` is allowed).
+    low_x_level, high_x_level : float
+        The levels the curve approaches at the low-x and the high-x end (either may be the
+        larger).
     log_x : bool
         Whether the sigmoid is in log10 x (dose-response) or in x (Boltzmann, logistic growth).
     trim : float
-        Fraction of the span excluded at each plateau.
+        Fraction of the change between the levels excluded at each end.
 
     Returns
     -------
@@ -315,24 +317,26 @@ def logit_line(
     Raises
     ------
     DataError
-        ``top == bottom``, or fewer than two points strictly between the plateaus.
+        The two levels are equal, or fewer than two points lie strictly between them.
     """
     xa, ya = _vectors(x, y, "logit_line")
-    if not (math.isfinite(bottom) and math.isfinite(top)) or top == bottom:
+    lo, hi = low_x_level, high_x_level
+    if not (math.isfinite(lo) and math.isfinite(hi)) or lo == hi:
         raise DataError(
-            f"logit_line: bottom and top must be finite and different; got {bottom}, {top}."
+            f"logit_line: low_x_level and high_x_level must be finite and different; got {lo}, "
+            f"{hi}."
         )
     keep = np.isfinite(xa) & np.isfinite(ya)
     if log_x:
         keep &= xa > 0
     xa, ya = xa[keep], ya[keep]
-    f = (ya - bottom) / (top - bottom)
+    f = (ya - lo) / (hi - lo)
     use = (f > trim) & (f < 1.0 - trim)
     t = np.log10(xa[use]) if log_x else xa[use]
     fu = f[use]
     a, b = _ols_line(t, np.log10(fu / (1.0 - fu)), "logit_line")
     if b == 0:
-        raise DataError("logit_line: the points between the plateaus show no trend in x.")
+        raise DataError("logit_line: the points between the levels show no trend in x.")
     return LogitEstimate(-a / b, b)
 
 
@@ -514,7 +518,7 @@ class _Problem:
         r = self.residual(values)
         return float(np.dot(r, r))
 
-    def search(self, base: Mapping[str, float], max_nfev: int) -> dict[str, float]:
+    def search(self, base: Mapping[str, float], budget: int) -> dict[str, float]:
         """Short least-squares run on the nonlinear parameters (linear ones projected out)."""
         if not self.nonlinear:
             return self.full(np.zeros(0), base)
@@ -534,7 +538,7 @@ class _Problem:
 
         try:
             sol = least_squares(
-                fun, u0 / typ, bounds=(lo / typ, hi / typ), x_scale="jac", max_nfev=max_nfev
+                fun, u0 / typ, bounds=(lo / typ, hi / typ), x_scale="jac", max_nfev=budget
             )
             u = sol.x * typ
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
@@ -548,14 +552,14 @@ def _polish(
     y: FloatArray,
     values: Mapping[str, float],
     held: Mapping[str, float],
-    max_nfev: int,
+    budget: int,
 ) -> dict[str, float]:
     """Least squares on every free parameter at once, from ``values``; keeps the better."""
     prob = _Problem.make(model, x, y, held, ())
     if not prob.nonlinear:
         return dict(values)
     start = {**values, **held}
-    refined = prob.search(start, max_nfev)
+    refined = prob.search(start, budget)
     return refined if prob.ssr(refined) <= prob.ssr(start) else start
 
 
@@ -587,7 +591,7 @@ class SeparableRule:
         ``grid(x, y, seed) -> {name: candidate values}`` for nonlinear parameters: extra trial
         points in case the linearisation misleads (noisy or partial curves).
     finish : callable, optional
-        Tidies the result, e.g. orders the two rates of a two-phase decay.
+        Tidies the result, e.g. orders the two rates of a biexponential decay.
     model : Model, optional
         The model the rule belongs to (set by the catalog); a model passed at call time wins,
         so changed bounds are respected.
@@ -642,7 +646,7 @@ class SeparableRule:
         order = np.argsort([prob.ssr(c) for c in projected])
         best = projected[int(order[0])]
         best_ssr = prob.ssr(best)
-        nfev = 60 * (len(prob.nonlinear) + 1)
+        budget = 60 * (len(prob.nonlinear) + 1)
         seen: list[FloatArray] = []
         for i in order:
             if len(seen) >= self.n_refine:
@@ -652,7 +656,7 @@ class SeparableRule:
             if any(np.allclose(key, s, rtol=1e-3, atol=1e-9) for s in seen):
                 continue
             seen.append(key)
-            r = prob.search(c, nfev)
+            r = prob.search(c, budget)
             s = prob.ssr(r)
             if s < best_ssr:
                 best, best_ssr = r, s
@@ -730,10 +734,10 @@ def _tail_level(x: FloatArray, y: FloatArray) -> float:
 
 
 def seed_decay(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """``plateau + span*exp(-k*x)``: plateau from the tail, span and k from the semilog line."""
-    plateau = _tail_level(x, y)
-    span, k = semilog_rate(x, y, plateau)
-    return {"plateau": plateau, "span": span, "k": abs(k)}
+    """``baseline + amplitude*exp(-k*x)``: baseline from the tail, then the semilog line."""
+    baseline = _tail_level(x, y)
+    amplitude, k = semilog_rate(x, y, baseline)
+    return {"baseline": baseline, "amplitude": amplitude, "k": abs(k)}
 
 
 def grid_rate(name: str) -> GridFn:
@@ -745,57 +749,56 @@ def grid_rate(name: str) -> GridFn:
     return grid
 
 
-def seed_two_phase(x: FloatArray, y: FloatArray) -> dict[str, float]:
+def seed_biexponential(x: FloatArray, y: FloatArray) -> dict[str, float]:
     """Curve peeling (method of residuals, common practice).
 
-    The slow phase comes from the late half, the fast phase from what the slow one leaves early on.
+    The slower phase (2) comes from the late half, the faster phase (1) from what phase 2
+    leaves early on.
     """
-    plateau = _tail_level(x, y)
+    baseline = _tail_level(x, y)
     ux, my = _means_by_x(x, y)
     half = ux.size // 2
-    slow_span, k_slow = semilog_rate(ux[half:], my[half:], plateau)
-    early = my[:half] - plateau - slow_span * np.exp(-abs(k_slow) * ux[:half])
-    fast_span, k_fast = semilog_rate(ux[:half], early + 0.0, 0.0)
-    k_slow, k_fast = abs(k_slow), abs(k_fast)
-    if k_fast < k_slow:
-        k_fast = 3.0 * k_slow
-    return {
-        "plateau": plateau,
-        "span_fast": fast_span,
-        "k_fast": k_fast,
-        "span_slow": slow_span,
-        "k_slow": k_slow,
-    }
+    a2, k2 = semilog_rate(ux[half:], my[half:], baseline)
+    early = my[:half] - baseline - a2 * np.exp(-abs(k2) * ux[:half])
+    a1, k1 = semilog_rate(ux[:half], early + 0.0, 0.0)
+    k2, k1 = abs(k2), abs(k1)
+    if k1 < k2:
+        k1 = 3.0 * k2
+    return {"baseline": baseline, "a1": a1, "k1": k1, "a2": a2, "k2": k2}
 
 
-def grid_two_phase(
+def grid_biexponential(
     x: FloatArray, y: FloatArray, seed: Mapping[str, float]
 ) -> dict[str, FloatArray]:
-    """Pairs of rates over the data's time scales (the refinement sorts out which is fast)."""
+    """Pairs of rates over the data's time scales (the refinement sorts out which is faster)."""
     g = _rate_grid(x, 8)
-    return {"k_fast": g, "k_slow": g}
+    return {"k1": g, "k2": g}
 
 
-def finish_two_phase(v: dict[str, float]) -> dict[str, float]:
-    """Name the phases so that ``k_fast >= k_slow``."""
-    if v["k_fast"] < v["k_slow"]:
+def finish_biexponential(v: dict[str, float]) -> dict[str, float]:
+    """Number the phases so that phase 1 is the faster: ``k1 >= k2``."""
+    if v["k1"] < v["k2"]:
         v = dict(v)
-        v["k_fast"], v["k_slow"] = v["k_slow"], v["k_fast"]
-        v["span_fast"], v["span_slow"] = v["span_slow"], v["span_fast"]
+        v["k1"], v["k2"] = v["k2"], v["k1"]
+        v["a1"], v["a2"] = v["a2"], v["a1"]
     return v
 
 
 def seed_rise(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """``y0 + (plateau - y0)*(1 - exp(-k*x))``: plateau from the tail, k from the semilog line."""
-    plateau = _tail_level(x, y)
-    span, k = semilog_rate(x, y, plateau)
-    return {"y0": plateau + span, "plateau": plateau, "k": abs(k)}
+    """``baseline + amplitude*(1 - exp(-k*x))``: the level reached from the tail, then semilog.
+
+    Written as a decay toward that level, ``level - amplitude*exp(-k*x)``, the semilog line
+    gives ``-amplitude`` and k.
+    """
+    level = _tail_level(x, y)
+    toward, k = semilog_rate(x, y, level)
+    return {"baseline": level + toward, "amplitude": -toward, "k": abs(k)}
 
 
 def seed_growth(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """``y0*exp(k*x)``: log-linear line through the data (plateau 0)."""
-    span, k = semilog_rate(x, y, 0.0)
-    return {"y0": span, "k": abs(k)}
+    """``y0*exp(k*x)``: log-linear line through the data (baseline 0)."""
+    y0, k = semilog_rate(x, y, 0.0)
+    return {"y0": y0, "k": abs(k)}
 
 
 def seed_mm(x: FloatArray, y: FloatArray) -> dict[str, float]:
@@ -841,19 +844,19 @@ def seed_substrate_inhibition(x: FloatArray, y: FloatArray) -> dict[str, float]:
 
 
 def seed_hill(x: FloatArray, y: FloatArray) -> dict[str, float]:
-    """``Vmax*x**n/(K**n + x**n)``: Vmax a little above the largest response, then the logit."""
+    """``Vmax*x**n_h/(K05**n_h + x**n_h)``: Vmax just above the largest response, then logit."""
     ux, my = _means_by_x(x, y)
     vmax = 1.05 * float(np.max(my))
     try:
         mid, slope = logit_line(ux, my, 0.0, vmax)
-        return {"Vmax": vmax, "K_half": 10.0**mid, "n_hill": max(abs(slope), 0.1)}
+        return {"Vmax": vmax, "K05": 10.0**mid, "n_h": max(abs(slope), 0.1)}
     except DataError:
-        return {"Vmax": vmax, "K_half": float(np.median(ux[ux > 0])), "n_hill": 1.0}
+        return {"Vmax": vmax, "K05": float(np.median(ux[ux > 0])), "n_h": 1.0}
 
 
 def grid_hill(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
-    """Half-saturation over the concentration range, Hill coefficients 0.5 to 4."""
-    return {"K_half": _conc_grid(x, 9), "n_hill": np.array([0.5, 1.0, 2.0, 4.0])}
+    """K0.5 over the concentration range, Hill coefficients 0.5 to 4."""
+    return {"K05": _conc_grid(x, 9), "n_h": np.array([0.5, 1.0, 2.0, 4.0])}
 
 
 def _log_mid_fallback(x: FloatArray, y: FloatArray, lo_level: float, hi_level: float) -> float:
@@ -873,12 +876,13 @@ def _log_mid_fallback(x: FloatArray, y: FloatArray, lo_level: float, hi_level: f
 
 
 def seed_logistic(kind: str) -> SeedFn:
-    """Dose-response seed: plateaus from the ends (zero-dose controls included), logit line.
+    """Dose-response seed: the two levels from the ends (zero-dose controls included), logit line.
 
-    ``kind`` is ``"inhibition"`` (the value at x = 0 is ``top``), ``"stimulation"`` (the value
-    at x = 0 is ``bottom``) or ``"three"`` (bottom fixed at 0, rising to ``top``).
+    ``kind`` is ``"inhibition"``, ``"stimulation"`` (both: ``zero_dose`` from the low-dose end,
+    ``full_effect`` from the high-dose end) or ``"three"`` (zero response at zero dose, rising
+    to ``full_effect``).
     """
-    mid_name = "logIC50" if kind == "inhibition" else "logEC50"
+    mid_name = "log_ic50" if kind == "inhibition" else "log_ec50"
 
     def seed(x: FloatArray, y: FloatArray) -> dict[str, float]:
         low_end, high_end = _end_levels(x, y)
@@ -886,23 +890,19 @@ def seed_logistic(kind: str) -> SeedFn:
             low_end = 0.0
         try:
             mid, slope = logit_line(x, y, low_end, high_end)
-            hill = min(max(abs(slope), 0.2), 5.0)
+            n_h = min(max(abs(slope), 0.2), 5.0)
         except DataError:
-            mid, hill = _log_mid_fallback(x, y, low_end, high_end), 1.0
-        out = {mid_name: mid, "hill": hill}
-        if kind == "inhibition":
-            out.update(top=low_end, bottom=high_end)
-        elif kind == "stimulation":
-            out.update(bottom=low_end, top=high_end)
-        else:
-            out.update(top=high_end)
+            mid, n_h = _log_mid_fallback(x, y, low_end, high_end), 1.0
+        out = {mid_name: mid, "n_h": n_h, "full_effect": high_end}
+        if kind != "three":
+            out["zero_dose"] = low_end
         return out
 
     return seed
 
 
 def grid_logistic(mid_name: str, asymmetry: bool = False) -> GridFn:
-    """log10 midpoints over the dose range (a decade beyond each end), a few Hill slopes."""
+    """log10 midpoints over the dose range (a decade beyond each end), a few Hill coefficients."""
 
     def grid(x: FloatArray, y: FloatArray, seed: Mapping[str, float]) -> dict[str, FloatArray]:
         pos = x[x > 0]
@@ -914,13 +914,13 @@ def grid_logistic(mid_name: str, asymmetry: bool = False) -> GridFn:
                 3.0,
             )
         )
-        g: dict[str, FloatArray] = {
+        cands: dict[str, FloatArray] = {
             mid_name: np.linspace(lo - 1.0, hi + 1.0, 9),
-            "hill": np.array([0.5, 1.0, 2.0, 4.0]),
+            "n_h": np.array([0.5, 1.0, 2.0, 4.0]),
         }
         if asymmetry:
-            g["s"] = np.array([0.3, 1.0, 3.0])
-        return g
+            cands["g"] = np.array([0.3, 1.0, 3.0])
+        return cands
 
     return grid
 
@@ -954,8 +954,8 @@ def seed_gompertz(x: FloatArray, y: FloatArray) -> dict[str, float]:
     ux, my = _means_by_x(x, y)
     K = 1.05 * float(np.max(my))
     pos = my > 0
-    span, r = semilog_rate(ux[pos], np.log(K / my[pos]), 0.0)
-    return {"N0": K * math.exp(-max(span, 1e-9)), "K": K, "r": max(abs(r), 1e-12)}
+    log_ratio, r = semilog_rate(ux[pos], np.log(K / my[pos]), 0.0)
+    return {"N0": K * math.exp(-max(log_ratio, 1e-9)), "K": K, "r": max(abs(r), 1e-12)}
 
 
 def _peak_seed(x: FloatArray, y: FloatArray) -> tuple[float, float, float, float]:
@@ -1024,15 +1024,15 @@ def seed_boltzmann(x: FloatArray, y: FloatArray) -> dict[str, float]:
         k = 1.0 / (slope * _LN10)
     except DataError:
         mid, k = float(np.median(x)), 0.1 * _x_scale(x)
-    return {"bottom": low_end, "top": high_end, "V50": mid, "slope": k}
+    return {"low": low_end, "high": high_end, "x_half": mid, "width": k}
 
 
 def finish_boltzmann(v: dict[str, float]) -> dict[str, float]:
-    """Keep ``bottom <= top``: swapping the levels and negating the slope is the same curve."""
-    if v["top"] < v["bottom"]:
+    """Keep ``low <= high``: swapping the levels and negating the width is the same curve."""
+    if v["high"] < v["low"]:
         v = dict(v)
-        v["bottom"], v["top"] = v["top"], v["bottom"]
-        v["slope"] = -v["slope"]
+        v["low"], v["high"] = v["high"], v["low"]
+        v["width"] = -v["width"]
     return v
 
 
@@ -1043,8 +1043,8 @@ def grid_boltzmann(
     s = _x_scale(x)
     mags = s * np.array([0.02, 0.07, 0.3])
     return {
-        "V50": np.linspace(float(np.min(x)), float(np.max(x)), 7),
-        "slope": np.concatenate([mags, -mags]),
+        "x_half": np.linspace(float(np.min(x)), float(np.max(x)), 7),
+        "width": np.concatenate([mags, -mags]),
     }
 
 
@@ -1556,7 +1556,7 @@ def _generic(
     prob = _Problem.make(model, x, y, held, linear)
     d = len(prob.nonlinear)
     n = n_starts if n_starts is not None else 12 + 8 * d
-    nfev = 15 * (d + 1)
+    budget = 15 * (d + 1)
     results: list[tuple[float, dict[str, float]]] = []
     polished: list[tuple[float, dict[str, float]]] = []
     done: set[int] = set()
@@ -1571,7 +1571,7 @@ def _generic(
         if rnd == 0:
             starts += _feature_starts(model, x, y, prob.nonlinear, ranges, base0, seed)
         for s in starts:
-            r = prob.search(s, nfev) if prob.nonlinear else prob.project(s)
+            r = prob.search(s, budget) if prob.nonlinear else prob.project(s)
             results.append((prob.ssr(r), r))
         order = sorted(range(len(results)), key=lambda i: results[i][0])
         for i in [i for i in order if i not in done][:3]:

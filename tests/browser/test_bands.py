@@ -33,7 +33,7 @@ import curvewright as cw
 rng = np.random.default_rng(20261202)
 conc = np.repeat(10.0 ** np.arange(-9.0, -3.9, 0.7), 3)
 resp = 5 + 90 / (1 + (conc / 10 ** -6.6) ** 1.2) + rng.normal(0, 3.0, conc.size)
-w = cw.CurveFitter(pd.DataFrame({"conc": conc, "response": resp}), x="conc", y="response",
+w = cw.CurveBench(pd.DataFrame({"conc": conc, "response": resp}), x="conc", y="response",
                    model="inhibition_4pl")
 w
 """
@@ -61,7 +61,7 @@ import curvewright as cw
 rng = np.random.default_rng(20261203)
 x = np.linspace(0.0, 10.0, 30)
 y = 1 + 0.5 * x - 0.08 * x**2 + rng.normal(0, 0.2, x.size)
-w = cw.CurveFitter(x, y, model="straight_line")
+w = cw.CurveBench(x, y, model="straight_line")
 w
 """
 DEGREE_STATE = """

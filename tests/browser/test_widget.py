@@ -24,11 +24,11 @@ pytestmark = pytest.mark.browser
 
 QUICKSTART = harness.REPO / "examples" / "quickstart.ipynb"
 
-# Stimulation dose-response (curvewright's stimulation_4pl:
-# top + (bottom - top)/(1 + (x/EC50)^hill)), 12 concentrations x 3 replicates, normal noise
-# SD 2, one planted outlier (row 33, the first replicate at the highest concentration, 56 units
-# below the plateau).
-TRUTH = {"bottom": 4.0, "top": 96.0, "logEC50": -6.3, "hill": 1.1}
+# Stimulation dose-response (curvewright's stimulation_4pl, rising from zero_dose to
+# full_effect: full_effect + (zero_dose - full_effect)/(1 + (x/EC50)**n_h)), 12 concentrations
+# x 3 replicates, normal noise SD 2, one planted outlier (row 33, the first replicate at the
+# highest concentration, 56 units below the full-effect level).
+TRUTH = {"zero_dose": 4.0, "full_effect": 96.0, "log_ec50": -6.3, "n_h": 1.1}
 OUTLIER = 33
 SETUP = f"""
 import json
@@ -39,11 +39,12 @@ import curvewright as cw
 TRUTH = {TRUTH!r}
 rng = np.random.default_rng(20261201)
 conc = np.repeat(10.0 ** np.arange(-9.0, -3.49, 0.5), 3)
-u = (conc / 10 ** TRUTH["logEC50"]) ** TRUTH["hill"]
-resp = TRUTH["top"] + (TRUTH["bottom"] - TRUTH["top"]) / (1 + u) + rng.normal(0, 2.0, conc.size)
+u = (conc / 10 ** TRUTH["log_ec50"]) ** TRUTH["n_h"]
+resp = TRUTH["full_effect"] + (TRUTH["zero_dose"] - TRUTH["full_effect"]) / (1 + u)
+resp = resp + rng.normal(0, 2.0, conc.size)
 resp[{OUTLIER}] = 40.0
 df = pd.DataFrame({{"conc": conc, "response": resp}})
-w = cw.CurveFitter(df, x="conc", y="response", model="stimulation_4pl")
+w = cw.CurveBench(df, x="conc", y="response", model="stimulation_4pl")
 w
 """
 STATE = """
@@ -63,7 +64,7 @@ print("STATE", json.dumps({
 }))
 """
 SET_FROM_PYTHON = """
-w.set_param("top", value=80.0)
+w.set_param("full_effect", value=80.0)
 w.x_scale = "linear"
 """
 CELL_SETUP, CELL_STATE, CELL_SET = 0, 1, 2
@@ -103,11 +104,11 @@ def test_quickstart_notebook_renders(
         assert h.get_attribute("aria-label"), "a handle has no accessible name"
         assert math.isfinite(cwpage.value_now(h))
         assert h.get_attribute("tabindex") == "0", "a handle is not focusable"
-    # What the notebook did from Python below the widget shows in it: top fixed at 100, row 20
+    # What the notebook did from Python below the widget shows in it: zero_dose fixed at 100, row 20
     # excluded, and the fit made by widget.fit() drawn.
     cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
-    assert root.get_by_role("checkbox", name=re.compile(r"\btop\b")).is_checked()
-    assert float(root.get_by_role("textbox", name="top", exact=True).input_value()) == 100.0
+    assert root.get_by_role("checkbox", name=re.compile(r"\bzero_dose\b")).is_checked()
+    assert float(root.get_by_role("textbox", name="zero_dose", exact=True).input_value()) == 100.0
     assert root.get_attribute("data-cw-excluded") == "[20]"
     assert len(cwpage.fit_d(root)) > 10
     # The zero-dose wells cannot sit on the log x axis: they are listed, not silently dropped.
@@ -124,7 +125,7 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     s0 = _state(page, root)
     assert s0["result"] is None and s0["excluded"] == []
 
-    # --- drag the midpoint handle to the right: the curve follows, logEC50 grows.
+    # --- drag the midpoint handle to the right: the curve follows, log_ec50 grows.
     mid = cwpage.handle_named(root, r"EC50")
     d0, v0 = cwpage.curve_d(root), mid.get_attribute("aria-valuenow")
     cwpage.drag(page, mid, 60, 0)
@@ -133,38 +134,39 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     s1 = _state(page, root)
     # On a log x axis a drag to the right moves the midpoint to a higher concentration; the
     # handle's aria-valuenow is its first moved parameter, the value Python now holds.
-    assert _value(s1, "logEC50") > _value(s0, "logEC50") + 0.05
-    assert cwpage.value_now(mid) == pytest.approx(_value(s1, "logEC50"), rel=1e-6)
-    # The drag moves only what the handle declares: the plateaus stay where they were.
-    assert _value(s1, "top") == _value(s0, "top")
-    assert _value(s1, "bottom") == _value(s0, "bottom")
+    assert _value(s1, "log_ec50") > _value(s0, "log_ec50") + 0.05
+    assert cwpage.value_now(mid) == pytest.approx(_value(s1, "log_ec50"), rel=1e-6)
+    # The drag moves only what the handle declares: the two levels stay where they were.
+    assert _value(s1, "full_effect") == _value(s0, "full_effect")
+    assert _value(s1, "zero_dose") == _value(s0, "zero_dose")
 
-    # --- nudge the top plateau up with the keyboard: top grows, the curve follows.
-    top = cwpage.handle_named(root, r"\btop\b")
-    d1, v1 = cwpage.curve_d(root), top.get_attribute("aria-valuenow")
-    top.focus()
+    # --- nudge the full-effect level up with the keyboard: it grows, the curve follows.
+    full_effect = cwpage.handle_named(root, r"^full-effect level:")
+    d1, v1 = cwpage.curve_d(root), full_effect.get_attribute("aria-valuenow")
+    full_effect.focus()
     page.keyboard.press("ArrowUp")
     page.keyboard.press("ArrowUp")
-    cwpage.wait_attr_change(page, top, "aria-valuenow", v1)
+    cwpage.wait_attr_change(page, full_effect, "aria-valuenow", v1)
     assert cwpage.curve_d(root) != d1
     # A nudge is committed once the keys are still (data-cw-dragging empties then).
     cwpage.wait_root_attr(page, root, "data-cw-dragging", "")
     s2 = _state(page, root)
-    assert _value(s2, "top") > _value(s1, "top")
-    assert _value(s2, "logEC50") == _value(s1, "logEC50")
-    assert cwpage.value_now(top) == pytest.approx(_value(s2, "top"), rel=1e-6)
+    assert _value(s2, "full_effect") > _value(s1, "full_effect")
+    assert _value(s2, "log_ec50") == _value(s1, "log_ec50")
+    assert cwpage.value_now(full_effect) == pytest.approx(_value(s2, "full_effect"), rel=1e-6)
 
-    # --- type bottom's known value (common practice: a blank-corrected baseline) and fix it.
-    bottom_in = root.get_by_role("textbox", name="bottom", exact=True)
-    bottom_in.fill("4")
-    bottom_in.press("Enter")
-    fixed = root.get_by_role("checkbox", name=re.compile(r"\bbottom\b"))
+    # --- type the zero-dose level's known value (common practice: a blank-corrected baseline)
+    # and fix it.
+    zero_in = root.get_by_role("textbox", name="zero_dose", exact=True)
+    zero_in.fill("4")
+    zero_in.press("Enter")
+    fixed = root.get_by_role("checkbox", name=re.compile(r"\bzero_dose\b"))
     fixed.check()
     assert fixed.is_checked()
     s3 = _state(page, root)
-    assert s3["settings"]["bottom"]["value"] == 4.0
-    assert s3["settings"]["bottom"]["fixed"] is True
-    assert not any(s3["settings"][n]["fixed"] for n in ("top", "logEC50", "hill"))
+    assert s3["settings"]["zero_dose"]["value"] == 4.0
+    assert s3["settings"]["zero_dose"]["fixed"] is True
+    assert not any(s3["settings"][n]["fixed"] for n in ("full_effect", "log_ec50", "n_h"))
 
     # --- click the outlier: it is excluded. Its place is worked out from the axes' ticks and
     # checked against the widget's own hook, so a wrong click is caught on either side.
@@ -195,16 +197,16 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     res = s5["result"]
     assert res is not None, "widget.result is still None after pressing Fit"
     assert res["success"] is True
-    assert res["fixed"] == ["bottom"]
+    assert res["fixed"] == ["zero_dose"]
     assert res["excluded_rows"] == [OUTLIER]
     assert res["n"] == len(s5["data"]["x"]) - 1
-    assert res["values"]["bottom"] == 4.0  # held where it was fixed
+    assert res["values"]["zero_dose"] == 4.0  # held where it was fixed
     # Recovery of the generating parameters (the truth of this synthetic set): with noise SD 2
-    # on 35 points the standard errors are ~0.02 decade for logEC50, ~0.7 for top and ~0.04
-    # for hill (from a headless fit of the same data); the tolerances are about 5 of them.
-    assert res["values"]["logEC50"] == pytest.approx(TRUTH["logEC50"], abs=0.1)
-    assert res["values"]["top"] == pytest.approx(TRUTH["top"], abs=3.5)
-    assert res["values"]["hill"] == pytest.approx(TRUTH["hill"], abs=0.2)
+    # on 35 points the standard errors are ~0.02 decade for log_ec50, ~0.7 for full_effect and ~0.04
+    # for n_h (from a headless fit of the same data); the tolerances are about 5 of them.
+    assert res["values"]["log_ec50"] == pytest.approx(TRUTH["log_ec50"], abs=0.1)
+    assert res["values"]["full_effect"] == pytest.approx(TRUTH["full_effect"], abs=3.5)
+    assert res["values"]["n_h"] == pytest.approx(TRUTH["n_h"], abs=0.2)
     # The page shows the same fit Python holds.
     shown = json.loads(root.get_attribute("data-cw-fitted"))
     assert shown == pytest.approx(res["values"], rel=1e-9)
@@ -213,7 +215,7 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     root.screenshot(path=str(harness.ARTIFACTS / f"fitted-{server.app}.png"))
 
     # --- state set from Python shows on the page.
-    top_in = root.get_by_role("textbox", name="top", exact=True)
+    top_in = root.get_by_role("textbox", name="full_effect", exact=True)
     d5 = cwpage.curve_d(root)
     harness.run_cell(page, CELL_SET)
     page.wait_for_function("(el) => Number(el.value) === 80", arg=top_in.element_handle())
@@ -221,7 +223,7 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
         "([el, d]) => el.querySelector('path.cw-curve').getAttribute('d') !== d",
         arg=[root.element_handle(), d5],
     )
-    assert cwpage.value_now(top) == pytest.approx(80.0)
+    assert cwpage.value_now(full_effect) == pytest.approx(80.0)
     assert root.get_by_role("combobox", name="x axis scale").input_value() == "linear"
     cwpage.wait_until(
         lambda: not cwpage.axes(root).x.log,
@@ -236,10 +238,10 @@ def test_panel_and_toolbar_edits_reach_python_and_bad_edits_do_not(
 ) -> None:
     root = _open_flow(page, server, notebook)
     # A valid value typed into the panel reaches Python and redraws the curve.
-    hill = root.get_by_role("textbox", name="hill", exact=True)
+    n_h = root.get_by_role("textbox", name="n_h", exact=True)
     d0 = cwpage.curve_d(root)
-    hill.fill("1.5")
-    hill.press("Enter")
+    n_h.fill("1.5")
+    n_h.press("Enter")
     page.wait_for_function(
         "([el, d]) => el.querySelector('path.cw-curve').getAttribute('d') !== d",
         arg=[root.element_handle(), d0],
@@ -247,25 +249,25 @@ def test_panel_and_toolbar_edits_reach_python_and_bad_edits_do_not(
     # The toolbar's axis scale goes to Python too.
     root.get_by_role("combobox", name="x axis scale").select_option("linear")
     s1 = _state(page, root)
-    assert s1["settings"]["hill"]["value"] == 1.5
+    assert s1["settings"]["n_h"]["value"] == 1.5
     assert s1["x_scale"] == "linear"
     cwpage.wait_until(lambda: not cwpage.axes(root).x.log, "the x axis did not turn linear")
 
     # Text in a number field: shown inline as invalid, not applied.
-    hill.fill("abc")
-    hill.press("Enter")
-    assert hill.get_attribute("aria-invalid") == "true"
-    described = hill.get_attribute("aria-describedby")
+    n_h.fill("abc")
+    n_h.press("Enter")
+    assert n_h.get_attribute("aria-invalid") == "true"
+    described = n_h.get_attribute("aria-describedby")
     assert described
     message = root.locator(f"#{described}").inner_text()
-    assert "hill" in message and "abc" in message, message
+    assert "n_h" in message and "abc" in message, message
     # A lower bound above the value: shown inline, not applied.
-    lower = root.get_by_role("textbox", name="hill lower bound")
+    lower = root.get_by_role("textbox", name="n_h lower bound")
     lower.fill("2")
     lower.press("Enter")
     assert lower.get_attribute("aria-invalid") == "true"
     s2 = _state(page, root)
-    assert s2["settings"]["hill"] == s1["settings"]["hill"]
+    assert s2["settings"]["n_h"] == s1["settings"]["n_h"]
     assert harness.real_page_errors(page.cw_errors) == []
 
 
@@ -329,7 +331,7 @@ def test_every_control_is_reachable_by_tab(
     for h in cwpage.handles(root).all():
         assert h.get_attribute("aria-label") in names, f"handle not reached by Tab: {seen}"
     assert "Fit" in names
-    for p in ("bottom", "top", "logEC50", "hill"):
+    for p in ("zero_dose", "full_effect", "log_ec50", "n_h"):
         i = [k for k, n in zip(kinds, names, strict=True) if n == p]
         assert "input|text" in i, f"{p} value input not reached by Tab: {seen}"
         assert any(p in n and k == "input|checkbox" for k, n in zip(kinds, names, strict=True)), (
@@ -350,7 +352,7 @@ def decay(x, a, k):
 
 rng = np.random.default_rng(3)
 t = np.linspace(0, 10, 25)
-w = cw.CurveFitter(t, 8 * np.exp(-0.4 * t) + rng.normal(0, 0.1, t.size), model=decay)
+w = cw.CurveBench(t, 8 * np.exp(-0.4 * t) + rng.normal(0, 0.1, t.size), model=decay)
 w
 """
 SLOW_RESULT = """
@@ -400,7 +402,7 @@ import numpy as np
 import curvewright as cw
 rng = np.random.default_rng(11)
 t = np.linspace(0, 10, 25)
-w = cw.CurveFitter(t, 2 + 6 * np.exp(-0.5 * t) + rng.normal(0, 0.1, t.size),
+w = cw.CurveBench(t, 2 + 6 * np.exp(-0.5 * t) + rng.normal(0, 0.1, t.size),
                    model="a*exp(-k*x) + c")
 w
 """
@@ -517,9 +519,9 @@ def test_model_chooser_switches_model_and_keeps_the_earlier_fit_for_comparison(
     cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
     root.get_by_role("combobox", name="Model").select_option("stimulation_3pl")
     cwpage.wait_root_attr(page, root, "data-cw-model", "stimulation_3pl")
-    # The 3PL has no bottom: the panel follows the model.
-    assert root.get_by_role("textbox", name="bottom", exact=True).count() == 0
-    assert root.get_by_role("textbox", name="top", exact=True).count() == 1
+    # The 3PL has no zero-dose level (it is 0): the panel follows the model.
+    assert root.get_by_role("textbox", name="zero_dose", exact=True).count() == 0
+    assert root.get_by_role("textbox", name="full_effect", exact=True).count() == 1
     assert cwpage.handles(root).count() >= 1
     root.get_by_role("button", name=re.compile("Fit")).click()
     cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
@@ -568,7 +570,7 @@ def test_arrow_keys_nudge_a_handle_and_shift_takes_larger_steps(
     # The nudges reach Python once the keys are still.
     cwpage.wait_root_attr(page, root, "data-cw-dragging", "")
     s = _state(page, root)
-    assert _value(s, "logEC50") == pytest.approx(cwpage.value_now(mid), rel=1e-9)
+    assert _value(s, "log_ec50") == pytest.approx(cwpage.value_now(mid), rel=1e-9)
     assert harness.real_page_errors(page.cw_errors) == []
 
 

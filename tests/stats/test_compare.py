@@ -112,7 +112,15 @@ def test_aicc_and_akaike_weights_follow_the_formula() -> None:
     assert float(c.table["akaike_weight"].sum()) == pytest.approx(1.0)
     # the straight line is far worse on saturating data
     assert float(c.table.loc["straight_line", "akaike_weight"]) < 1e-3
-    # Michaelis-Menten is nested in Hill (n_hill = 1); the line is nested in neither.
+    # the evidence ratio of the best fit over the next best is w_best / w_second (Burnham and
+    # Anderson 2002, section 2.10), said in the reasoning
+    order = np.argsort(-w)
+    ratio = w[order[0]] / w[order[1]]
+    assert (
+        f"its evidence ratio over the next best, {c.table.index[order[1]]!r}, is {ratio:.3g}"
+        in (c.reasoning[0])
+    )
+    # Michaelis-Menten is nested in Hill (n_h = 1); the line is nested in neither.
     assert list(zip(c.f_tests["simpler"], c.f_tests["larger"], strict=True)) == [
         ("michaelis_menten", "hill")
     ]
@@ -135,20 +143,20 @@ def test_same_model_with_a_parameter_fixed_is_detected_as_nested() -> None:
     rng = np.random.default_rng(21)
     x = np.linspace(0, 10, 30)
     y = 5.0 + 40.0 * np.exp(-0.4 * x) + rng.normal(0, 1.0, x.size)
-    full = cw.fit("decay_to_plateau", x, y)
-    held = cw.fit("decay_to_plateau", x, y, fixed={"plateau": 0.0})
+    full = cw.fit("exponential_decay", x, y)
+    held = cw.fit("exponential_decay", x, y, fixed={"baseline": 0.0})
     c = compare(held, full)
     assert len(c.f_tests) == 1
     got = c.f_tests.iloc[0]
-    assert got["simpler"] == "decay_to_plateau (plateau=0)"
+    assert got["simpler"] == "exponential_decay (baseline=0)"
     F = (held.ssr - full.ssr) / 1 / (full.ssr / full.dof)
     assert float(got["F"]) == pytest.approx(F, rel=1e-10)
     assert float(got["p"]) == pytest.approx(scipy.stats.f.sf(F, 1, full.dof), rel=1e-10)
-    # the true plateau is 5, far from 0: the F test rejects the simpler model
+    # the true baseline is 5, far from 0: the F test rejects the simpler model
     assert bool(got["significant"])
-    assert c.preferred == "decay_to_plateau" and c.criterion == "F test"
+    assert c.preferred == "exponential_decay" and c.criterion == "F test"
     assert "support the larger model" in " ".join(c.reasoning)
-    assert "Prefer 'decay_to_plateau'" in c.recommendation
+    assert c.recommendation == "Use 'exponential_decay' (decided by the F test)."
 
 
 def test_simpler_model_recommended_when_extra_term_is_not_needed() -> None:
@@ -174,7 +182,7 @@ def test_simpler_model_recommended_when_extra_term_is_not_needed() -> None:
 def test_different_models_not_nested_and_declared_nesting() -> None:
     df = puromycin()
     mm = cw.fit("michaelis_menten", "conc", "rate", data=df)
-    rise = cw.fit("rise_to_plateau", "conc", "rate", data=df, fixed={"y0": 0.0})
+    rise = cw.fit("exponential_rise", "conc", "rate", data=df, fixed={"baseline": 0.0})
     c = compare(mm, rise)
     assert len(c.f_tests) == 0 and c.criterion == "AICc"
     # a declared nesting is used as declared (and labelled so)
@@ -190,8 +198,8 @@ def test_different_models_not_nested_and_declared_nesting() -> None:
 
 
 def test_catalog_nestings_detected_on_dnase() -> None:
-    # R's DNase run 1 (tests/data/r_datasets/SOURCES.md): 3PL (bottom 0) inside 4PL inside 5PL
-    # (s = 1), fitted with relative weights on all three (same weights: comparable).
+    # R's DNase run 1 (tests/data/r_datasets/SOURCES.md): 3PL (zero_dose 0) inside 4PL inside
+    # 5PL (g = 1), fitted with relative weights on all three (same weights: comparable).
     df = pd.read_csv(DATA / "r_datasets" / "DNase.csv")
     d1 = df[df["Run"] == 1]
     fits = [

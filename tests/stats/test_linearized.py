@@ -178,24 +178,26 @@ def test_loglog_danwood_nonlinear_side_matches_nist() -> None:
 def test_semilog_decay_matches_linregress_and_recovers_truth() -> None:
     rng = np.random.default_rng(11)
     x = np.repeat(np.linspace(0.0, 6.0, 13), 2)
-    span, k, plateau = 80.0, 0.45, 5.0
-    y = plateau + span * np.exp(-k * x) * np.exp(rng.normal(0.0, 0.03, x.size))
-    lf = linearized_fit("semilog", x, y, plateau=plateau)
+    amplitude, k, baseline = 80.0, 0.45, 5.0
+    y = baseline + amplitude * np.exp(-k * x) * np.exp(rng.normal(0.0, 0.03, x.size))
+    lf = linearized_fit("semilog", x, y, baseline=baseline)
     used = lf.used
-    ref = scipy.stats.linregress(x[used], np.log(y[used] - plateau))
+    ref = scipy.stats.linregress(x[used], np.log(y[used] - baseline))
     assert cell(lf.table, "k", "linearized") == pytest.approx(-ref.slope, rel=1e-10)
-    assert cell(lf.table, "span", "linearized") == pytest.approx(math.exp(ref.intercept), rel=1e-10)
+    assert cell(lf.table, "amplitude", "linearized") == pytest.approx(
+        math.exp(ref.intercept), rel=1e-10
+    )
     assert cell(lf.table, "k", "linearized_se") == pytest.approx(ref.stderr, rel=1e-9)
-    # The 5% rule: points closer to the plateau than 5% of the largest distance are left out.
-    d = y - plateau
+    # The 5% rule: points closer to the baseline than 5% of the largest distance are left out.
+    d = y - baseline
     np.testing.assert_array_equal(used, d > 0.05 * d.max())
     # Truth recovered within a few standard errors by both.
     for col, secol in (("linearized", "linearized_se"), ("nonlinear", "nonlinear_se")):
         assert abs(cell(lf.table, "k", col) - k) < 4 * cell(lf.table, "k", secol)
     assert lf.nonlinear is not None
-    assert "plateau" in lf.nonlinear.fixed
-    assert lf.nonlinear.values["plateau"] == plateau
-    assert dict(lf.held) == {"plateau": plateau}
+    assert "baseline" in lf.nonlinear.fixed
+    assert lf.nonlinear.values["baseline"] == baseline
+    assert dict(lf.held) == {"baseline": baseline}
 
 
 def test_semilog_growth_on_chick_weights() -> None:
@@ -221,7 +223,8 @@ def test_logit_dnase_run1() -> None:
     # R's DNase, run 1 (tests/data/r_datasets/SOURCES.md). R's documentation of nls fits
     # density ~ SSlogis(log(conc), Asym, xmid, scal) to it: Asym 2.34518 (SE 0.07815),
     # xmid 1.48309 (0.08135), scal 1.04146 (0.03227), residual SE 0.01919 on 13 df (from
-    # memory). Our 3PL is the same curve with top = Asym, logEC50 = xmid/ln 10, hill = 1/scal.
+    # memory). Our 3PL is the same curve with full_effect = Asym, log_ec50 = xmid/ln 10 and
+    # n_h = 1/scal.
     df = pd.read_csv(DATA / "r_datasets" / "DNase.csv")
     d1 = df[df["Run"] == 1]
     x, y = d1["conc"].to_numpy(float), d1["density"].to_numpy(float)
@@ -229,21 +232,21 @@ def test_logit_dnase_run1() -> None:
     nls = lf.nonlinear
     assert nls is not None
     ln10 = math.log(10.0)
-    assert nls.values["top"] == pytest.approx(2.34518, rel=2e-5)
-    assert cell(lf.table, "logEC50", "nonlinear") == pytest.approx(1.48309 / ln10, rel=2e-5)
-    assert cell(lf.table, "hill", "nonlinear") == pytest.approx(1 / 1.04146, rel=2e-5)
-    assert cell(lf.table, "logEC50", "nonlinear_se") == pytest.approx(0.08135 / ln10, rel=2e-4)
-    assert cell(lf.table, "hill", "nonlinear_se") == pytest.approx(0.03227 / 1.04146**2, rel=5e-4)
+    assert nls.values["full_effect"] == pytest.approx(2.34518, rel=2e-5)
+    assert cell(lf.table, "log_ec50", "nonlinear") == pytest.approx(1.48309 / ln10, rel=2e-5)
+    assert cell(lf.table, "n_h", "nonlinear") == pytest.approx(1 / 1.04146, rel=2e-5)
+    assert cell(lf.table, "log_ec50", "nonlinear_se") == pytest.approx(0.08135 / ln10, rel=2e-4)
+    assert cell(lf.table, "n_h", "nonlinear_se") == pytest.approx(0.03227 / 1.04146**2, rel=5e-4)
     assert nls.sigma_resid == pytest.approx(0.01919, rel=5e-4)
-    # The line: plateaus held at 0 and the fitted top; linregress on the same points.
-    top = nls.values["top"]
-    assert dict(lf.held) == {"bottom": 0.0, "top": top}
-    f = y / top
+    # The line: levels 0 and the fitted full_effect; linregress on the same points.
+    full = nls.values["full_effect"]
+    assert dict(lf.held) == {"full_effect": full}
+    f = y / full
     keep = (f > 0.05) & (f < 0.95)
     np.testing.assert_array_equal(lf.used, keep)
     ref = scipy.stats.linregress(np.log10(x[keep]), np.log10(f[keep] / (1 - f[keep])))
-    assert cell(lf.table, "hill", "linearized") == pytest.approx(ref.slope, rel=1e-10)
-    assert cell(lf.table, "logEC50", "linearized") == pytest.approx(
+    assert cell(lf.table, "n_h", "linearized") == pytest.approx(ref.slope, rel=1e-10)
+    assert cell(lf.table, "log_ec50", "linearized") == pytest.approx(
         -ref.intercept / ref.slope, rel=1e-10
     )
 
@@ -259,6 +262,7 @@ def test_logit_orange_logistic_growth() -> None:
     nls = lf.nonlinear
     assert nls is not None
     assert nls.values["K"] == pytest.approx(192.69, rel=1e-4)
+    assert dict(lf.held) == {"K": nls.values["K"]}
     assert cell(lf.table, "r", "nonlinear") == pytest.approx(1 / 353.53, rel=1e-4)
     xi = float(nls.derived().loc["x_inflection", "value"])
     assert xi == pytest.approx(728.76, rel=1e-4)
@@ -274,20 +278,23 @@ def test_logit_orange_logistic_growth() -> None:
     )
 
 
-def test_logit_inhibition_recovers_truth_with_given_plateaus() -> None:
+def test_logit_inhibition_recovers_truth_with_given_levels() -> None:
     rng = np.random.default_rng(5)
     x = np.repeat(10.0 ** np.linspace(-3, 1, 9), 3)
-    bottom, top, log_ic50, hill = 5.0, 95.0, -1.0, 1.2
-    u = (x / 10**log_ic50) ** hill
-    y = bottom + (top - bottom) / (1 + u) + rng.normal(0, 1.5, x.size)
-    lf = linearized_fit("logit", x, y, model="inhibition_4pl", bottom=bottom, top=top)
-    f = (y - top) / (bottom - top)
+    zero_dose, full_effect, log_ic50, n_h = 95.0, 5.0, -1.0, 1.2
+    u = (x / 10**log_ic50) ** n_h
+    y = full_effect + (zero_dose - full_effect) / (1 + u) + rng.normal(0, 1.5, x.size)
+    lf = linearized_fit(
+        "logit", x, y, model="inhibition_4pl", zero_dose=zero_dose, full_effect=full_effect
+    )
+    # f: the fraction of the inhibition reached, 0 with no inhibitor and 1 at a saturating dose
+    f = (y - zero_dose) / (full_effect - zero_dose)
     keep = (f > 0.05) & (f < 0.95)
     ref = scipy.stats.linregress(np.log10(x[keep]), np.log10(f[keep] / (1 - f[keep])))
-    assert cell(lf.table, "hill", "linearized") == pytest.approx(ref.slope, rel=1e-10)
-    assert cell(lf.table, "logIC50", "linearized") == pytest.approx(log_ic50, abs=0.1)
-    assert cell(lf.table, "hill", "nonlinear") == pytest.approx(hill, rel=0.2)
-    assert dict(lf.held) == {"bottom": bottom, "top": top}
+    assert cell(lf.table, "n_h", "linearized") == pytest.approx(ref.slope, rel=1e-10)
+    assert cell(lf.table, "log_ic50", "linearized") == pytest.approx(log_ic50, abs=0.1)
+    assert cell(lf.table, "n_h", "nonlinear") == pytest.approx(n_h, rel=0.2)
+    assert dict(lf.held) == {"zero_dose": zero_dose, "full_effect": full_effect}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -328,14 +335,24 @@ def test_bad_input() -> None:
         linearized_fit("hanes_woolf", result=r)
     with pytest.raises(ParameterError, match="not both"):
         linearized_fit("loglog", df["conc"], df["rate"], result=r)
-    with pytest.raises(ParameterError, match="needs the plateaus"):
+    with pytest.raises(ParameterError, match="needs the levels: give zero_dose= and full_effect="):
         linearized_fit("logit", df["conc"], df["rate"], nonlinear=False)
-    with pytest.raises(ParameterError, match="plateaus must differ"):
-        linearized_fit("logit", df["conc"], df["rate"], bottom=1.0, top=1.0, nonlinear=False)
+    with pytest.raises(ParameterError, match="two levels must differ"):
+        linearized_fit(
+            "logit", df["conc"], df["rate"], zero_dose=1.0, full_effect=1.0, nonlinear=False
+        )
+    with pytest.raises(ParameterError, match=r"stimulation_3pl takes the logit level\(s\) "):
+        linearized_fit("logit", df["conc"], df["rate"], model="stimulation_3pl", zero_dose=0.0)
+    with pytest.raises(ParameterError, match=r"logistic_growth takes the logit level.*'K'"):
+        linearized_fit("logit", df["conc"], df["rate"], model="logistic_growth", full_effect=200.0)
+    with pytest.raises(ParameterError, match="belong to the logit transform, not to semilog"):
+        linearized_fit("semilog", df["conc"], df["rate"], K=3.0)
+    with pytest.raises(ParameterError, match="baseline= belongs to the semilog transform"):
+        linearized_fit("hanes_woolf", df["conc"], df["rate"], baseline=3.0)
     with pytest.raises(ParameterError, match="estimates the model"):
         linearized_fit("logit", df["conc"], df["rate"], model="hill")
-    with pytest.raises(ParameterError, match="no plateau"):
-        linearized_fit("semilog", df["conc"], df["rate"], model="exponential_growth", plateau=3.0)
-    dec = cw.fit("decay_to_plateau", [0, 1, 2, 3, 4, 5.0], [10, 6.1, 3.9, 2.6, 1.8, 1.5])
-    with pytest.raises(FitError, match="takes the plateau as known"):
+    with pytest.raises(ParameterError, match="no baseline"):
+        linearized_fit("semilog", df["conc"], df["rate"], model="exponential_growth", baseline=3.0)
+    dec = cw.fit("exponential_decay", [0, 1, 2, 3, 4, 5.0], [10, 6.1, 3.9, 2.6, 1.8, 1.5])
+    with pytest.raises(FitError, match="takes the baseline as known"):
         linearized_fit("semilog", result=dec)

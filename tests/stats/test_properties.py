@@ -43,7 +43,7 @@ def test_f_test_p_uniform_under_h0_for_nested_polynomials() -> None:
 @pytest.mark.slow
 def test_f_test_p_nearly_uniform_under_h0_for_michaelis_menten_in_hill() -> None:
     # Nonlinear case (approximate F): Michaelis-Menten true, compared with the Hill equation
-    # (n_hill = 1 gives Michaelis-Menten). KS test at the 1% level, fixed seed.
+    # (n_h = 1 gives Michaelis-Menten). KS test at the 1% level, fixed seed.
     rng = np.random.default_rng(7)
     ps = []
     refused = 0

@@ -5,6 +5,7 @@ computation in the test."""
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from pathlib import Path
 
 import lmfit
@@ -178,17 +179,19 @@ def test_profile_intervals_match_lmfit_three_parameters() -> None:
     df = dnase1()
     x, y = col(df, "conc"), col(df, "density")
     p = lmfit.Parameters()
-    p.add("top", 2.0)
-    p.add("logEC50", 0.5)
-    p.add("hill", 1.0)
+    p.add("full_effect", 2.0)
+    p.add("log_ec50", 0.5)
+    p.add("n_h", 1.0)
 
     def resid(p: lmfit.Parameters) -> np.ndarray:
-        return y - (p["top"] - p["top"] / (1 + (x / 10 ** p["logEC50"]) ** p["hill"]))
+        # the sigmoid Emax curve without baseline, E = Emax*C**n/(EC50**n + C**n)
+        c50n = (10 ** p["log_ec50"]) ** p["n_h"]
+        return y - p["full_effect"] * x ** p["n_h"] / (c50n + x ** p["n_h"])
 
     ref = lmfit_interval(resid, p)
     r = cw.fit("stimulation_3pl", x, y)
-    prof = profile_intervals(r, ["top", "logEC50", "hill"])
-    for n in ("top", "logEC50", "hill"):
+    prof = profile_intervals(r, ["full_effect", "log_ec50", "n_h"])
+    for n in ("full_effect", "log_ec50", "n_h"):
         assert at(prof, n, "lower") == pytest.approx(ref[n][0], rel=2e-4), n
         assert at(prof, n, "upper") == pytest.approx(ref[n][1], rel=2e-4), n
 
@@ -293,7 +296,7 @@ def test_derived_quantities_delta_method() -> None:
     rng = np.random.default_rng(8)
     x = np.linspace(0, 8, 17)
     y = 2.0 + 40.0 * np.exp(-0.6 * x) + rng.normal(0, 0.8, x.size)
-    r = cw.fit("decay_to_plateau", x, y)
+    r = cw.fit("exponential_decay", x, y)
     names = list(r.free)
     theta = np.array([r.values[n] for n in names])
     cov = np.asarray(r.covariance)
@@ -312,14 +315,70 @@ def test_derived_quantities_delta_method() -> None:
         math.log(2) / r.values["k"] + q * se_ref, rel=1e-6
     )
 
-    # an arbitrary expression: span/plateau, gradient over two parameters
+    # an arbitrary expression: amplitude/baseline, gradient over two parameters
     def ratio(th: np.ndarray) -> np.ndarray:
-        return np.array([th[names.index("span")] / th[names.index("plateau")]])
+        return np.array([th[names.index("amplitude")] / th[names.index("baseline")]])
 
     g2 = fd_gradient(ratio, theta)[0]
-    s = r.derive("span/plateau")
+    s = r.derive("amplitude/baseline")
     assert float(s["stderr"]) == pytest.approx(math.sqrt(g2 @ cov @ g2), rel=1e-6)
     assert s["extrapolated"] is None
+
+
+@pytest.mark.parametrize(
+    ("model", "truth", "x", "quantity", "of"),
+    [
+        # phase 1's share of the total amplitude, a1/(a1 + a2) (common practice)
+        (
+            "biexponential_decay",
+            {"baseline": 5.0, "a1": 60.0, "k1": 2.0, "a2": 35.0, "k2": 0.1},
+            np.geomspace(0.05, 60, 30),
+            "share_1",
+            lambda v: v["a1"] / (v["a1"] + v["a2"]),
+        ),
+        # the level a first-order rise reaches, its start plus its rise
+        (
+            "exponential_rise",
+            {"baseline": 3.0, "amplitude": 45.0, "k": 0.08},
+            np.linspace(0, 60, 20),
+            "plateau",
+            lambda v: v["baseline"] + v["amplitude"],
+        ),
+        # the size of an inhibitor's effect, the zero-dose level minus the full-effect level
+        (
+            "inhibition_4pl",
+            {"zero_dose": 98.0, "full_effect": 4.0, "log_ic50": -6.6, "n_h": 1.3},
+            np.repeat(np.r_[0.0, np.geomspace(1e-9, 1e-4, 11)], 2),
+            "amplitude",
+            lambda v: v["zero_dose"] - v["full_effect"],
+        ),
+    ],
+)
+def test_derived_quantities_of_the_catalog_carry_delta_method_errors(
+    model: str,
+    truth: dict[str, float],
+    x: np.ndarray,
+    quantity: str,
+    of: Callable[[dict[str, float]], float],
+) -> None:
+    # The standard error of each derived quantity against the delta method computed here from
+    # the covariance and a finite-difference gradient of the quantity written out by hand.
+    m = cw.catalog()[model]
+    clean = m.eval(x, truth)
+    y = clean + 0.01 * float(np.ptp(clean)) * np.random.default_rng(4).standard_normal(x.size)
+    r = cw.fit(m, x, y)
+    assert r.success, r.message
+    names = list(r.free)
+    theta = np.array([r.values[n] for n in names])
+
+    def q(th: np.ndarray) -> np.ndarray:
+        return np.array([of(dict(zip(names, th, strict=True)))])
+
+    g = fd_gradient(q, theta)[0]
+    table = derived_table(r)
+    assert at(table, quantity, "value") == pytest.approx(of(dict(r.values)), rel=1e-12)
+    se_ref = math.sqrt(g @ np.asarray(r.covariance) @ g)
+    assert at(table, quantity, "stderr") == pytest.approx(se_ref, rel=1e-6)
 
 
 def test_extrapolated_ec50_is_flagged_in_result_table_and_summary() -> None:
@@ -327,13 +386,13 @@ def test_extrapolated_ec50_is_flagged_in_result_table_and_summary() -> None:
     x = 10.0 ** np.linspace(-3, 0, 10)
     rng = np.random.default_rng(2)
     y = 100 / (1 + (10.0**0.6 / x) ** 1.0) + rng.normal(0, 0.3, x.size)
-    r = cw.fit("stimulation_4pl", x, y, fixed={"bottom": 0.0, "top": 100.0})
+    r = cw.fit("stimulation_4pl", x, y, fixed={"zero_dose": 0.0, "full_effect": 100.0})
     table = r.derived_table()
-    assert at(table, "EC50", "value") > x.max()
-    assert bool(table.loc["EC50", "extrapolated"])
+    assert at(table, "ec50", "value") > x.max()
+    assert bool(table.loc["ec50", "extrapolated"])
     assert any(d.code == "extrapolation" for d in r.diagnostics)
     assert "outside the range of x in the data" in r.summary()
-    s = derived_quantity(r, "10**logEC50", axis="x")
+    s = derived_quantity(r, "10**log_ec50", axis="x")
     assert s["extrapolated"] is True
 
 
@@ -459,8 +518,8 @@ def test_band_errors() -> None:
         r.confidence_band([0.1, math.nan])
     with pytest.raises(DataError, match="sigma for new observations must be positive"):
         r.prediction_band([0.1], sigma=-1.0)
-    robust = cw.fit("michaelis_menten", "conc", "rate", data=df, loss="soft_l1")
-    with pytest.raises(FitError, match="robust 'soft_l1' loss"):
+    robust = cw.fit("michaelis_menten", "conc", "rate", data=df, loss="pseudo_huber")
+    with pytest.raises(FitError, match="robust 'pseudo_huber' loss"):
         robust.confidence_band([0.1])
     with pytest.raises(FitError, match="robust"):
         robust.profile_ci()

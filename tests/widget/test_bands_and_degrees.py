@@ -21,10 +21,10 @@ import pytest
 import statsmodels.api as sm
 
 import curvewright as cw
-from curvewright.widget import CurveFitter
+from curvewright.widget import CurveBench
 
-# Truth of the synthetic inhibition assay (4PL, decreasing): bottom, top, logIC50, hill.
-TRUTH = {"bottom": 4.0, "top": 96.0, "logIC50": -6.7, "hill": 1.1}
+# Truth of the synthetic inhibition assay (4PL, falling from 96 with no inhibitor to 4).
+TRUTH = {"full_effect": 4.0, "zero_dose": 96.0, "log_ic50": -6.7, "n_h": 1.1}
 DOSES = [1e-9, 1e-8, 3e-8, 1e-7, 3e-7, 1e-6, 1e-5, 1e-4]
 
 
@@ -32,8 +32,8 @@ def assay(seed: int = 5, sd: float = 2.0) -> pd.DataFrame:
     rng = np.random.default_rng(seed)
     x = np.repeat(DOSES, 3)
     # The usual 4PL with the midpoint in log10 units (common practice).
-    y = TRUTH["bottom"] + (TRUTH["top"] - TRUTH["bottom"]) / (
-        1.0 + (x / 10.0 ** TRUTH["logIC50"]) ** TRUTH["hill"]
+    y = TRUTH["full_effect"] + (TRUTH["zero_dose"] - TRUTH["full_effect"]) / (
+        1.0 + (x / 10.0 ** TRUTH["log_ic50"]) ** TRUTH["n_h"]
     )
     return pd.DataFrame({"conc": x, "response": y + rng.normal(0.0, sd, x.size)})
 
@@ -45,12 +45,12 @@ def curved(seed: int = 11, n: int = 30) -> tuple[np.ndarray, np.ndarray]:
     return x, 1.0 + 0.5 * x - 0.08 * x**2 + rng.normal(0.0, 0.2, n)
 
 
-def page_sets(widget: CurveFitter, **state: Any) -> None:
+def page_sets(widget: CurveBench, **state: Any) -> None:
     """What ipywidgets does with a state update from the page."""
     widget.set_state(state)
 
 
-def page_sends(widget: CurveFitter, content: dict[str, Any]) -> None:
+def page_sends(widget: CurveBench, content: dict[str, Any]) -> None:
     """What ipywidgets does with a custom message from the page."""
     widget._handle_custom_msg(content, [])
 
@@ -65,7 +65,7 @@ def band_arrays(bands: dict[str, Any], kind: str) -> tuple[np.ndarray, np.ndarra
 # ------------------------------------------------------------------------------ bands
 def test_toggles_draw_the_fits_bands_on_the_plot_grid_log_spaced() -> None:
     df = assay()
-    w = CurveFitter(df, x="conc", y="response", model="inhibition_4pl")
+    w = CurveBench(df, x="conc", y="response", model="inhibition_4pl")
     assert w.x_scale == "log"
     assert w.show_confidence_band is False and w.show_prediction_band is False
     assert w.show_residuals is True
@@ -115,7 +115,7 @@ def test_toggles_draw_the_fits_bands_on_the_plot_grid_log_spaced() -> None:
 def test_straight_line_bands_match_statsmodels_ols() -> None:
     x, y = curved()
     y = 2.0 + 0.3 * x + np.random.default_rng(2).normal(0.0, 0.4, x.size)
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     w.fit()
     w.show_confidence_band = True
     w.show_prediction_band = True
@@ -137,7 +137,7 @@ def test_weighted_straight_line_bands_match_statsmodels_wls() -> None:
     x = np.linspace(1.0, 20.0, 24)
     sigma = 0.1 + 0.03 * x
     y = 0.5 + 0.8 * x + rng.normal(0.0, sigma)
-    w = CurveFitter(x, y, model="straight_line", sigma=sigma)
+    w = CurveBench(x, y, model="straight_line", sigma=sigma)
     w.fit()
     page_sets(w, show_confidence_band=True, show_prediction_band=True)
     b = w.bands_json
@@ -165,7 +165,7 @@ def test_callable_model_bands_equal_the_results() -> None:
     rng = np.random.default_rng(4)
     x = np.linspace(0.1, 10.0, 25)
     y = decay(x, 5.0, 0.4) + rng.normal(0.0, 0.1, x.size)
-    w = CurveFitter(x, y, model=decay)
+    w = CurveBench(x, y, model=decay)
     r = w.fit()
     assert r is not None and r.success
     w.show_prediction_band = True
@@ -179,8 +179,8 @@ def test_callable_model_bands_equal_the_results() -> None:
 
 def test_bands_without_a_fit_or_for_a_robust_fit_say_why() -> None:
     df = assay()
-    w = CurveFitter(
-        df, x="conc", y="response", model="inhibition_4pl", fit_options={"loss": "soft_l1"}
+    w = CurveBench(
+        df, x="conc", y="response", model="inhibition_4pl", fit_options={"loss": "pseudo_huber"}
     )
     w.show_confidence_band = True
     assert w.bands_json is None  # no fit of this model yet
@@ -197,7 +197,9 @@ def test_bands_without_a_fit_or_for_a_robust_fit_say_why() -> None:
 
 def test_no_bands_for_a_fit_that_did_not_converge() -> None:
     df = assay()
-    w = CurveFitter(df, x="conc", y="response", model="inhibition_4pl", fit_options={"max_nfev": 3})
+    w = CurveBench(
+        df, x="conc", y="response", model="inhibition_4pl", fit_options={"max_evaluations": 3}
+    )
     r = w.fit()
     assert r is not None and not r.success  # stopped by the evaluation limit
     page_sets(w, show_confidence_band=True)
@@ -209,7 +211,7 @@ def test_no_bands_for_a_fit_that_did_not_converge() -> None:
 
 def test_bad_toggle_values_raise_and_change_nothing() -> None:
     x, y = curved()
-    w = CurveFitter(x, y, model="polynomial_2")
+    w = CurveBench(x, y, model="polynomial_2")
     w.fit()
     w.show_confidence_band = True
     before = json.dumps(w.bands_json)
@@ -225,13 +227,13 @@ def test_bad_toggle_values_raise_and_change_nothing() -> None:
 
 def test_snapshot_keeps_the_toggles_and_restore_checks_them() -> None:
     x, y = curved()
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     page_sets(w, show_prediction_band=True, show_residuals=False)
     snap = json.loads(json.dumps(w.snapshot()))
     assert snap["show_prediction_band"] is True and snap["show_residuals"] is False
     assert snap["show_confidence_band"] is False
 
-    other = CurveFitter(x, y, model="straight_line")
+    other = CurveBench(x, y, model="straight_line")
     other.restore(snap)
     assert other.show_prediction_band is True and other.show_residuals is False
     assert other.snapshot() == w.snapshot()
@@ -250,7 +252,7 @@ def test_snapshot_keeps_the_toggles_and_restore_checks_them() -> None:
 # --------------------------------------------------------------------- degree table
 def test_degree_table_equals_select_degree_on_the_included_points() -> None:
     x, y = curved()
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     w.exclude([4, 17])
     keep = np.setdiff1d(np.arange(x.size), [4, 17])
     ref = cw.select_degree(x[keep], y[keep], max_degree=4)
@@ -293,7 +295,7 @@ def test_degree_table_equals_select_degree_on_the_included_points() -> None:
 def test_degree_table_is_weighted_like_the_fit() -> None:
     x, y = curved()
     sigma = 0.1 + 0.02 * x
-    w = CurveFitter(x, y, model="polynomial_2", sigma=sigma)
+    w = CurveBench(x, y, model="polynomial_2", sigma=sigma)
     ref = cw.select_degree(x, y, max_degree=4, weights=1.0 / sigma**2)
     t = w.degree_table_json
     assert t["weighting"] == "sigma" and t["current"] == 2
@@ -303,7 +305,7 @@ def test_degree_table_is_weighted_like_the_fit() -> None:
 
 def test_a_higher_degree_model_gets_a_table_reaching_past_it() -> None:
     x, y = curved(n=40)
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     w.use_degree(5)
     assert w.model_name == "polynomial_5" and "polynomial_5" in w.model_names
     t = w.degree_table_json
@@ -312,10 +314,10 @@ def test_a_higher_degree_model_gets_a_table_reaching_past_it() -> None:
 
 def test_a_picked_degree_survives_a_snapshot() -> None:
     x, y = curved(n=40)
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     w.use_degree(5)
     snap = json.loads(json.dumps(w.snapshot()))
-    other = CurveFitter(x, y, model="straight_line")
+    other = CurveBench(x, y, model="straight_line")
     other.restore(snap)  # polynomial_5 is not in the chooser: rebuilt from the snapshot
     assert other.model_name == "polynomial_5" and other.model.polynomial_degree == 5
     assert other.degree_table_json == w.degree_table_json
@@ -323,7 +325,7 @@ def test_a_picked_degree_survives_a_snapshot() -> None:
 
 def test_picking_a_degree_on_the_page_switches_the_model() -> None:
     x, y = curved()
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     page_sends(w, {"type": "use_degree", "degree": 2})
     assert w.model_name == "polynomial_2" and w.error == ""
     assert w.degree_table_json["current"] == 2
@@ -343,7 +345,7 @@ def test_picking_a_degree_on_the_page_switches_the_model() -> None:
 )
 def test_bad_degree_picks_are_shown_and_change_nothing(degree: Any, message: str) -> None:
     x, y = curved()
-    w = CurveFitter(x, y, model="polynomial_2")
+    w = CurveBench(x, y, model="polynomial_2")
     before = json.dumps(w.snapshot(), sort_keys=True)
     page_sends(w, {"type": "use_degree", "degree": degree})
     assert message in w.error
@@ -355,7 +357,7 @@ def test_bad_degree_picks_are_shown_and_change_nothing(degree: Any, message: str
 
 def test_no_table_for_other_models_and_a_reason_for_too_few_points() -> None:
     df = assay()
-    w = CurveFitter(df, x="conc", y="response", model="inhibition_4pl")
+    w = CurveBench(df, x="conc", y="response", model="inhibition_4pl")
     assert w.degree_table_json is None
     with pytest.raises(cw.ModelError, match="for polynomial models"):
         w.degree_table()
@@ -364,7 +366,7 @@ def test_no_table_for_other_models_and_a_reason_for_too_few_points() -> None:
     w.set_model("inhibition_4pl")
     assert w.degree_table_json is None
 
-    few = CurveFitter([1.0, 2.0, 3.0, 4.0], [1.0, 2.1, 2.9, 4.2], model="straight_line")
+    few = CurveBench([1.0, 2.0, 3.0, 4.0], [1.0, 2.1, 2.9, 4.2], model="straight_line")
     few.exclude([0, 1])
     t = few.degree_table_json
     assert t["current"] == 1 and "needs at least 3 points" in t["error"]
@@ -378,7 +380,7 @@ def test_large_data_degree_table_waits_to_be_asked_for(monkeypatch: pytest.Monke
     # The threshold lowered so a small set stands in for 100k points (same code path).
     monkeypatch.setattr(_widget, "_DEGREE_TABLE_AUTO_POINTS", 20)
     x, y = curved()
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     assert w.degree_table_json == {"current": 1, "deferred": True, "n": 30}
     page_sends(w, {"type": "degree_table"})
     ref = cw.select_degree(x, y, max_degree=4)

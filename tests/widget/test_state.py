@@ -19,9 +19,11 @@ import curvewright as cw
 from curvewright.widget import _state
 
 
-def hill_inhibition(x: Any, bottom: float, top: float, logIC50: float, hill: float) -> Any:
+def hill_inhibition(
+    x: Any, full_effect: float, zero_dose: float, log_ic50: float, n_h: float
+) -> Any:
     x = np.asarray(x, dtype=float)
-    return bottom + (top - bottom) / (1.0 + (x / 10.0**logIC50) ** hill)
+    return full_effect + (zero_dose - full_effect) / (1.0 + (x / 10.0**log_ic50) ** n_h)
 
 
 @pytest.fixture
@@ -32,15 +34,20 @@ def model() -> cw.Model:
 # ------------------------------------------------------------------------------ settings
 def test_parse_params_normalises_and_checks(model: cw.Model) -> None:
     raw = {
-        "bottom": {"value": 1, "lower": None, "upper": None, "fixed": False},
-        "top": {"value": 99.5, "lower": 50, "upper": 150, "fixed": True},
-        "logIC50": {"value": -7, "lower": None, "upper": None, "fixed": False},
-        "hill": {"value": 1.2, "lower": 0, "upper": None, "fixed": False},
+        "full_effect": {"value": 1, "lower": None, "upper": None, "fixed": False},
+        "zero_dose": {"value": 99.5, "lower": 50, "upper": 150, "fixed": True},
+        "log_ic50": {"value": -7, "lower": None, "upper": None, "fixed": False},
+        "n_h": {"value": 1.2, "lower": 0, "upper": None, "fixed": False},
     }
     out = _state.parse_params(model, raw)
-    assert out["bottom"] == {"value": 1.0, "lower": -math.inf, "upper": math.inf, "fixed": False}
-    assert out["top"]["fixed"] is True
-    assert _state.params_json(out)["bottom"] == {
+    assert out["full_effect"] == {
+        "value": 1.0,
+        "lower": -math.inf,
+        "upper": math.inf,
+        "fixed": False,
+    }
+    assert out["zero_dose"]["fixed"] is True
+    assert _state.params_json(out)["full_effect"] == {
         "value": 1.0,
         "lower": None,
         "upper": None,
@@ -51,27 +58,27 @@ def test_parse_params_normalises_and_checks(model: cw.Model) -> None:
 @pytest.mark.parametrize(
     ("change", "message"),
     [
-        ({"hill": {"value": 1.0, "lower": 2.0, "upper": 1.0, "fixed": False}}, "above upper"),
-        ({"hill": {"value": -1.0, "lower": None, "upper": None, "fixed": False}}, "positive"),
-        ({"hill": {"value": "1", "lower": None, "upper": None, "fixed": False}}, "number"),
-        ({"hill": {"value": math.nan, "lower": None, "upper": None, "fixed": False}}, "finite"),
-        ({"hill": {"value": 1.0, "lower": None, "upper": None, "fixed": "yes"}}, "true or false"),
-        ({"hill": 3}, "must be a mapping"),
-        ({"hil": {"value": 1.0, "lower": None, "upper": None, "fixed": False}}, "Did you mean"),
+        ({"n_h": {"value": 1.0, "lower": 2.0, "upper": 1.0, "fixed": False}}, "above upper"),
+        ({"n_h": {"value": -1.0, "lower": None, "upper": None, "fixed": False}}, "positive"),
+        ({"n_h": {"value": "1", "lower": None, "upper": None, "fixed": False}}, "number"),
+        ({"n_h": {"value": math.nan, "lower": None, "upper": None, "fixed": False}}, "finite"),
+        ({"n_h": {"value": 1.0, "lower": None, "upper": None, "fixed": "yes"}}, "true or false"),
+        ({"n_h": 3}, "must be a mapping"),
+        ({"n_hh": {"value": 1.0, "lower": None, "upper": None, "fixed": False}}, "Did you mean"),
     ],
 )
 def test_parse_params_rejects(model: cw.Model, change: dict[str, Any], message: str) -> None:
     base = _state.params_json(_state.settings_from_model(model))
     raw = {**base, **change}
-    if "hil" in change:
-        del raw["hill"]
+    if "n_hh" in change:
+        del raw["n_h"]
     with pytest.raises(cw.ParameterError, match=message):
         _state.parse_params(model, raw)
 
 
 def test_parse_params_needs_every_parameter(model: cw.Model) -> None:
     base = _state.params_json(_state.settings_from_model(model))
-    del base["top"]
+    del base["zero_dose"]
     with pytest.raises(cw.ParameterError, match="lacks settings"):
         _state.parse_params(model, base)
     with pytest.raises(cw.ParameterError, match="mapping"):
@@ -79,9 +86,9 @@ def test_parse_params_needs_every_parameter(model: cw.Model) -> None:
 
 
 def test_settings_from_model_moves_a_start_into_the_bounds(model: cw.Model) -> None:
-    s = _state.settings_from_model(model, {"hill": -3.0, "top": math.nan})
-    assert s["hill"]["value"] == 0.0  # hill is positive: its lower bound is 0
-    assert s["top"]["value"] == model.param("top").value
+    s = _state.settings_from_model(model, {"n_h": -3.0, "zero_dose": math.nan})
+    assert s["n_h"]["value"] == 0.0  # n_h is positive: its lower bound is 0
+    assert s["zero_dose"]["value"] == model.param("zero_dose").value
 
 
 # ---------------------------------------------------------------------------------- axes
@@ -164,9 +171,9 @@ def test_thinning_keeps_every_occupied_cell_extremes_and_excluded_points() -> No
 def test_fitted_json_matches_textbook_formulas(model: cw.Model) -> None:
     rng = np.random.default_rng(11)
     x = np.repeat([0.0, 1e-9, 1e-8, 1e-7, 1e-6, 1e-5], 3)
-    truth = {"bottom": 3.0, "top": 97.0, "logIC50": -7.3, "hill": 0.9}
+    truth = {"full_effect": 3.0, "zero_dose": 97.0, "log_ic50": -7.3, "n_h": 0.9}
     y = hill_inhibition(x, **truth) + rng.normal(0.0, 2.0, x.size)
-    r = cw.fit(model, x, y, exclude=[4], fixed={"bottom": 3.0})
+    r = cw.fit(model, x, y, exclude=[4], fixed={"full_effect": 3.0})
     ds = cw.make_dataset(x, y)
     view = _state.data_view(ds, [4], "log", "linear", model)
     f = _state.fitted_json(r, view, "log")
@@ -175,14 +182,14 @@ def test_fitted_json_matches_textbook_formulas(model: cw.Model) -> None:
     np.testing.assert_allclose(f["residuals"], expected, rtol=1e-12, atol=1e-12)
     # Wald intervals: value ± t(0.975, dof) * SE (common practice), t from scipy.
     q = sps.t.ppf(0.975, r.dof)
-    for n in ("top", "logIC50", "hill"):
+    for n in ("zero_dose", "log_ic50", "n_h"):
         assert f["ci_low"][n] == pytest.approx(r.values[n] - q * r.stderr[n], rel=1e-12)
         assert f["ci_high"][n] == pytest.approx(r.values[n] + q * r.stderr[n], rel=1e-12)
-    assert f["stderr"]["bottom"] is None and f["flags"]["bottom"] == ["fixed"]
+    assert f["stderr"]["full_effect"] is None and f["flags"]["full_effect"] == ["fixed"]
     assert f["excluded"] == [4] and f["stats"]["n"] == x.size - 1
     assert f["caution"] == cw.CAUTION
-    ic50 = next(d for d in f["derived"] if d["name"] == "IC50")
-    assert ic50["value"] == pytest.approx(10 ** r.values["logIC50"], rel=1e-12)
+    ic50 = next(d for d in f["derived"] if d["name"] == "ic50")
+    assert ic50["value"] == pytest.approx(10 ** r.values["log_ic50"], rel=1e-12)
     assert ic50["extrapolated"] is False
     # The curve samples are the model at the sampled x.
     cx = np.asarray(f["curve"]["x"])
@@ -193,6 +200,6 @@ def test_fitted_json_flags_a_parameter_at_its_bound(model: cw.Model) -> None:
     rng = np.random.default_rng(2)
     x = np.repeat([1e-9, 1e-8, 1e-7, 1e-6, 1e-5], 3)
     y = hill_inhibition(x, 3.0, 97.0, -7.0, 1.2) + rng.normal(0.0, 1.0, x.size)
-    r = cw.fit(model, x, y, bounds={"hill": (0.1, 0.8)})
+    r = cw.fit(model, x, y, bounds={"n_h": (0.1, 0.8)})
     f = _state.fitted_json(r, _state.data_view(cw.make_dataset(x, y), [], "log", "linear"), "log")
-    assert "at_upper" in f["flags"]["hill"]
+    assert "at_upper" in f["flags"]["n_h"]

@@ -17,8 +17,8 @@ Anderson, *Model Selection and Multimodel Inference*, 2002, from memory):
 Nesting is detected when two fits use the same model and one holds parameters fixed that the
 other estimates (at values consistent with the other's fixed ones), and for known pairs of
 catalog models (a straight line inside any polynomial, polynomials of increasing degree, the
-3PL inside the 4PL with bottom = 0, the 4PL inside the 5PL with s = 1, Michaelis-Menten inside
-the Hill equation with n_hill = 1), each confirmed numerically: the larger model with those
+3PL inside the 4PL with zero_dose = 0, the 4PL inside the 5PL with g = 1, Michaelis-Menten inside
+the Hill equation with n_h = 1), each confirmed numerically: the larger model with those
 values fixed must reproduce the simpler model's curve. Any other nesting can be declared.
 """
 
@@ -245,10 +245,10 @@ def _check_fit(r: object, label: str) -> FitResult:
         raise ComparisonError(
             f"{label} is a {type(r).__name__}, not a FitResult; pass results of curvewright.fit."
         )
-    if r.loss != "linear":
+    if r.loss != "squared":
         raise ComparisonError(
             f"{label!r} used the robust {r.loss!r} loss: the F test and AICc compare least-"
-            "squares fits. Refit with loss='linear' (after excluding outliers) to compare."
+            "squares fits. Refit with loss='squared' (after excluding outliers) to compare."
         )
     if not r.success:
         raise ComparisonError(
@@ -290,10 +290,10 @@ def _poly_degree(r: FitResult) -> int | None:
 
 #: Catalog models nested in others: (simpler, larger) -> values to fix in the larger one.
 _KNOWN_NESTINGS: dict[tuple[str, str], dict[str, float]] = {
-    ("stimulation_3pl", "stimulation_4pl"): {"bottom": 0.0},
-    ("stimulation_4pl", "stimulation_5pl"): {"s": 1.0},
-    ("inhibition_4pl", "inhibition_5pl"): {"s": 1.0},
-    ("michaelis_menten", "hill"): {"n_hill": 1.0},
+    ("stimulation_3pl", "stimulation_4pl"): {"zero_dose": 0.0},
+    ("stimulation_4pl", "stimulation_5pl"): {"g": 1.0},
+    ("inhibition_4pl", "inhibition_5pl"): {"g": 1.0},
+    ("michaelis_menten", "hill"): {"n_h": 1.0},
 }
 
 
@@ -320,9 +320,9 @@ def _known_mapping(simple: FitResult, large: FitResult) -> dict[str, float] | No
 
 
 def _rename_for(simple: FitResult, large: FitResult) -> dict[str, str]:
-    # Michaelis-Menten's Km is the Hill equation's K_half.
+    # Michaelis-Menten's Km is the Hill equation's K0.5.
     if (simple.model.name, large.model.name) == ("michaelis_menten", "hill"):
-        return {"Km": "K_half"}
+        return {"Km": "K05"}
     if simple.model.polynomial_degree is not None and large.model.polynomial_degree is not None:
         # polynomial coefficients in order of power, whatever they are called
         return dict(zip(simple.model.param_names, large.model.param_names, strict=False))
@@ -552,10 +552,11 @@ def _recommend(
             if d[second] > 10
             else "moderate support for it"
         )
+        # w_best / w_second is Burnham and Anderson's evidence ratio (2002, section 2.10)
         reasons.append(
-            f"AICc is lowest for {aicc_choice!r} (Akaike weight {w[best]:.3f}); it is "
-            f"{ratio:.3g} times as likely as the runner-up {labels[second]!r} (difference "
-            f"{d[second]:.3g}) to be the better model of these: {closeness}."
+            f"AICc is lowest for {aicc_choice!r} (Akaike weight {w[best]:.3f}); its evidence "
+            f"ratio over the next best, {labels[second]!r}, is {ratio:.3g} (AICc difference "
+            f"{d[second]:.3g}): {closeness}."
         )
     else:
         reasons.append(f"AICc is lowest for {aicc_choice!r} (Akaike weight {w[best]:.3f}).")
@@ -617,5 +618,5 @@ def _recommend(
     warn = [dg.text for dg in fits[i_pref].diagnostics if dg.severity in ("warning", "error")]
     if warn:
         reasons.append(f"Note on {preferred!r}: " + " ".join(warn))
-    recommendation = f"Prefer {preferred!r} (by the {criterion})."
+    recommendation = f"Use {preferred!r} (decided by the {criterion})."
     return preferred, criterion, recommendation, reasons

@@ -9,7 +9,7 @@ transform            t (abscissa)     z (ordinate)     parameters
 lineweaver_burk      1/x              1/y              Vmax = 1/a, Km = b/a
 hanes_woolf          x                x/y              Vmax = 1/b, Km = a/b
 eadie_hofstee        y/x              y                Vmax = a, Km = -b
-semilog              x                ln|y - plateau|  span = +-exp(a), k = -b (y0, k for growth)
+semilog              x                ln|y - base|     amplitude = +-exp(a), k = -b (y0, k: growth)
 loglog               ln x             ln y             a = exp(a), b = b
 logit                log10 x (or x)   log10(f/(1-f))   midpoint = -a/b, slope = b
 ===================  ===============  ===============  ==========================================
@@ -56,9 +56,9 @@ BoolArray = NDArray[np.bool_]
 
 _LN10 = math.log(10.0)
 
-#: Fraction of the distance to the plateau (semilog) or of the span (logit) below which points
-#: are left out of the line: their logarithm is dominated by noise. The same rule as the
-#: helpers in :mod:`curvewright.start`.
+#: Fraction of the distance to the baseline (semilog) or of the change between the levels
+#: (logit) below which points are left out of the line: their logarithm is dominated by noise.
+#: The same rule as the helpers in :mod:`curvewright.start`.
 _SEMILOG_TRIM = 0.05
 _LOGIT_TRIM = 0.05
 
@@ -78,7 +78,7 @@ class LinearizedFit:
         The transformed points the line was fitted to (abscissa, ordinate).
     used : ndarray of bool
         Over the input points: which ones the line used (the transform needs x > 0 and/or
-        y > 0, or y strictly between the plateaus).
+        y > 0, or y strictly between the two levels).
     intercept, slope : float
         The ordinary least-squares line ``z = intercept + slope * t``.
     intercept_se, slope_se : float
@@ -86,7 +86,7 @@ class LinearizedFit:
     line_r2 : float
         R² of the line on the transformed scale (not comparable with a curve's R²).
     held : mapping of str to float
-        Quantities the transform needs and takes as known (plateau, bottom, top, K).
+        Quantities the transform needs and takes as known (baseline, zero_dose, full_effect, K).
     table : pandas.DataFrame
         One row per parameter: ``linearized``, ``linearized_se`` (delta method from the line's
         covariance), ``nonlinear``, ``nonlinear_se``, ``difference_pct`` (100 (lin - nls)/nls).
@@ -212,18 +212,18 @@ def _eh_points(
     return y[m] / x[m], y[m], m
 
 
-def _semilog_sign(y: FloatArray, plateau: float) -> float:
-    d = y - plateau
+def _semilog_sign(y: FloatArray, baseline: float) -> float:
+    d = y - baseline
     return 1.0 if np.sum(d > 0) >= np.sum(d < 0) else -1.0
 
 
 def _semilog_points(
     x: FloatArray, y: FloatArray, h: Mapping[str, float]
 ) -> tuple[FloatArray, FloatArray, BoolArray]:
-    plateau = h["plateau"]
+    baseline = h["baseline"]
     fin = np.isfinite(x) & np.isfinite(y)
-    sign = _semilog_sign(y[fin], plateau)
-    dist = np.where(fin, sign * (y - plateau), -np.inf)
+    sign = _semilog_sign(y[fin], baseline)
+    dist = np.where(fin, sign * (y - baseline), -np.inf)
     m = dist > 0
     if np.any(m):
         m &= dist > _SEMILOG_TRIM * float(np.max(dist[m]))
@@ -259,21 +259,20 @@ def _logit_dzdy(x: FloatArray, y: FloatArray, h: Mapping[str, float]) -> FloatAr
 
 
 def _semilog_back(a: float, b: float, h: Mapping[str, float]) -> tuple[float, ...]:
-    # decay_to_plateau: plateau + span*exp(-k*x); exponential_growth: y0*exp(k*x)
+    # exponential_decay: baseline + amplitude*exp(-k*x); exponential_growth: y0*exp(k*x)
     return (h["sign"] * math.exp(a), b if h.get("growth") else -b)
 
 
 def _semilog_helper(x: FloatArray, y: FloatArray, h: Mapping[str, float]) -> tuple[float, ...]:
-    span, k = _start.semilog_rate(x, y, h["plateau"])
-    return (span, -k if h.get("growth") else k)
+    amplitude, k = _start.semilog_rate(x, y, h["baseline"])
+    return (amplitude, -k if h.get("growth") else k)
 
 
 def _logit_back(a: float, b: float, h: Mapping[str, float]) -> tuple[float, ...]:
     mid = -a / b if b != 0 else math.nan
-    kind = h["kind"]
-    if kind == 0.0:  # stimulation: midpoint and Hill slope
-        return (mid, b)
-    if kind == 1.0:  # inhibition: with f measured from the low-dose level the slope is +hill
+    if not h["growth"]:
+        # dose-response, stimulation or inhibition: f runs from zero_dose to full_effect, so
+        # the slope is +n_h either way
         return (mid, b)
     # logistic growth, log10(f/(1-f)) = (r/ln 10)(x - x_inflection) with f = y/K
     r = b * _LN10
@@ -335,19 +334,19 @@ _SPECS: dict[str, _Spec] = {
         "departures from Michaelis-Menten show up clearly as curvature." + _REPORT,
     ),
     "semilog": _Spec(
-        "decay_to_plateau",
-        ("span", "k"),
+        "exponential_decay",
+        ("amplitude", "k"),
         _semilog_points,
         _semilog_back,
-        lambda x, y, h: 1.0 / (y - h["plateau"]),
+        lambda x, y, h: 1.0 / (y - h["baseline"]),
         _semilog_helper,
-        "Semi-logarithmic plot (ln|y - plateau| against x), with the plateau taken as known. The "
-        "error of the logarithm is about sd(y)/|y - plateau|, so the line weights each point by "
-        "(y - plateau)^2: it assumes the error is proportional to the distance from the "
-        "plateau, and points near the plateau, whose logarithm is mostly noise, would dominate "
-        "(points within 5% of the largest distance are left out for that reason). Back-"
-        "transforming the intercept with exp() also biases the span low when the log-scale "
-        "scatter is large." + _REPORT,
+        "Semi-logarithmic plot (ln|y - baseline| against x), with the baseline taken as known. "
+        "The error of the logarithm is about sd(y)/|y - baseline|, so the line weights each "
+        "point by (y - baseline)^2: it assumes the error is proportional to the distance from "
+        "the baseline, and points near the baseline, whose logarithm is mostly noise, would "
+        "dominate (points within 5% of the largest distance are left out for that reason). "
+        "Back-transforming the intercept with exp() also biases the amplitude low when the "
+        "log-scale scatter is large." + _REPORT,
     ),
     "loglog": _Spec(
         "power_law",
@@ -364,17 +363,18 @@ _SPECS: dict[str, _Spec] = {
     ),
     "logit": _Spec(
         "stimulation_4pl",
-        ("logEC50", "hill"),
+        ("log_ec50", "n_h"),
         _logit_points,
         _logit_back,
         _logit_dzdy,
         _logit_helper,
-        "Logit plot (log10(f/(1-f)) with f = (y - low plateau)/(high plateau - low plateau), "
-        "against log10 x or x), with the plateaus taken as known. The error of the logit is "
-        "about sd(y)/(ln 10 f(1-f) span), so the line weights each point by (f(1-f))^2: points "
-        "half-way carry most weight and points near the plateaus, where f(1-f) is small and the "
-        "logit is mostly noise, are down-weighted only if they are left out (those within 5% of "
-        "the span of a plateau are). An error in the assumed plateaus bends the line." + _REPORT,
+        "Logit plot (log10(f/(1-f)) with f the fraction of the way from the low-x level to the "
+        "high-x level, against log10 x or x), with both levels taken as known. The error of the "
+        "logit is about sd(y)/(ln 10 f(1-f) |change|), so the line weights each point by "
+        "(f(1-f))^2: points half-way carry most weight and points near the levels, where "
+        "f(1-f) is small and the logit is mostly noise, are down-weighted only if they are left "
+        "out (those within 5% of the change from a level are). An error in the assumed levels "
+        "bends the line." + _REPORT,
     ),
 }
 
@@ -384,7 +384,7 @@ TRANSFORMS: tuple[str, ...] = tuple(_SPECS)
 #: Which transforms apply to which catalog model (for :func:`linearized_fits`).
 _FAMILIES: dict[str, tuple[str, ...]] = {
     "michaelis_menten": ("lineweaver_burk", "eadie_hofstee", "hanes_woolf"),
-    "decay_to_plateau": ("semilog",),
+    "exponential_decay": ("semilog",),
     "exponential_growth": ("semilog",),
     "power_law": ("loglog",),
     "stimulation_4pl": ("logit",),
@@ -416,7 +416,7 @@ def _ols(t: FloatArray, z: FloatArray, what: str) -> tuple[float, float, FloatAr
         raise DataError(
             f"{what}: the straight line needs at least 3 usable points for its standard errors; "
             f"got {n}. The transform keeps only points it can take (see the note on the "
-            "transform): check signs, zeros and the plateaus."
+            "transform): check signs, zeros and the levels."
         )
     tm, zm = float(np.mean(t)), float(np.mean(z))
     dt = t - tm
@@ -464,9 +464,10 @@ def linearized_fit(
     data: pd.DataFrame | Mapping[str, Any] | None = None,
     result: FitResult | None = None,
     nonlinear: bool = True,
-    plateau: float = 0.0,
-    bottom: float | None = None,
-    top: float | None = None,
+    baseline: float = 0.0,
+    zero_dose: float | None = None,
+    full_effect: float | None = None,
+    K: float | None = None,
     model: str | None = None,
 ) -> LinearizedFit:
     """Fit one classical straight-line plot and set it beside the nonlinear fit.
@@ -475,8 +476,8 @@ def linearized_fit(
     ----------
     transform : str
         ``"lineweaver_burk"``, ``"hanes_woolf"``, ``"eadie_hofstee"`` (Michaelis-Menten),
-        ``"semilog"`` (exponential decay to a known plateau, or growth), ``"loglog"`` (power law)
-        or ``"logit"`` (logistic dose-response or growth, plateaus known).
+        ``"semilog"`` (exponential decay to a known baseline, or growth), ``"loglog"`` (power
+        law) or ``"logit"`` (logistic dose-response or growth, levels known).
     x, y : array_like or str
         The data, or column names of ``data``. Leave out when ``result`` is given.
     data : DataFrame or mapping, optional
@@ -487,17 +488,20 @@ def linearized_fit(
     nonlinear : bool
         Without ``result``: whether to fit the model by nonlinear least squares
         (:func:`curvewright.fit`, started from the line's estimates) for the side-by-side table.
-    plateau : float
+    baseline : float
         ``semilog`` only: the level the curve approaches, taken as known (0 for pure decay or
         growth). The nonlinear fit holds it at the same value so the two answer one question.
-    bottom, top : float, optional
-        ``logit`` only: the response at low and high x (for an inhibition curve ``top`` is the
-        low-dose level). Default: the nonlinear fit's plateaus (K and 0 for logistic growth).
+    zero_dose, full_effect : float, optional
+        ``logit`` with a dose-response model: the response with no compound and at a saturating
+        dose (``stimulation_3pl`` has ``zero_dose`` 0). Default: the nonlinear fit's levels.
+    K : float, optional
+        ``logit`` with ``logistic_growth``: the carrying capacity (the lower level is 0).
+        Default: the nonlinear fit's K.
     model : str, optional
-        ``logit`` only: ``"stimulation_4pl"`` (default), ``"stimulation_3pl"`` (bottom 0),
-        ``"inhibition_4pl"`` or ``"logistic_growth"`` (logit against x itself, bottom 0, top K).
-        ``semilog``: ``"decay_to_plateau"`` (default; a falling or rising approach) or
-        ``"exponential_growth"`` (``y0*exp(k*x)``, plateau 0).
+        ``logit`` only: ``"stimulation_4pl"`` (default), ``"stimulation_3pl"``,
+        ``"inhibition_4pl"`` or ``"logistic_growth"`` (logit against x itself, from 0 to K).
+        ``semilog``: ``"exponential_decay"`` (default; a falling or rising approach) or
+        ``"exponential_growth"`` (``y0*exp(k*x)``, baseline 0).
 
     Returns
     -------
@@ -506,7 +510,7 @@ def linearized_fit(
     Raises
     ------
     ParameterError
-        Unknown transform or model, or plateaus that are missing or equal.
+        Unknown transform or model, or levels that are missing, equal or not the model's.
     DataError
         Fewer than three points the transform can use.
     FitError
@@ -525,10 +529,10 @@ def linearized_fit(
             raise ParameterError(
                 "Give either result= (its data are used) or x=/y=/data=, not both."
             )
-        if result.loss != "linear":
+        if result.loss != "squared":
             raise FitError(
                 f"The nonlinear fit used the robust {result.loss!r} loss; the side-by-side "
-                "table compares least-squares estimates. Refit with loss='linear'."
+                "table compares least-squares estimates. Refit with loss='squared'."
             )
         xa, ya = np.asarray(result.x, dtype=float), np.asarray(result.y, dtype=float)
     else:
@@ -539,31 +543,44 @@ def linearized_fit(
     nls: FitResult | None = result
     held: dict[str, float] = {}
     hspec: dict[str, float] = {}
+    if transform != "semilog" and baseline != 0.0:
+        raise ParameterError(f"baseline= belongs to the semilog transform, not to {transform}.")
+    if transform != "logit" and (zero_dose, full_effect, K) != (None, None, None):
+        raise ParameterError(
+            f"zero_dose=, full_effect= and K= belong to the logit transform, not to {transform}."
+        )
     if transform == "semilog":
-        p = _finite(plateau, "plateau")
+        p = _finite(baseline, "baseline")
         fin = np.isfinite(xa) & np.isfinite(ya)
         hspec = {
-            "plateau": p,
+            "baseline": p,
             "sign": _semilog_sign(ya[fin], p),
             "growth": 1.0 if model_name == "exponential_growth" else 0.0,
         }
-        held = {"plateau": p}
-        if result is not None and "plateau" in result.values:
-            rp = result.values["plateau"]
-            if "plateau" not in result.fixed or rp != p:
+        held = {"baseline": p}
+        if result is not None and "baseline" in result.values:
+            rp = result.values["baseline"]
+            if "baseline" not in result.fixed or rp != p:
                 raise FitError(
-                    f"The semi-log line takes the plateau as known ({p:g}) but the nonlinear "
+                    f"The semi-log line takes the baseline as known ({p:g}) but the nonlinear "
                     "fit given "
-                    + ("estimated it" if "plateau" not in result.fixed else f"held it at {rp:g}")
-                    + f"; refit with fixed={{'plateau': {p:g}}} or pass plateau={rp:g}."
+                    + ("estimated it" if "baseline" not in result.fixed else f"held it at {rp:g}")
+                    + f"; refit with fixed={{'baseline': {p:g}}} or pass baseline={rp:g}."
                 )
         if model_name == "exponential_growth" and p != 0.0:
             raise ParameterError(
-                "exponential_growth (y0*exp(k*x)) has no plateau; use plateau=0 or "
-                "model='decay_to_plateau'."
+                "exponential_growth (y0*exp(k*x)) has no baseline; use baseline=0 or "
+                "model='exponential_decay'."
             )
     if transform == "logit":
-        hspec, held, nls = _logit_levels(xa, ya, model_name, bottom, top, nls, nonlinear)
+        hspec, held, nls = _logit_levels(
+            xa,
+            ya,
+            model_name,
+            {"zero_dose": zero_dose, "full_effect": full_effect, "K": K},
+            nls,
+            nonlinear,
+        )
 
     t, z, used = spec.points(xa, ya, hspec)
     a, b, cov, r2 = _ols(t, z, transform)
@@ -630,10 +647,10 @@ def linearized_fits(
         As for :func:`linearized_fit`.
     model : str
         ``"michaelis_menten"`` (Lineweaver-Burk, Eadie-Hofstee, Hanes-Woolf), or a model with
-        one transform (``decay_to_plateau``, ``exponential_growth``, ``power_law``,
+        one transform (``exponential_decay``, ``exponential_growth``, ``power_law``,
         ``stimulation_4pl``, ``inhibition_4pl``, ``logistic_growth``).
     **options
-        Passed to :func:`linearized_fit` (``plateau``, ``bottom``, ``top``).
+        Passed to :func:`linearized_fit` (``baseline``, ``zero_dose``, ``full_effect``, ``K``).
 
     Returns
     -------
@@ -692,7 +709,7 @@ def _columns(
 def _resolve_model(transform: str, spec: _Spec, model: str | None, result: FitResult | None) -> str:
     allowed = {
         "logit": ("stimulation_4pl", "stimulation_3pl", "inhibition_4pl", "logistic_growth"),
-        "semilog": ("decay_to_plateau", "exponential_growth"),
+        "semilog": ("exponential_decay", "exponential_growth"),
     }.get(transform, (spec.model_name,))
     name = model
     if name is None and result is not None and result.model.name in allowed:
@@ -718,9 +735,9 @@ def _resolve_model(transform: str, spec: _Spec, model: str | None, result: FitRe
 def _param_names(transform: str, model_name: str) -> tuple[str, ...]:
     if transform == "logit":
         return {
-            "stimulation_4pl": ("logEC50", "hill"),
-            "stimulation_3pl": ("logEC50", "hill"),
-            "inhibition_4pl": ("logIC50", "hill"),
+            "stimulation_4pl": ("log_ec50", "n_h"),
+            "stimulation_3pl": ("log_ec50", "n_h"),
+            "inhibition_4pl": ("log_ic50", "n_h"),
             "logistic_growth": ("N0", "r"),
         }[model_name]
     if transform == "semilog" and model_name == "exponential_growth":
@@ -732,49 +749,47 @@ def _logit_levels(
     x: FloatArray,
     y: FloatArray,
     model_name: str,
-    bottom: float | None,
-    top: float | None,
+    given: Mapping[str, float | None],
     nls: FitResult | None,
     nonlinear: bool,
 ) -> tuple[dict[str, float], dict[str, float], FitResult | None]:
-    """Plateaus for the logit line: given, or the nonlinear fit's."""
+    """The two levels of the logit line: given, or the nonlinear fit's."""
     growth = model_name == "logistic_growth"
-    zero_based = growth or model_name == "stimulation_3pl"
-    if zero_based and bottom not in (None, 0.0):
-        raise ParameterError(f"{model_name} rises from 0: leave bottom out (or give 0).")
-    need_fit = top is None or (bottom is None and not zero_based)
-    if need_fit and nls is None:
+    # the levels the model has, low-x level first; a missing one is structurally zero
+    names = {"logistic_growth": ("K",), "stimulation_3pl": ("full_effect",)}.get(
+        model_name, ("zero_dose", "full_effect")
+    )
+    extra = [k for k, v in given.items() if v is not None and k not in names]
+    if extra:
+        zero = " (its response at zero dose is 0)" if model_name == "stimulation_3pl" else ""
+        raise ParameterError(
+            f"{model_name} takes the logit level(s) {', '.join(map(repr, names))}{zero}; leave "
+            f"{', '.join(extra)} out."
+        )
+    if any(given[k] is None for k in names) and nls is None:
         if not nonlinear:
             raise ParameterError(
-                "The logit line needs the plateaus: give bottom= and top= (or allow the "
-                "nonlinear fit, whose plateaus are then used)."
+                "The logit line needs the levels: give "
+                + " and ".join(f"{k}=" for k in names)
+                + " (or allow the nonlinear fit, whose levels are then used)."
             )
         nls = _nonlinear_fit(model_name, x, y, (), np.zeros(0), {})
-    if growth:
-        lo = 0.0
-        hi = _finite(top if top is not None else (nls.values["K"] if nls else None), "top")
-        held = {"bottom": 0.0, "K": hi}
-    elif zero_based:
-        lo = 0.0
-        hi = _finite(top if top is not None else (nls.values["top"] if nls else None), "top")
-        held = {"bottom": 0.0, "top": hi}
+    held = {}
+    for k in names:
+        v = given[k]
+        held[k] = _finite(v if v is not None else (nls.values[k] if nls else None), k)
+    if len(names) == 2:
+        lo, hi = held["zero_dose"], held["full_effect"]
     else:
-        b = _finite(
-            bottom if bottom is not None else (nls.values["bottom"] if nls else None), "bottom"
-        )
-        tp = _finite(top if top is not None else (nls.values["top"] if nls else None), "top")
-        held = {"bottom": b, "top": tp}
-        # the low-dose level is bottom for stimulation, top for inhibition
-        lo, hi = (b, tp) if model_name == "stimulation_4pl" else (tp, b)
+        lo, hi = 0.0, held[names[0]]
     if lo == hi:
-        raise ParameterError(f"the plateaus must differ; both are {lo:g}.")
-    kind = {
-        "stimulation_4pl": 0.0,
-        "stimulation_3pl": 0.0,
-        "inhibition_4pl": 1.0,
-        "logistic_growth": 2.0,
-    }[model_name]
-    hspec = {"low_level": lo, "high_level": hi, "log_x": 0.0 if growth else 1.0, "kind": kind}
+        raise ParameterError(f"the two levels must differ; both are {lo:g}.")
+    hspec = {
+        "low_level": lo,
+        "high_level": hi,
+        "log_x": 0.0 if growth else 1.0,
+        "growth": 1.0 if growth else 0.0,
+    }
     return hspec, held, nls
 
 
@@ -791,7 +806,7 @@ def _nonlinear_fit(
     from curvewright.fitting import fit
 
     m = catalog()[model_name]
-    fixed = {k: v for k, v in held.items() if k == "plateau" and k in m.param_names}
+    fixed = {k: v for k, v in held.items() if k == "baseline" and k in m.param_names}
     start: dict[str, float] = {}
     for n, v in zip(names, est, strict=True):
         p = m.param(n)
@@ -799,7 +814,7 @@ def _nonlinear_fit(
             start[n] = float(v)
     keep = np.isfinite(x) & np.isfinite(y)
     bounds: dict[str, tuple[float | None, float | None]] | None = None
-    if model_name == "decay_to_plateau" and "k" in start and start["k"] < 0:
+    if model_name == "exponential_decay" and "k" in start and start["k"] < 0:
         # a growth curve on the decay model: let k go negative
         bounds = {"k": (None, None)}
     return fit(m, x[keep], y[keep], start=start or None, fixed=fixed or None, bounds=bounds)

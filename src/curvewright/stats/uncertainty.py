@@ -351,11 +351,11 @@ def _quantile(result: FitResult, level: float) -> float:
 
 
 def _require_least_squares(result: FitResult, what: str) -> None:
-    if result.loss != "linear":
+    if result.loss != "squared":
         raise FitError(
             f"{what} assumes a least-squares fit, but this fit used the robust {result.loss!r} "
             "loss, whose sum of squares does not follow the same distribution. Refit with "
-            "loss='linear' (after excluding the outliers the robust fit revealed)."
+            "loss='squared' (after excluding the outliers the robust fit revealed)."
         )
 
 
@@ -676,7 +676,7 @@ def derived_quantity(
     """Any function of the parameters, with its delta-method standard error and interval.
 
     For quantities the model does not list among its derived ones (see :func:`derived_table`),
-    e.g. ``"log(2)/k"``, ``"Vmax/Km"`` or ``"10**logEC50"``.
+    e.g. ``"log(2)/k"``, ``"Vmax/Km"`` or ``"10**log_ec50"``.
 
     Parameters
     ----------

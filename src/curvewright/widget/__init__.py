@@ -2,6 +2,6 @@
 
 from __future__ import annotations
 
-from ._widget import CurveFitter
+from ._widget import CurveBench
 
-__all__ = ["CurveFitter"]
+__all__ = ["CurveBench"]

@@ -455,7 +455,7 @@ def fitted_json(
             "r2": _opt(result.r2),
             "aicc": _opt(result.aicc),
             "sigma_resid": _opt(result.sigma_resid),
-            "nfev": int(result.nfev),
+            "evaluations": int(result.evaluations),
         },
         "excluded": [int(r) for d in result.datasets for r in d.excluded_rows],
         "diagnostics": [d.to_dict() for d in result.diagnostics if d.severity != "info"],

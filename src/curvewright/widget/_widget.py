@@ -48,10 +48,12 @@ from ..stats.polynomial import DegreeSelection, select_degree
 from . import _state
 from ._errors import describe
 
-__all__ = ["CurveFitter"]
+__all__ = ["CurveBench"]
 
-# The saved-state format; bump the number when its meaning changes.
-STATE_FORMAT = "curvewright.widget/1"
+# The saved-state format; bump the number when its meaning changes. Version 1 used older catalog
+# model and parameter names and is refused with a message saying so.
+STATE_FORMAT = "curvewright.widget/2"
+_OLD_STATE_FORMATS = {"curvewright.widget/1": 1}
 
 # fit() options a widget may carry into every fit; the rest of fit()'s arguments come from the
 # widget's own state (model, data, start, fixed, bounds, exclusions).
@@ -61,7 +63,7 @@ FIT_OPTIONS = (
     "loss_scale",
     "absolute_sigma",
     "method",
-    "max_nfev",
+    "max_evaluations",
     "timeout",
     "links",
 )
@@ -124,14 +126,14 @@ class _Flag(traitlets.Bool):  # type: ignore[type-arg]  # traitlets' generic Boo
         return _state.check_flag(value, str(self.name))
 
 
-class CurveFitter(anywidget.AnyWidget):
+class CurveBench(anywidget.AnyWidget):
     """Fit a model to data interactively in a notebook, with the result back in Python.
 
     Parameters
     ----------
     data : DataFrame or mapping, optional
         A table holding the columns named by ``x`` and ``y``. Arrays may be given instead as
-        ``CurveFitter(x_values, y_values, model=...)`` or with ``x=``/``y=``.
+        ``CurveBench(x_values, y_values, model=...)`` or with ``x=``/``y=``.
     x, y : str or array_like
         Column names of ``data``, or the observations themselves.
     model : Model, str or callable
@@ -154,7 +156,7 @@ class CurveFitter(anywidget.AnyWidget):
         ``{name: (lower, upper)}``, ``None`` for no bound.
     fit_options : mapping, optional
         Extra :func:`curvewright.fit` arguments for every fit: weights, loss, loss_scale,
-        absolute_sigma, method, max_nfev, timeout, links.
+        absolute_sigma, method, max_evaluations, timeout, links.
 
     Attributes
     ----------
@@ -179,9 +181,9 @@ class CurveFitter(anywidget.AnyWidget):
 
     Examples
     --------
-    >>> w = CurveFitter(df, x="conc", y="response", model="inhibition_4pl")  # doctest: +SKIP
+    >>> w = CurveBench(df, x="conc", y="response", model="inhibition_4pl")  # doctest: +SKIP
     >>> w  # shows the widget; drag, fix, exclude, press Fit      # doctest: +SKIP
-    >>> w.result.values["logIC50"]                                # doctest: +SKIP
+    >>> w.result.values["log_ic50"]                               # doctest: +SKIP
     """
 
     _esm = _BUNDLE if _BUNDLE.is_file() else _NO_BUNDLE_ESM
@@ -254,11 +256,11 @@ class CurveFitter(anywidget.AnyWidget):
         self._degree_cache: tuple[tuple[Any, ...], dict[str, Any]] | None = None
 
         if data is not None and not _is_table(data):
-            # CurveFitter(x_values, y_values, model=...): arrays given positionally.
+            # CurveBench(x_values, y_values, model=...): arrays given positionally.
             if y is not None:
                 raise DataError(
-                    "Give either a table and column names, CurveFitter(df, x='col', y='col', "
-                    "...), or two arrays, CurveFitter(x_values, y_values, ...); got three "
+                    "Give either a table and column names, CurveBench(df, x='col', y='col', "
+                    "...), or two arrays, CurveBench(x_values, y_values, ...); got three "
                     "positional arguments and the first is not a table."
                 )
             data, x, y = None, data, x
@@ -653,7 +655,8 @@ class CurveFitter(anywidget.AnyWidget):
         Raises
         ------
         DataError
-            Wrong format, other data (row count), bad exclusions or axis scales.
+            Wrong format (a snapshot of format version 1 used older names: set the model up
+            again), other data (row count), bad exclusions or axis scales.
         ModelError
             A model the widget does not know and cannot rebuild (a Python function: pass it
             again with ``models=[...]``).
@@ -663,6 +666,13 @@ class CurveFitter(anywidget.AnyWidget):
         if not isinstance(snapshot, Mapping):
             raise DataError(f"A widget snapshot is a mapping, got {type(snapshot).__name__}.")
         fmt = snapshot.get("format")
+        if isinstance(fmt, str) and fmt in _OLD_STATE_FORMATS:
+            raise DataError(
+                f"This snapshot was saved in curvewright widget-state format "
+                f"{_OLD_STATE_FORMATS[fmt]} ({fmt!r}), which used older model and parameter "
+                "names; this version cannot restore it. Choose the model and set its parameters "
+                "again, then save a new snapshot."
+            )
         if fmt != STATE_FORMAT:
             raise DataError(f"Not a widget snapshot: format is {fmt!r}, expected {STATE_FORMAT!r}.")
         n_input = snapshot.get("n_input")
@@ -685,7 +695,7 @@ class CurveFitter(anywidget.AnyWidget):
             if not isinstance(model_def, Mapping) or model_def.get("formula") is None:
                 raise ModelError(
                     f"The snapshot's model {name!r} is not known here and cannot be rebuilt "
-                    "(it was a Python function); pass it with CurveFitter(..., models=[f])."
+                    "(it was a Python function); pass it with CurveBench(..., models=[f])."
                 )
             if model is not None:
                 raise ModelError(
@@ -1231,8 +1241,8 @@ class CurveFitter(anywidget.AnyWidget):
                 with self._lock:
                     fn()
 
-        def progress(nfev: int, ssr: float) -> None:
-            msg = f"fitting {req.model.name}: {nfev} evaluations, SSR {ssr:.6g}"
+        def progress(evaluations: int, ssr: float) -> None:
+            msg = f"fitting {req.model.name}: {evaluations} evaluations, SSR {ssr:.6g}"
             post(lambda: self._set_status("fitting", msg))
 
         outcome: FitResult | BaseException

@@ -24,19 +24,19 @@ import pytest
 from scipy.optimize import curve_fit
 
 import curvewright as cw
-from curvewright.widget import CurveFitter
+from curvewright.widget import CurveBench
 from curvewright.widget._state import MAX_POINTS
 
-# Truth of the synthetic inhibition assay (4PL, decreasing): bottom, top, logIC50, hill.
-TRUTH = {"bottom": 4.0, "top": 96.0, "logIC50": -6.7, "hill": 1.1}
+# Truth of the synthetic inhibition assay (4PL, falling from 96 with no inhibitor to 4).
+TRUTH = {"full_effect": 4.0, "zero_dose": 96.0, "log_ic50": -6.7, "n_h": 1.1}
 DOSES = [0.0, 1e-9, 1e-8, 3e-8, 1e-7, 3e-7, 1e-6, 1e-5, 1e-4]
 
 
-def four_pl(x: Any, bottom: float, top: float, logIC50: float, hill: float) -> Any:
+def four_pl(x: Any, full_effect: float, zero_dose: float, log_ic50: float, n_h: float) -> Any:
     # Written independently of the catalog's formula: the usual 4PL with the midpoint in log10
-    # units (common practice), top at zero dose for an inhibitor.
+    # units (common practice), falling from zero_dose (no inhibitor) to full_effect.
     x = np.asarray(x, dtype=float)
-    return bottom + (top - bottom) / (1.0 + (x / 10.0**logIC50) ** hill)
+    return full_effect + (zero_dose - full_effect) / (1.0 + (x / 10.0**log_ic50) ** n_h)
 
 
 def assay(seed: int = 3, sd: float = 2.0) -> pd.DataFrame:
@@ -52,16 +52,16 @@ def df() -> pd.DataFrame:
 
 
 @pytest.fixture
-def w(df: pd.DataFrame) -> CurveFitter:
-    return CurveFitter(df, x="conc", y="response", model="inhibition_4pl")
+def w(df: pd.DataFrame) -> CurveBench:
+    return CurveBench(df, x="conc", y="response", model="inhibition_4pl")
 
 
-def page_sets(widget: CurveFitter, **state: Any) -> None:
+def page_sets(widget: CurveBench, **state: Any) -> None:
     """What ipywidgets does with a state update from the page."""
     widget.set_state(state)
 
 
-def page_sends(widget: CurveFitter, content: dict[str, Any]) -> None:
+def page_sends(widget: CurveBench, content: dict[str, Any]) -> None:
     """What ipywidgets does with a custom message from the page."""
     widget._handle_custom_msg(content, [])
 
@@ -71,7 +71,7 @@ def with_setting(params: dict[str, Any], name: str, **change: Any) -> dict[str, 
 
 
 # ------------------------------------------------------------------------------ construction
-def test_dataframe_columns_log_axis_and_zero_dose_listed(w: CurveFitter) -> None:
+def test_dataframe_columns_log_axis_and_zero_dose_listed(w: CurveBench) -> None:
     assert w.model_name == "inhibition_4pl"
     assert w.data["x_label"] == "conc" and w.data["y_label"] == "response"
     # Doses span five decades: x starts on a log axis; the zero-dose controls (rows 0-2)
@@ -80,15 +80,15 @@ def test_dataframe_columns_log_axis_and_zero_dose_listed(w: CurveFitter) -> None
     assert w.data["off_axis"] == [0, 1, 2]
     assert len(w.data["x"]) == 27
     # The guided start is finite and near the truth it was generated from.
-    assert abs(w.values["logIC50"] - TRUTH["logIC50"]) < 0.5
+    assert abs(w.values["log_ic50"] - TRUTH["log_ic50"]) < 0.5
     assert w.model_json["has_preview"] is True
     assert w.model_names[0] == "inhibition_4pl"
 
 
 def test_arrays_positional_and_keyword() -> None:
     d = assay()
-    a = CurveFitter(d["conc"].to_numpy(), d["response"].to_numpy(), model="inhibition_4pl")
-    b = CurveFitter(x=d["conc"].to_numpy(), y=d["response"].to_numpy(), model="inhibition_4pl")
+    a = CurveBench(d["conc"].to_numpy(), d["response"].to_numpy(), model="inhibition_4pl")
+    b = CurveBench(x=d["conc"].to_numpy(), y=d["response"].to_numpy(), model="inhibition_4pl")
     assert a.data["x"] == b.data["x"]
     assert a.params == b.params
 
@@ -97,11 +97,11 @@ def test_model_kinds_and_user_models_first(df: pd.DataFrame) -> None:
     def decline(x: Any, a: float, k: float) -> Any:
         return a * np.exp(-k * np.asarray(x))
 
-    w = CurveFitter(
+    w = CurveBench(
         df,
         x="conc",
         y="response",
-        model="bottom + (top - bottom)/(1 + x/ic50)",
+        model="full_effect + (zero_dose - full_effect)/(1 + x/ic50)",
         models=[decline, cw.catalog()["hill"]],
     )
     assert w.model_names[:3] == ["custom", "decline", "hill"]
@@ -115,46 +115,46 @@ def test_model_kinds_and_user_models_first(df: pd.DataFrame) -> None:
 
 def test_missing_or_unknown_model_raises(df: pd.DataFrame) -> None:
     with pytest.raises(cw.ModelError, match="Give the model to fit"):
-        CurveFitter(df, x="conc", y="response")
+        CurveBench(df, x="conc", y="response")
     with pytest.raises(cw.ModelError, match="inhibition_4pl"):
-        CurveFitter(df, x="conc", y="response", model="inhibition_4p")  # spelling hint
+        CurveBench(df, x="conc", y="response", model="inhibition_4p")  # spelling hint
 
 
 def test_two_different_models_with_one_name_raise(df: pd.DataFrame) -> None:
     a = cw.Model.from_formula("a*x + b", name="line_a")
     b = cw.Model.from_formula("a*x**2 + b", name="line_a")
     with pytest.raises(cw.ModelError, match="both called 'line_a'"):
-        CurveFitter(df, x="conc", y="response", model=a, models=[b])
+        CurveBench(df, x="conc", y="response", model=a, models=[b])
 
 
 def test_bad_data_and_options_raise(df: pd.DataFrame) -> None:
     with pytest.raises(cw.DataError, match="column"):
-        CurveFitter(df, x="dose", y="response", model="inhibition_4pl")
+        CurveBench(df, x="dose", y="response", model="inhibition_4pl")
     with pytest.raises(cw.DataError, match="outside"):
-        CurveFitter(df, x="conc", y="response", model="inhibition_4pl", exclude=[99])
+        CurveBench(df, x="conc", y="response", model="inhibition_4pl", exclude=[99])
     with pytest.raises(cw.ParameterError, match="loss"):
-        CurveFitter(df, x="conc", y="response", model="inhibition_4pl", fit_options={"los": 1})
+        CurveBench(df, x="conc", y="response", model="inhibition_4pl", fit_options={"los": 1})
     with pytest.raises(cw.DataError, match="x_scale"):
-        CurveFitter(df, x="conc", y="response", model="inhibition_4pl", x_scale="ln")
+        CurveBench(df, x="conc", y="response", model="inhibition_4pl", x_scale="ln")
     with pytest.raises(cw.ParameterError, match="outside its bounds"):
-        CurveFitter(
+        CurveBench(
             df,
             x="conc",
             y="response",
             model="inhibition_4pl",
-            start={"hill": 3.0},
-            bounds={"hill": (0.1, 2.0)},
+            start={"n_h": 3.0},
+            bounds={"n_h": (0.1, 2.0)},
         )
 
 
 # ------------------------------------------------------------------------- the page's flow
-def reference_fit(df: pd.DataFrame, excluded: list[int], bottom: float) -> np.ndarray:
-    """scipy's curve_fit on the same problem: bottom substituted, excluded rows removed."""
+def reference_fit(df: pd.DataFrame, excluded: list[int], full_effect: float) -> np.ndarray:
+    """scipy's curve_fit on the same problem: full_effect substituted, excluded rows removed."""
     keep = np.ones(len(df), dtype=bool)
     keep[excluded] = False
     x, y = df["conc"].to_numpy()[keep], df["response"].to_numpy()[keep]
     popt, _ = curve_fit(
-        lambda x, top, logIC50, hill: four_pl(x, bottom, top, logIC50, hill),
+        lambda x, zero_dose, log_ic50, n_h: four_pl(x, full_effect, zero_dose, log_ic50, n_h),
         x,
         y,
         p0=[90.0, -6.5, 1.0],
@@ -163,41 +163,41 @@ def reference_fit(df: pd.DataFrame, excluded: list[int], bottom: float) -> np.nd
     return np.asarray(popt)
 
 
-def test_fix_exclude_and_fit_from_the_page(w: CurveFitter, df: pd.DataFrame) -> None:
-    # The page fixes bottom at 5 (checkbox + typed value), clicks point 13, presses Fit.
-    page_sets(w, params=with_setting(w.params, "bottom", value=5.0, fixed=True))
+def test_fix_exclude_and_fit_from_the_page(w: CurveBench, df: pd.DataFrame) -> None:
+    # The page fixes full_effect at 5 (checkbox + typed value), clicks point 13, presses Fit.
+    page_sets(w, params=with_setting(w.params, "full_effect", value=5.0, fixed=True))
     page_sets(w, excluded=[13])
     page_sends(w, {"type": "fit"})
     assert w.wait(timeout=60)
     r = w.result
     assert r is not None and r.success
-    assert r.fixed == ("bottom",) and r.values["bottom"] == 5.0
+    assert r.fixed == ("full_effect",) and r.values["full_effect"] == 5.0
     assert r.dataset.excluded_rows == [13] and r.n == len(df) - 1
     ref = reference_fit(df, [13], 5.0)
-    got = np.array([r.values["top"], r.values["logIC50"], r.values["hill"]])
+    got = np.array([r.values["zero_dose"], r.values["log_ic50"], r.values["n_h"]])
     np.testing.assert_allclose(got, ref, rtol=1e-5)
     # The state the page sees afterwards: fitted values, the fit, a status message.
     assert w.status["state"] == "done"
-    assert w.fitted is not None and w.fitted["flags"]["bottom"] == ["fixed"]
+    assert w.fitted is not None and w.fitted["flags"]["full_effect"] == ["fixed"]
     assert w.fitted["excluded"] == [13]
     assert len(w.fitted["residuals"]) == len(w.data["x"])
-    assert w.params["logIC50"]["value"] == pytest.approx(r.values["logIC50"])
+    assert w.params["log_ic50"]["value"] == pytest.approx(r.values["log_ic50"])
     assert w.error == ""
 
 
-def test_fit_request_carries_the_pages_latest_state(w: CurveFitter, df: pd.DataFrame) -> None:
+def test_fit_request_carries_the_pages_latest_state(w: CurveBench, df: pd.DataFrame) -> None:
     # A state update still buffered in the page: the request itself brings it.
-    params = with_setting(w.params, "bottom", value=5.0, fixed=True)
+    params = with_setting(w.params, "full_effect", value=5.0, fixed=True)
     page_sends(
         w, {"type": "fit", "model_name": "inhibition_4pl", "params": params, "excluded": [13]}
     )
     assert w.wait(timeout=60)
     r = w.result
-    assert r is not None and r.fixed == ("bottom",) and r.dataset.excluded_rows == [13]
+    assert r is not None and r.fixed == ("full_effect",) and r.dataset.excluded_rows == [13]
     assert w.excluded == [13]
 
 
-def test_fit_from_python_callbacks_and_history(w: CurveFitter) -> None:
+def test_fit_from_python_callbacks_and_history(w: CurveBench) -> None:
     seen: list[cw.FitResult] = []
     observed: list[Any] = []
     w.on_fit(seen.append)
@@ -213,7 +213,7 @@ def test_fit_from_python_callbacks_and_history(w: CurveFitter) -> None:
     assert len(seen) == 1 and len(w.history) == 2
 
 
-def test_callback_error_is_shown_not_raised(w: CurveFitter) -> None:
+def test_callback_error_is_shown_not_raised(w: CurveBench) -> None:
     def broken(_r: cw.FitResult) -> None:
         raise KeyError("no such column")
 
@@ -222,17 +222,17 @@ def test_callback_error_is_shown_not_raised(w: CurveFitter) -> None:
     assert "KeyError" in w.error and w.result is not None
 
 
-def test_bound_flags_reach_the_page(w: CurveFitter) -> None:
+def test_bound_flags_reach_the_page(w: CurveBench) -> None:
     # Hill held below its true value (1.1) by an upper bound of 0.8: the fit ends on it.
-    w.set_param("hill", value=0.7, upper=0.8)
+    w.set_param("n_h", value=0.7, upper=0.8)
     r = w.fit()
-    assert r.values["hill"] == pytest.approx(0.8)
-    assert "at_upper" in w.fitted["flags"]["hill"]
+    assert r.values["n_h"] == pytest.approx(0.8)
+    assert "at_upper" in w.fitted["flags"]["n_h"]
 
 
-def test_invalid_page_edit_is_shown_and_not_applied(w: CurveFitter) -> None:
+def test_invalid_page_edit_is_shown_and_not_applied(w: CurveBench) -> None:
     before = json.dumps(w.params, sort_keys=True)
-    page_sets(w, params=with_setting(w.params, "hill", lower=3.0, upper=2.0))
+    page_sets(w, params=with_setting(w.params, "n_h", lower=3.0, upper=2.0))
     assert "lower bound 3 is above upper bound 2" in w.error
     assert json.dumps(w.params, sort_keys=True) == before
     page_sets(w, excluded=[500])
@@ -245,7 +245,7 @@ def test_invalid_page_edit_is_shown_and_not_applied(w: CurveFitter) -> None:
 
 def test_fit_failure_goes_to_the_error_area(df: pd.DataFrame) -> None:
     # A power law needs x > 0, and the zero-dose rows are in the data.
-    w = CurveFitter(df, x="conc", y="response", model="power_law")
+    w = CurveBench(df, x="conc", y="response", model="power_law")
     page_sends(w, {"type": "fit"})
     assert w.wait(timeout=60)
     assert w.status["state"] == "error"
@@ -265,7 +265,7 @@ def test_second_fit_while_running_raises(df: pd.DataFrame) -> None:
             gate.wait(5)
         return a + b * np.asarray(x)
 
-    w = CurveFitter(df, x="conc", y="response", model=slow)
+    w = CurveBench(df, x="conc", y="response", model=slow)
     hold = True
     w.fit(wait=False)
     try:
@@ -280,14 +280,14 @@ def test_cancel_stops_a_fit(df: pd.DataFrame) -> None:
     calls = 0
     fitting = False
 
-    def slow(x: Any, bottom: float, top: float, logIC50: float, hill: float) -> Any:
+    def slow(x: Any, full_effect: float, zero_dose: float, log_ic50: float, n_h: float) -> Any:
         nonlocal calls
         if fitting:  # the guided start in the constructor runs at full speed
             calls += 1
             time.sleep(0.02)
-        return four_pl(x, bottom, top, logIC50, hill)
+        return four_pl(x, full_effect, zero_dose, log_ic50, n_h)
 
-    w = CurveFitter(df, x="conc", y="response", model=slow, start=TRUTH)
+    w = CurveBench(df, x="conc", y="response", model=slow, start=TRUTH)
     fitting = True
     page_sends(w, {"type": "fit"})
     while calls < 3:
@@ -299,7 +299,7 @@ def test_cancel_stops_a_fit(df: pd.DataFrame) -> None:
     assert w.status["state"] == "stopped"
 
 
-def test_fit_applies_through_a_running_event_loop(w: CurveFitter) -> None:
+def test_fit_applies_through_a_running_event_loop(w: CurveBench) -> None:
     # In a kernel the page's Fit runs with an event loop: the result is applied on it.
     async def main() -> cw.FitResult | None:
         page_sends(w, {"type": "fit"})
@@ -314,11 +314,11 @@ def test_fit_applies_through_a_running_event_loop(w: CurveFitter) -> None:
 
 
 # ----------------------------------------------------------------------------- models
-def test_switching_model_keeps_earlier_fits(w: CurveFitter) -> None:
+def test_switching_model_keeps_earlier_fits(w: CurveBench) -> None:
     first = w.fit()
     page_sets(w, model_name="inhibition_5pl")
     assert w.model_json["name"] == "inhibition_5pl"
-    assert set(w.params) == {"bottom", "top", "logIC50", "hill", "s"}
+    assert set(w.params) == {"full_effect", "zero_dose", "log_ic50", "n_h", "g"}
     assert all(math.isfinite(s["value"]) for s in w.params.values())
     assert w.fitted is None
     assert [c["model_name"] for c in w.compare] == ["inhibition_4pl"]
@@ -332,19 +332,19 @@ def test_switching_model_keeps_earlier_fits(w: CurveFitter) -> None:
     assert w.fitted is not None and w.fitted["values"] == dict(first.values)
 
 
-def test_reset_start_keeps_fixed_values(w: CurveFitter) -> None:
-    w.set_param("top", value=100.0, fixed=True)
-    w.set_param("logIC50", value=-3.0)
+def test_reset_start_keeps_fixed_values(w: CurveBench) -> None:
+    w.set_param("zero_dose", value=100.0, fixed=True)
+    w.set_param("log_ic50", value=-3.0)
     page_sends(w, {"type": "guided_start"})
-    assert w.values["top"] == 100.0 and w.settings["top"]["fixed"]
-    assert abs(w.values["logIC50"] - TRUTH["logIC50"]) < 0.5
+    assert w.values["zero_dose"] == 100.0 and w.settings["zero_dose"]["fixed"]
+    assert abs(w.values["log_ic50"] - TRUTH["log_ic50"]) < 0.5
 
 
 def test_callable_preview_round_trip(df: pd.DataFrame) -> None:
     def line(x: Any, a: float, b: float) -> Any:
         return a + b * np.asarray(x)
 
-    w = CurveFitter(df, x="conc", y="response", model=line, x_scale="linear")
+    w = CurveBench(df, x="conc", y="response", model=line, x_scale="linear")
     page_sends(w, {"type": "preview", "values": {"a": 2.0, "b": 3.0}, "x_min": 0, "x_max": 1})
     c = w.preview_curve
     assert c["values"] == {"a": 2.0, "b": 3.0}
@@ -353,14 +353,14 @@ def test_callable_preview_round_trip(df: pd.DataFrame) -> None:
 
 
 # ------------------------------------------------------------------------------ Python API
-def test_bad_python_edits_raise_and_change_nothing(w: CurveFitter) -> None:
+def test_bad_python_edits_raise_and_change_nothing(w: CurveBench) -> None:
     before = json.dumps(w.snapshot(), sort_keys=True)
     with pytest.raises(cw.ParameterError, match="outside its bounds"):
-        w.set_param("hill", value=-1.0)
-    with pytest.raises(cw.ParameterError, match="Did you mean 'hill'"):
-        w.set_param("hil", value=1.0)
+        w.set_param("n_h", value=-1.0)
+    with pytest.raises(cw.ParameterError, match="Did you mean 'n_h'"):
+        w.set_param("n_hh", value=1.0)
     with pytest.raises(cw.ParameterError, match="above upper bound"):
-        w.params = with_setting(w.params, "top", lower=10.0, upper=1.0)
+        w.params = with_setting(w.params, "zero_dose", lower=10.0, upper=1.0)
     with pytest.raises(cw.DataError, match="x_scale must be 'linear' or 'log'"):
         w.x_scale = "logarithmic"
     with pytest.raises(cw.DataError, match=r"outside 0\.\.26"):
@@ -373,7 +373,7 @@ def test_bad_python_edits_raise_and_change_nothing(w: CurveFitter) -> None:
     assert w.error == ""
 
 
-def test_exclude_include_and_axes_from_python(w: CurveFitter) -> None:
+def test_exclude_include_and_axes_from_python(w: CurveBench) -> None:
     w.exclude([5, 3])
     w.exclude(4)
     assert w.excluded == [3, 4, 5] and w.data["excluded"] == [3, 4, 5]
@@ -383,28 +383,30 @@ def test_exclude_include_and_axes_from_python(w: CurveFitter) -> None:
     assert w.data["off_axis"] == []
 
 
-def test_snapshot_round_trip_through_json(w: CurveFitter, df: pd.DataFrame, tmp_path: Path) -> None:
+def test_snapshot_round_trip_through_json(w: CurveBench, df: pd.DataFrame, tmp_path: Path) -> None:
     w.set_model("stimulation_4pl")
-    w.set_param("hill", value=1.5, lower=0.5, upper=4.0, fixed=True)
+    w.set_param("n_h", value=1.5, lower=0.5, upper=4.0, fixed=True)
     w.exclude([7])
     w.y_scale = "log"
     path = tmp_path / "state.json"
     w.save(path)
-    other = CurveFitter(df, x="conc", y="response", model="inhibition_4pl")
+    other = CurveBench(df, x="conc", y="response", model="inhibition_4pl")
     other.load(path)
     assert other.snapshot() == w.snapshot()
     assert other.model_name == "stimulation_4pl" and other.excluded == [7]
 
 
 def test_restore_rebuilds_a_formula_model(df: pd.DataFrame) -> None:
-    a = CurveFitter(df, x="conc", y="response", model="bottom + (top - bottom)/(1 + x/ic50)")
+    a = CurveBench(
+        df, x="conc", y="response", model="full_effect + (zero_dose - full_effect)/(1 + x/ic50)"
+    )
     snap = json.loads(json.dumps(a.snapshot()))
-    b = CurveFitter(df, x="conc", y="response", model="inhibition_4pl")
+    b = CurveBench(df, x="conc", y="response", model="inhibition_4pl")
     b.restore(snap)
     assert b.model.formula == a.model.formula and b.params == a.params
 
 
-def test_restore_rejects_bad_snapshots_unchanged(w: CurveFitter, df: pd.DataFrame) -> None:
+def test_restore_rejects_bad_snapshots_unchanged(w: CurveBench, df: pd.DataFrame) -> None:
     good = w.snapshot()
     before = json.dumps(good, sort_keys=True)
     with pytest.raises(cw.DataError, match="format"):
@@ -412,14 +414,14 @@ def test_restore_rejects_bad_snapshots_unchanged(w: CurveFitter, df: pd.DataFram
     with pytest.raises(cw.DataError, match="with 5 rows; this widget holds 27"):
         w.restore({**good, "n_input": 5})
     with pytest.raises(cw.ParameterError, match="lacks settings"):
-        w.restore({**good, "params": {"top": good["params"]["top"]}})
+        w.restore({**good, "params": {"zero_dose": good["params"]["zero_dose"]}})
     with pytest.raises(cw.DataError, match="x_scale"):
         w.restore({**good, "x_scale": "ln", "excluded": [1]})
 
     def f(x: Any, a: float) -> Any:
         return a * np.asarray(x)
 
-    cb = CurveFitter(df, x="conc", y="response", model=f)
+    cb = CurveBench(df, x="conc", y="response", model=f)
     with pytest.raises(cw.ModelError, match="models=\\[f\\]"):
         w.restore(cb.snapshot())
     with pytest.raises(cw.DataError, match="Cannot read"):
@@ -427,7 +429,30 @@ def test_restore_rejects_bad_snapshots_unchanged(w: CurveFitter, df: pd.DataFram
     assert json.dumps(w.snapshot(), sort_keys=True) == before
 
 
-def test_ping_pong_flush(w: CurveFitter) -> None:
+def test_a_snapshot_in_the_old_format_is_refused_by_name(
+    w: CurveBench, df: pd.DataFrame, tmp_path: Path
+) -> None:
+    # Format 1 held other model and parameter names (e.g. a "logIC50" midpoint); restoring it
+    # says which format it is and what to do, and changes nothing.
+    good = w.snapshot()
+    assert good["format"] == "curvewright.widget/2"
+    before = json.dumps(good, sort_keys=True)
+    old = {**good, "format": "curvewright.widget/1"}
+    old["params"] = {
+        "bottom": {"value": 4.0, "lower": None, "upper": None, "fixed": False},
+        "logIC50": {"value": -6.7, "lower": None, "upper": None, "fixed": False},
+    }
+    message = r"saved in curvewright widget-state format 1 .*older model and parameter names"
+    with pytest.raises(cw.DataError, match=message):
+        w.restore(old)
+    path = tmp_path / "old_state.json"
+    path.write_text(json.dumps(old), encoding="utf-8")
+    with pytest.raises(cw.DataError, match=message):
+        w.load(path)
+    assert json.dumps(w.snapshot(), sort_keys=True) == before
+
+
+def test_ping_pong_flush(w: CurveBench) -> None:
     page_sets(w, sync_ping=7)
     assert w.sync_pong == 7
 
@@ -436,7 +461,7 @@ def test_large_data_is_thinned_for_drawing_only() -> None:
     rng = np.random.default_rng(0)
     x = rng.uniform(0.0, 10.0, 60_000)
     y = 3.0 + 2.0 * x + rng.normal(0.0, 1.0, x.size)
-    w = CurveFitter(x, y, model="straight_line")
+    w = CurveBench(x, y, model="straight_line")
     assert w.data["decimated"] and w.data["n_total"] == 60_000
     assert len(w.data["x"]) < MAX_POINTS * 1.2
     r = w.fit()
@@ -464,7 +489,7 @@ def test_core_does_not_import_the_widget_stack() -> None:
     assert out.stdout.strip() == ""
 
 
-def test_result_observer_error_is_shown_not_raised(w: CurveFitter) -> None:
+def test_result_observer_error_is_shown_not_raised(w: CurveBench) -> None:
     def broken(_change: Any) -> None:
         raise ZeroDivisionError("division by zero in a user's observer")
 
@@ -474,7 +499,7 @@ def test_result_observer_error_is_shown_not_raised(w: CurveFitter) -> None:
     assert w.status["state"] == "done"
 
 
-def test_models_are_compared_once_two_are_fitted(w: CurveFitter) -> None:
+def test_models_are_compared_once_two_are_fitted(w: CurveBench) -> None:
     from scipy import stats as sps
 
     with pytest.raises(cw.ComparisonError, match="at least two models"):
@@ -507,7 +532,7 @@ def test_callable_pins_are_solved_in_python(df: pd.DataFrame) -> None:
     def line(x: Any, a: float, b: float) -> Any:
         return a + b * np.asarray(x)
 
-    w = CurveFitter(df, x="conc", y="response", model=line, x_scale="linear")
+    w = CurveBench(df, x="conc", y="response", model=line, x_scale="linear")
     before = dict(w.values)
     # Dragging: the curve through (1, 3) and (2, 5) is y = 1 + 2x (two points fix a line).
     msg = {"type": "pins", "pins": [[1.0, 3.0], [2.0, 5.0]], "values": before, "seq": 1}
@@ -534,8 +559,8 @@ def test_guided_start_on_large_data_uses_a_subset_and_stays_close() -> None:
     rng = np.random.default_rng(5)
     x = 10.0 ** rng.uniform(-9.0, -4.0, 50_000)
     y = four_pl(x, **TRUTH) + rng.normal(0.0, 3.0, x.size)
-    w = CurveFitter(x, y, model="inhibition_4pl")
-    assert abs(w.values["logIC50"] - TRUTH["logIC50"]) < 0.1
+    w = CurveBench(x, y, model="inhibition_4pl")
+    assert abs(w.values["log_ic50"] - TRUTH["log_ic50"]) < 0.1
     r = w.fit()
     assert r.n == 50_000
     ci = r.ci(0.999)
@@ -545,15 +570,15 @@ def test_guided_start_on_large_data_uses_a_subset_and_stays_close() -> None:
 
 def test_sigma_and_fit_options_reach_the_fit(df: pd.DataFrame) -> None:
     df = df.assign(sd=2.0)
-    w = CurveFitter(
+    w = CurveBench(
         df,
         x="conc",
         y="response",
         model="inhibition_4pl",
         sigma="sd",
-        fit_options={"loss": "soft_l1", "max_nfev": 5000},
+        fit_options={"loss": "pseudo_huber", "max_evaluations": 5000},
     )
     r = w.fit()
-    assert r.weighting == "sigma" and r.loss == "soft_l1"
+    assert r.weighting == "sigma" and r.loss == "pseudo_huber"
     # With sigma = 2 for every point, weighted residuals are the residuals halved.
     np.testing.assert_allclose(r.weighted_residuals, r.residuals / 2.0, rtol=1e-12)
