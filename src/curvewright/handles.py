@@ -83,7 +83,8 @@ class _LMResult:
 def _half_sum_sq(r: FloatArray) -> float:
     if not np.all(np.isfinite(r)):
         return math.inf
-    return 0.5 * float(np.dot(r, r))
+    with np.errstate(over="ignore"):  # residuals near 1e154 square to inf: a cost of inf
+        return 0.5 * float(np.dot(r, r))
 
 
 def _lm(
