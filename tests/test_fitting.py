@@ -334,16 +334,16 @@ def test_fallback_ladder_is_reported(monkeypatch: pytest.MonkeyPatch) -> None:
     # When the first run stops without converging, the engine restarts from its best point and
     # then switches method; every run is listed in attempts with its outcome message. The first
     # run's outcome is forced here so the ladder is exercised deterministically.
-    import curvewright.fitting as fitting
+    import curvewright.fitting.engine as engine
 
-    real = fitting._code_of
+    real = engine._code_of
     calls = {"n": 0}
 
     def first_fails(raw: Any, method: str) -> str:
         calls["n"] += 1
         return "stopped_evaluations" if calls["n"] == 1 else real(raw, method)
 
-    monkeypatch.setattr(fitting, "_code_of", first_fails)
+    monkeypatch.setattr(engine, "_code_of", first_fails)
     p = read("Misra1a")
     model = cw.Model.from_formula(FORMULAS["Misra1a"], params=list(p.names))
     r = cw.fit(model, p.x, p.y, start=dict(zip(p.names, p.start1, strict=True)))

@@ -1,0 +1,260 @@
+"""Assembling a FitResult from a problem and its solver runs: covariance, statistics, diagnostics.
+
+The covariance comes from the SVD of the column-scaled weighted Jacobian; standard errors of
+linked parameters by the delta method; information criteria from :mod:`curvewright.numerics`;
+the diagnostics as data (kind, parameters, severity, text).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+
+import numpy as np
+
+from ..messages import outcome
+from ..numerics import aicc as _aicc
+from ..numerics import bic as _bic
+from ..result import HIGH_CORRELATION, NOT_IDENTIFIED_RSE, Attempt, Diagnostic, FitResult
+from .engine import _Run
+from .problem import FloatArray, _model_jacobian, _param_jacobian, _Problem
+
+# A column-scaled Jacobian with condition number above this has a near-singular covariance.
+_NEAR_SINGULAR = 1e10
+
+
+# ============================================================================ statistics
+def _covariance(jw: FloatArray, scale: float) -> tuple[FloatArray, float, bool]:
+    """Covariance ``scale * (Jw' Jw)^-1`` via the SVD of the column-scaled Jacobian."""
+    p = jw.shape[1]
+    if p == 0:
+        return np.zeros((0, 0)), 1.0, False
+    norms = np.linalg.norm(jw, axis=0)
+    if not np.all(np.isfinite(jw)) or np.any(norms == 0):
+        return np.full((p, p), np.nan), math.inf, True
+    a = jw / norms
+    _, s, vt = np.linalg.svd(a, full_matrices=False)
+    cond = float(s[0] / s[-1]) if s[-1] > 0 else math.inf
+    singular = not (s[-1] > s[0] * np.finfo(float).eps * max(jw.shape))
+    if singular:
+        return np.full((p, p), np.nan), cond, True
+    inv = (vt.T / s**2) @ vt
+    cov = scale * inv / np.outer(norms, norms)
+    return cov, cond, False
+
+
+def _diagnostics(
+    prob: _Problem,
+    values: Mapping[str, float],
+    stderr: Mapping[str, float],
+    cov: FloatArray,
+    cond: float,
+    singular: bool,
+    code: str,
+    success: bool,
+) -> list[Diagnostic]:
+    out: list[Diagnostic] = []
+    for d in prob.datasets:
+        for note in d.notes:
+            out.append(Diagnostic("data_note", "info", note))
+    if not success:
+        out.append(
+            Diagnostic(
+                "not_converged",
+                "error",
+                f"The fit did not converge ({outcome(code).text}). The numbers below are where "
+                "it stopped, not estimates; adjust the starting values or the model.",
+            )
+        )
+    for i, n in enumerate(prob.free):
+        v, lo, hi = values[n], prob.lower[i], prob.upper[i]
+        tol = 1e-8 * max(abs(v), 1e-12)
+        for side, b in (("lower", lo), ("upper", hi)):
+            if math.isfinite(b) and abs(v - b) <= tol + 1e-300:
+                out.append(
+                    Diagnostic(
+                        "at_bound",
+                        "warning",
+                        f"'{n}' is at its {side} bound ({b:g}); the data may want it beyond. Its "
+                        "standard error and interval assume it is not, so treat them with care.",
+                        params=(n,),
+                        extra={"side": side, "bound": float(b)},
+                    )
+                )
+    if singular:
+        out.append(
+            Diagnostic(
+                "singular",
+                "error",
+                "The covariance is singular: some parameters cannot be told apart by these data "
+                "(standard errors are not available). Fix a parameter or simplify the model.",
+                params=prob.free,
+            )
+        )
+    elif cond > _NEAR_SINGULAR:
+        out.append(
+            Diagnostic(
+                "near_singular",
+                "warning",
+                f"The covariance is nearly singular (condition number {cond:.2g}): standard "
+                "errors are large and unreliable in some directions.",
+                params=prob.free,
+                extra={"condition": cond},
+            )
+        )
+    for n in prob.free:
+        se, v = stderr[n], values[n]
+        if math.isfinite(se) and v != 0 and se / abs(v) > NOT_IDENTIFIED_RSE:
+            out.append(
+                Diagnostic(
+                    "not_identified",
+                    "warning",
+                    f"'{n}' is not identified by the data: its standard error ({se:.3g}) exceeds "
+                    f"its value ({v:.3g}). Collect data where it matters, or fix it.",
+                    params=(n,),
+                    extra={"stderr": se, "value": v},
+                )
+            )
+    if cov.size and not singular:
+        sd = np.sqrt(np.diag(cov))
+        with np.errstate(all="ignore"):
+            corr = cov / np.outer(sd, sd)
+        for i in range(len(prob.free)):
+            for j in range(i + 1, len(prob.free)):
+                if abs(corr[i, j]) > HIGH_CORRELATION:
+                    out.append(
+                        Diagnostic(
+                            "high_correlation",
+                            "warning",
+                            f"'{prob.free[i]}' and '{prob.free[j]}' are correlated "
+                            f"(r = {corr[i, j]:+.4f}): the data pin down a combination of them "
+                            "better than either alone.",
+                            params=(prob.free[i], prob.free[j]),
+                            extra={"r": float(corr[i, j])},
+                        )
+                    )
+    x_lo, x_hi = float(np.min(prob.x)), float(np.max(prob.x))
+    with np.errstate(all="ignore"):
+        for q in prob.model.derived:
+            if q.axis != "x":
+                continue
+            val = float(np.asarray(q.expr.evaluate(dict(values))))
+            if math.isfinite(val) and not x_lo <= val <= x_hi:
+                out.append(
+                    Diagnostic(
+                        "extrapolation",
+                        "warning",
+                        f"{q.name} = {val:.4g} lies outside the range of the data "
+                        f"[{x_lo:.4g}, {x_hi:.4g}]: it is an extrapolation, not a measurement.",
+                        params=tuple(n for n in prob.model.param_names if n in q.expr.names),
+                        extra={"quantity": q.name, "value": val, "range": [x_lo, x_hi]},
+                    )
+                )
+    if prob.loss != "squared":
+        out.append(
+            Diagnostic(
+                "robust_loss",
+                "info",
+                f"Fitted with the robust {prob.loss} loss; standard errors use the ordinary "
+                "least-squares formula at the solution and are approximate.",
+            )
+        )
+    return out
+
+
+def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
+    kept = min(runs, key=lambda r: (not outcome(r.code).success, r.objective)) if runs else None
+    if kept is not None and not outcome(kept.code).success:
+        kept = min(runs, key=lambda r: r.objective)
+    theta = kept.theta if kept is not None else np.zeros(0)
+    values = prob.values(theta)
+    fitted = prob.curve(values)
+    resid = prob.y - fitted
+    rw = resid if prob.w is None else resid * prob.w
+    ssr = float(rw @ rw)
+    rss = float(resid @ resid)
+    n, p = prob.x.size, len(prob.free)
+    dof = n - p
+    code = kept.code if kept is not None else "nothing_to_fit"
+    success = outcome(code).success
+    scale = 1.0 if prob.absolute_sigma else (ssr / dof if dof > 0 else math.nan)
+    if code in ("cancelled", "stopped_time"):
+        # The user asked to stop: no further model evaluations (a slow callable would need
+        # 2 per parameter for its Jacobian). The point where it stopped has no covariance.
+        J = np.full((n, p), np.nan)
+        cov, cond, singular = np.full((p, p), np.nan), math.nan, False
+    else:
+        J = _model_jacobian(prob, theta, values)
+        jw = J if prob.w is None else J * prob.w[:, None]
+        cov, cond, singular = _covariance(jw, scale)
+    pj = _param_jacobian(prob, values)
+    with np.errstate(all="ignore"):
+        var_all = np.einsum("ij,jk,ik->i", pj, cov, pj) if p else np.zeros(len(values))
+    stderr = {}
+    for i, nme in enumerate(prob.model.param_names):
+        if nme in prob.fixed:
+            stderr[nme] = math.nan
+        else:
+            stderr[nme] = float(math.sqrt(var_all[i])) if var_all[i] >= 0 else math.nan
+    wts = np.ones(n) if prob.w is None else prob.w
+    ybar = float(np.sum(wts**2 * prob.y) / np.sum(wts**2))
+    sst = float(np.sum((wts * (prob.y - ybar)) ** 2))
+    diags = _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
+    attempts = [
+        Attempt(
+            strategy=r.strategy,
+            method=r.method,
+            evaluations=r.evaluations,
+            ssr=r.ssr,
+            objective=r.objective,
+            code=r.code,
+            message=outcome(r.code).text,
+        )
+        for r in runs
+    ]
+    # The polish runs outside lmfit; power users get the best lmfit run (its values agree with
+    # ours to the solver's tolerance, its statistics are lmfit's own).
+    lm_runs = [r for r in runs if r.raw is not None]
+    lm = min(lm_runs, key=lambda r: r.objective).raw if lm_runs else None
+    return FitResult(
+        model=prob.model,
+        datasets=prob.datasets,
+        values=values,
+        stderr=stderr,
+        free=prob.free,
+        fixed=tuple(n for n in prob.model.param_names if n in prob.fixed),
+        linked=dict(prob.link_texts),
+        start=prob.values0,
+        bounds={
+            nme: (float(prob.lower[i]), float(prob.upper[i])) for i, nme in enumerate(prob.free)
+        },
+        covariance=cov,
+        ssr=ssr,
+        rss=rss,
+        n=n,
+        nfree=p,
+        dof=dof,
+        sigma_resid=math.sqrt(ssr / dof) if dof > 0 else math.nan,
+        r2=1.0 - ssr / sst if sst > 0 else math.nan,
+        aicc=_aicc(ssr, n, p + 1),
+        bic=_bic(ssr, n, p + 1),
+        condition=cond,
+        fitted=fitted,
+        residuals=resid,
+        weights=None if prob.w is None else prob.w,
+        jacobian=J,
+        param_jacobian=pj,
+        success=success,
+        code=code,
+        message=outcome(code).text,
+        messages=tuple((a.code, a.message) for a in attempts),
+        diagnostics=tuple(diags),
+        attempts=tuple(attempts),
+        weighting=prob.weighting,
+        loss=prob.loss,
+        loss_scale=prob.loss_scale,
+        absolute_sigma=prob.absolute_sigma,
+        method=kept.method if kept is not None else "none",
+        evaluations=sum(r.evaluations for r in runs),
+        _lmfit=lm,
+    )
