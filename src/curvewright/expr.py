@@ -883,22 +883,30 @@ def _codegen_many(trees: Sequence[Node]) -> tuple[list[str], list[str]]:
     return lines, [emit(t) for t in trees]
 
 
-@functools.lru_cache(maxsize=512)
-def _compiled(tree: Node, argnames: tuple[str, ...]) -> Callable[..., FloatArray | float]:
-    body, result = _codegen(tree)
-    if isinstance(tree, Name):
-        result = f"_copy({result})"
+def _generate(trees: tuple[Node, ...], argnames: tuple[str, ...], many: bool) -> Any:
+    """Compile straight-line numpy code for ``trees``: one result, or a tuple of them."""
+    body, results = _codegen_many(trees)
+    # A formula that is a bare name must not hand back the caller's own array.
+    results = [
+        f"_copy({r})" if isinstance(t, Name) else r for t, r in zip(trees, results, strict=True)
+    ]
     signature = ", ".join(argnames) + (", /" if argnames else "")
     source = [f"def _formula({signature}):"]
     source += [f"    {a} = _as_float({a}, {a!r})" for a in argnames]
     source.append("    with _errstate(all='ignore'):")
     source += [f"        {line}" for line in body]
-    source.append(f"        return _finish({result})")
+    returned = "".join(f"_finish({r}), " for r in results) if many else f"_finish({results[0]})"
+    source.append(f"        return ({returned})")
     # The source holds only validated identifiers, float reprs and the helper names above.
     code = builtins.compile("\n".join(source), "<curvewright formula>", "exec")
     namespace = dict(_CODE_GLOBALS)
     exec(code, namespace)
-    function: Callable[..., FloatArray | float] = namespace["_formula"]
+    return namespace["_formula"]
+
+
+@functools.lru_cache(maxsize=512)
+def _compiled(tree: Node, argnames: tuple[str, ...]) -> Callable[..., FloatArray | float]:
+    function: Callable[..., FloatArray | float] = _generate((tree,), argnames, many=False)
     return function
 
 
@@ -906,20 +914,7 @@ def _compiled(tree: Node, argnames: tuple[str, ...]) -> Callable[..., FloatArray
 def _compiled_many(
     trees: tuple[Node, ...], argnames: tuple[str, ...]
 ) -> Callable[..., tuple[FloatArray | float, ...]]:
-    body, results = _codegen_many(trees)
-    results = [
-        f"_copy({r})" if isinstance(t, Name) else r for t, r in zip(trees, results, strict=True)
-    ]
-    signature = ", ".join(argnames) + (", /" if argnames else "")
-    source = [f"def _formulas({signature}):"]
-    source += [f"    {a} = _as_float({a}, {a!r})" for a in argnames]
-    source.append("    with _errstate(all='ignore'):")
-    source += [f"        {line}" for line in body]
-    source.append(f"        return ({''.join(f'_finish({r}), ' for r in results)})")
-    code = builtins.compile("\n".join(source), "<curvewright formulas>", "exec")
-    namespace = dict(_CODE_GLOBALS)
-    exec(code, namespace)
-    function: Callable[..., tuple[FloatArray | float, ...]] = namespace["_formulas"]
+    function: Callable[..., tuple[FloatArray | float, ...]] = _generate(trees, argnames, many=True)
     return function
 
 

@@ -23,7 +23,7 @@ from .errors import FormulaError, ParameterError
 from .expr import Expr
 from .models import Model, as_number, unknown_name_message
 
-__all__ = ["SCOPES", "Parameter", "Parameters", "Scope", "move_inside"]
+__all__ = ["SCOPES", "Parameter", "Parameters", "Scope", "check_link", "move_inside"]
 
 Scope = Literal["shared", "per_group"]
 SCOPES: tuple[Scope, ...] = ("shared", "per_group")
@@ -423,7 +423,7 @@ class Parameters(Mapping[str, Parameter]):
                         f"{n!r} is both fixed and linked; choose one (remove it from fixed= or "
                         "links=)."
                     )
-                _check_link(model, n, r.link, links)
+                check_link(model, n, r.link, links)
                 continue
             kind = "fixed value" if r.fixed else "value"
             if not math.isfinite(r.value):
@@ -460,7 +460,8 @@ class Parameters(Mapping[str, Parameter]):
         return Parameters(out), tuple(notes)
 
 
-def _check_link(model: Model, name: str, text: str, links: Mapping[str, str]) -> None:
+def check_link(model: Model, name: str, text: str, links: Iterable[str]) -> Expr:
+    """Parse one link and check what it uses (the one link rule; :class:`ParameterError`)."""
     try:
         e = Expr.parse(text)
     except FormulaError as exc:
@@ -480,3 +481,4 @@ def _check_link(model: Model, name: str, text: str, links: Mapping[str, str]) ->
                 f"links[{name!r}] = {text!r} uses {used!r}, which is itself linked; write every "
                 "link in terms of free or fixed parameters."
             )
+    return e

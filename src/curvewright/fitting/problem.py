@@ -18,10 +18,11 @@ from numpy.typing import NDArray
 
 from ..catalog import catalog
 from ..data import Dataset
-from ..errors import DataError, FormulaError, ModelError, ParameterError
+from ..errors import DataError, ModelError, ParameterError
 from ..expr import Expr
 from ..models import Model, as_number, unknown_name_message
 from ..numerics import finite_difference_jacobian
+from ..parameters import check_link
 from ..start import guided_start
 
 FloatArray = NDArray[np.float64]
@@ -203,25 +204,7 @@ def _links(
             raise ParameterError(
                 f"links[{name!r}] must be an expression text such as '2*bottom', got {text!r}."
             )
-        try:
-            e = Expr.parse(text)
-        except FormulaError as exc:
-            raise ParameterError(f"links[{name!r}] = {text!r} cannot be parsed: {exc}") from exc
-        for used in e.names:
-            if used == "x":
-                raise ParameterError(
-                    f"links[{name!r}] = {text!r} uses x; a link may use only other parameters."
-                )
-            if used not in model.param_names:
-                raise ParameterError(
-                    f"links[{name!r}] = {text!r}: "
-                    + unknown_name_message(used, model.param_names, f"model {model.name!r}")
-                )
-            if used in links:
-                raise ParameterError(
-                    f"links[{name!r}] = {text!r} uses {used!r}, which is itself linked; "
-                    "write every link in terms of free or fixed parameters."
-                )
+        e = check_link(model, name, text, links)
         out[name] = e
     return out
 
