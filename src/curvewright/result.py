@@ -12,7 +12,7 @@ from __future__ import annotations
 import html
 import json
 import math
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any, Literal
@@ -641,7 +641,9 @@ class FitResult:
 
         See :func:`curvewright.stats.uncertainty.prediction_band`.
         """
-        out: pd.DataFrame = _statistic("prediction_band")(self, x, level, sigma=sigma, replicates=replicates)
+        out: pd.DataFrame = _statistic("prediction_band")(
+            self, x, level, sigma=sigma, replicates=replicates
+        )
         return out
 
     def inverse_predict(
@@ -656,7 +658,9 @@ class FitResult:
 
         See :func:`curvewright.stats.uncertainty.inverse_predict`.
         """
-        out: pd.DataFrame = _statistic("inverse_predict")(self, y, level, replicates=replicates, sigma=sigma)
+        out: pd.DataFrame = _statistic("inverse_predict")(
+            self, y, level, replicates=replicates, sigma=sigma
+        )
         return out
 
     def residual_diagnostics(self, alpha: float = 0.05) -> Any:

@@ -53,7 +53,7 @@ from curvewright.inference import (
     wald_intervals,
 )
 from curvewright.models import unknown_name_message
-from curvewright.numerics import finite_difference_jacobian
+from curvewright.numerics import finite_difference_jacobian, free_jacobian
 from curvewright.result import register_statistics
 from curvewright.thresholds import HIGH_CORRELATION
 
@@ -315,22 +315,14 @@ def model_gradient(result: FitResult, x: ArrayLike) -> FloatArray:
 
     Formula models: the symbolic derivative of the formula with respect to every parameter,
     chained through ``result.param_jacobian`` (so links are honoured and fixed parameters give
-    zero). Python-callable models: central finite differences over the free parameters (see
-    :func:`finite_difference_jacobian`), links recomputed at each step.
+    zero; see :func:`curvewright.numerics.free_jacobian`). Python-callable models: central finite
+    differences over the free parameters (see :func:`finite_difference_jacobian`), links
+    recomputed at each step.
     """
     xa = _as_x(x)
     model = result.model
     if result.nfree == 0:
         return np.zeros((xa.size, 0))
-    if model.expr is not None:
-        env: dict[str, Any] = {**dict(result.values), "x": xa}
-        cols = []
-        for name in model.param_names:
-            d = model.expr.derivative(name)
-            with np.errstate(all="ignore"):
-                cols.append(np.broadcast_to(np.asarray(d.evaluate(env), dtype=float), xa.shape))
-        g_all = np.column_stack(cols) if cols else np.zeros((xa.size, 0))
-        return np.asarray(g_all @ result.param_jacobian, dtype=float)
     theta = np.array([result.values[n] for n in result.free])
     lo = np.array([result.bounds.get(n, (-math.inf, math.inf))[0] for n in result.free])
     hi = np.array([result.bounds.get(n, (-math.inf, math.inf))[1] for n in result.free])
@@ -338,7 +330,19 @@ def model_gradient(result: FitResult, x: ArrayLike) -> FloatArray:
     def curve(th: FloatArray) -> FloatArray:
         return model.eval(xa, values_from_free(result, th))
 
-    return finite_difference_jacobian(curve, theta, lower=lo, upper=hi)
+    if model.expr is None:
+        return finite_difference_jacobian(curve, theta, lower=lo, upper=hi)
+    env: dict[str, Any] = {**dict(result.values), "x": xa}
+    cols = []
+    for name in model.param_names:
+        d = model.expr.derivative(name)
+        with np.errstate(all="ignore"):
+            cols.append(np.broadcast_to(np.asarray(d.evaluate(env), dtype=float), xa.shape))
+    g_all = np.column_stack(cols) if cols else np.zeros((xa.size, 0))
+    # The fit's own chain rule. Rows that are not finite (e.g. x = 0 in a log-dose formula) stay
+    # so, and the band is NaN there, as it always was: passing ``curve`` would fill them by
+    # differences as the fit does (a change of results, left for a decision of its own).
+    return free_jacobian(g_all, np.asarray(result.param_jacobian), None, theta, lower=lo, upper=hi)
 
 
 @dataclass(frozen=True)
