@@ -303,7 +303,9 @@ def test_dataframe_input_and_nan_rows_are_dropped_with_a_note() -> None:
     r = cw.fit("exponential_decay", data=df, x="time_h", y="signal")
     assert r.n == x.size - 2
     assert r.dataset.n_dropped == 2
-    assert any("dropped" in d.text for d in r.diagnostics)
+    # The dataset's note reaches the result as a data_note diagnostic (read by code, not text).
+    notes = [d for d in r.diagnostics if d.code == "data_note"]
+    assert [d.text for d in notes] == list(r.dataset.notes) and len(notes) == 1
     assert r.dataset.x_label == "time_h"
 
 

@@ -29,7 +29,7 @@ from .errors import (
 from .fitting import fit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
-from .result import CAUTION, FitResult
+from .result import FitResult
 from .start import generic_start, guided_start
 from .stats import (
     Comparison,
@@ -43,6 +43,7 @@ from .stats import (
     select_degree,
 )
 from .stats.diagnostics import residual_diagnostics
+from .thresholds import CAUTION
 
 __all__ = [
     "CAUTION",

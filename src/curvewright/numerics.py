@@ -1,7 +1,9 @@
 """Numeric pieces shared by the fitting core and the statistics layer.
 
 Information criteria (AIC, AICc, BIC) from a residual sum of squares, one convention for all,
-and central-difference Jacobians (for models given as Python functions).
+central-difference Jacobians (for models given as Python functions), and the Jacobian of a curve
+over the free parameters (analytic through links, or by differences), used by the fit and by the
+bands alike.
 
 The convention, used by every fit curvewright reports (linear, polynomial and nonlinear), is the
 Gaussian log-likelihood with the residual variance estimated by maximum likelihood and the
@@ -30,7 +32,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from curvewright.errors import DataError
 
-__all__ = ["aic", "aicc", "bic", "finite_difference_jacobian"]
+__all__ = ["aic", "aicc", "bic", "finite_difference_jacobian", "free_jacobian"]
 
 FloatArray = NDArray[np.float64]
 
@@ -151,4 +153,42 @@ def finite_difference_jacobian(
         else:
             dn[j] -= h
             J[:, j] = (f0 - np.asarray(func(dn))) / h
+    return J
+
+
+def free_jacobian(
+    analytic: FloatArray,
+    param_jacobian: FloatArray,
+    curve: Callable[[FloatArray], FloatArray] | None,
+    theta: ArrayLike,
+    *,
+    lower: ArrayLike | None = None,
+    upper: ArrayLike | None = None,
+) -> FloatArray:
+    """Jacobian of a formula's curve over the free parameters, shape ``(n, nfree)``.
+
+    The analytic derivatives chained through the links; a model without them (a Python
+    function) takes :func:`finite_difference_jacobian` of ``curve`` instead.
+
+    Parameters
+    ----------
+    analytic : ndarray, shape (n, n_params)
+        ``d f / d parameter`` for every parameter of the model (the symbolic derivatives).
+    param_jacobian : ndarray, shape (n_params, nfree)
+        ``d parameter / d free parameter``: the chain rule through links, zero for fixed ones.
+    curve : callable or None
+        ``curve(theta) -> f`` at the same points, as a function of the free parameters: for
+        central differences (see :func:`finite_difference_jacobian`), used for the rows where
+        the analytic Jacobian is not finite. None leaves those rows as they are.
+    theta, lower, upper : array_like
+        The free parameters and their bounds.
+    """
+    with np.errstate(all="ignore"):
+        J = np.asarray(analytic, dtype=float) @ param_jacobian
+    bad = ~np.all(np.isfinite(J), axis=1)
+    if curve is not None and bad.any():
+        # e.g. d/dlogEC50 of 10**(log10(x)...) at a zero-dose control: inf * 0 analytically,
+        # but the curve is flat there; differences give the limit.
+        fd = finite_difference_jacobian(curve, theta, lower=lower, upper=upper)
+        J[bad] = np.where(np.isfinite(fd[bad]), fd[bad], 0.0)
     return J

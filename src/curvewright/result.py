@@ -12,7 +12,7 @@ from __future__ import annotations
 import html
 import json
 import math
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any, Literal
@@ -20,36 +20,28 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats as _sps
 
 from .data import Dataset
-from .errors import CurvewrightError, ModelError, ParameterError
+from .errors import CurvewrightError, ModelError
+from .inference import correlation_matrix, derived_value_and_se, quantile
 from .models import Derived, Model, Param
+from .thresholds import CAUTION, HIGH_CORRELATION, NOT_IDENTIFIED_RSE
 
 __all__ = [
     "CAUTION",
+    "HIGH_CORRELATION",
     "NOT_IDENTIFIED_RSE",
     "Attempt",
     "Diagnostic",
     "FitResult",
+    "register_statistics",
 ]
 
 FloatArray = NDArray[np.float64]
 Severity = Literal["info", "warning", "error"]
 
-#: The caution printed with every summary (and shown by the widget).
-CAUTION = (
-    "Statistical estimates for research use. Validate under your lab's QA and local "
-    "regulations; not for clinical or dosing decisions."
-)
-
-#: |correlation| above which two parameters are reported as not separately determined (common
-#: practice: 0.99 is the usual alarm level).
-HIGH_CORRELATION = 0.99
-#: A free parameter whose standard error exceeds this multiple of its absolute value is reported
-#: as "not identified": its asymptotic 95% interval spans zero and about twice its own size in
-#: each direction, so the data say little more than its sign, if that.
-NOT_IDENTIFIED_RSE = 1.0
+# CAUTION, HIGH_CORRELATION and NOT_IDENTIFIED_RSE live in curvewright.thresholds; they are
+# imported above and stay importable from here.
 
 _FORMAT = "curvewright.FitResult"
 #: Version of the saved form. 2: the catalog's own model and parameter names, the solver option
@@ -384,11 +376,7 @@ class FitResult:
     @property
     def correlation(self) -> FloatArray:
         """Correlation matrix of the free parameters (NaN where a variance is 0 or NaN)."""
-        sd = np.sqrt(np.diag(self.covariance))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            corr = self.covariance / np.outer(sd, sd)
-        corr = np.where(np.isfinite(corr), corr, np.nan)
-        np.fill_diagonal(corr, np.where(sd > 0, 1.0, np.nan))
+        corr = correlation_matrix(self.covariance)
         corr.setflags(write=False)
         return corr
 
@@ -459,21 +447,8 @@ class FitResult:
         return self.model.eval(x, dict(self.values))
 
     def _quantile(self, level: float) -> float:
-        if (
-            isinstance(level, bool)
-            or not isinstance(level, (int, float))
-            or not (0.0 < float(level) < 1.0)
-        ):
-            raise ParameterError(
-                f"level must be a probability between 0 and 1 (e.g. 0.95), got {level!r}."
-            )
-        p = 0.5 + float(level) / 2.0
-        if self.absolute_sigma:
-            # sigma taken as known: the variance is not estimated, so the normal quantile.
-            return float(_sps.norm.ppf(p))
-        if self.dof <= 0:
-            return math.nan
-        return float(_sps.t.ppf(p, self.dof))
+        # sigma taken as known: the variance is not estimated, so the normal quantile.
+        return quantile(level, self.dof, known_sigma=self.absolute_sigma)
 
     def ci(self, level: float = 0.95) -> pd.DataFrame:
         """Asymptotic (Wald) confidence intervals of the parameters.
@@ -503,9 +478,6 @@ class FitResult:
             index=pd.Index(names, name="parameter"),
         )
         return out
-
-    def _gradient(self, expr_names: Sequence[str], grad_all: FloatArray) -> FloatArray:
-        return grad_all @ self.param_jacobian
 
     def derived(self, level: float = 0.95) -> pd.DataFrame:
         """Derived quantities (half-life, EC50, ...) with delta-method standard errors.
@@ -538,7 +510,7 @@ class FitResult:
 
     def _derived_row(self, d: Derived, q: float) -> dict[str, Any]:
         value, se = derived_value_and_se(
-            d, self.model, self.values, self.param_jacobian, self.covariance
+            d.expr, self.model.param_names, self.values, self.param_jacobian, self.covariance
         )
         inside: bool | None = None
         if d.axis == "x":
@@ -608,61 +580,54 @@ class FitResult:
         return out
 
     # ------------------------------------------------------ uncertainty (curvewright.stats)
-    # Thin delegates: the maths lives in curvewright.stats.uncertainty, imported lazily so that
-    # result never imports stats at module level (stats imports result).
+    # Thin delegates to the statistics layer, which sits above this record and imports it, so
+    # the record cannot import it back (not even late): curvewright.stats registers the
+    # functions behind these methods when it is imported (see register_statistics).
     def parameter_table(self, level: float = 0.95) -> pd.DataFrame:
         """Estimates with standard error, t, p and Wald interval.
 
         See :func:`curvewright.stats.uncertainty.parameter_table`.
         """
-        from .stats.uncertainty import parameter_table
-
-        return parameter_table(self, level)
+        out: pd.DataFrame = _statistic("parameter_table")(self, level)
+        return out
 
     def profile_ci(self, names: Sequence[str] | None = None, level: float = 0.95) -> pd.DataFrame:
         """Profile-likelihood intervals.
 
         See :func:`curvewright.stats.uncertainty.profile_intervals`.
         """
-        from .stats.uncertainty import profile_intervals
+        out: pd.DataFrame = _statistic("profile_intervals")(self, names, level)
+        return out
 
-        return profile_intervals(self, names, level)
-
-    def correlation_report(self, threshold: float = 0.99) -> Any:
+    def correlation_report(self, threshold: float = HIGH_CORRELATION) -> Any:
         """Correlation matrix with a warning per pair above ``threshold``.
 
         See :func:`curvewright.stats.uncertainty.correlation`.
         """
-        from .stats.uncertainty import correlation
-
-        return correlation(self, threshold)
+        return _statistic("correlation")(self, threshold)
 
     def derived_table(self, level: float = 0.95) -> pd.DataFrame:
         """Derived quantities with delta-method errors and extrapolation flags.
 
         See :func:`curvewright.stats.uncertainty.derived_table`.
         """
-        from .stats.uncertainty import derived_table
-
-        return derived_table(self, level)
+        out: pd.DataFrame = _statistic("derived_table")(self, level)
+        return out
 
     def derive(self, expression: str, level: float = 0.95, *, axis: str | None = None) -> Any:
         """Any function of the parameters with a delta-method error.
 
         See :func:`curvewright.stats.uncertainty.derived_quantity`.
         """
-        from .stats.uncertainty import derived_quantity
-
-        return derived_quantity(self, expression, level, axis=axis)
+        return _statistic("derived_quantity")(self, expression, level, axis=axis)
 
     def confidence_band(self, x: ArrayLike, level: float = 0.95) -> pd.DataFrame:
         """Pointwise confidence band of the curve.
 
         See :func:`curvewright.stats.uncertainty.confidence_band`.
         """
-        from .stats.uncertainty import confidence_band
-
-        return confidence_band(self, x, level)
+        out: pd.DataFrame = _statistic("confidence_band")(self, x, level)
+        return out
 
     def prediction_band(
         self,
@@ -676,9 +641,10 @@ class FitResult:
 
         See :func:`curvewright.stats.uncertainty.prediction_band`.
         """
-        from .stats.uncertainty import prediction_band
-
-        return prediction_band(self, x, level, sigma=sigma, replicates=replicates)
+        out: pd.DataFrame = _statistic("prediction_band")(
+            self, x, level, sigma=sigma, replicates=replicates
+        )
+        return out
 
     def inverse_predict(
         self,
@@ -692,18 +658,17 @@ class FitResult:
 
         See :func:`curvewright.stats.uncertainty.inverse_predict`.
         """
-        from .stats.uncertainty import inverse_predict
-
-        return inverse_predict(self, y, level, replicates=replicates, sigma=sigma)
+        out: pd.DataFrame = _statistic("inverse_predict")(
+            self, y, level, replicates=replicates, sigma=sigma
+        )
+        return out
 
     def residual_diagnostics(self, alpha: float = 0.05) -> Any:
         """Residual plots' data, normality, runs and lack-of-fit tests, outliers, influence.
 
         See :func:`curvewright.stats.diagnostics.residual_diagnostics`.
         """
-        from .stats.diagnostics import residual_diagnostics
-
-        return residual_diagnostics(self, alpha)
+        return _statistic("residual_diagnostics")(self, alpha)
 
     # --------------------------------------------------------------------- text
     def summary(self) -> str:
@@ -836,7 +801,7 @@ class FitResult:
             )
         for d in self.model.derived:
             value, sd = derived_value_and_se(
-                d, self.model, self.values, self.param_jacobian, self.covariance
+                d.expr, self.model.param_names, self.values, self.param_jacobian, self.covariance
             )
             rows.append(
                 f"<tr class='cw-derived'><th>{e(d.name)}</th><td>{e(_num(value))}</td>"
@@ -1118,42 +1083,24 @@ def _in_range(value: float, x: FloatArray) -> bool:
     return bool(float(np.min(x)) <= value <= float(np.max(x)))
 
 
-def gradient_of(expr_derivatives: Iterable[Any], values: Mapping[str, float]) -> FloatArray:
-    """Evaluate a sequence of derivative expressions at ``values`` (helper for delta method)."""
-    with np.errstate(all="ignore"):
-        return np.array([float(np.asarray(e.evaluate(values))) for e in expr_derivatives])
+# --------------------------------------------------------------- statistics registry
+# The statistics layer (curvewright.stats) is built on this module, so this module cannot
+# import it; instead each statistics module registers, when it is imported, the functions
+# behind FitResult's convenience methods (as the catalog registers itself with the models).
+# Importing anything from curvewright runs the package's __init__, which imports the statistics.
+_STATISTICS: dict[str, Callable[..., Any]] = {}
 
 
-def derived_value_and_se(
-    d: Derived,
-    model: Model,
-    values: Mapping[str, float],
-    param_jacobian: FloatArray,
-    covariance: FloatArray,
-) -> tuple[float, float]:
-    """Value of a derived quantity and its delta-method standard error.
+def register_statistics(**functions: Callable[..., Any]) -> None:
+    """Tell FitResult's convenience methods where their statistics live (called by the stats)."""
+    _STATISTICS.update(functions)
 
-    Parameters
-    ----------
-    d : Derived
-    model : Model
-    values : mapping
-        All parameter values.
-    param_jacobian : ndarray, shape (n_params, nfree)
-        ``d value / d free`` (see :attr:`FitResult.param_jacobian`).
-    covariance : ndarray, shape (nfree, nfree)
 
-    Returns
-    -------
-    (value, stderr)
-    """
-    env = dict(values)
-    with np.errstate(all="ignore"):
-        value = float(np.asarray(d.expr.evaluate(env)))
-    grad_all = gradient_of([d.expr.derivative(n) for n in model.param_names], env)
-    g = grad_all @ param_jacobian if param_jacobian.size else np.zeros(0)
-    if g.size == 0:
-        return value, math.nan
-    with np.errstate(all="ignore"):
-        var = float(g @ covariance @ g)
-    return value, math.sqrt(var) if var >= 0 else math.nan
+def _statistic(name: str) -> Callable[..., Any]:
+    try:
+        return _STATISTICS[name]
+    except KeyError:
+        raise CurvewrightError(
+            f"FitResult needs curvewright.stats for {name}, and it has not been imported; "
+            "import curvewright (or curvewright.stats) first."
+        ) from None

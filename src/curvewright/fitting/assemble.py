@@ -1,8 +1,10 @@
 """Assembling a FitResult from a problem and its solver runs: covariance, statistics, diagnostics.
 
 The covariance comes from the SVD of the column-scaled weighted Jacobian; standard errors of
-linked parameters by the delta method; information criteria from :mod:`curvewright.numerics`;
-the diagnostics as data (kind, parameters, severity, text).
+linked parameters by the delta method and the correlation diagnostic from
+:mod:`curvewright.inference`; information criteria from :mod:`curvewright.numerics`; the alarm
+levels from :mod:`curvewright.thresholds`; the diagnostics as data (kind, parameters, severity,
+text).
 """
 
 from __future__ import annotations
@@ -12,15 +14,14 @@ from collections.abc import Mapping
 
 import numpy as np
 
+from ..inference import correlated_pairs, correlation_matrix, delta_method_variance
 from ..messages import outcome
 from ..numerics import aicc as _aicc
 from ..numerics import bic as _bic
-from ..result import HIGH_CORRELATION, NOT_IDENTIFIED_RSE, Attempt, Diagnostic, FitResult
+from ..result import Attempt, Diagnostic, FitResult
+from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
 from .engine import _Run
 from .problem import FloatArray, _model_jacobian, _param_jacobian, _Problem
-
-# A column-scaled Jacobian with condition number above this has a near-singular covariance.
-_NEAR_SINGULAR = 1e10
 
 
 # ============================================================================ statistics
@@ -91,7 +92,7 @@ def _diagnostics(
                 params=prob.free,
             )
         )
-    elif cond > _NEAR_SINGULAR:
+    elif cond > NEAR_SINGULAR:
         out.append(
             Diagnostic(
                 "near_singular",
@@ -116,23 +117,18 @@ def _diagnostics(
                 )
             )
     if cov.size and not singular:
-        sd = np.sqrt(np.diag(cov))
-        with np.errstate(all="ignore"):
-            corr = cov / np.outer(sd, sd)
-        for i in range(len(prob.free)):
-            for j in range(i + 1, len(prob.free)):
-                if abs(corr[i, j]) > HIGH_CORRELATION:
-                    out.append(
-                        Diagnostic(
-                            "high_correlation",
-                            "warning",
-                            f"'{prob.free[i]}' and '{prob.free[j]}' are correlated "
-                            f"(r = {corr[i, j]:+.4f}): the data pin down a combination of them "
-                            "better than either alone.",
-                            params=(prob.free[i], prob.free[j]),
-                            extra={"r": float(corr[i, j])},
-                        )
-                    )
+        for i, j, r in correlated_pairs(correlation_matrix(cov), HIGH_CORRELATION):
+            out.append(
+                Diagnostic(
+                    "high_correlation",
+                    "warning",
+                    f"'{prob.free[i]}' and '{prob.free[j]}' are correlated "
+                    f"(r = {r:+.4f}): the data pin down a combination of them "
+                    "better than either alone.",
+                    params=(prob.free[i], prob.free[j]),
+                    extra={"r": r},
+                )
+            )
     x_lo, x_hi = float(np.min(prob.x)), float(np.max(prob.x))
     with np.errstate(all="ignore"):
         for q in prob.model.derived:
@@ -188,8 +184,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         jw = J if prob.w is None else J * prob.w[:, None]
         cov, cond, singular = _covariance(jw, scale)
     pj = _param_jacobian(prob, values)
-    with np.errstate(all="ignore"):
-        var_all = np.einsum("ij,jk,ik->i", pj, cov, pj) if p else np.zeros(len(values))
+    var_all = delta_method_variance(pj, cov) if p else np.zeros(len(values))
     stderr = {}
     for i, nme in enumerate(prob.model.param_names):
         if nme in prob.fixed:

@@ -21,7 +21,7 @@ from ..data import Dataset
 from ..errors import DataError, ModelError, ParameterError
 from ..expr import Expr
 from ..models import Model, as_number, unknown_name_message
-from ..numerics import finite_difference_jacobian
+from ..numerics import finite_difference_jacobian, free_jacobian
 from ..parameters import check_link
 from ..start import guided_start
 
@@ -399,12 +399,5 @@ def _model_jacobian(prob: _Problem, theta: FloatArray, values: Mapping[str, floa
         full = np.column_stack(
             [np.broadcast_to(np.asarray(fn(prob.x, *args), float), (n,)) for fn in prob.deriv_fns]
         )
-    with np.errstate(all="ignore"):
-        J = full @ _param_jacobian(prob, values)
-    bad = ~np.all(np.isfinite(J), axis=1)
-    if bad.any():
-        # e.g. d/dlogEC50 of 10**(log10(x)...) at a zero-dose control: inf * 0 analytically,
-        # but the curve is flat there; differences give the limit.
-        fd = finite_difference_jacobian(curve, theta, lower=prob.lower, upper=prob.upper)
-        J[bad] = np.where(np.isfinite(fd[bad]), fd[bad], 0.0)
-    return J
+    pj = _param_jacobian(prob, values)
+    return free_jacobian(full, pj, curve, theta, lower=prob.lower, upper=prob.upper)

@@ -36,7 +36,7 @@ import pandas as pd
 import scipy.stats
 
 from curvewright.errors import ComparisonError, ParameterError
-from curvewright.result import CAUTION as _CAUTION
+from curvewright.thresholds import CAUTION as _CAUTION
 
 if TYPE_CHECKING:
     from curvewright.result import FitResult

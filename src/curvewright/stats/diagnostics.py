@@ -33,6 +33,7 @@ import scipy.stats
 from numpy.typing import ArrayLike, NDArray
 
 from curvewright.errors import DataError
+from curvewright.result import register_statistics
 
 if TYPE_CHECKING:
     from curvewright.result import FitResult
@@ -710,3 +711,6 @@ def _result_weights(result: FitResult) -> FloatArray | None:
     if w is None:
         return None
     return np.asarray(w, dtype=float) ** 2
+
+
+register_statistics(residual_diagnostics=residual_diagnostics)

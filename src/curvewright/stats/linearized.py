@@ -44,6 +44,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from curvewright import start as _start
 from curvewright.errors import DataError, FitError, ParameterError
+from curvewright.inference import delta_method_se
 from curvewright.numerics import finite_difference_jacobian
 
 if TYPE_CHECKING:
@@ -594,8 +595,7 @@ def linearized_fit(
             lambda ab: np.array(back(float(ab[0]), float(ab[1]), hspec), dtype=float),
             np.array([a, b]),
         )
-        var = np.einsum("ij,jk,ik->i", J, cov, J)
-    se = np.sqrt(np.where(var >= 0, var, np.nan))
+    se = delta_method_se(J, cov)
 
     if nls is None and nonlinear:
         nls = _nonlinear_fit(model_name, xa, ya, names, est, held)

@@ -1,8 +1,11 @@
 """Uncertainty of a least-squares fit: tests, intervals, derived quantities, bands, calibration.
 
 The maths lives in plain functions on numpy arrays (estimates, covariance, gradients, residual
-degrees of freedom) so each can be checked against a reference library directly; the functions
-taking a :class:`~curvewright.result.FitResult` only gather those arrays.
+degrees of freedom) so each can be checked against a reference library directly: the quantiles,
+Wald intervals, t tests, delta method and correlation in :mod:`curvewright.inference` (shared with
+the fitting core and the result, re-exported here), the bands and profiles below. The functions
+taking a :class:`~curvewright.result.FitResult` only gather those arrays; this module imports the
+result for annotations only, and registers the functions behind the result's convenience methods.
 
 Conventions (each also stated where it is implemented):
 
@@ -35,8 +38,24 @@ import scipy.stats
 from numpy.typing import ArrayLike, NDArray
 
 from curvewright.errors import DataError, ExtrapolationWarning, FitError, ParameterError
-from curvewright.numerics import finite_difference_jacobian
-from curvewright.result import HIGH_CORRELATION
+from curvewright.expr import Expr
+from curvewright.inference import (
+    check_dof,
+    check_level,
+    correlated_pairs,
+    correlation_matrix,
+    delta_method_se,
+    delta_method_variance,
+    derived_value_and_se,
+    parameter_tests,
+    quantile,
+    t_quantile,
+    wald_intervals,
+)
+from curvewright.models import unknown_name_message
+from curvewright.numerics import finite_difference_jacobian, free_jacobian
+from curvewright.result import register_statistics
+from curvewright.thresholds import HIGH_CORRELATION
 
 if TYPE_CHECKING:
     from curvewright.result import FitResult
@@ -67,112 +86,17 @@ __all__ = [
 FloatArray = NDArray[np.float64]
 
 
-def _check_level(level: float) -> float:
-    lv = float(level)
-    if not (0.0 < lv < 1.0):
-        raise ParameterError(
-            f"level must be a confidence level strictly between 0 and 1 (e.g. 0.95); got {level!r}."
-        )
-    return lv
-
-
-def _check_dof(dof: float) -> float:
-    d = float(dof)
-    if not d > 0:
-        raise DataError(
-            f"The fit has {dof} residual degrees of freedom; intervals need at least 1 "
-            "(more points than free parameters)."
-        )
-    return d
-
-
-# ------------------------------------------------------------------------- parameters
-def t_quantile(level: float, dof: float) -> float:
-    """Two-sided Student t quantile: ``t`` with ``P(|T| <= t) = level`` on ``dof`` df."""
-    return float(scipy.stats.t.ppf(0.5 + _check_level(level) / 2.0, _check_dof(dof)))
-
-
-def parameter_tests(
-    values: ArrayLike, stderr: ArrayLike, dof: float
-) -> tuple[FloatArray, FloatArray]:
-    """t statistics and two-sided p values for ``H0: parameter = 0``.
-
-    Returns
-    -------
-    t, p : ndarray
-        ``t = value / stderr`` and ``p = 2 P(T_dof > |t|)``; NaN where the standard error is not
-        finite or zero.
-    """
-    v = np.asarray(values, dtype=float)
-    se = np.asarray(stderr, dtype=float)
-    d = _check_dof(dof)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = np.where((se > 0) & np.isfinite(se), v / se, np.nan)
-    p = 2.0 * scipy.stats.t.sf(np.abs(t), d)
-    return np.asarray(t, dtype=float), np.asarray(p, dtype=float)
-
-
-def wald_intervals(
-    values: ArrayLike, stderr: ArrayLike, dof: float, level: float = 0.95
-) -> tuple[FloatArray, FloatArray]:
-    """Asymptotic (Wald) intervals ``value +- t(level, dof) * stderr``."""
-    v = np.asarray(values, dtype=float)
-    se = np.asarray(stderr, dtype=float)
-    half = t_quantile(level, dof) * se
-    return v - half, v + half
-
-
-def correlation_matrix(cov: ArrayLike) -> FloatArray:
-    """Correlation matrix of a covariance matrix (NaN rows for zero or undefined variances)."""
-    c = np.asarray(cov, dtype=float)
-    if c.ndim != 2 or c.shape[0] != c.shape[1]:
-        raise DataError(f"cov must be a square matrix, got shape {c.shape}.")
-    d = np.sqrt(np.diag(c))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        r = c / np.outer(d, d)
-    r[np.diag_indices_from(r)] = np.where(d > 0, 1.0, np.nan)
-    return np.asarray(np.clip(r, -1.0, 1.0), dtype=float)
-
-
 def correlation_warnings(
     corr: ArrayLike, names: Sequence[str], threshold: float = HIGH_CORRELATION
 ) -> list[str]:
     """Plain-language warnings for each pair of parameters with ``|r| > threshold``."""
-    r = np.asarray(corr, dtype=float)
-    out = []
-    for i in range(len(names)):
-        for j in range(i + 1, len(names)):
-            if np.isfinite(r[i, j]) and abs(r[i, j]) > threshold:
-                out.append(
-                    f"{names[i]} and {names[j]} are correlated with r = {r[i, j]:+.4f}: the data "
-                    "hardly separate them, so each alone is poorly determined. Fix one of them "
-                    "from prior knowledge, re-parametrise, or collect data where they act "
-                    "differently."
-                )
-    return out
-
-
-def delta_method_se(gradient: ArrayLike, cov: ArrayLike) -> FloatArray:
-    """Delta-method standard error(s) ``sqrt(g' C g)``.
-
-    Parameters
-    ----------
-    gradient : array_like, shape (p,) or (m, p)
-        Gradient of one quantity (or each of m quantities, one per row) over the free
-        parameters.
-    cov : array_like, shape (p, p)
-        Covariance of the free parameters.
-    """
-    g = np.atleast_2d(np.asarray(gradient, dtype=float))
-    c = np.asarray(cov, dtype=float)
-    if g.shape[1] != c.shape[0]:
-        raise DataError(
-            f"gradient has {g.shape[1]} entries per quantity but the covariance is "
-            f"{c.shape[0]} x {c.shape[0]}; both must run over the same free parameters."
-        )
-    var = np.einsum("ij,jk,ik->i", g, c, g)
-    with np.errstate(invalid="ignore"):
-        return np.asarray(np.sqrt(np.where(var >= 0, var, np.nan)), dtype=float)
+    return [
+        f"{names[i]} and {names[j]} are correlated with r = {r:+.4f}: the data "
+        "hardly separate them, so each alone is poorly determined. Fix one of them "
+        "from prior knowledge, re-parametrise, or collect data where they act "
+        "differently."
+        for i, j, r in correlated_pairs(corr, threshold)
+    ]
 
 
 # ------------------------------------------------------------------------------ bands
@@ -206,12 +130,7 @@ def band(
     lower, upper : ndarray
     """
     f = np.asarray(fit, dtype=float)
-    var = np.einsum(
-        "ij,jk,ik->i",
-        np.atleast_2d(np.asarray(gradients, dtype=float)),
-        np.asarray(cov, dtype=float),
-        np.atleast_2d(np.asarray(gradients, dtype=float)),
-    )
+    var = delta_method_variance(gradients, cov)
     if observation_variance is not None:
         var = var + np.asarray(observation_variance, dtype=float)
     with np.errstate(invalid="ignore"):
@@ -226,8 +145,8 @@ def profile_threshold(ssr_min: float, dof: float, level: float = 0.95) -> float:
     ``SSR_min * (1 + F(level; 1, dof) / dof)`` (common practice, e.g. Bates and Watts 1988; the
     same F-based rule lmfit's ``conf_interval`` uses with one parameter fixed).
     """
-    d = _check_dof(dof)
-    return float(ssr_min) * (1.0 + float(scipy.stats.f.ppf(_check_level(level), 1, d)) / d)
+    d = check_dof(dof)
+    return float(ssr_min) * (1.0 + float(scipy.stats.f.ppf(check_level(level), 1, d)) / d)
 
 
 @dataclass(frozen=True)
@@ -344,10 +263,9 @@ def _quantile(result: FitResult, level: float) -> float:
     Student t on ``dof``, or the normal quantile when sigma was taken as exact
     (``absolute_sigma``).
     """
-    lv = _check_level(level)
     if result.absolute_sigma:
-        return float(scipy.stats.norm.ppf(0.5 + lv / 2.0))
-    return t_quantile(lv, result.dof)
+        return quantile(level, result.dof, known_sigma=True)
+    return t_quantile(level, result.dof)
 
 
 def _require_least_squares(result: FitResult, what: str) -> None:
@@ -378,8 +296,6 @@ def values_from_free(result: FitResult, theta: ArrayLike) -> dict[str, float]:
 
     Fixed parameters keep their values; linked ones are recomputed from their expressions.
     """
-    from curvewright.expr import Expr
-
     th = np.asarray(theta, dtype=float)
     vals = dict(result.values)
     for name, v in zip(result.free, th, strict=True):
@@ -399,22 +315,14 @@ def model_gradient(result: FitResult, x: ArrayLike) -> FloatArray:
 
     Formula models: the symbolic derivative of the formula with respect to every parameter,
     chained through ``result.param_jacobian`` (so links are honoured and fixed parameters give
-    zero). Python-callable models: central finite differences over the free parameters (see
-    :func:`finite_difference_jacobian`), links recomputed at each step.
+    zero; see :func:`curvewright.numerics.free_jacobian`). Python-callable models: central finite
+    differences over the free parameters (see :func:`finite_difference_jacobian`), links
+    recomputed at each step.
     """
     xa = _as_x(x)
     model = result.model
     if result.nfree == 0:
         return np.zeros((xa.size, 0))
-    if model.expr is not None:
-        env: dict[str, Any] = {**dict(result.values), "x": xa}
-        cols = []
-        for name in model.param_names:
-            d = model.expr.derivative(name)
-            with np.errstate(all="ignore"):
-                cols.append(np.broadcast_to(np.asarray(d.evaluate(env), dtype=float), xa.shape))
-        g_all = np.column_stack(cols) if cols else np.zeros((xa.size, 0))
-        return np.asarray(g_all @ result.param_jacobian, dtype=float)
     theta = np.array([result.values[n] for n in result.free])
     lo = np.array([result.bounds.get(n, (-math.inf, math.inf))[0] for n in result.free])
     hi = np.array([result.bounds.get(n, (-math.inf, math.inf))[1] for n in result.free])
@@ -422,7 +330,19 @@ def model_gradient(result: FitResult, x: ArrayLike) -> FloatArray:
     def curve(th: FloatArray) -> FloatArray:
         return model.eval(xa, values_from_free(result, th))
 
-    return finite_difference_jacobian(curve, theta, lower=lo, upper=hi)
+    if model.expr is None:
+        return finite_difference_jacobian(curve, theta, lower=lo, upper=hi)
+    env: dict[str, Any] = {**dict(result.values), "x": xa}
+    cols = []
+    for name in model.param_names:
+        d = model.expr.derivative(name)
+        with np.errstate(all="ignore"):
+            cols.append(np.broadcast_to(np.asarray(d.evaluate(env), dtype=float), xa.shape))
+    g_all = np.column_stack(cols) if cols else np.zeros((xa.size, 0))
+    # The fit's own chain rule. Rows that are not finite (e.g. x = 0 in a log-dose formula) stay
+    # so, and the band is NaN there, as it always was: passing ``curve`` would fill them by
+    # differences as the fit does (a change of results, left for a decision of its own).
+    return free_jacobian(g_all, np.asarray(result.param_jacobian), None, theta, lower=lo, upper=hi)
 
 
 @dataclass(frozen=True)
@@ -484,12 +404,7 @@ def parameter_table(result: FitResult, level: float = 0.95) -> pd.DataFrame:
     se = np.array([result.stderr[n] for n in names])
     fixed = np.array([n in result.fixed for n in names])
     se = np.where(fixed, np.nan, se)
-    if result.absolute_sigma:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            t = np.where((se > 0) & np.isfinite(se), value / se, np.nan)
-        p = 2.0 * scipy.stats.norm.sf(np.abs(t))
-    else:
-        t, p = parameter_tests(value, se, result.dof)
+    t, p = parameter_tests(value, se, result.dof, known_sigma=result.absolute_sigma)
     status = [
         "fixed" if n in result.fixed else "linked" if n in result.linked else "free" for n in names
     ]
@@ -521,7 +436,7 @@ def derived_table(result: FitResult, level: float = 0.95) -> pd.DataFrame:
     DataFrame
         Indexed by name: ``value, stderr, lower, upper, extrapolated, unit, description``.
     """
-    _check_level(level)
+    check_level(level)
     d = result.derived(level)
     out: pd.DataFrame = pd.DataFrame(
         {
@@ -575,8 +490,7 @@ def _band_frame(
     _require_least_squares(result, "A confidence or prediction band")
     q = _quantile(result, level)
     fit = result.predict(xa)
-    G = model_gradient(result, xa)
-    var = np.einsum("ij,jk,ik->i", G, np.asarray(result.covariance), G)
+    var = delta_method_variance(model_gradient(result, xa), result.covariance)
     if prediction:
         if isinstance(replicates, bool) or int(replicates) != replicates or replicates < 1:
             raise ParameterError(f"replicates must be a whole number >= 1, got {replicates!r}.")
@@ -710,9 +624,6 @@ def derived_quantity(
     order only, so for a strongly nonlinear function of poorly determined parameters the
     interval can be far from its nominal coverage; profile intervals do better there.
     """
-    from curvewright.expr import Expr
-    from curvewright.models import unknown_name_message
-
     e = Expr.parse(expression)
     names = set(result.model.param_names)
     for n in e.names:
@@ -722,14 +633,9 @@ def derived_quantity(
             )
     if axis not in (None, "x"):
         raise ParameterError(f"axis must be 'x' or None, got {axis!r}.")
-    env = dict(result.values)
-    with np.errstate(all="ignore"):
-        value = float(np.asarray(e.evaluate(env)))
-        g_all = np.array(
-            [float(np.asarray(e.derivative(n).evaluate(env))) for n in result.model.param_names]
-        )
-    g = g_all @ np.asarray(result.param_jacobian)
-    se = float(delta_method_se(g, result.covariance)[0]) if g.size else math.nan
+    value, se = derived_value_and_se(
+        e, result.model.param_names, result.values, result.param_jacobian, result.covariance
+    )
     q = _quantile(result, level)
     extrapolated: bool | None = None
     if axis == "x":
@@ -862,7 +768,7 @@ def profile_intervals(
             "this fit took sigma as exact (absolute_sigma=True). Use the Wald intervals "
             "(parameter_table), or refit with absolute_sigma=False."
         )
-    lv = _check_level(level)
+    lv = check_level(level)
     free = list(result.free)
     want = free if names is None else list(names)
     for n in want:
@@ -989,7 +895,7 @@ def inverse_predict(
     """
     _require_least_squares(result, "Inverse prediction")
     ys = _as_x(y, "y")
-    lv = _check_level(level)
+    lv = check_level(level)
     if isinstance(replicates, bool) or int(replicates) != replicates or replicates < 1:
         raise ParameterError(f"replicates must be a whole number >= 1, got {replicates!r}.")
     q = _quantile(result, lv)
@@ -1005,8 +911,7 @@ def inverse_predict(
     reach_min, reach_max = float(np.min(f_fin)), float(np.max(f_fin))
 
     def half(xv: FloatArray) -> FloatArray:
-        G = model_gradient(result, xv)
-        var = np.einsum("ij,jk,ik->i", G, np.asarray(result.covariance), G)
+        var = delta_method_variance(model_gradient(result, xv), result.covariance)
         fv = result.predict(xv)
         sd = _observation_sd(result, xv, fv, sigma)
         var = var + s2 * sd**2 / int(replicates)
@@ -1123,3 +1028,15 @@ def inverse_predict(
         rows, columns=["y", "x", "lower", "upper", "extrapolated", "note"]
     )
     return out
+
+
+register_statistics(
+    parameter_table=parameter_table,
+    profile_intervals=profile_intervals,
+    correlation=correlation,
+    derived_table=derived_table,
+    derived_quantity=derived_quantity,
+    confidence_band=confidence_band,
+    prediction_band=prediction_band,
+    inverse_predict=inverse_predict,
+)

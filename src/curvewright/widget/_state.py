@@ -18,8 +18,9 @@ from numpy.typing import NDArray
 from ..data import Dataset
 from ..errors import CurvewrightError, DataError, ParameterError
 from ..models import Model, as_number, unknown_name_message
-from ..result import CAUTION, FitResult
+from ..result import FitResult
 from ..stats.polynomial import DegreeSelection
+from ..thresholds import CAUTION
 
 __all__ = [
     "BAND_LEVEL",
