@@ -229,3 +229,35 @@ def test_a_record_that_drifts_from_the_spec_fails_at_import() -> None:
         _check_spec({**SPEC, "properties": props})
     with pytest.raises(RuntimeError, match="scope must be one of"):
         _check_spec({**SPEC, "properties": {**SPEC["properties"], "scope": {"enum": ["shared"]}}})
+
+
+def test_the_page_vectors_are_what_python_writes_now() -> None:
+    # tests/data/params_vectors.json feeds js/tests/params.test.ts; it must be today's output of
+    # tools/gen_params_vectors.py, every valid list must match the schema and read back, and
+    # Python must refuse every record the page is told to refuse.
+    import importlib.util
+    from pathlib import Path
+
+    import jsonschema
+
+    from curvewright.parameters import SPEC
+
+    root = Path(__file__).resolve().parent.parent
+    spec = importlib.util.spec_from_file_location(
+        "gen_params_vectors", root / "tools" / "gen_params_vectors.py"
+    )
+    assert spec is not None and spec.loader is not None
+    gen = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(gen)
+    fresh = json.loads(json.dumps(gen.build(), allow_nan=False))
+    stored = json.loads((root / "tests" / "data" / "params_vectors.json").read_text("utf-8"))
+    assert stored == fresh, "regenerate: PYTHONPATH=src python tools/gen_params_vectors.py"
+    check = jsonschema.Draft202012Validator(SPEC)
+    for records in stored["valid"].values():
+        for r in records:
+            check.validate(r)
+        assert Parameters.from_json(records).to_json() == records
+    for name, r in stored["invalid"].items():
+        assert not check.is_valid(r), name
+        with pytest.raises(ParameterError):
+            Parameter.from_json(r)
