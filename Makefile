@@ -69,7 +69,7 @@ dev: venv
 
 # ---- front end ------------------------------------------------------------------------------
 
-$(BUNDLE): $(JS_SOURCES) src/curvewright/expr_spec.json package.json $(NODE_STAMP)
+$(BUNDLE): $(JS_SOURCES) src/curvewright/expr_spec.json src/curvewright/params_spec.json package.json $(NODE_STAMP)
 	$(NPM) run build
 	@test -s $@ || { echo "error: npm run build did not write $@" >&2; exit 1; }
 	@# esbuild may leave an unchanged output untouched; the mtime records "built from these sources".

@@ -5,7 +5,8 @@
 
 import { evalCurve, evalScalar } from "./expr";
 import { type HandleSpec, type Point, type SolveOptions, type SolveResult, solveHandle, solvePins } from "./handles";
-import { type ModelJson, type ParamSetting, boundsOf } from "./state";
+import { defaultRecord } from "./params";
+import { type ModelJson, type Setting, boundsOf } from "./state";
 import type { HandleView } from "./plot";
 import { formatNumber } from "./validate";
 
@@ -19,7 +20,7 @@ export const PIN_PREFIX = "pin:";
 export const MAX_PINS = 5;
 
 /** Parameters a drag may change: every parameter not fixed, in model order. */
-export function freeParams(model: ModelJson, params: Readonly<Record<string, ParamSetting>>): string[] {
+export function freeParams(model: ModelJson, params: Readonly<Record<string, Setting>>): string[] {
   return model.params.map((p) => p.name).filter((n) => !params[n]?.fixed);
 }
 
@@ -127,7 +128,7 @@ export function pinViews(pins: readonly Point[], free: readonly string[]): Handl
 /** Solver options from the synced settings and the visible axes. */
 export function solveOptions(
   model: ModelJson,
-  params: Readonly<Record<string, ParamSetting>>,
+  params: Readonly<Record<string, Setting>>,
   xLog: boolean,
   yLog: boolean,
   span: { x: number; y: number },
@@ -136,7 +137,7 @@ export function solveOptions(
   const logParams = new Set<string>();
   const fixed = new Set<string>();
   for (const p of model.params) {
-    bounds[p.name] = boundsOf(params[p.name] ?? { value: p.value, lower: p.lower, upper: p.upper, fixed: false });
+    bounds[p.name] = boundsOf(params[p.name] ?? defaultRecord(p));
     if (p.log_scale) logParams.add(p.name);
     if (params[p.name]?.fixed) fixed.add(p.name);
   }
@@ -176,12 +177,17 @@ export function dragNote(res: SolveResult | null): string {
   return "";
 }
 
-/** New `params` with some values replaced (bounds and fixed flags kept; values kept inside bounds). */
-export function withValues(
-  params: Readonly<Record<string, ParamSetting>>,
+/**
+ * New `params` with some values replaced (bounds and fixed flags kept). The values come from
+ * the drag solver, which stays in its box; the projection below only removes the round-off of
+ * its log-space steps (exp(log(hi)) may exceed hi by an ulp). It is not a rule for bringing a
+ * start inside its bounds: that one lives in Python (Parameters.inside_bounds), with a note.
+ */
+export function withValues<T extends Setting>(
+  params: Readonly<Record<string, T>>,
   values: Readonly<Record<string, number>>,
-): Record<string, ParamSetting> {
-  const out: Record<string, ParamSetting> = {};
+): Record<string, T> {
+  const out: Record<string, T> = {};
   for (const [name, s] of Object.entries(params)) {
     const v = values[name];
     if (typeof v !== "number" || !Number.isFinite(v) || s.fixed) {

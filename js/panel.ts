@@ -3,11 +3,12 @@
 // here (validate.ts) and shown inline when invalid; only valid settings reach the widget.
 
 import { el } from "./dom";
-import type { FittedJson, ModelJson, ParamInfo, ParamSetting } from "./state";
+import { defaultRecord } from "./params";
+import type { FittedJson, ModelJson, ParamInfo, ParamRecord } from "./state";
 import { type FieldKind, checkSetting, formatNumber, parseField } from "./validate";
 
 export interface PanelCallbacks {
-  onCommit(name: string, setting: ParamSetting): void;
+  onCommit(name: string, setting: ParamRecord): void;
   /** A valid value being typed (not yet committed), for live preview; null when abandoned. */
   onTyping?(name: string, value: number | null): void;
 }
@@ -31,7 +32,7 @@ interface Row {
   ci: HTMLTableCellElement;
   flag: HTMLTableCellElement;
   msg: HTMLElement;
-  setting: ParamSetting;
+  setting: ParamRecord;
   dirty: Set<FieldKind>;
 }
 
@@ -47,7 +48,7 @@ const FLAG_WORDS: Record<string, string> = {
 let uid = 0;
 
 
-function sameSetting(a: ParamSetting, b: ParamSetting): boolean {
+function sameSetting(a: ParamRecord, b: ParamRecord): boolean {
   return a.value === b.value && a.lower === b.lower && a.upper === b.upper && a.fixed === b.fixed;
 }
 
@@ -104,21 +105,16 @@ export class ParamPanel {
   }
 
   /** Rebuild the rows for a (new) model. */
-  setModel(model: ModelJson, settings: Readonly<Record<string, ParamSetting>>): void {
+  setModel(model: ModelJson, settings: Readonly<Record<string, ParamRecord>>): void {
     this.tbody.replaceChildren();
     this.rows.clear();
     for (const info of model.params) {
-      const s = settings[info.name] ?? {
-        value: info.value,
-        lower: info.lower,
-        upper: info.upper,
-        fixed: info.fixed ?? false,
-      };
+      const s = settings[info.name] ?? defaultRecord(info);
       this.rows.set(info.name, this.buildRow(info, s));
     }
   }
 
-  private buildRow(info: ParamInfo, setting: ParamSetting): Row {
+  private buildRow(info: ParamInfo, setting: ParamRecord): Row {
     const base = `cw-${this.id}-${info.name}`;
     const tr = el("tr", { "data-param": info.name });
     const nameCell = el("th", { scope: "row", id: `${base}-name`, class: "cw-pname" }, info.name);
@@ -220,7 +216,7 @@ export class ParamPanel {
       this.showMessage(row, input, `${row.info.name}: ${parsed.message}; not applied.`);
       return;
     }
-    const next: ParamSetting = { ...row.setting };
+    const next: ParamRecord = { ...row.setting };
     if (kind === "value") next.value = parsed.value as number;
     else next[kind] = parsed.value;
     const problem = checkSetting(row.info, next);
@@ -232,7 +228,7 @@ export class ParamPanel {
     this.apply(row, next);
   }
 
-  private apply(row: Row, next: ParamSetting): void {
+  private apply(row: Row, next: ParamRecord): void {
     this.clearMessage(row);
     if (sameSetting(next, row.setting)) {
       this.showSetting(row, next, false);
@@ -256,7 +252,7 @@ export class ParamPanel {
     row.tr.classList.remove("cw-invalid");
   }
 
-  private showSetting(row: Row, s: ParamSetting, force: boolean): void {
+  private showSetting(row: Row, s: ParamRecord, force: boolean): void {
     const put = (input: HTMLInputElement, kind: FieldKind, v: number | null): void => {
       // Never overwrite what the person is typing.
       if (!force && row.dirty.has(kind)) return;
@@ -270,7 +266,7 @@ export class ParamPanel {
   }
 
   /** New synced settings (from Python or our own commit coming back). */
-  setSettings(settings: Readonly<Record<string, ParamSetting>>): void {
+  setSettings(settings: Readonly<Record<string, ParamRecord>>): void {
     for (const [name, row] of this.rows) {
       const s = settings[name];
       if (!s) continue;

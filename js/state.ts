@@ -3,6 +3,9 @@
 // values into plain arrays. Nothing here is UI-only; that lives in ui-state.ts.
 
 import type { ExprNode } from "./expr";
+import type { ParamRecord, Setting } from "./params";
+
+export type { ParamRecord, Setting } from "./params";
 
 export type Scale = "linear" | "log";
 export type Domain = "all" | "x>0" | "x>=0";
@@ -80,14 +83,6 @@ export interface DataJson {
   off_axis?: number[];
   /** Input rows outside the model's domain. */
   outside_domain?: number[];
-}
-
-/** One parameter's editable settings: the `params` trait maps each name to this. */
-export interface ParamSetting {
-  value: number;
-  lower: number | null;
-  upper: number | null;
-  fixed: boolean;
 }
 
 /** The `fitted` trait after a fit; `null` before the first fit of the current model. */
@@ -240,7 +235,8 @@ export interface StatusJson {
 export interface WidgetModel {
   model_json: ModelJson;
   data: DataJson;
-  params: Record<string, ParamSetting>;
+  /** The parameter records (Python's Parameters.to_json(); js/params.ts, params_spec.json). */
+  params: ParamRecord[];
   fitted: FittedJson | null;
   x_scale: Scale;
   y_scale: Scale;
@@ -278,7 +274,7 @@ export type FrontMessage =
       type: "fit";
       /** The state the page shows, applied by Python before fitting (see widget.ts). */
       model_name?: string;
-      params?: Record<string, ParamSetting>;
+      params?: ParamRecord[];
       excluded?: number[];
     }
   | { type: "cancel" }
@@ -344,7 +340,7 @@ export function readData(data: DataJson | null | undefined, excludedRows?: reado
 }
 
 /** Bounds from a setting as numbers (null = unbounded). */
-export function boundsOf(s: ParamSetting | undefined): [number, number] {
+export function boundsOf(s: Setting | undefined): [number, number] {
   const lo = s?.lower;
   const hi = s?.upper;
   return [typeof lo === "number" ? lo : -Infinity, typeof hi === "number" ? hi : Infinity];
@@ -353,7 +349,7 @@ export function boundsOf(s: ParamSetting | undefined): [number, number] {
 /** Current values of every parameter: the `params` trait, else the model's defaults. */
 export function valuesOf(
   model: ModelJson | null | undefined,
-  params: Readonly<Record<string, ParamSetting>> | null | undefined,
+  params: Readonly<Record<string, Setting>> | null | undefined,
 ): Record<string, number> {
   const out: Record<string, number> = {};
   for (const p of model?.params ?? []) {

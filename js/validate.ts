@@ -1,7 +1,7 @@
 // Checking what a person types into the parameter panel, and formatting numbers for display.
 // Pure: no DOM. An edit that fails a check is shown inline and never sent to Python.
 
-import type { ParamInfo, ParamSetting } from "./state";
+import type { ParamInfo, Setting } from "./state";
 
 export type FieldKind = "value" | "lower" | "upper";
 
@@ -37,19 +37,24 @@ export function parseField(text: string, kind: FieldKind): Parsed {
 }
 
 /**
- * Check a whole setting after one field changed: lower <= upper, value inside the bounds, and
- * no negative value or lower bound for a parameter the model declares positive (the same rules
- * the Python side enforces). Returns a message, or null when the setting is acceptable.
+ * Check a whole setting after one field changed: lower <= upper, a free value inside the bounds,
+ * and no negative value or lower bound for a parameter the model declares positive. This is
+ * the page's inline mirror of the one validator, Python's Parameters.validated (which checks
+ * every record the page sends again); it exists so a typo is marked where it is typed. Returns
+ * a message, or null when the setting is acceptable.
  */
-export function checkSetting(info: Pick<ParamInfo, "name" | "positive">, s: ParamSetting): string | null {
+export function checkSetting(info: Pick<ParamInfo, "name" | "positive">, s: Setting): string | null {
   const lo = s.lower ?? -Infinity;
   const hi = s.upper ?? Infinity;
-  if (!Number.isFinite(s.value)) return "the value must be a finite number";
+  const v = s.value;
+  if (v === null || !Number.isFinite(v)) return "the value must be a finite number";
   if (lo > hi) return `lower bound ${formatNumber(lo)} is above upper bound ${formatNumber(hi)}`;
-  if (s.value < lo || s.value > hi) {
-    return `${formatNumber(s.value)} lies outside the bounds [${formatNumber(lo)}, ${formatNumber(hi)}]`;
+  // A fixed value is the user's statement, not a start: Python's Parameters.validated does
+  // not hold it to the bounds either.
+  if (!s.fixed && (v < lo || v > hi)) {
+    return `${formatNumber(v)} lies outside the bounds [${formatNumber(lo)}, ${formatNumber(hi)}]`;
   }
-  if (info.positive && (s.value < 0 || lo < 0)) {
+  if (info.positive && (v < 0 || lo < 0)) {
     return `${info.name} is positive: value and lower bound must not be negative`;
   }
   return null;

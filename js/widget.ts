@@ -83,6 +83,7 @@ import {
 } from "./interact";
 import { bandViews, bandsDrawn, DEGREE_COLUMNS, degreeCaption, degreeLabel, degreeRows, degreeSuggestion } from "./judge";
 import { ParamPanel } from "./panel";
+import { ParamsError, byName, readParams, toList } from "./params";
 import { type CurveSource, Plot } from "./plot";
 import {
   type CompareJson,
@@ -90,7 +91,7 @@ import {
   type FittedJson,
   type FrontMessage,
   type ModelJson,
-  type ParamSetting,
+  type ParamRecord,
   type PointSet,
   type Scale,
   type WidgetModel,
@@ -179,7 +180,17 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
 
   const ui = createUIState();
   let mj: ModelJson = model.get("model_json");
-  let params: Record<string, ParamSetting> = model.get("params") ?? {};
+  // The `params` trait is the list of records (js/params.ts); looked up by name here.
+  const syncedParams = (): Record<string, ParamRecord> => {
+    try {
+      return byName(readParams(model.get("params") ?? []));
+    } catch (e) {
+      if (!(e instanceof ParamsError)) throw e;
+      console.error(`curvewright: ${e.message}`); // Python sends records of the schema
+      return {};
+    }
+  };
+  let params: Record<string, ParamRecord> = syncedParams();
   let points: PointSet = readData(model.get("data"), model.get("excluded"));
   let xScale: Scale = model.get("x_scale");
   let yScale: Scale = model.get("y_scale");
@@ -606,7 +617,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
 
   function loadModel(resetViewToo: boolean): void {
     mj = model.get("model_json");
-    params = model.get("params") ?? {};
+    params = syncedParams();
     typing = {};
     ui.preview = valuesOf(mj, params);
     ui.pins = [];
@@ -646,9 +657,9 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   }
 
   // ------------------------------------------------------------------ interactions
-  function commitParams(next: Record<string, ParamSetting>): void {
+  function commitParams(next: Record<string, ParamRecord>): void {
     params = next;
-    model.set("params", next);
+    model.set("params", toList(next));
     model.save_changes();
     ui.preview = { ...valuesOf(mj, params), ...typing };
     drawCurrent();
@@ -826,7 +837,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     send(model, {
       type: "fit",
       model_name: mj.name,
-      params: withValues(params, ui.dragging === null ? ui.preview : valuesOf(mj, params)),
+      params: toList(withValues(params, ui.dragging === null ? ui.preview : valuesOf(mj, params))),
       excluded: model.get("excluded") ?? [],
     });
   });
@@ -863,7 +874,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     modelSelect.value = model.get("model_name");
   });
   listen("change:params", () => {
-    params = model.get("params") ?? {};
+    params = syncedParams();
     panel.setSettings(params);
     if (ui.dragging === null && nudgeKey === null) {
       const before = freeParams(mj, params).length;

@@ -89,6 +89,7 @@ def test_bundle_is_newer_than_every_js_source() -> None:
     # The expression spec is shared with the Python side, so it lives in the package, not js/.
     outside = _imported_from_outside_js(sources)
     assert ROOT / "src" / "curvewright" / "expr_spec.json" in outside, outside
+    assert ROOT / "src" / "curvewright" / "params_spec.json" in outside, outside
     sources += sorted(outside)
     newer = sorted(str(p.relative_to(ROOT)) for p in sources if p.stat().st_mtime > bundle_mtime)
     assert not newer, f"the bundle is older than {newer}: rebuild with `make build-js`"

@@ -123,7 +123,11 @@ def test_inside_bounds_moves_only_free_values_and_says_so() -> None:
     assert q["base"].value == 7.0
     assert q["amp"].value == pytest.approx(0.1)  # nearest bound, 1 % of the range inwards
     assert q["k"].value == 0.3
-    assert len(notes) == 1 and "'amp' (-3) lay outside its bounds [0, 10]" in notes[0]
+    assert len(notes) == 1 and "'amp' (-3) lay outside its bounds [0, 10]" in notes[0].text
+    assert (notes[0].name, notes[0].before, notes[0].after) == ("amp", -3.0, q["amp"].value)
+    assert (notes[0].lower, notes[0].upper) == (0.0, 10.0)
+    # only= limits the rule to the named values (a guided start's, never a user's)
+    assert p.inside_bounds(only=["k"]) == (p, ())
     assert q.inside_bounds() == (q, ())
 
 
@@ -180,3 +184,80 @@ def test_from_json_takes_the_pages_mapping_and_checks_types() -> None:
         Parameters.from_json({"k": {"value": 1.0, "fix": True}})
     with pytest.raises(ParameterError, match=r"list of records or a mapping"):
         Parameters.from_json("k=1")
+
+
+# ----------------------------------------------------------------------- the JSON contract
+def test_records_json_is_the_schema_in_params_spec() -> None:
+    # params_spec.json is the one description of a record's JSON, shared with js/params.ts
+    # (js/tests/params.test.ts checks the TypeScript side against the same file).
+    from dataclasses import fields
+
+    import jsonschema
+
+    from curvewright.parameters import SCOPES, SPEC
+
+    jsonschema.Draft202012Validator.check_schema(SPEC)
+    check = jsonschema.Draft202012Validator(SPEC)
+    assert list(SPEC["properties"]) == [f.name for f in fields(Parameter)]
+    assert tuple(SPEC["properties"]["scope"]["enum"]) == SCOPES
+    samples = [
+        Parameter("k", 0.5, 0.0, math.inf),
+        Parameter("amp", 2.0, fixed=True, scope="per_group"),
+        Parameter("base", math.nan, link="2*k"),
+    ]
+    for r in samples:
+        check.validate(r.to_json())
+        back = Parameter.from_json(json.loads(json.dumps(r.to_json(), allow_nan=False)))
+        assert back.to_json() == r.to_json()
+    # the schema refuses what from_json refuses
+    bad = {**samples[0].to_json(), "scope": "each"}
+    assert not check.is_valid(bad)
+    with pytest.raises(ParameterError, match="scope must be one of"):
+        Parameter.from_json(bad)
+    extra = {**samples[0].to_json(), "colour": "red"}
+    assert not check.is_valid(extra)
+    with pytest.raises(ParameterError, match="unknown field"):
+        Parameter.from_json(extra)
+
+
+def test_a_record_that_drifts_from_the_spec_fails_at_import() -> None:
+    from curvewright.parameters import SPEC, _check_spec
+
+    props = dict(SPEC["properties"])
+    props["colour"] = {"type": "string"}
+    with pytest.raises(RuntimeError, match="lists fields"):
+        _check_spec({**SPEC, "properties": props})
+    with pytest.raises(RuntimeError, match="scope must be one of"):
+        _check_spec({**SPEC, "properties": {**SPEC["properties"], "scope": {"enum": ["shared"]}}})
+
+
+def test_the_page_vectors_are_what_python_writes_now() -> None:
+    # tests/data/params_vectors.json feeds js/tests/params.test.ts; it must be today's output of
+    # tools/gen_params_vectors.py, every valid list must match the schema and read back, and
+    # Python must refuse every record the page is told to refuse.
+    import importlib.util
+    from pathlib import Path
+
+    import jsonschema
+
+    from curvewright.parameters import SPEC
+
+    root = Path(__file__).resolve().parent.parent
+    spec = importlib.util.spec_from_file_location(
+        "gen_params_vectors", root / "tools" / "gen_params_vectors.py"
+    )
+    assert spec is not None and spec.loader is not None
+    gen = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(gen)
+    fresh = json.loads(json.dumps(gen.build(), allow_nan=False))
+    stored = json.loads((root / "tests" / "data" / "params_vectors.json").read_text("utf-8"))
+    assert stored == fresh, "regenerate: PYTHONPATH=src python tools/gen_params_vectors.py"
+    check = jsonschema.Draft202012Validator(SPEC)
+    for records in stored["valid"].values():
+        for r in records:
+            check.validate(r)
+        assert Parameters.from_json(records).to_json() == records
+    for name, r in stored["invalid"].items():
+        assert not check.is_valid(r), name
+        with pytest.raises(ParameterError):
+            Parameter.from_json(r)

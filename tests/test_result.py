@@ -171,13 +171,17 @@ def test_a_result_saved_in_the_old_format_is_refused_by_name(dose: cw.FitResult)
     with pytest.raises(ModelError, match=r"saved in curvewright result format 1"):
         cw.FitResult.from_json(json.dumps(old))
     # a format from a later version, or none at all, is refused too
-    newer = {**dose.to_dict(), "version": 3}
-    with pytest.raises(ModelError, match=r"format 3; this version reads format 2 only"):
+    newer = {**dose.to_dict(), "version": 4}
+    with pytest.raises(ModelError, match=r"format 4; this version reads formats 2 and 3 only"):
         cw.FitResult.from_dict(newer)
     unversioned = {k: v for k, v in dose.to_dict().items() if k != "version"}
-    with pytest.raises(ModelError, match=r"format None; this version reads format 2 only"):
+    with pytest.raises(ModelError, match=r"format None; this version reads formats 2 and 3 only"):
         cw.FitResult.from_dict(unversioned)
-    assert dose.to_dict()["version"] == 2
+    assert dose.to_dict()["version"] == 3
+    # format 3 without its records is damaged, not format 2
+    damaged = {k: v for k, v in dose.to_dict().items() if k != "parameters"}
+    with pytest.raises(ModelError, match="incomplete or corrupted"):
+        cw.FitResult.from_dict(damaged)
 
 
 def test_diagnostics_are_data_not_text() -> None:

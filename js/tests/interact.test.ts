@@ -25,7 +25,8 @@ import {
   usesPins,
   withValues,
 } from "../interact";
-import type { ModelJson, ParamSetting } from "../state";
+import { defaultRecord } from "../params";
+import type { ModelJson, ParamRecord } from "../state";
 import { tickLabel } from "../validate";
 
 const num = (value: number): ExprNode => ({ type: "num", value });
@@ -69,9 +70,9 @@ const dose: ModelJson = {
     { name: "zero_dose", label: "zero-dose level", x: num(1e-9), y: name("zero_dose"), moves: ["zero_dose"] },
   ],
 };
-const settings = (over: Record<string, Partial<ParamSetting>> = {}): Record<string, ParamSetting> => {
-  const out: Record<string, ParamSetting> = {};
-  for (const p of dose.params) out[p.name] = { value: p.value, lower: p.lower, upper: p.upper, fixed: false, ...over[p.name] };
+const settings = (over: Record<string, Partial<ParamRecord>> = {}): Record<string, ParamRecord> => {
+  const out: Record<string, ParamRecord> = {};
+  for (const p of dose.params) out[p.name] = { ...defaultRecord(p), ...over[p.name] };
   return out;
 };
 const values = { full_effect: 5, zero_dose: 95, log_ic50: -6, n_h: 1 };
@@ -192,7 +193,7 @@ describe("withValues", () => {
   it("replaces values inside the bounds, keeps fixed ones and the bounds", () => {
     const s = settings({ n_h: { upper: 4 }, zero_dose: { fixed: true } });
     const out = withValues(s, { n_h: 9, zero_dose: 10, full_effect: -2, log_ic50: NaN });
-    expect(out["n_h"]).toEqual({ value: 4, lower: 0, upper: 4, fixed: false });
+    expect(out["n_h"]).toEqual({ ...defaultRecord(dose.params[3]!), value: 4, lower: 0, upper: 4, fixed: false });
     expect(out["zero_dose"]!.value).toBe(95);
     expect(out["full_effect"]!.value).toBe(-2);
     expect(out["log_ic50"]!.value).toBe(-6);

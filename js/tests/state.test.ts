@@ -1,7 +1,8 @@
 // Reading the synced traits (state.ts) and checking what a person types (validate.ts). The
-// rules for a setting are the Python side's (src/curvewright/widget/_state.py validate_setting):
-// lower <= upper, value inside the bounds, no negative value or lower bound for a positive
-// parameter (tests/widget/test_state.py checks the Python side against the same rules).
+// rules for a setting are the one validator's, Python's Parameters.validated
+// (src/curvewright/parameters.py): lower <= upper, a free value inside the bounds, no negative
+// value or lower bound for a positive parameter (tests/test_parameters.py and
+// tests/widget/test_state.py check the Python side against the same rules).
 import { describe, expect, it } from "vitest";
 import { type DataJson, type ModelJson, boundsOf, readData, toggleRows, valuesOf } from "../state";
 import { checkSetting, formatNumber, parseField } from "../validate";
@@ -82,6 +83,8 @@ describe("checkSetting (the Python side's rules)", () => {
   it("accepts a value inside its bounds", () => {
     expect(checkSetting(free, { value: 1, lower: 0, upper: 2, fixed: false })).toBeNull();
     expect(checkSetting(free, { value: 2, lower: 0, upper: 2, fixed: true })).toBeNull();
+    // a fixed value is the user's statement, not a start: not held to the bounds (as in Python)
+    expect(checkSetting(free, { value: 5, lower: 0, upper: 2, fixed: true })).toBeNull();
     expect(checkSetting(positive, { value: 0, lower: 0, upper: null, fixed: false })).toBeNull();
   });
 

@@ -29,6 +29,7 @@ from .errors import (
 from .fitting import fit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
+from .parameters import Parameter, Parameters
 from .result import FitResult
 from .start import generic_start, guided_start
 from .stats import (
@@ -66,7 +67,9 @@ __all__ = [
     "Model",
     "ModelError",
     "Param",
+    "Parameter",
     "ParameterError",
+    "Parameters",
     "RankDeficiencyWarning",
     "__version__",
     "catalog",

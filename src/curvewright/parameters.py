@@ -9,24 +9,44 @@ validator (:meth:`Parameters.validated`) and the one rule for bringing a value i
 the widget and a saved result all agree on what a setting means. ``fit(start=, fixed=, bounds=,
 links=)`` are shorthand, converted once by :meth:`Parameters.from_shorthand`.
 
-The JSON form (:meth:`Parameter.to_json`) is what the widget syncs; ``js/params.ts`` mirrors it.
+The JSON form (:meth:`Parameter.to_json`) is what the widget syncs, the page sends with a Fit and
+a saved result holds. It is written down once, as a JSON Schema in ``params_spec.json``: this
+module refuses to import while :class:`Parameter`'s fields or :data:`SCOPES` differ from it, and
+``js/params.ts`` types the page's records from the same file.
 """
 
 from __future__ import annotations
 
+import importlib.resources
+import json
 import math
-from collections.abc import Iterable, Iterator, Mapping
-from dataclasses import dataclass, replace
-from typing import Any, Literal
+from collections.abc import Collection, Iterable, Iterator, Mapping
+from dataclasses import dataclass, fields, replace
+from typing import Any, Final, Literal
 
 from .errors import FormulaError, ParameterError
 from .expr import Expr
 from .models import Model, as_number, unknown_name_message
 
-__all__ = ["SCOPES", "Parameter", "Parameters", "Scope", "check_link", "move_inside"]
+__all__ = [
+    "SCOPES",
+    "SPEC",
+    "Moved",
+    "Parameter",
+    "Parameters",
+    "Scope",
+    "check_link",
+    "move_inside",
+]
 
 Scope = Literal["shared", "per_group"]
 SCOPES: tuple[Scope, ...] = ("shared", "per_group")
+
+_SPEC_FILE: Final = "params_spec.json"
+#: The JSON Schema of one record's JSON form (``params_spec.json``), shared with js/params.ts.
+SPEC: Final[Mapping[str, Any]] = json.loads(
+    importlib.resources.files("curvewright").joinpath(_SPEC_FILE).read_text(encoding="utf-8")
+)
 
 
 @dataclass(frozen=True, slots=True)
@@ -64,10 +84,14 @@ class Parameter:
         return not self.fixed and self.link is None
 
     def to_json(self) -> dict[str, Any]:
-        """JSON-ready form: infinite bounds as ``null`` (JSON has no infinity)."""
+        """JSON-ready form (the schema in ``params_spec.json``).
+
+        Infinite bounds are ``null`` (JSON has no infinity); so is a value that is not a finite
+        number (a link not yet computed, or a start left to the guided start).
+        """
         return {
             "name": self.name,
-            "value": self.value,
+            "value": self.value if math.isfinite(self.value) else None,
             "lower": None if math.isinf(self.lower) else self.lower,
             "upper": None if math.isinf(self.upper) else self.upper,
             "fixed": self.fixed,
@@ -118,7 +142,7 @@ class Parameter:
             raise ParameterError(f"{what}: scope must be one of {SCOPES}, got {scope!r}.")
         return cls(
             name=nm,
-            value=as_number(d.get("value"), f"{what}: value", allow_nan=True),
+            value=_bound(d.get("value"), math.nan, f"{what}: value"),
             lower=_bound(d.get("lower"), -math.inf, f"{what}: lower bound"),
             upper=_bound(d.get("upper"), math.inf, f"{what}: upper bound"),
             fixed=fixed,
@@ -129,6 +153,22 @@ class Parameter:
 
 def _bound(v: object, none: float, what: str) -> float:
     return none if v is None else as_number(v, what, allow_nan=True)
+
+
+def _check_spec(spec: Mapping[str, Any]) -> None:
+    """Fail at import while the record and its JSON Schema disagree (a fault of the package)."""
+    where = f"curvewright/{_SPEC_FILE}"
+    props = spec.get("properties")
+    if not isinstance(props, dict):
+        raise RuntimeError(f"{where} must be a JSON Schema with 'properties'.")
+    mine = [f.name for f in fields(Parameter)]
+    if list(props) != mine or list(spec.get("required", ())) != mine:
+        raise RuntimeError(
+            f"{where} lists fields {list(props)} (required {spec.get('required')}) but "
+            f"Parameter has {mine}; change both together (and js/params.ts)."
+        )
+    if tuple(props["scope"].get("enum", ())) != SCOPES:
+        raise RuntimeError(f"{where}: scope must be one of {SCOPES}, as parameters.SCOPES says.")
 
 
 def move_inside(lower: float, upper: float, value: float) -> float:
@@ -146,6 +186,33 @@ def move_inside(lower: float, upper: float, value: float) -> float:
     if value < lower:
         return lower + max(abs(lower) * 0.1, 1e-3)
     return upper - max(abs(upper) * 0.1, 1e-3)
+
+
+_check_spec(SPEC)
+
+
+@dataclass(frozen=True, slots=True)
+class Moved:
+    """A note that :meth:`Parameters.inside_bounds` moved a value inside its bounds.
+
+    Attributes
+    ----------
+    name : str
+        The parameter moved.
+    before, after : float
+        Its value before and after.
+    lower, upper : float
+        The bounds it was moved inside.
+    text : str
+        One sentence for people saying so.
+    """
+
+    name: str
+    before: float
+    after: float
+    lower: float
+    upper: float
+    text: str
 
 
 class Parameters(Mapping[str, Parameter]):
@@ -358,7 +425,9 @@ class Parameters(Mapping[str, Parameter]):
                 held = dict.fromkeys(fixed)
             check(held, "fixed")
             for k, raw in held.items():
-                value = recs[k].value if raw is None else as_number(raw, f"fixed value of {k!r}")
+                # Held by name: at its start, or the model's default where no start is set.
+                now = recs[k].value if math.isfinite(recs[k].value) else model.param(k).value
+                value = now if raw is None else as_number(raw, f"fixed value of {k!r}")
                 recs[k] = replace(recs[k], value=value, fixed=True)
         if links:
             if not isinstance(links, Mapping):
@@ -376,14 +445,20 @@ class Parameters(Mapping[str, Parameter]):
         return cls(recs.values())
 
     # -------------------------------------------------------------------------- rules
-    def validated(self, model: Model) -> Parameters:
+    def validated(self, model: Model, *, allow_unset: bool = False) -> Parameters:
         """The one validator: these records are a consistent setting of ``model``'s parameters.
 
         Checks every parameter is present and no other; values finite (a linked value may be
         NaN until computed); bounds numbers with lower <= upper; a parameter the model declares
-        positive has no negative value or lower bound; a free or fixed value inside its bounds;
-        a link parses, uses only other parameters that are not themselves linked, never ``x``,
-        and is not also fixed. Returns the records in the model's order.
+        positive has no negative value or lower bound; a free value inside its bounds; a link
+        parses, uses only other parameters that are not themselves linked, never ``x``, and is
+        not also fixed. Returns the records in the model's order.
+
+        Parameters
+        ----------
+        model : Model
+        allow_unset : bool
+            Let a free value be NaN: no start given, a guided start will choose it (``fit()``).
 
         Raises
         ------
@@ -426,6 +501,8 @@ class Parameters(Mapping[str, Parameter]):
                 check_link(model, n, r.link, links)
                 continue
             kind = "fixed value" if r.fixed else "value"
+            if allow_unset and not r.fixed and math.isnan(r.value):
+                continue
             if not math.isfinite(r.value):
                 raise ParameterError(f"{what}: {kind} must be a finite number, got {r.value}.")
             if p.positive and r.value < 0:
@@ -439,21 +516,35 @@ class Parameters(Mapping[str, Parameter]):
                 )
         return Parameters(self._records[n] for n in model.param_names)
 
-    def inside_bounds(self) -> tuple[Parameters, tuple[str, ...]]:
+    def inside_bounds(
+        self, only: Collection[str] | None = None
+    ) -> tuple[Parameters, tuple[Moved, ...]]:
         """Free values moved inside their bounds by :func:`move_inside`, with a note per move.
 
         Fixed and linked parameters are left alone (a fixed value is the user's statement; a
         linked value is computed).
+
+        Parameters
+        ----------
+        only : collection of str, optional
+            Move only these parameters' values (e.g. the ones a guided start chose, never a
+            user's); by default every free one.
         """
-        notes: list[str] = []
+        notes: list[Moved] = []
         out: list[Parameter] = []
         for r in self._records.values():
-            if r.free and math.isfinite(r.value) and not r.lower <= r.value <= r.upper:
+            if (
+                r.free
+                and (only is None or r.name in only)
+                and math.isfinite(r.value)
+                and not r.lower <= r.value <= r.upper
+            ):
                 v = move_inside(r.lower, r.upper, r.value)
-                notes.append(
+                text = (
                     f"The start of {r.name!r} ({r.value:.6g}) lay outside its bounds "
                     f"[{r.lower:g}, {r.upper:g}] and was moved to {v:.6g}."
                 )
+                notes.append(Moved(r.name, r.value, v, r.lower, r.upper, text))
                 out.append(replace(r, value=v))
             else:
                 out.append(r)

@@ -25,6 +25,7 @@ from .data import Dataset
 from .errors import CurvewrightError, ModelError
 from .inference import correlation_matrix, derived_value_and_se, quantile
 from .models import Derived, Model, Param
+from .parameters import Parameter, Parameters
 from .thresholds import CAUTION, HIGH_CORRELATION, NOT_IDENTIFIED_RSE
 
 __all__ = [
@@ -47,7 +48,11 @@ _FORMAT = "curvewright.FitResult"
 #: Version of the saved form. 2: the catalog's own model and parameter names, the solver option
 #: names levenberg_marquardt / trust_region / pseudo_huber and ``evaluations`` for the
 #: evaluation counts; results saved as version 1 used other names and cannot be read.
-_VERSION = 2
+#: 3: adds ``parameters``, the parameter records used (params_spec.json). Version 2 is read
+#: too: its records are rebuilt from values, bounds, fixed and linked (the model's bounds for
+#: fixed and linked parameters, scope "shared"), which is all version 2 knew.
+_VERSION = 3
+_READABLE = (2, 3)
 
 
 # ------------------------------------------------------------------------------- records
@@ -105,7 +110,9 @@ class Diagnostic:
 
 
 # Entries of Diagnostic.extra that are floats (encoded like every other float in the JSON).
-_FLOAT_EXTRAS = frozenset({"bound", "r", "condition", "value", "stderr"})
+_FLOAT_EXTRAS = frozenset(
+    {"bound", "r", "condition", "value", "stderr", "before", "after", "lower", "upper"}
+)
 
 
 @dataclass(frozen=True)
@@ -300,6 +307,9 @@ class FitResult:
         Method of the attempt whose solution was kept.
     evaluations : int
         Model evaluations over all attempts.
+    parameters : Parameters
+        The parameter records of the fit: the fitted values with the bounds, fixed flags,
+        links and scopes used (``fit(params=result.parameters)`` refits from the solution).
     """
 
     model: Model
@@ -339,6 +349,8 @@ class FitResult:
     absolute_sigma: bool
     method: str
     evaluations: int
+    # Made from the fields above when not given (a result built by hand, or read from format 2).
+    parameters: Parameters = field(default_factory=lambda: Parameters(()), repr=False)
     _lmfit: Any = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -361,6 +373,22 @@ class FitResult:
         put(self, "messages", tuple((str(c), str(t)) for c, t in self.messages))
         put(self, "diagnostics", tuple(self.diagnostics))
         put(self, "attempts", tuple(self.attempts))
+        if not isinstance(self.parameters, Parameters):
+            put(self, "parameters", Parameters(self.parameters))
+        if not len(self.parameters) and self.model.params:
+            put(self, "parameters", self._records_from_fields())
+
+    def _records_from_fields(self) -> Parameters:
+        return Parameters(
+            Parameter(
+                p.name,
+                float(self.values[p.name]),
+                *self.bounds.get(p.name, (p.lower, p.upper)),
+                fixed=p.name in self.fixed,
+                link=self.linked.get(p.name),
+            )
+            for p in self.model.params
+        )
 
     # ------------------------------------------------------------------ properties
     @property
@@ -874,6 +902,7 @@ class FitResult:
             "absolute_sigma": self.absolute_sigma,
             "method": self.method,
             "evaluations": self.evaluations,
+            "parameters": self.parameters.to_json(),
         }
 
     def to_json(self, **kwargs: Any) -> str:
@@ -918,7 +947,7 @@ class FitResult:
                 "load the output of FitResult.to_json()."
             )
         version = d.get("version")
-        if version != _VERSION:
+        if version not in _READABLE:
             if version == 1:
                 raise ModelError(
                     "this result was saved in curvewright result format 1, which used older "
@@ -927,8 +956,8 @@ class FitResult:
                 )
             raise ModelError(
                 f"this result was saved in curvewright result format {version!r}; this version "
-                f"reads format {_VERSION} only. Refit the data with this version, or load the "
-                "result with the curvewright version that saved it."
+                f"reads formats {' and '.join(map(str, _READABLE))} only. Refit the data with "
+                "this version, or load the result with the curvewright version that saved it."
             )
         try:
             return cls._from_dict(d, model)
@@ -947,10 +976,17 @@ class FitResult:
         mdict = d["model"]
         rebuilt = _restore_model(mdict, model)
         lin = {str(k): str(v) for k, v in d["linked"].items()}
+        values = _dec_map(d["values"])
+        # JSON writes a non-finite value as null; the exact values are in "values".
+        records = (
+            Parameters(())  # format 2: rebuilt from the other fields
+            if d["version"] == 2
+            else Parameters.from_json(d["parameters"]).with_values(values)
+        )
         return cls(
             model=rebuilt,
             datasets=tuple(Dataset.from_dict(x) for x in d["datasets"]),
-            values=_dec_map(d["values"]),
+            values=values,
             stderr=_dec_map(d["stderr"]),
             free=tuple(d["free"]),
             fixed=tuple(d["fixed"]),
@@ -985,6 +1021,7 @@ class FitResult:
             absolute_sigma=bool(d["absolute_sigma"]),
             method=str(d["method"]),
             evaluations=int(d["evaluations"]),
+            parameters=records,
         )
 
     @classmethod

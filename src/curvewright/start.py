@@ -37,6 +37,7 @@ from scipy.stats import qmc
 from .errors import DataError, ParameterError
 from .expr import Expr
 from .models import Model, Param, unknown_name_message
+from .parameters import move_inside
 
 __all__ = [
     "EnzymeEstimate",
@@ -564,6 +565,7 @@ def _polish(
 
 
 def _clip_into_bounds(model: Model, values: Mapping[str, float]) -> dict[str, float]:
+    """Candidate values inside the model's bounds, by the one rule (parameters.move_inside)."""
     out = {}
     for p in model.params:
         v = float(values.get(p.name, p.value))
@@ -572,7 +574,7 @@ def _clip_into_bounds(model: Model, values: Mapping[str, float]) -> dict[str, fl
         if p.lower >= 0 and (p.positive or p.log_scale) and v <= 0:
             # a rate or width of exactly 0 stalls a log-scale search; use a tiny positive value
             v = max(p.lower, abs(p.value) * 1e-6, 1e-12)
-        out[p.name] = float(min(max(v, p.lower), p.upper))
+        out[p.name] = float(move_inside(p.lower, p.upper, v))
     return out
 
 

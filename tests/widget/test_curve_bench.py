@@ -24,6 +24,7 @@ import pytest
 from scipy.optimize import curve_fit
 
 import curvewright as cw
+from curvewright.parameters import Parameter, move_inside
 from curvewright.widget import CurveBench
 from curvewright.widget._state import MAX_POINTS
 
@@ -66,8 +67,15 @@ def page_sends(widget: CurveBench, content: dict[str, Any]) -> None:
     widget._handle_custom_msg(content, [])
 
 
-def with_setting(params: dict[str, Any], name: str, **change: Any) -> dict[str, Any]:
-    return {**params, name: {**params[name], **change}}
+def with_setting(params: list[dict[str, Any]], name: str, **change: Any) -> list[dict[str, Any]]:
+    """The ``params`` trait (a list of parameter records) with one record changed."""
+    assert any(r["name"] == name for r in params), name
+    return [{**r, **change} if r["name"] == name else dict(r) for r in params]
+
+
+def record(params: list[dict[str, Any]], name: str) -> dict[str, Any]:
+    (r,) = [r for r in params if r["name"] == name]
+    return r
 
 
 # ------------------------------------------------------------------------------ construction
@@ -181,7 +189,7 @@ def test_fix_exclude_and_fit_from_the_page(w: CurveBench, df: pd.DataFrame) -> N
     assert w.fitted is not None and w.fitted["flags"]["full_effect"] == ["fixed"]
     assert w.fitted["excluded"] == [13]
     assert len(w.fitted["residuals"]) == len(w.data["x"])
-    assert w.params["log_ic50"]["value"] == pytest.approx(r.values["log_ic50"])
+    assert record(w.params, "log_ic50")["value"] == pytest.approx(r.values["log_ic50"])
     assert w.error == ""
 
 
@@ -318,8 +326,8 @@ def test_switching_model_keeps_earlier_fits(w: CurveBench) -> None:
     first = w.fit()
     page_sets(w, model_name="inhibition_5pl")
     assert w.model_json["name"] == "inhibition_5pl"
-    assert set(w.params) == {"full_effect", "zero_dose", "log_ic50", "n_h", "g"}
-    assert all(math.isfinite(s["value"]) for s in w.params.values())
+    assert {r["name"] for r in w.params} == {"full_effect", "zero_dose", "log_ic50", "n_h", "g"}
+    assert all(math.isfinite(s["value"]) for s in w.params)
     assert w.fitted is None
     assert [c["model_name"] for c in w.compare] == ["inhibition_4pl"]
     second = w.fit()
@@ -355,8 +363,10 @@ def test_callable_preview_round_trip(df: pd.DataFrame) -> None:
 # ------------------------------------------------------------------------------ Python API
 def test_bad_python_edits_raise_and_change_nothing(w: CurveBench) -> None:
     before = json.dumps(w.snapshot(), sort_keys=True)
-    with pytest.raises(cw.ParameterError, match="outside its bounds"):
+    with pytest.raises(cw.ParameterError, match="positive, so its value cannot be -1"):
         w.set_param("n_h", value=-1.0)
+    with pytest.raises(cw.ParameterError, match=r"start value 9 lies outside its bounds \[0, 5\]"):
+        w.set_param("n_h", value=9.0, upper=5.0)
     with pytest.raises(cw.ParameterError, match="Did you mean 'n_h'"):
         w.set_param("n_hh", value=1.0)
     with pytest.raises(cw.ParameterError, match="above upper bound"):
@@ -413,8 +423,10 @@ def test_restore_rejects_bad_snapshots_unchanged(w: CurveBench, df: pd.DataFrame
         w.restore({**good, "format": "other"})
     with pytest.raises(cw.DataError, match="with 5 rows; this widget holds 27"):
         w.restore({**good, "n_input": 5})
-    with pytest.raises(cw.ParameterError, match="lacks settings"):
-        w.restore({**good, "params": {"zero_dose": good["params"]["zero_dose"]}})
+    with pytest.raises(cw.ParameterError, match=r"settings for \[.*\] are missing"):
+        w.restore({**good, "params": [record(good["params"], "zero_dose")]})
+    with pytest.raises(cw.ParameterError, match="params must be a list of parameter records"):
+        w.restore({**good, "params": {"zero_dose": record(good["params"], "zero_dose")}})
     with pytest.raises(cw.DataError, match="x_scale"):
         w.restore({**good, "x_scale": "ln", "excluded": [1]})
 
@@ -435,7 +447,7 @@ def test_a_snapshot_in_the_old_format_is_refused_by_name(
     # Format 1 held other model and parameter names (e.g. a "logIC50" midpoint); restoring it
     # says which format it is and what to do, and changes nothing.
     good = w.snapshot()
-    assert good["format"] == "curvewright.widget/2"
+    assert good["format"] == "curvewright.widget/3"
     before = json.dumps(good, sort_keys=True)
     old = {**good, "format": "curvewright.widget/1"}
     old["params"] = {
@@ -449,6 +461,13 @@ def test_a_snapshot_in_the_old_format_is_refused_by_name(
     path.write_text(json.dumps(old), encoding="utf-8")
     with pytest.raises(cw.DataError, match=message):
         w.load(path)
+    # Format 2 kept the settings as a mapping by name; it is refused so too.
+    two = {**good, "format": "curvewright.widget/2"}
+    two["params"] = {
+        r["name"]: {k: r[k] for k in ("value", "lower", "upper", "fixed")} for r in good["params"]
+    }
+    with pytest.raises(cw.DataError, match=r"format 2 .*older layout \(a mapping by name\)"):
+        w.restore(two)
     assert json.dumps(w.snapshot(), sort_keys=True) == before
 
 
@@ -582,3 +601,56 @@ def test_sigma_and_fit_options_reach_the_fit(df: pd.DataFrame) -> None:
     assert r.weighting == "sigma" and r.loss == "pseudo_huber"
     # With sigma = 2 for every point, weighted residuals are the residuals halved.
     np.testing.assert_allclose(r.weighted_residuals, r.residuals / 2.0, rtol=1e-12)
+
+
+# ------------------------------------------------------------------------- parameter records
+def test_the_params_trait_is_the_records_json_and_fit_gets_the_records(w: CurveBench) -> None:
+    # One record from Python to the page and back (params_spec.json): the trait is exactly
+    # Parameters.to_json() of what Fit hands to fit().
+    assert w.params == w.parameters.to_json()
+    assert [r["name"] for r in w.params] == list(w.model.param_names)
+    page_sets(w, params=with_setting(w.params, "full_effect", value=5.0, fixed=True))
+    assert w.parameters["full_effect"] == Parameter("full_effect", 5.0, fixed=True)
+    expected = cw.fit(w.model, dataset=w.dataset, params=w.parameters)
+    r = w.fit()
+    assert dict(r.values) == dict(expected.values)  # the same problem, the same numbers
+    assert r.parameters == expected.parameters
+    # after the fit the records hold the fitted values, with the bounds and flags shown
+    assert w.parameters == r.parameters
+    assert w.params == r.parameters.to_json()
+
+
+def test_a_guided_start_outside_given_bounds_is_moved_by_the_one_rule_with_a_notice(
+    df: pd.DataFrame,
+) -> None:
+    # The guided log_ic50 is near -7 (the truth); bounds of [-5, -4] leave it outside.
+    w = CurveBench(
+        df, x="conc", y="response", model="inhibition_4pl", bounds={"log_ic50": (-5, -4)}
+    )
+    v = w.values["log_ic50"]
+    assert v == move_inside(-5.0, -4.0, -7.0) == pytest.approx(-4.99)  # 1 % inside the bound
+    assert "'log_ic50'" in w.status["message"] and "moved to" in w.status["message"]
+    # a user's own start outside the bounds is refused, never moved
+    with pytest.raises(cw.ParameterError, match="outside its bounds"):
+        CurveBench(
+            df,
+            x="conc",
+            y="response",
+            model="inhibition_4pl",
+            start={"log_ic50": -7.0},
+            bounds={"log_ic50": (-5, -4)},
+        )
+
+
+def test_fit_option_links_join_the_records_of_the_request(df: pd.DataFrame) -> None:
+    w = CurveBench(
+        df,
+        x="conc",
+        y="response",
+        model="inhibition_4pl",
+        fit_options={"links": {"full_effect": "0.05*zero_dose"}},
+    )
+    r = w.fit()
+    assert r.parameters["full_effect"].link == "0.05*zero_dose"
+    assert r.values["full_effect"] == pytest.approx(0.05 * r.values["zero_dose"], rel=1e-12)
+    assert "full_effect" not in r.free

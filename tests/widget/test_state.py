@@ -16,6 +16,7 @@ import pytest
 from scipy import stats as sps
 
 import curvewright as cw
+from curvewright.parameters import Parameter, move_inside
 from curvewright.widget import _state
 
 
@@ -32,63 +33,74 @@ def model() -> cw.Model:
 
 
 # ------------------------------------------------------------------------------ settings
-def test_parse_params_normalises_and_checks(model: cw.Model) -> None:
-    raw = {
-        "full_effect": {"value": 1, "lower": None, "upper": None, "fixed": False},
-        "zero_dose": {"value": 99.5, "lower": 50, "upper": 150, "fixed": True},
-        "log_ic50": {"value": -7, "lower": None, "upper": None, "fixed": False},
-        "n_h": {"value": 1.2, "lower": 0, "upper": None, "fixed": False},
-    }
+def test_parse_params_reads_the_records_json_and_checks_it(model: cw.Model) -> None:
+    raw = [
+        {"name": "full_effect", "value": 1, "lower": None, "upper": None, "fixed": False},
+        {"name": "zero_dose", "value": 99.5, "lower": 50, "upper": 150, "fixed": True},
+        {"name": "log_ic50", "value": -7, "lower": None, "upper": None, "fixed": False},
+        {"name": "n_h", "value": 1.2, "lower": 0, "upper": None, "fixed": False},
+    ]
     out = _state.parse_params(model, raw)
-    assert out["full_effect"] == {
-        "value": 1.0,
-        "lower": -math.inf,
-        "upper": math.inf,
-        "fixed": False,
-    }
-    assert out["zero_dose"]["fixed"] is True
-    assert _state.params_json(out)["full_effect"] == {
+    assert out["full_effect"] == Parameter("full_effect", 1.0)
+    assert out["zero_dose"].fixed is True and out["zero_dose"].lower == 50.0
+    # the trait carries exactly the record's JSON (params_spec.json), in the model's order
+    js = _state.params_json(out)
+    assert [r["name"] for r in js] == list(model.param_names)
+    assert next(r for r in js if r["name"] == "full_effect") == {
+        "name": "full_effect",
         "value": 1.0,
         "lower": None,
         "upper": None,
         "fixed": False,
+        "link": None,
+        "scope": "shared",
     }
+    assert _state.params_json(out) == out.to_json()
+
+
+def _with(raw: list[dict[str, Any]], which: str, **change: Any) -> list[dict[str, Any]]:
+    return [{**r, **change} if r["name"] == which else r for r in raw]
 
 
 @pytest.mark.parametrize(
     ("change", "message"),
     [
-        ({"n_h": {"value": 1.0, "lower": 2.0, "upper": 1.0, "fixed": False}}, "above upper"),
-        ({"n_h": {"value": -1.0, "lower": None, "upper": None, "fixed": False}}, "positive"),
-        ({"n_h": {"value": "1", "lower": None, "upper": None, "fixed": False}}, "number"),
-        ({"n_h": {"value": math.nan, "lower": None, "upper": None, "fixed": False}}, "finite"),
-        ({"n_h": {"value": 1.0, "lower": None, "upper": None, "fixed": "yes"}}, "true or false"),
-        ({"n_h": 3}, "must be a mapping"),
-        ({"n_hh": {"value": 1.0, "lower": None, "upper": None, "fixed": False}}, "Did you mean"),
+        ({"value": 1.0, "lower": 2.0, "upper": 1.0}, "above upper"),
+        ({"value": -1.0}, "positive"),
+        ({"value": "1"}, "number"),
+        ({"value": math.nan}, "finite"),
+        ({"fixed": "yes"}, "true or false"),
+        ({"scope": "each"}, "scope must be one of"),
+        ({"colour": "red"}, "unknown field"),
+        ({"name": "n_hh"}, "Did you mean"),
     ],
 )
 def test_parse_params_rejects(model: cw.Model, change: dict[str, Any], message: str) -> None:
-    base = _state.params_json(_state.settings_from_model(model))
-    raw = {**base, **change}
-    if "n_hh" in change:
-        del raw["n_h"]
+    base = _state.params_json(_state.start_parameters(model)[0])
     with pytest.raises(cw.ParameterError, match=message):
-        _state.parse_params(model, raw)
+        _state.parse_params(model, _with(base, "n_h", **change))
 
 
 def test_parse_params_needs_every_parameter(model: cw.Model) -> None:
-    base = _state.params_json(_state.settings_from_model(model))
-    del base["zero_dose"]
-    with pytest.raises(cw.ParameterError, match="lacks settings"):
-        _state.parse_params(model, base)
-    with pytest.raises(cw.ParameterError, match="mapping"):
+    base = _state.params_json(_state.start_parameters(model)[0])
+    with pytest.raises(cw.ParameterError, match=r"settings for \['zero_dose'\] are missing"):
+        _state.parse_params(model, [r for r in base if r["name"] != "zero_dose"])
+    with pytest.raises(cw.ParameterError, match="must be a list of parameter records"):
+        _state.parse_params(model, {r["name"]: r for r in base})
+    with pytest.raises(cw.ParameterError, match="must be a mapping"):
         _state.parse_params(model, [1, 2])
 
 
-def test_settings_from_model_moves_a_start_into_the_bounds(model: cw.Model) -> None:
-    s = _state.settings_from_model(model, {"n_h": -3.0, "zero_dose": math.nan})
-    assert s["n_h"]["value"] == 0.0  # n_h is positive: its lower bound is 0
-    assert s["zero_dose"]["value"] == model.param("zero_dose").value
+def test_start_parameters_moves_a_start_inside_by_the_one_rule_and_says_so(
+    model: cw.Model,
+) -> None:
+    s, notes = _state.start_parameters(model, {"n_h": -3.0, "zero_dose": math.nan})
+    p = model.param("n_h")
+    # n_h is positive: its lower bound is 0, and the one rule (parameters.move_inside) decides
+    assert s["n_h"].value == move_inside(p.lower, p.upper, -3.0) and s["n_h"].value > 0
+    assert s["zero_dose"].value == model.param("zero_dose").value
+    assert len(notes) == 1 and "'n_h' (-3) lay outside its bounds" in notes[0]
+    assert _state.start_parameters(model)[1] == ()
 
 
 # ---------------------------------------------------------------------------------- axes

@@ -22,6 +22,7 @@ from ..data import Dataset, as_datasets, make_dataset
 from ..errors import DataError, FitError, ModelError, ParameterError
 from ..messages import outcome
 from ..models import Model, as_number
+from ..parameters import Parameter, Parameters
 from ..result import FitResult
 from .assemble import _finish
 from .engine import _ladder, _linear_run, _polish, _Watch
@@ -32,10 +33,11 @@ from .problem import (
     Weighting,
     _build_problem,
     point_weights,
+    request_parameters,
     resolve_model,
 )
 
-__all__ = ["fit", "point_weights", "resolve_model"]
+__all__ = ["fit", "point_weights", "request_parameters", "resolve_model"]
 
 
 # ============================================================================ entry point
@@ -47,6 +49,7 @@ def fit(
     data: pd.DataFrame | Mapping[str, Any] | None = None,
     dataset: Dataset | Sequence[Dataset] | None = None,
     sigma: ArrayLike | str | None = None,
+    params: Parameters | Sequence[Parameter] | None = None,
     start: Mapping[str, float] | None = None,
     fixed: Mapping[str, float] | Iterable[str] | None = None,
     bounds: Mapping[str, tuple[float | None, float | None]] | None = None,
@@ -78,14 +81,23 @@ def fit(
         parameter (their residuals are stacked).
     sigma : array_like or str, optional
         Standard deviation of each y (or a column name); implies ``weights="sigma"``.
+    params : Parameters or sequence of Parameter, optional
+        The parameters' settings as records (value = start, bounds, fixed, link, scope), e.g.
+        ``Parameters.for_model(model)`` edited, or a widget's or an earlier result's
+        ``parameters``. Parameters without a record take the model's bounds and a guided
+        start; a record's NaN value also asks for a guided start.
     start : mapping, optional
-        Starting values by name; the others come from the model's guided start.
+        Shorthand: starting values by name; the others come from the model's guided start.
     fixed : mapping or iterable of str, optional
-        Parameters held constant: ``{name: value}``, or names held at their start value.
+        Shorthand: parameters held constant: ``{name: value}``, or names held at their start
+        value.
     bounds : mapping, optional
-        ``{name: (lower, upper)}`` with None for no bound; they replace the model's bounds.
+        Shorthand: ``{name: (lower, upper)}`` with None for no bound; they replace the model's
+        bounds.
     links : mapping, optional
-        ``{name: "expression of other parameters"}``, e.g. ``{"a2": "2*a1"}``.
+        Shorthand: ``{name: "expression of other parameters"}``, e.g. ``{"a2": "2*a1"}``.
+        The shorthand is made into records once (:meth:`Parameters.from_shorthand`); a
+        parameter may be set by a record or by the shorthand, not both.
     weights : {"none", "sigma", "relative", "poisson"}, optional
         ``"sigma"``: 1/sigma²; ``"relative"``: 1/y² (constant coefficient of variation);
         ``"poisson"``: 1/|y| (counts). Default: ``"sigma"`` when sigma is given, else none.
@@ -124,7 +136,8 @@ def fit(
     DomainError
         Some x lie outside the model's domain (e.g. x <= 0 for a model that takes log x).
     ParameterError
-        Unknown names, bad bounds, a start outside its bounds, bad links or options.
+        Unknown names, bad bounds, a start outside its bounds, bad links or options, a
+        parameter set both by ``params=`` and by the shorthand.
     ModelError
         The model is malformed or its function raises / returns the wrong shape.
     FitError
@@ -169,13 +182,11 @@ def fit(
     else:
         datasets = (make_dataset(x, y, data=data, sigma=sigma, exclude=exclude),)
 
+    records = request_parameters(m, params, start=start, fixed=fixed, bounds=bounds, links=links)
     prob = _build_problem(
         m,
         datasets,
-        start=start,
-        fixed=fixed,
-        bounds=bounds,
-        links=links,
+        parameters=records,
         weights=weights,
         loss=loss,
         loss_scale=loss_scale,

@@ -58,6 +58,21 @@ def _diagnostics(
     for d in prob.datasets:
         for note in d.notes:
             out.append(Diagnostic("data_note", "info", note))
+    for mv in prob.moved:
+        out.append(
+            Diagnostic(
+                "start_moved_inside_bounds",
+                "info",
+                mv.text,
+                params=(mv.name,),
+                extra={
+                    "before": mv.before,
+                    "after": mv.after,
+                    "lower": mv.lower,
+                    "upper": mv.upper,
+                },
+            )
+        )
     if not success:
         out.append(
             Diagnostic(
@@ -251,5 +266,6 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         absolute_sigma=prob.absolute_sigma,
         method=kept.method if kept is not None else "none",
         evaluations=sum(r.evaluations for r in runs),
+        parameters=prob.parameters.with_values(values),
         _lmfit=lm,
     )

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Literal
 
 import numpy as np
@@ -22,7 +22,7 @@ from ..errors import DataError, ModelError, ParameterError
 from ..expr import Expr
 from ..models import Model, as_number, unknown_name_message
 from ..numerics import finite_difference_jacobian, free_jacobian
-from ..parameters import check_link
+from ..parameters import Moved, Parameter, Parameters
 from ..start import guided_start
 
 FloatArray = NDArray[np.float64]
@@ -95,6 +95,10 @@ class _Problem:
     lower: FloatArray  # bounds of the free parameters
     upper: FloatArray
     link_texts: dict[str, str] = field(default_factory=dict)
+    # The records the fit runs with (values: the starts; NaN for linked ones) and the notes of
+    # starts the one rule moved inside their bounds (they become diagnostics of the result).
+    parameters: Parameters = field(default_factory=lambda: Parameters(()))
+    moved: tuple[Moved, ...] = ()
     _link_fns: list[tuple[str, Callable[..., Any]]] = field(default_factory=list)
     # d f / d parameter for every model parameter, compiled once (formula models only).
     deriv_fns: list[Callable[..., Any]] | None = None
@@ -132,81 +136,62 @@ class _Problem:
         return r if self.w is None else r * self.w
 
 
-def _as_names(fixed: Mapping[str, float] | Iterable[str] | None) -> dict[str, float | None]:
-    if fixed is None:
-        return {}
-    if isinstance(fixed, str):
-        return {fixed: None}
-    if isinstance(fixed, Mapping):
-        return {str(k): v for k, v in fixed.items()}
-    return {str(k): None for k in fixed}
+def request_parameters(
+    model: Model,
+    params: Parameters | Sequence[Parameter] | None = None,
+    *,
+    start: Mapping[str, float] | None = None,
+    fixed: Mapping[str, float] | Iterable[str] | None = None,
+    bounds: Mapping[str, tuple[float | None, float | None]] | None = None,
+    links: Mapping[str, str] | None = None,
+) -> Parameters:
+    """The one conversion of a fit request's parameter settings into checked records.
 
+    ``params=`` records and the ``start=``/``fixed=``/``bounds=``/``links=`` shorthand meet
+    here, once. A parameter with no record and no start gets a NaN value: the guided start
+    chooses it. Records may cover only some parameters (the others take the model's bounds);
+    a parameter set both by a record and by the shorthand is refused, whatever the values.
 
-def _check_names(model: Model, names: Iterable[str], where: str) -> None:
-    for n in names:
-        if n not in model.param_names:
+    Raises
+    ------
+    ParameterError
+        ``params`` of the wrong type, a parameter given both ways, and whatever
+        :meth:`Parameters.from_shorthand` and :meth:`Parameters.validated` refuse.
+    """
+    unset = Parameters(replace(r, value=math.nan) for r in Parameters.for_model(model).values())
+    base = unset
+    if params is not None:
+        if isinstance(params, Parameters):
+            recs = list(params.values())
+        elif isinstance(params, Sequence) and not isinstance(params, str):
+            recs = list(params)
+        else:
             raise ParameterError(
-                unknown_name_message(n, model.param_names, f"model {model.name!r} (in {where}=)")
+                "params must be a Parameters or a sequence of Parameter records, got "
+                f"{type(params).__name__}."
             )
-
-
-def _bounds(
-    model: Model, bounds: Mapping[str, tuple[float | None, float | None]] | None
-) -> dict[str, tuple[float, float]]:
-    out = {p.name: (p.lower, p.upper) for p in model.params}
-    if bounds is None:
-        return out
-    if not isinstance(bounds, Mapping):
-        raise ParameterError(
-            "bounds must be a mapping {name: (lower, upper)}, e.g. {'k': (0, None)}; "
-            f"got {type(bounds).__name__}."
-        )
-    _check_names(model, bounds, "bounds")
-    for name, pair in bounds.items():
-        if not isinstance(pair, (tuple, list)) or len(pair) != 2:
-            raise ParameterError(
-                f"bounds[{name!r}] must be a pair (lower, upper) with None for no bound; "
-                f"got {pair!r}."
-            )
-        lo = -math.inf if pair[0] is None else as_number(pair[0], f"lower bound of {name!r}")
-        hi = math.inf if pair[1] is None else as_number(pair[1], f"upper bound of {name!r}")
-        if lo > hi:
-            raise ParameterError(
-                f"bounds[{name!r}]: lower bound {lo:g} is above upper bound {hi:g}; swap them."
-            )
-        if model.param(name).positive and lo < 0:
-            raise ParameterError(
-                f"bounds[{name!r}]: the model declares {name!r} positive, so its lower bound "
-                f"cannot be {lo:g}; use 0 or more."
-            )
-        out[name] = (lo, hi)
-    return out
-
-
-def _links(
-    model: Model, links: Mapping[str, str] | None, fixed: Mapping[str, Any]
-) -> dict[str, Expr]:
-    if not links:
-        return {}
-    if not isinstance(links, Mapping):
-        raise ParameterError(
-            "links must be a mapping {name: 'expression of other parameters'}, e.g. "
-            f"{{'top': '2*bottom'}}; got {type(links).__name__}."
-        )
-    _check_names(model, links, "links")
-    out: dict[str, Expr] = {}
-    for name, text in links.items():
-        if name in fixed:
-            raise ParameterError(
-                f"{name!r} is both fixed and linked; choose one (remove it from fixed= or links=)."
-            )
-        if not isinstance(text, str):
-            raise ParameterError(
-                f"links[{name!r}] must be an expression text such as '2*bottom', got {text!r}."
-            )
-        e = check_link(model, name, text, links)
-        out[name] = e
-    return out
+        given = Parameters(recs)  # checks the type of each and that no name repeats
+        for n in given:
+            if n not in model.param_names:
+                raise ParameterError(
+                    unknown_name_message(n, model.param_names, f"model {model.name!r} (in params=)")
+                )
+        for arg, what in (("start", start), ("fixed", fixed), ("bounds", bounds), ("links", links)):
+            if what is None:
+                continue
+            names = [what] if isinstance(what, str) else list(what)
+            both = [str(n) for n in names if n in given]
+            if both:
+                raise ParameterError(
+                    f"{both} {'is' if len(both) == 1 else 'are'} set both by params= and by "
+                    f"{arg}=; give each parameter's setting once (change its record, or leave "
+                    "it out of params=)."
+                )
+        base = Parameters(given.get(n, r) for n, r in unset.items())
+    out = Parameters.from_shorthand(
+        model, start=start, fixed=fixed, bounds=bounds, links=links, base=base
+    )
+    return out.validated(model, allow_unset=True)
 
 
 def _weights(
@@ -269,15 +254,18 @@ def _build_problem(
     model: Model,
     datasets: tuple[Dataset, ...],
     *,
-    start: Mapping[str, float] | None,
-    fixed: Mapping[str, float] | Iterable[str] | None,
-    bounds: Mapping[str, tuple[float | None, float | None]] | None,
-    links: Mapping[str, str] | None,
+    parameters: Parameters,
     weights: str | None,
     loss: str,
     loss_scale: float | None,
     absolute_sigma: bool,
 ) -> _Problem:
+    """The problem of a request whose settings :func:`request_parameters` has made into records.
+
+    Starts left unset (NaN) come from the guided start given the others, and are brought inside
+    their bounds by the one rule (:meth:`Parameters.inside_bounds`), each move noted; a user's
+    start is never moved (:meth:`Parameters.validated` has refused one outside its bounds).
+    """
     for d in datasets:
         model.check_domain(d.x_used)
     x = np.concatenate([d.x_used for d in datasets])
@@ -290,29 +278,10 @@ def _build_problem(
             raise ParameterError(f"loss_scale must be a positive number, got {loss_scale!r}.")
     weighting, w = _weights(weights, datasets, y)
 
-    if start is not None and not isinstance(start, Mapping):
-        raise ParameterError(
-            f"start must be a mapping {{name: value}}, got {type(start).__name__}."
-        )
-    user_start = {str(k): as_number(v, f"start value of {k!r}") for k, v in (start or {}).items()}
-    _check_names(model, user_start, "start")
-    for k, v in user_start.items():
-        if math.isinf(v):
-            raise ParameterError(f"start value of {k!r} is infinite; give a finite number.")
-    held_raw = _as_names(fixed)
-    _check_names(model, held_raw, "fixed")
-    held: dict[str, float] = {}
-    for k, raw in held_raw.items():
-        fv = as_number(
-            user_start.get(k, model.param(k).value) if raw is None else raw,
-            f"fixed value of {k!r}",
-        )
-        if math.isinf(fv):
-            raise ParameterError(f"fixed value of {k!r} is infinite; give a finite number.")
-        held[k] = fv
-    link_exprs = _links(model, links, held)
-    bnd = _bounds(model, bounds)
-    free = tuple(n for n in model.param_names if n not in held and n not in link_exprs)
+    recs = parameters.validated(model, allow_unset=True)
+    free = recs.free
+    held = recs.fixed
+    link_exprs = {n: Expr.parse(t) for n, t in recs.links.items()}
     n_used = x.size
     if n_used <= len(free):
         raise DataError(
@@ -320,24 +289,14 @@ def _build_problem(
             "needs more points than free parameters. Add data, include excluded points or fix "
             "parameters you know (fixed=...)."
         )
-    for k, v in user_start.items():
-        lo, hi = bnd[k]
-        if k in free and not lo <= v <= hi:
-            raise ParameterError(
-                f"start value {v:g} of {k!r} lies outside its bounds [{lo:g}, {hi:g}]; give a "
-                "start inside them or widen the bounds."
-            )
-    if free and any(k not in user_start for k in free):
-        guess = guided_start(model, x, y, fixed={**held, **user_start})
-    else:
-        guess = model.defaults()
+    unset = [n for n in free if math.isnan(recs[n].value)]
+    user_start = {n: recs[n].value for n in free if n not in unset}
+    guess = guided_start(model, x, y, fixed={**held, **user_start}) if unset else {}
     values0 = {**model.defaults(), **guess, **user_start, **held}
-    for k in free:  # a guided value (never a user's) is moved inside user bounds
-        lo, hi = bnd[k]
-        if k not in user_start:
-            v = values0[k]
-            if not lo <= v <= hi:
-                values0[k] = _inside(lo, hi, v)
+    # Linked values are computed from the others; the record keeps NaN there until the fit.
+    recs = recs.with_values({n: values0[n] for n in free})
+    recs, moved = recs.inside_bounds(only=unset)
+    values0.update({n: recs[n].value for n in free})
     return _Problem(
         model=model,
         datasets=datasets,
@@ -352,18 +311,12 @@ def _build_problem(
         free=free,
         fixed=held,
         links=link_exprs,
-        lower=np.array([bnd[n][0] for n in free], dtype=float),
-        upper=np.array([bnd[n][1] for n in free], dtype=float),
-        link_texts={k: str(v).strip() for k, v in (links or {}).items()},
+        lower=np.array([recs[n].lower for n in free], dtype=float),
+        upper=np.array([recs[n].upper for n in free], dtype=float),
+        link_texts=dict(recs.links),
+        parameters=recs,
+        moved=moved,
     )
-
-
-def _inside(lo: float, hi: float, v: float) -> float:
-    if math.isfinite(lo) and math.isfinite(hi):
-        return lo + 0.5 * (hi - lo) if not lo <= v <= hi else v
-    if v < lo:
-        return lo + max(abs(lo) * 0.1, 1e-3) if math.isfinite(lo) else v
-    return hi - max(abs(hi) * 0.1, 1e-3) if math.isfinite(hi) else v
 
 
 def _param_jacobian(prob: _Problem, values: Mapping[str, float]) -> FloatArray:

@@ -1,6 +1,7 @@
 """Convert between the library's objects and the JSON the widget syncs with the front end.
 
-Pure functions (no traitlets): parameter settings <-> the ``params`` trait with validation,
+Pure functions (no traitlets): parameter records <-> the ``params`` trait (the record's own JSON
+and validation, curvewright.parameters),
 a dataset -> the ``data`` trait (decimated beyond a point budget), a fit result -> ``fitted``
 and its confidence/prediction bands, a polynomial degree selection -> its table, curves sampled
 for the front end.
@@ -17,7 +18,8 @@ from numpy.typing import NDArray
 
 from ..data import Dataset
 from ..errors import CurvewrightError, DataError, ParameterError
-from ..models import Model, as_number, unknown_name_message
+from ..models import Model
+from ..parameters import Parameters
 from ..result import FitResult
 from ..stats.polynomial import DegreeSelection
 from ..thresholds import CAUTION
@@ -26,7 +28,6 @@ __all__ = [
     "BAND_LEVEL",
     "CURVE_SAMPLES",
     "MAX_POINTS",
-    "ParamSetting",
     "Scale",
     "auto_x_scale",
     "band_grid",
@@ -40,7 +41,7 @@ __all__ = [
     "params_json",
     "parse_params",
     "sample_x",
-    "validate_setting",
+    "start_parameters",
 ]
 
 Scale = Literal["linear", "log"]
@@ -56,118 +57,39 @@ CURVE_SAMPLES = 400
 # Pointwise coverage of the bands the widget draws (common practice: 95%).
 BAND_LEVEL = 0.95
 
-# A parameter's editable state: value, bounds (+-inf for none) and whether it is held fixed.
-ParamSetting = dict[str, Any]
 
+def parse_params(model: Model, raw: object) -> Parameters:
+    """Read a ``params`` trait value (as the page sends it) into checked records.
 
-def validate_setting(
-    model: Model, name: str, value: float, lower: float, upper: float, fixed: bool
-) -> ParamSetting:
-    """Check one parameter's settings and return them normalised.
-
-    Raises
-    ------
-    ParameterError
-        NaN or infinite value, NaN bounds, lower above upper, value outside the bounds, a
-        negative value or lower bound for a parameter the model declares positive.
+    The trait is :meth:`Parameters.to_json`'s list of records (``js/params.ts``); every
+    parameter of the model must be present, and no other name. The checks are the record's
+    own (:meth:`Parameters.from_json`, then :meth:`Parameters.validated`, the one validator).
     """
-    p = model.param(name)
-    if not math.isfinite(value):
-        raise ParameterError(f"Parameter {name!r}: value must be a finite number, got {value}.")
-    if math.isnan(lower) or math.isnan(upper):
-        raise ParameterError(f"Parameter {name!r}: bounds must be numbers or empty, not NaN.")
-    if lower > upper:
+    if not isinstance(raw, (list, tuple)):
         raise ParameterError(
-            f"Parameter {name!r}: lower bound {lower:g} is above upper bound {upper:g}; "
-            "swap them or widen the range."
+            "params must be a list of parameter records (name, value, lower, upper, fixed, "
+            f"link, scope), got {type(raw).__name__}."
         )
-    if not lower <= value <= upper:
-        raise ParameterError(
-            f"Parameter {name!r}: value {value:g} lies outside its bounds [{lower:g}, {upper:g}]; "
-            "give a value inside them or change the bounds."
-        )
-    if p.positive and (value < 0 or lower < 0):
-        raise ParameterError(
-            f"Parameter {name!r} is positive ({p.description or 'by its meaning'}); "
-            f"value {value:g} and lower bound {lower:g} must not be negative."
-        )
-    return {"value": value, "lower": lower, "upper": upper, "fixed": bool(fixed)}
+    return Parameters.from_json(raw).validated(model)
 
 
-def _bound_from_json(v: object, side: str, name: str) -> float:
-    if v is None:
-        return -math.inf if side == "lower" else math.inf
-    return as_number(v, f"Parameter {name!r}: {side} bound", allow_nan=True)
+def params_json(records: Parameters) -> list[dict[str, Any]]:
+    """The ``params`` trait value: the records' JSON (``null`` bounds for none)."""
+    return records.to_json()
 
 
-def parse_params(model: Model, raw: object) -> dict[str, ParamSetting]:
-    """Validate a whole ``params`` trait value (as the front end sends it).
-
-    Every parameter of the model must be present, and no other name.
-    """
-    if not isinstance(raw, Mapping):
-        raise ParameterError(
-            f"params must be a mapping name -> settings, got {type(raw).__name__}."
-        )
-    unknown = [k for k in raw if k not in model.param_names]
-    if unknown:
-        raise ParameterError(
-            unknown_name_message(str(unknown[0]), model.param_names, repr(model.name))
-        )
-    missing = [n for n in model.param_names if n not in raw]
-    if missing:
-        raise ParameterError(f"params lacks settings for {missing}; every parameter needs one.")
-    out: dict[str, ParamSetting] = {}
-    for name in model.param_names:
-        entry = raw[name]
-        if not isinstance(entry, Mapping):
-            raise ParameterError(
-                f"params[{name!r}] must be a mapping with value, lower, upper, fixed; "
-                f"got {type(entry).__name__}."
-            )
-        value = as_number(entry.get("value"), f"Parameter {name!r}: value", allow_nan=True)
-        lower = _bound_from_json(entry.get("lower"), "lower", name)
-        upper = _bound_from_json(entry.get("upper"), "upper", name)
-        fixed = entry.get("fixed", False)
-        if not isinstance(fixed, bool):
-            raise ParameterError(f"Parameter {name!r}: fixed must be true or false, got {fixed!r}.")
-        out[name] = validate_setting(model, name, value, lower, upper, fixed)
-    return out
-
-
-def _json_float(v: float) -> float | None:
-    return v if math.isfinite(v) else None
-
-
-def params_json(settings: Mapping[str, ParamSetting]) -> dict[str, dict[str, Any]]:
-    """The ``params`` trait value: infinite bounds become ``null`` (JSON has no infinity)."""
-    return {
-        n: {
-            "value": float(s["value"]),
-            "lower": _json_float(float(s["lower"])),
-            "upper": _json_float(float(s["upper"])),
-            "fixed": bool(s["fixed"]),
-        }
-        for n, s in settings.items()
-    }
-
-
-def settings_from_model(
+def start_parameters(
     model: Model, values: Mapping[str, float] | None = None
-) -> dict[str, ParamSetting]:
-    """Default settings: the model's bounds, the given (or default) values, nothing fixed.
+) -> tuple[Parameters, tuple[str, ...]]:
+    """Records for a model shown with these starting values: its bounds, nothing fixed.
 
-    A starting value outside the model's bounds (a guess rule overshooting) is moved to the
-    nearest bound here, where the caller knows it is a start, not a user's setting.
+    A value that is not finite falls back to the model's default. A start outside the model's
+    bounds (a guess rule overshooting) is moved inside by the one rule
+    (:meth:`Parameters.inside_bounds`), and the returned notes say so, for the page to show.
     """
-    out: dict[str, ParamSetting] = {}
-    for p in model.params:
-        v = float((values or {}).get(p.name, p.value))
-        if not math.isfinite(v):
-            v = p.value
-        v = min(max(v, p.lower), p.upper)
-        out[p.name] = {"value": v, "lower": p.lower, "upper": p.upper, "fixed": False}
-    return out
+    given = {k: float(v) for k, v in (values or {}).items() if math.isfinite(float(v))}
+    records, moved = Parameters.for_model(model, given).inside_bounds()
+    return records, tuple(m.text for m in moved)
 
 
 # ------------------------------------------------------------------------------ axes

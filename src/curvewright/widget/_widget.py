@@ -41,6 +41,7 @@ from ..errors import (
 )
 from ..fitting import point_weights, resolve_model
 from ..models import Model, as_number, unknown_name_message
+from ..parameters import Moved, Parameters
 from ..result import FitResult
 from ..start import guided_start
 from ..stats.compare import Comparison, compare
@@ -50,10 +51,14 @@ from ._errors import describe
 
 __all__ = ["CurveBench"]
 
-# The saved-state format; bump the number when its meaning changes. Version 1 used older catalog
-# model and parameter names and is refused with a message saying so.
-STATE_FORMAT = "curvewright.widget/2"
-_OLD_STATE_FORMATS = {"curvewright.widget/1": 1}
+# The saved-state format; bump the number when its meaning changes, and say in
+# _OLD_STATE_FORMATS why an older one is refused. Version 3 keeps the parameters as the
+# record's JSON (a list, params_spec.json).
+STATE_FORMAT = "curvewright.widget/3"
+_OLD_STATE_FORMATS = {
+    "curvewright.widget/1": (1, "used older model and parameter names"),
+    "curvewright.widget/2": (2, "kept parameter settings in an older layout (a mapping by name)"),
+}
 
 # fit() options a widget may carry into every fit; the rest of fit()'s arguments come from the
 # widget's own state (model, data, start, fixed, bounds, exclusions).
@@ -94,17 +99,17 @@ export default { render({ el }) {
 class _Memory:
     """What the widget remembers per model, so switching back restores it."""
 
-    settings: dict[str, _state.ParamSetting]
+    settings: Parameters
     result: FitResult | None = None
 
 
 @dataclass(frozen=True)
 class _FitRequest:
+    """What a Fit hands to fit(): the records as they are (converted once, never taken apart)."""
+
     model: Model
     dataset: Dataset
-    start: dict[str, float]
-    fixed: tuple[str, ...]
-    bounds: dict[str, tuple[float | None, float | None]]
+    parameters: Parameters
     options: dict[str, Any] = field(default_factory=dict)
 
 
@@ -191,7 +196,8 @@ class CurveBench(anywidget.AnyWidget):
     # ---- synced with the front end (types in js/state.ts)
     model_json = traitlets.Dict().tag(sync=True)
     data = traitlets.Dict().tag(sync=True)
-    params = traitlets.Dict().tag(sync=True)
+    # The parameter records, Parameters.to_json() (js/params.ts, params_spec.json).
+    params: traitlets.List[Any] = traitlets.List().tag(sync=True)
     # Any rather than Dict: None is a legal value (no fit yet / nothing to preview).
     fitted = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
     x_scale = traitlets.Unicode("linear").tag(sync=True)
@@ -291,7 +297,8 @@ class CurveBench(anywidget.AnyWidget):
         ys_checked = _state.check_scale(y_scale, "y_scale")
 
         settings, note = self._guided_settings(first)
-        settings = self._overlay(first, settings, start, fixed, bounds)
+        settings, moved = self._overlay(first, settings, start, fixed, bounds)
+        note = " ".join(t for t in (note, *moved) if t)
         self._memory[first.name] = _Memory(settings=settings)
 
         with self.hold_sync(), self._internal():
@@ -315,14 +322,22 @@ class CurveBench(anywidget.AnyWidget):
         return self._ds.with_exclusions(self._excluded)
 
     @property
+    def parameters(self) -> Parameters:
+        """The shown model's parameter records (what Fit hands to :func:`curvewright.fit`)."""
+        return self._mem().settings
+
+    @property
     def settings(self) -> dict[str, dict[str, Any]]:
         """Each parameter's value, lower and upper bound (``inf`` for none) and fixed flag."""
-        return {n: dict(s) for n, s in self._mem().settings.items()}
+        return {
+            n: {"value": r.value, "lower": r.lower, "upper": r.upper, "fixed": r.fixed}
+            for n, r in self._mem().settings.items()
+        }
 
     @property
     def values(self) -> dict[str, float]:
         """Current parameter values (the fitted ones after a successful fit)."""
-        return {n: float(s["value"]) for n, s in self._mem().settings.items()}
+        return self._mem().settings.as_values()
 
     @property
     def history(self) -> tuple[FitResult, ...]:
@@ -382,16 +397,13 @@ class CurveBench(anywidget.AnyWidget):
         model = self.model
         if name not in model.param_names:
             raise ParameterError(unknown_name_message(name, model.param_names, repr(model.name)))
-        cur = self._mem().settings[name]
-        new = _state.validate_setting(
-            model,
-            name,
-            float(cur["value"] if value is None else as_number(value, f"{name} value")),
-            float(cur["lower"] if lower is None else as_number(lower, f"{name} lower")),
-            float(cur["upper"] if upper is None else as_number(upper, f"{name} upper")),
-            bool(cur["fixed"] if fixed is None else fixed),
-        )
-        settings = {**self._mem().settings, name: new}
+        change: dict[str, Any] = {}
+        for key, v in (("value", value), ("lower", lower), ("upper", upper)):
+            if v is not None:
+                change[key] = as_number(v, f"{name} {key}", allow_nan=True)
+        if fixed is not None:
+            change["fixed"] = bool(fixed)
+        settings = self._mem().settings.replace(name, **change).validated(model)
         with self.hold_sync(), self._internal():
             self._apply_settings(settings)
 
@@ -417,12 +429,10 @@ class CurveBench(anywidget.AnyWidget):
         """Run the model's guided start again (fixed parameters keep their values)."""
         model = self.model
         cur = self._mem().settings
-        held = {n: float(s["value"]) for n, s in cur.items() if s["fixed"]}
-        settings, note = self._guided_settings(model, held)
-        for n, s in cur.items():
-            lo, hi = float(s["lower"]), float(s["upper"])
-            v = min(max(float(settings[n]["value"]), lo), hi)
-            settings[n] = {"value": v, "lower": lo, "upper": hi, "fixed": bool(s["fixed"])}
+        guided, note = self._guided_settings(model, cur.fixed)
+        # The guided values with the bounds the user set, brought inside them by the one rule.
+        settings, moved = cur.with_values({n: guided[n].value for n in cur.free}).inside_bounds()
+        note = " ".join(t for t in (note, *(m.text for m in moved)) if t)
         with self.hold_sync(), self._internal():
             self._apply_settings(settings)
             self.status = {"state": "idle", "message": note or "guided start applied"}
@@ -655,8 +665,8 @@ class CurveBench(anywidget.AnyWidget):
         Raises
         ------
         DataError
-            Wrong format (a snapshot of format version 1 used older names: set the model up
-            again), other data (row count), bad exclusions or axis scales.
+            Wrong format (snapshots of format versions 1 and 2 are refused, saying why: set the
+            model up again), other data (row count), bad exclusions or axis scales.
         ModelError
             A model the widget does not know and cannot rebuild (a Python function: pass it
             again with ``models=[...]``).
@@ -667,11 +677,11 @@ class CurveBench(anywidget.AnyWidget):
             raise DataError(f"A widget snapshot is a mapping, got {type(snapshot).__name__}.")
         fmt = snapshot.get("format")
         if isinstance(fmt, str) and fmt in _OLD_STATE_FORMATS:
+            number, why = _OLD_STATE_FORMATS[fmt]
             raise DataError(
-                f"This snapshot was saved in curvewright widget-state format "
-                f"{_OLD_STATE_FORMATS[fmt]} ({fmt!r}), which used older model and parameter "
-                "names; this version cannot restore it. Choose the model and set its parameters "
-                "again, then save a new snapshot."
+                f"This snapshot was saved in curvewright widget-state format {number} "
+                f"({fmt!r}), which {why}; this version cannot restore it. Choose the model and "
+                "set its parameters again, then save a new snapshot."
             )
         if fmt != STATE_FORMAT:
             raise DataError(f"Not a widget snapshot: format is {fmt!r}, expected {STATE_FORMAT!r}.")
@@ -838,7 +848,7 @@ class CurveBench(anywidget.AnyWidget):
         if params is not None and content.get("model_name") == self.model_name:
             settings = _state.parse_params(self.model, params)
         with self.hold_sync(), self._internal():
-            if settings is not None and _state.params_json(settings) != self.params:
+            if settings is not None and settings != self._mem().settings:
                 self._apply_settings(settings)
             if new_rows is not None and new_rows != self._excluded:
                 self._set_excluded(new_rows)
@@ -902,7 +912,7 @@ class CurveBench(anywidget.AnyWidget):
 
     def _guided_settings(
         self, model: Model, held: Mapping[str, float] | None = None
-    ) -> tuple[dict[str, _state.ParamSetting], str]:
+    ) -> tuple[Parameters, str]:
         ds = self.dataset
         x, y = ds.x_used, ds.y_used
         if model.domain == "x>0":
@@ -915,64 +925,33 @@ class CurveBench(anywidget.AnyWidget):
         try:
             values = guided_start(model, xs, ys, fixed=held or None)
         except Exception as exc:  # a start is a convenience: fall back, never fail the widget
-            return (
-                _state.settings_from_model(model, held),
-                f"no guided start for {model.name} ({exc}); showing its default values",
+            records, moved = _state.start_parameters(model, held)
+            return records, " ".join(
+                [f"no guided start for {model.name} ({exc}); showing its default values", *moved]
             )
-        return _state.settings_from_model(model, values), ""
+        records, moved = _state.start_parameters(model, values)
+        return records, " ".join(moved)
 
     def _overlay(
         self,
         model: Model,
-        settings: dict[str, _state.ParamSetting],
+        settings: Parameters,
         start: Mapping[str, float] | None,
         fixed: Mapping[str, float] | Iterable[str] | None,
         bounds: Mapping[str, tuple[float | None, float | None]] | None,
-    ) -> dict[str, _state.ParamSetting]:
-        out = {n: dict(s) for n, s in settings.items()}
+    ) -> tuple[Parameters, tuple[str, ...]]:
+        """The constructor's shorthand on top of the guided records, made into records once.
 
-        def entry(name: str, what: str) -> dict[str, Any]:
-            if name not in out:
-                raise ParameterError(
-                    unknown_name_message(
-                        name, model.param_names, f"model {model.name!r} (in {what}=)"
-                    )
-                )
-            return out[name]
-
-        for n, v in (start or {}).items():
-            entry(n, "start")["value"] = as_number(v, f"start[{n!r}]")
-        if isinstance(fixed, Mapping):
-            for n, v in fixed.items():
-                e = entry(n, "fixed")
-                e["value"] = as_number(v, f"fixed[{n!r}]")
-                e["fixed"] = True
-        elif fixed is not None:
-            if isinstance(fixed, str):
-                fixed = [fixed]
-            for n in fixed:
-                entry(str(n), "fixed")["fixed"] = True
-        if bounds is not None:
-            if not isinstance(bounds, Mapping):
-                raise ParameterError(
-                    f"bounds must be a mapping name -> (lower, upper), got {bounds!r}."
-                )
-            for n, pair in bounds.items():
-                e = entry(n, "bounds")
-                try:
-                    lo, hi = pair
-                except (TypeError, ValueError) as exc:
-                    raise ParameterError(
-                        f"bounds[{n!r}] must be a pair (lower, upper), got {pair!r}."
-                    ) from exc
-                e["lower"] = -math.inf if lo is None else as_number(lo, f"bounds[{n!r}] lower")
-                e["upper"] = math.inf if hi is None else as_number(hi, f"bounds[{n!r}] upper")
-        return {
-            n: _state.validate_setting(
-                model, n, float(s["value"]), float(s["lower"]), float(s["upper"]), bool(s["fixed"])
-            )
-            for n, s in out.items()
-        }
+        A guided value (never a user's) that lies outside bounds the user gave is moved inside
+        by the one rule; the notes say so.
+        """
+        records = Parameters.from_shorthand(
+            model, start=start, fixed=fixed, bounds=bounds, base=settings
+        )
+        users = set(start or ()) | set(records.fixed)
+        guided = [n for n in records if n not in users]
+        records, moved = records.inside_bounds(only=guided)
+        return records.validated(model), tuple(m.text for m in moved)
 
     # ---- trait updates (callers hold hold_sync + _internal)
     def _show_model(self, name: str) -> None:
@@ -993,7 +972,7 @@ class CurveBench(anywidget.AnyWidget):
         if not self.fitting:
             self.status = {"state": "idle", "message": note}
 
-    def _apply_settings(self, settings: dict[str, _state.ParamSetting]) -> None:
+    def _apply_settings(self, settings: Parameters) -> None:
         self._mem().settings = settings
         self.params = _state.params_json(settings)
         if not self.model.has_preview:
@@ -1178,7 +1157,7 @@ class CurveBench(anywidget.AnyWidget):
         py = np.array([p[1] for p in pts])
         settings = self._mem().settings
         # Fixed parameters keep Python's value whatever the page sent.
-        values.update({n: float(st["value"]) for n, st in settings.items() if st["fixed"]})
+        values.update(settings.fixed)
         y_log = self.y_scale == "log"
         solved = _solve_pins(model, values, settings, px, py, y_log, self._ds.y)
         lo, hi = content.get("x_min"), content.get("x_max")
@@ -1189,9 +1168,7 @@ class CurveBench(anywidget.AnyWidget):
             pin_y = model.eval(px, solved)
         with self.hold_sync(), self._internal():
             if content.get("final"):
-                self._apply_settings(
-                    {n: {**st, "value": float(solved[n])} for n, st in settings.items()}
-                )
+                self._apply_settings(settings.with_values(solved))
             self.preview_curve = (
                 None
                 if curve is None
@@ -1206,22 +1183,13 @@ class CurveBench(anywidget.AnyWidget):
     # ---- fitting
     def _request(self) -> _FitRequest:
         model = self.model
-        settings = self._mem().settings
-        return _FitRequest(
-            model=model,
-            dataset=self.dataset,
-            start={n: float(s["value"]) for n, s in settings.items()},
-            fixed=tuple(n for n, s in settings.items() if s["fixed"]),
-            bounds={
-                n: (
-                    None if math.isinf(s["lower"]) else float(s["lower"]),
-                    None if math.isinf(s["upper"]) else float(s["upper"]),
-                )
-                for n, s in settings.items()
-                if not s["fixed"]
-            },
-            options=dict(self._fit_options),
-        )
+        records = self._mem().settings
+        options = dict(self._fit_options)
+        links = options.pop("links", None)
+        if links:
+            # fit_options' links join the records here, the request's one conversion.
+            records = Parameters.from_shorthand(model, links=links, base=records)
+        return _FitRequest(model=model, dataset=self.dataset, parameters=records, options=options)
 
     def _work(
         self,
@@ -1250,9 +1218,7 @@ class CurveBench(anywidget.AnyWidget):
             outcome = fit(
                 req.model,
                 dataset=req.dataset,
-                start=req.start,
-                fixed=list(req.fixed),
-                bounds=req.bounds,
+                params=req.parameters,
                 cancel=cancel,
                 progress=progress,
                 **req.options,
@@ -1289,17 +1255,17 @@ class CurveBench(anywidget.AnyWidget):
 
     def _accept(self, req: _FitRequest, res: FitResult) -> None:
         name = req.model.name
-        mem = self._memory.setdefault(name, _Memory(settings={}))
+        mem = self._memory.setdefault(name, _Memory(settings=Parameters(())))
         mem.result = res
         self._history.append(res)
-        if res.success and mem.settings:
-            mem.settings = {
-                n: {**s, "value": min(max(float(res.values[n]), s["lower"]), s["upper"])}
-                for n, s in mem.settings.items()
-            }
+        moved: tuple[Moved, ...] = ()
+        if res.success and len(mem.settings):
+            # The fitted values become the starts; one outside the bounds shown (a value the
+            # fit computed from a link) is moved inside by the one rule, and the status says so.
+            mem.settings, moved = mem.settings.with_values(res.values).inside_bounds()
         if res.success:
             state: FitState = "done"
-            message = f"fitted {name}: {res.message}"
+            message = " ".join([f"fitted {name}: {res.message}", *(m.text for m in moved)])
         else:
             state = "stopped"
             message = f"{name} not fitted: {res.message}"
@@ -1330,7 +1296,7 @@ _MAX_PINS = 5
 def _solve_pins(
     model: Model,
     values: Mapping[str, float],
-    settings: Mapping[str, Mapping[str, Any]],
+    settings: Parameters,
     px: np.ndarray,
     py: np.ndarray,
     y_log: bool,
@@ -1341,12 +1307,14 @@ def _solve_pins(
     Bounded least squares in the vertical direction (in log10 y on a log y axis), residuals
     scaled by the data's y span so the solver's tolerances mean the same for any units.
     """
-    free = [n for n in model.param_names if not settings[n]["fixed"]]
+    free = [n for n in model.param_names if not settings[n].fixed]
     out = {n: float(values[n]) for n in model.param_names}
     if not free:
         return out
-    lo = np.array([float(settings[n]["lower"]) for n in free])
-    hi = np.array([float(settings[n]["upper"]) for n in free])
+    lo = np.array([settings[n].lower for n in free])
+    hi = np.array([settings[n].upper for n in free])
+    # The drag solver's own iterate projected into its box (least_squares needs a start
+    # inside): a solver step, not a start the user set, so not the record's rule.
     u0 = np.clip(np.array([out[n] for n in free]), lo, hi)
     span = float(np.ptp(y_data[np.isfinite(y_data)])) if y_data.size else 1.0
     scale = span if span > 0 else 1.0
