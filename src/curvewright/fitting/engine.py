@@ -91,8 +91,13 @@ class _Watch:
         self.evaluations = 0
         self.best_ssr = math.inf
         self.best_theta: FloatArray | None = None
-        self.nonfinite = 0  # evaluations that gave non-finite residuals
         self._last_report = 0.0
+        # What the residuals and their Jacobian are multiplied by: 1/rscale (see _Problem),
+        # with minus 1/sigma per row for the Jacobian of the weighted residual y - f.
+        self._rscale = 1.0 / prob.rscale
+        self._jscale: FloatArray | float = (
+            -self._rscale if prob.w is None else (-self._rscale * prob.w)[:, None]
+        )
 
     def _tick(self) -> None:
         if self.cancel is not None and self.cancel():
@@ -113,7 +118,6 @@ class _Watch:
         if not math.isfinite(ssr):
             bad = ~np.isfinite(r)
             if bad.any():
-                self.nonfinite += 1
                 return np.where(bad, _PENALTY, r)
         elif ssr < self.best_ssr:
             self.best_ssr, self.best_theta = ssr, np.array(theta, dtype=float)
@@ -122,16 +126,14 @@ class _Watch:
             if now - self._last_report >= 0.1:
                 self._last_report = now
                 self.progress(self.evaluations, self.best_ssr)
-        return r / prob.rscale
+        r *= self._rscale
+        return r
 
     def jacobian(self, theta: FloatArray) -> FloatArray:
         """The Jacobian of :meth:`residual` (the analytic one of a formula model)."""
         self._tick()
-        prob = self.prob
-        J = _model_jacobian(prob, theta)
-        if prob.w is not None:
-            J *= prob.w[:, None]
-        J *= -1.0 / prob.rscale
+        J = _model_jacobian(self.prob, theta)
+        J *= self._jscale
         return J
 
     def best_inside(self, fallback: FloatArray) -> FloatArray:
@@ -292,29 +294,33 @@ def _finish_run(
     )
 
 
-def _lm_run(
+class _LeftBoundsError(Exception):
+    """Raised when an unbounded run asks for a point outside the bounds (it is not evaluated)."""
+
+
+def _lmder(
     prob: _Problem,
     watch: _Watch,
     theta0: FloatArray,
-    strategy: str,
     budget: int,
-    *,
     tol: float,
     gtol: float,
-    transform: bool,
-) -> _Run:
-    """MINPACK's Levenberg-Marquardt with the model's analytic Jacobian (lmder), no lmfit.
+    bounds: str,
+) -> tuple[FloatArray, str]:
+    """One call of MINPACK's Levenberg-Marquardt: the solution and its outcome code.
 
-    With ``transform`` the bounds are kept by :class:`_Transform`; without it the run is
-    unbounded (the caller checks where it ended).
+    MINPACK knows no bounds. ``bounds="transform"`` keeps them by :class:`_Transform`;
+    ``bounds="guard"`` runs in the parameters themselves and raises :class:`_LeftBoundsError`
+    before evaluating a point outside them (most fits never come near a bound, and the change
+    of variables costs iterations). Raises :class:`_AbortError` on cancel or a limit.
     """
-    tr = _Transform(prob.lower, prob.upper) if transform else None
+    t = _Transform(prob.lower, prob.upper)
+    plan = t.plan
     fun: Callable[[FloatArray], FloatArray] = watch.residual
     jac: Callable[[FloatArray], FloatArray] = watch.jacobian
     outside: Callable[[FloatArray], FloatArray] = np.asarray
     u0 = np.array(theta0, dtype=float)
-    if tr is not None and tr.plan:
-        t = tr
+    if plan and bounds == "transform":
 
         def fun(u: FloatArray) -> FloatArray:
             return watch.residual(t.outside(u))
@@ -325,22 +331,63 @@ def _lm_run(
             return J
 
         u0, outside = t.inside(theta0), t.outside
+    elif plan:
+
+        def check(theta: FloatArray) -> None:
+            for i, lo, hi in plan:
+                if theta[i] < lo or theta[i] > hi:
+                    raise _LeftBoundsError
+
+        def fun(u: FloatArray) -> FloatArray:
+            check(u)
+            return watch.residual(u)
+
+        def jac(u: FloatArray) -> FloatArray:
+            check(u)
+            return watch.jacobian(u)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        u, ier = leastsq(
+            fun,
+            u0,
+            # a Python callable is differenced by MINPACK itself (lmdif)
+            Dfun=jac if prob.model.has_jacobian else None,
+            ftol=tol,
+            xtol=tol,
+            gtol=gtol,
+            maxfev=budget,
+        )
+    return outside(np.asarray(u, dtype=float)), _code_of(_MinpackInfo(int(ier)), _LM)
+
+
+def _lm_run(
+    prob: _Problem,
+    watch: _Watch,
+    theta0: FloatArray,
+    strategy: str,
+    budget: int,
+    *,
+    tol: float,
+    gtol: float,
+    on_bound: str,
+) -> _Run | None:
+    """MINPACK's Levenberg-Marquardt with the model's analytic Jacobian (lmder), no lmfit.
+
+    The run goes in the parameters themselves; if it heads outside the bounds, ``on_bound``
+    says what follows: ``"transform"`` runs again from ``theta0`` with lmfit's change of
+    variables (evaluations of both counted in this run), ``"give_up"`` returns None (the
+    caller goes on with a bounded method).
+    """
     evals0 = watch.evaluations
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            u, ier = leastsq(
-                fun,
-                u0,
-                # a Python callable is differenced by MINPACK itself (lmdif)
-                Dfun=jac if prob.model.has_jacobian else None,
-                ftol=tol,
-                xtol=tol,
-                gtol=gtol,
-                maxfev=budget,
-            )
-        theta = outside(np.asarray(u, dtype=float))
-        code = _code_of(_MinpackInfo(int(ier)), _LM)
+        try:
+            theta, code = _lmder(prob, watch, theta0, budget, tol, gtol, "guard")
+        except _LeftBoundsError:
+            if on_bound != "transform":
+                return None
+            start = watch.best_inside(theta0)
+            theta, code = _lmder(prob, watch, start, budget, tol, gtol, "transform")
     except _AbortError as stop:
         theta, code = watch.best_inside(theta0), stop.code
     return _finish_run(prob, watch, theta, code, evals0, _LM, strategy)
@@ -397,11 +444,13 @@ def _code_of(raw: Any, method: str) -> str:
 def _first_run(prob: _Problem, watch: _Watch, theta0: FloatArray, method: str, budget: int) -> _Run:
     """The first run: the fast analytic one for a formula model, else lmfit's."""
     if prob.model.has_jacobian:
-        if method == _LM:
-            return _lm_run(
-                prob, watch, theta0, "first run", budget, tol=_TOL, gtol=0.0, transform=True
+        run = (
+            _lm_run(
+                prob, watch, theta0, "first run", budget, tol=_TOL, gtol=0.0, on_bound="transform"
             )
-        run = _trf_run(prob, watch, theta0, "first run", budget, tol=_TOL, x_scale=None)
+            if method == _LM
+            else _trf_run(prob, watch, theta0, "first run", budget, tol=_TOL, x_scale=None)
+        )
         if run is not None:
             return run
     return _solve(prob, watch, theta0, method, "first run", budget)
@@ -473,26 +522,16 @@ def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
     significant digits, and the first run's tolerances stop short of machine precision; for a
     formula model this run uses the analytic Jacobian, which takes certified NIST values to ten
     digits or more. With the squared loss it is MINPACK's Levenberg-Marquardt (lmder), which
-    from a minimum ends within an iteration or two; with bounds it is kept only if it ended
-    inside them at a converged point reached through finite values (an interior minimum). Otherwise
-    (a minimum on a bound, a robust loss) it is the trust-region reflective method. A Python
-    callable is differenced by scipy.
+    from a minimum ends within an iteration or two; if it heads outside the bounds (a minimum
+    on a bound), and for a robust loss, it is the trust-region reflective method. A Python
+    callable is differenced by MINPACK or scipy.
     """
     bounded = bool(np.any(np.isfinite(prob.lower)) or np.any(np.isfinite(prob.upper)))
     theta0 = np.clip(best.theta, prob.lower, prob.upper)
     evals0 = watch.evaluations
     if prob.loss == "squared" and (prob.model.has_jacobian or not bounded):
-        bad0 = watch.nonfinite
-        lm = _lm_run(prob, watch, theta0, "polish", budget, tol=_EPS, gtol=_EPS, transform=False)
-        if (
-            not bounded
-            or lm.code in _STOP
-            or (
-                outcome(lm.code).success
-                and watch.nonfinite == bad0
-                and bool(np.all((lm.theta >= prob.lower) & (lm.theta <= prob.upper)))
-            )
-        ):
+        lm = _lm_run(prob, watch, theta0, "polish", budget, tol=_EPS, gtol=_EPS, on_bound="give_up")
+        if lm is not None:
             return lm
     trf = _trf_run(prob, watch, theta0, "polish", budget, tol=_EPS, x_scale="jac")
     if trf is None:

@@ -437,17 +437,25 @@ def _model_jacobian(prob: _Problem, theta: FloatArray) -> FloatArray:
     def curve(th: FloatArray) -> FloatArray:
         return _curve(prob, th)
 
-    if not prob.model.has_jacobian:
+    grad = prob.model._value_and_gradient  # compiled once per Model; None for a callable
+    if grad is None:
         return finite_difference_jacobian(curve, theta, lower=prob.lower, upper=prob.upper)
-    with np.errstate(all="ignore"):
-        args = cast("Sequence[float]", _args(prob, theta))  # an array serves as the sequence
-        _, full = prob.model.value_and_jacobian(prob.x, args)
-        J = full @ _param_jacobian(prob, theta) if prob.links else full[:, prob._free_index]
-    bad = ~np.isfinite(J)
-    if bad.any():
+    args = _args(prob, theta)
+    if prob.links:
+        with np.errstate(all="ignore"):
+            _, full = prob.model.value_and_jacobian(prob.x, cast("Sequence[float]", args))
+            J = full @ _param_jacobian(prob, theta)
+    else:
+        # Only the free parameters' columns are copied out (a column of a constant
+        # derivative, e.g. d/d baseline = 1, broadcasts).
+        out = grad(prob.x, *args)
+        J = np.empty((n, p))
+        for j, k in enumerate(prob._free_index.tolist()):
+            J[:, j] = out[k + 1]
+    if not np.isfinite(J).all():
         # e.g. d/dlogEC50 of 10**(log10(x)...) at a zero-dose control: inf * 0 analytically,
         # but the curve is flat there; differences give the limit.
-        rows = bad.any(axis=1)
+        rows = ~np.isfinite(J).all(axis=1)
         fd = finite_difference_jacobian(curve, theta, lower=prob.lower, upper=prob.upper)
         J[rows] = np.where(np.isfinite(fd[rows]), fd[rows], 0.0)
     return J
