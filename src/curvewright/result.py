@@ -433,8 +433,9 @@ class FitResult:
 
         The best lmfit run of the fallback ladder when there was one; otherwise (the fast
         analytic path runs no lmfit) made on first access by a short lmfit run started at the
-        solution. None for linear fits, for fits that did not converge or were cut short (time
-        limit, evaluation limit, cancel), and after :meth:`from_dict`. Treat it as read-only:
+        solution. None for linear fits, for runs cut short (time limit, evaluation limit,
+        cancel), for a fast-path fit that did not converge, and after :meth:`from_dict`. Treat
+        it as read-only:
         curvewright computed its own covariance and statistics from its own Jacobian, so
         lmfit's may differ in the last digits.
         """
