@@ -435,9 +435,8 @@ class FitResult:
         analytic path runs no lmfit) made on first access by a short lmfit run started at the
         solution. None for linear fits, for runs cut short (time limit, evaluation limit,
         cancel), for a fast-path fit that did not converge, and after :meth:`from_dict`. Treat
-        it as read-only:
-        curvewright computed its own covariance and statistics from its own Jacobian, so
-        lmfit's may differ in the last digits.
+        it as read-only: curvewright computed its own covariance and statistics from its own
+        Jacobian, so lmfit's may differ in the last digits.
         """
         if callable(self._lmfit):  # made when first asked for, then kept
             object.__setattr__(self, "_lmfit", self._lmfit())

@@ -130,7 +130,11 @@ class _Watch:
         return r
 
     def jacobian(self, theta: FloatArray) -> FloatArray:
-        """The Jacobian of :meth:`residual` (the analytic one of a formula model)."""
+        """The Jacobian of :meth:`residual`: a formula model's analytic one, one evaluation.
+
+        Python callables are differenced by the solvers themselves, through :meth:`residual`,
+        so that every evaluation is counted and checked.
+        """
         self._tick()
         J = _model_jacobian(self.prob, theta)
         J *= self._jscale
