@@ -1,11 +1,14 @@
 """Speed of curvewright's fit against scipy's curve_fit and a bare lmfit Minimizer, in one run.
 
-Run with ``make bench``. Prints a table of median times per fit and the ratio to scipy; the README's
-performance section records these figures. Nothing here is a test: timings are never asserted.
+Run with ``make bench`` (or ``python benchmarks/run.py [--repeat N] [--only TEXT]``). Prints a table
+of median times per fit and the ratios to scipy and lmfit, all measured in the same run; the
+README's performance section records these figures. Nothing here is a test: timings are never
+asserted.
 """
 
 from __future__ import annotations
 
+import argparse
 import statistics
 import sys
 import time
@@ -22,23 +25,31 @@ from curvewright.catalog import catalog
 from curvewright.fitting import fit
 
 
-def _median_time(fn: Callable[[], object], repeat: int) -> float:
-    fn()  # warm-up (compilation of the formula, imports)
-    times = []
+def _median_times(fns: list[Callable[[], object]], repeat: int) -> list[float]:
+    """Median wall time of each function; the calls are interleaved so load hits all alike."""
+    for fn in fns:
+        for _ in range(3):
+            fn()  # warm-up (compilation of the formula, imports, caches)
+    times: list[list[float]] = [[] for _ in fns]
     for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
+        for fn, ts in zip(fns, times, strict=True):
+            t0 = time.perf_counter()
+            fn()
+            ts.append(time.perf_counter() - t0)
+    return [statistics.median(ts) for ts in times]
 
 
 def _problems() -> list[tuple[str, str, np.ndarray, np.ndarray, dict[str, float]]]:
     rng = np.random.default_rng(20261201)
     out = []
+    truth = {"zero_dose": 100.0, "full_effect": 5.0, "log_ic50": -6.5, "n_h": 1.2}
     # Invented demo-style data (speed only; accuracy is checked in tests/ against references).
+    # A typical plate layout first: 8 concentrations in triplicate.
+    x24 = np.repeat(np.logspace(-9, -4, 8), 3)
+    y24 = catalog()["inhibition_4pl"].eval(x24, truth) + rng.normal(0, 2.0, x24.size)
+    out.append(("4PL inhibition, n=24", "inhibition_4pl", x24, y24, truth))
     for n in (50, 5000):
         x = np.logspace(-9, -4, n)
-        truth = {"zero_dose": 100.0, "full_effect": 5.0, "log_ic50": -6.5, "n_h": 1.2}
         y = catalog()["inhibition_4pl"].eval(x, truth) + rng.normal(0, 2.0, n)
         out.append((f"4PL inhibition, n={n}", "inhibition_4pl", x, y, truth))
         xd = np.linspace(0, 30, n)
@@ -77,19 +88,21 @@ def _time_problem(
     def run_ours_guided() -> object:
         return fit(model, x, y)
 
-    return (
-        _median_time(run_scipy, repeat),
-        _median_time(run_lmfit, repeat),
-        _median_time(run_ours_start, repeat),
-        _median_time(run_ours_guided, repeat),
+    t_s, t_l, t_o, t_g = _median_times(
+        [run_scipy, run_lmfit, run_ours_start, run_ours_guided], repeat
     )
+    return t_s, t_l, t_o, t_g
 
 
-def main() -> None:
-    repeat = 15
+def main(argv: list[str] | None = None) -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=101, help="timed calls per figure (median)")
+    ap.add_argument("--only", default="", help="run only problems whose label contains this")
+    args = ap.parse_args(argv)
     rows = [
-        (label, *_time_problem(name, x, y, truth, repeat))
+        (label, *_time_problem(name, x, y, truth, args.repeat))
         for label, name, x, y, truth in _problems()
+        if args.only in label
     ]
     print(
         f"{'problem':28s} {'scipy ms':>9s} {'lmfit ms':>9s} {'ours ms':>9s} {'guided ms':>10s}"
@@ -101,8 +114,9 @@ def main() -> None:
             f" {t_o / t_s:10.2f} {t_o / t_l:10.2f}"
         )
     print(
-        "\n'ours' = curvewright.fit from the same start as scipy/lmfit (includes result building:"
-        " covariance, diagnostics, derived quantities); 'guided' adds the data-driven start."
+        f"\nMedian of {args.repeat} interleaved calls each. 'ours' = curvewright.fit from the"
+        " same start as scipy/lmfit (includes result building: covariance, diagnostics, derived"
+        " quantities); 'guided' adds the data-driven start."
     )
 
 

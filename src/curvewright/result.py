@@ -445,13 +445,17 @@ class FitResult:
 
     @property
     def lmfit_result(self) -> Any:
-        """The ``lmfit.MinimizerResult`` of the kept solver run, for power users.
+        """An ``lmfit.MinimizerResult`` at the solution, for power users.
 
-        None for linear fits, for runs cut short (time limit, evaluation limit, cancel), and
-        after :meth:`from_dict`. Treat it as read-only: curvewright computed its own
-        covariance and statistics from its own Jacobian, so lmfit's may differ in the last
-        digits.
+        The best lmfit run of the fallback ladder when there was one; otherwise (the fast
+        analytic path runs no lmfit) made on first access by a short lmfit run started at the
+        solution. None for linear fits, for runs cut short (time limit, evaluation limit,
+        cancel), for a fast-path fit that did not converge, and after :meth:`from_dict`. Treat
+        it as read-only: curvewright computed its own covariance and statistics from its own
+        Jacobian, so lmfit's may differ in the last digits.
         """
+        if callable(self._lmfit):  # made when first asked for, then kept
+            object.__setattr__(self, "_lmfit", self._lmfit())
         return self._lmfit
 
     @property

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from typing import Any
 
 import numpy as np
 
@@ -20,8 +21,8 @@ from ..numerics import aicc as _aicc
 from ..numerics import bic as _bic
 from ..result import Attempt, Diagnostic, FitResult
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
-from .engine import _Run
-from .problem import FloatArray, _model_jacobian, _param_jacobian, _Problem
+from .engine import _lmfit_at, _Run
+from .problem import FloatArray, _curve, _model_jacobian, _param_jacobian, _Problem
 
 
 # ============================================================================ statistics
@@ -179,7 +180,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         kept = min(runs, key=lambda r: r.objective)
     theta = kept.theta if kept is not None else np.zeros(0)
     values = prob.values(theta)
-    fitted = prob.curve(values)
+    fitted = _curve(prob, theta).copy()
     resid = prob.y - fitted
     rw = resid if prob.w is None else resid * prob.w
     ssr = float(rw @ rw)
@@ -195,10 +196,10 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         J = np.full((n, p), np.nan)
         cov, cond, singular = np.full((p, p), np.nan), math.nan, False
     else:
-        J = _model_jacobian(prob, theta, values)
+        J = _model_jacobian(prob, theta)
         jw = J if prob.w is None else J * prob.w[:, None]
         cov, cond, singular = _covariance(jw, scale)
-    pj = _param_jacobian(prob, values)
+    pj = _param_jacobian(prob, theta)
     var_all = delta_method_variance(pj, cov) if p else np.zeros(len(values))
     stderr = {}
     for i, nme in enumerate(prob.model.param_names):
@@ -222,10 +223,13 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         )
         for r in runs
     ]
-    # The polish runs outside lmfit; power users get the best lmfit run (its values agree with
-    # ours to the solver's tolerance, its statistics are lmfit's own).
+    # The fast runs and the polish run outside lmfit; power users get the best lmfit run of the
+    # ladder (its values agree with ours to the solver's tolerance, its statistics are lmfit's
+    # own) or, when there was none, one made from the solution when first asked for.
     lm_runs = [r for r in runs if r.raw is not None]
-    lm = min(lm_runs, key=lambda r: r.objective).raw if lm_runs else None
+    lm: Any = min(lm_runs, key=lambda r: r.objective).raw if lm_runs else None
+    if lm is None and kept is not None and kept.method != "linear" and success:
+        lm = _lmfit_at(prob, theta)
     return FitResult(
         model=prob.model,
         datasets=prob.datasets,

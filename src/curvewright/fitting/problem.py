@@ -8,10 +8,11 @@ also knows its own derivatives (the model's Jacobian through links), which both 
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any, Literal
+from typing import Any, Literal, cast
 
 import numpy as np
 from numpy.typing import NDArray
@@ -100,8 +101,14 @@ class _Problem:
     parameters: Parameters = field(default_factory=lambda: Parameters(()))
     moved: tuple[Moved, ...] = ()
     _link_fns: list[tuple[str, Callable[..., Any]]] = field(default_factory=list)
-    # d f / d parameter for every model parameter, compiled once (formula models only).
-    deriv_fns: list[Callable[..., Any]] | None = None
+    # Index plans for building the model's argument vector from the free values (filled in
+    # __post_init__): the solvers' inner loop then does no dict work per evaluation.
+    _args0: FloatArray = field(init=False, repr=False)
+    _free_index: NDArray[np.intp] = field(init=False, repr=False)
+    _order_index: NDArray[np.intp] = field(init=False, repr=False)
+    _link_plan: list[tuple[int, Callable[..., Any]]] = field(init=False, repr=False)
+    # (row of the linked parameter, column of a free one it uses, compiled partial derivative)
+    _link_partials: list[tuple[int, int, Callable[..., Any]]] = field(init=False, repr=False)
 
     # Residuals are handed to the solvers divided by this, so their tolerances (scipy checks
     # the gradient in absolute terms) mean the same whatever the unit of y: y in mol/L or in
@@ -112,12 +119,26 @@ class _Problem:
         if self.w is None:
             rms = float(np.sqrt(np.mean(self.y**2))) if self.y.size else 0.0
             self.rscale = rms if math.isfinite(rms) and rms > 0 else 1.0
-        order = [*self.free, *self.fixed]
+        order = (*self.free, *self.fixed)
         self._link_fns = [(n, e.compile(order)) for n, e in self.links.items()]
-        expr = self.model.expr
-        if expr is not None:
-            args = ["x", *self.model.param_names]
-            self.deriv_fns = [expr.derivative(m).compile(args) for m in self.model.param_names]
+        # The model's own derivatives are compiled once per Model (Model.value_and_jacobian);
+        # only the links, which belong to this request, are handled here.
+        names = self.model.param_names
+        pos = {n: i for i, n in enumerate(names)}
+        args0 = np.zeros(len(names))
+        for n, v in self.fixed.items():
+            args0[pos[n]] = v
+        self._args0 = args0
+        self._free_index = np.array([pos[n] for n in self.free], dtype=np.intp)
+        self._order_index = np.array([pos[n] for n in order], dtype=np.intp)
+        self._link_plan = [(pos[n], fn) for n, fn in self._link_fns]
+        col = {n: j for j, n in enumerate(self.free)}
+        self._link_partials = [
+            (pos[n], col[m], _link_partial(e, m, order))
+            for n, e in self.links.items()
+            for m in e.names
+            if m in col
+        ]
 
     def values(self, theta: Sequence[float] | FloatArray) -> dict[str, float]:
         v = dict(zip(self.free, (float(t) for t in theta), strict=True))
@@ -319,38 +340,70 @@ def _build_problem(
     )
 
 
-def _param_jacobian(prob: _Problem, values: Mapping[str, float]) -> FloatArray:
-    names = prob.model.param_names
-    pj = np.zeros((len(names), len(prob.free)))
-    col = {n: j for j, n in enumerate(prob.free)}
-    for i, n in enumerate(names):
-        if n in col:
-            pj[i, col[n]] = 1.0
-        elif n in prob.links:
-            e = prob.links[n]
-            with np.errstate(all="ignore"):
-                for m in e.names:
-                    if m in col:
-                        pj[i, col[m]] = float(np.asarray(e.derivative(m).evaluate(values)))
+@functools.lru_cache(maxsize=256)
+def _link_partial(e: Expr, name: str, order: tuple[str, ...]) -> Callable[..., Any]:
+    # A link's partial derivatives, compiled once per link text (not per fit or per step).
+    return e.derivative(name).compile(order)
+
+
+def _args(prob: _Problem, theta: Sequence[float] | FloatArray) -> FloatArray:
+    """Every model parameter's value, in model order, for the free values ``theta``."""
+    a: FloatArray = prob._args0.copy()
+    a[prob._free_index] = theta
+    if prob._link_plan:
+        given = a[prob._order_index]
+        with np.errstate(all="ignore"):
+            for i, fn in prob._link_plan:
+                a[i] = float(fn(*given))
+    return a
+
+
+def _curve(prob: _Problem, theta: Sequence[float] | FloatArray) -> FloatArray:
+    """The model at the data for the free values ``theta`` (the solvers' inner loop)."""
+    x = prob.x
+    with np.errstate(all="ignore"):
+        f = prob.model.func(x, *_args(prob, theta))
+    if np.shape(f) != x.shape:  # a formula without x gives one number
+        f = np.broadcast_to(np.asarray(f, dtype=float), x.shape)
+    out: FloatArray = np.asarray(f, dtype=float)
+    return out
+
+
+def _param_jacobian(prob: _Problem, theta: Sequence[float] | FloatArray) -> FloatArray:
+    """``d value / d free`` for every model parameter: identity, zero (fixed) or a link's."""
+    pj = np.zeros((len(prob.model.params), len(prob.free)))
+    pj[prob._free_index, np.arange(len(prob.free))] = 1.0
+    if prob._link_partials:
+        given = _args(prob, theta)[prob._order_index]
+        with np.errstate(all="ignore"):
+            for i, j, fn in prob._link_partials:
+                pj[i, j] = float(fn(*given))
     return pj
 
 
-def _model_jacobian(prob: _Problem, theta: FloatArray, values: Mapping[str, float]) -> FloatArray:
+def _model_jacobian(prob: _Problem, theta: FloatArray) -> FloatArray:
     """d f / d free at the data: analytic for formulas (through links), else central differences."""
-    model = prob.model
     n, p = prob.x.size, len(prob.free)
     if p == 0:
         return np.zeros((n, 0))
 
     def curve(th: FloatArray) -> FloatArray:
-        return prob.curve(prob.values(th))
+        return _curve(prob, th)
 
-    if prob.deriv_fns is None:
+    grad = prob.model._value_and_gradient  # compiled once per Model; None for a callable
+    if grad is None:
         return finite_difference_jacobian(curve, theta, lower=prob.lower, upper=prob.upper)
-    args = [values[m] for m in model.param_names]
+    args = _args(prob, theta)
     with np.errstate(all="ignore"):
-        full = np.column_stack(
-            [np.broadcast_to(np.asarray(fn(prob.x, *args), float), (n,)) for fn in prob.deriv_fns]
-        )
-    pj = _param_jacobian(prob, values)
+        if prob.links:
+            _, full = prob.model.value_and_jacobian(prob.x, cast("Sequence[float]", args))
+            pj = _param_jacobian(prob, theta)
+        else:
+            # Without links the chain rule only selects the free parameters' columns: copy
+            # those out (a constant derivative, e.g. d/d baseline = 1, broadcasts).
+            out = grad(prob.x, *args)
+            full = np.empty((n, p))
+            for j, k in enumerate(prob._free_index.tolist()):
+                full[:, j] = out[k + 1]
+            pj = np.eye(p)
     return free_jacobian(full, pj, curve, theta, lower=prob.lower, upper=prob.upper)
