@@ -25,17 +25,18 @@ from ..models import Model, as_number
 from ..result import FitResult
 from .assemble import _finish
 from .engine import _ladder, _linear_run, _polish, _Watch
+from .global_fit import fit_global
 from .problem import (
-    _METHODS,
     Loss,
     Method,
     Weighting,
     _build_problem,
+    _check_limits,
     point_weights,
     resolve_model,
 )
 
-__all__ = ["fit", "point_weights", "resolve_model"]
+__all__ = ["fit", "fit_global", "point_weights", "resolve_model"]
 
 
 # ============================================================================ entry point
@@ -130,31 +131,7 @@ def fit(
     FitError
         The residuals are not finite at the starting values, so the fit cannot start.
     """
-    for name, val, allowed in (("method", method, _METHODS),):
-        if val not in allowed:
-            raise ParameterError(f"{name} must be one of {allowed}, got {val!r}.")
-    if max_evaluations is not None and (
-        isinstance(max_evaluations, bool)
-        or not isinstance(max_evaluations, (int, np.integer))
-        or max_evaluations < 1
-    ):
-        raise ParameterError(
-            f"max_evaluations must be a positive whole number, got {max_evaluations!r}."
-        )
-    if timeout is not None:
-        timeout = as_number(timeout, "timeout")
-        if not timeout > 0:
-            raise ParameterError(f"timeout must be a positive number of seconds, got {timeout}.")
-    cancel_fn: Callable[[], bool] | None
-    if cancel is None:
-        cancel_fn = None
-    elif isinstance(cancel, threading.Event):
-        cancel_fn = cancel.is_set
-    elif callable(cancel):
-        cancel_fn = cancel
-    else:
-        raise ParameterError("cancel must be a threading.Event or a callable returning a bool.")
-
+    timeout, cancel_fn = _check_limits(method, max_evaluations, timeout, cancel)
     m = resolve_model(model)
     if dataset is not None:
         if x is not None or y is not None or data is not None or sigma is not None:

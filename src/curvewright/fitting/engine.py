@@ -232,12 +232,7 @@ def _ladder(
 
         try:
             seed = generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed)
-            theta = np.array(
-                [
-                    min(max(seed[n], lo), hi)
-                    for n, lo, hi in zip(prob.free, prob.lower, prob.upper, strict=True)
-                ]
-            )
+            theta = prob.theta_from(seed)
             runs.append(_solve(prob, watch, theta, first, "multi-start", budget))
         except (DataError, ParameterError, ArithmeticError, ValueError):
             pass

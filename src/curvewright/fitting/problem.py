@@ -9,6 +9,7 @@ also knows its own derivatives (the model's Jacobian through links), which both 
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
@@ -130,6 +131,54 @@ class _Problem:
     def weighted(self, values: Mapping[str, float]) -> FloatArray:
         r = self.y - self.curve(values)
         return r if self.w is None else r * self.w
+
+    # Hooks for problem variants (a global fit of several groups, fitting/global_fit.py) whose
+    # free parameters are not the model's own: the engine and the assembly call these and stay
+    # unchanged. The defaults are the single-fit behaviour.
+    def jacobian_override(
+        self, theta: FloatArray, values: Mapping[str, float]
+    ) -> FloatArray | None:
+        """d f / d free at the data for a variant with its own Jacobian; None: the default."""
+        return None
+
+    def theta_from(self, seed: Mapping[str, float]) -> FloatArray:
+        """The free-parameter vector from values by model parameter name, clipped to bounds."""
+        return np.array(
+            [
+                min(max(seed[n], lo), hi)
+                for n, lo, hi in zip(self.free, self.lower, self.upper, strict=True)
+            ]
+        )
+
+
+def _check_limits(
+    method: str,
+    max_evaluations: int | None,
+    timeout: float | None,
+    cancel: threading.Event | Callable[[], bool] | None,
+) -> tuple[float | None, Callable[[], bool] | None]:
+    """Validate the solver options of a fit; the timeout as a float and cancel as a callable."""
+    if method not in _METHODS:
+        raise ParameterError(f"method must be one of {_METHODS}, got {method!r}.")
+    if max_evaluations is not None and (
+        isinstance(max_evaluations, bool)
+        or not isinstance(max_evaluations, (int, np.integer))
+        or max_evaluations < 1
+    ):
+        raise ParameterError(
+            f"max_evaluations must be a positive whole number, got {max_evaluations!r}."
+        )
+    if timeout is not None:
+        timeout = as_number(timeout, "timeout")
+        if not timeout > 0:
+            raise ParameterError(f"timeout must be a positive number of seconds, got {timeout}.")
+    if cancel is None:
+        return timeout, None
+    if isinstance(cancel, threading.Event):
+        return timeout, cancel.is_set
+    if callable(cancel):
+        return timeout, cancel
+    raise ParameterError("cancel must be a threading.Event or a callable returning a bool.")
 
 
 def _as_names(fixed: Mapping[str, float] | Iterable[str] | None) -> dict[str, float | None]:
@@ -384,6 +433,9 @@ def _param_jacobian(prob: _Problem, values: Mapping[str, float]) -> FloatArray:
 
 def _model_jacobian(prob: _Problem, theta: FloatArray, values: Mapping[str, float]) -> FloatArray:
     """d f / d free at the data: analytic for formulas (through links), else central differences."""
+    own = prob.jacobian_override(theta, values)
+    if own is not None:
+        return own
     model = prob.model
     n, p = prob.x.size, len(prob.free)
     if p == 0:
