@@ -26,7 +26,8 @@ from .errors import (
     ParameterError,
     RankDeficiencyWarning,
 )
-from .fitting import fit
+from .fitting import fit, fit_global
+from .global_result import GlobalResult, GroupFit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
 from .result import CAUTION, FitResult
@@ -45,6 +46,9 @@ from .stats import (
 from .stats.diagnostics import residual_diagnostics
 
 __all__ = [
+    "GlobalResult",
+    "GroupFit",
+    "fit_global",
     "CAUTION",
     "Comparison",
     "ComparisonError",

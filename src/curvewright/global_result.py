@@ -390,6 +390,11 @@ class GlobalResult:
         rows = []
         for lab, g in zip(self.labels, self.groups, strict=True):
             ci = g.ci(level)
+            lookup = {
+                (str(n), str(c)): float(v)
+                for n, row in zip(ci.index, ci.to_numpy(dtype=float), strict=True)
+                for c, v in zip(ci.columns, row, strict=True)
+            }
             for n in self.model.param_names:
                 scope = (
                     "shared"
@@ -408,14 +413,15 @@ class GlobalResult:
                         "group": lab,
                         "parameter": n,
                         "scope": scope,
-                        "value": float(ci.loc[n, "value"]),
-                        "stderr": float(ci.loc[n, "stderr"]),
-                        "ci_low": float(ci.loc[n, "lower"]),
-                        "ci_high": float(ci.loc[n, "upper"]),
+                        "value": lookup[(n, "value")],
+                        "stderr": lookup[(n, "stderr")],
+                        "ci_low": lookup[(n, "lower")],
+                        "ci_high": lookup[(n, "upper")],
                         "estimate": est,
                     }
                 )
-        return pd.DataFrame(rows)
+        out: pd.DataFrame = pd.DataFrame(rows)
+        return out
 
     # ------------------------------------------------------------------ questions
     def test_shared(self, name: str, alpha: float = 0.05) -> SharedTest:
@@ -461,14 +467,13 @@ class GlobalResult:
         )
         lines.append("")
         lines.append("estimates (standard errors in brackets)")
-        vals, ses = self.values, self.stderr
         cols = [n for n in m.param_names if n not in self.fixed]
         w = max([len(lab) for lab in self.labels] + [5])
         lines.append(f"{'group':<{w}}  " + "  ".join(f"{c:>22}" for c in cols))
-        for lab in self.labels:
+        for lab, g in zip(self.labels, self.groups, strict=True):
             cells = []
             for c in cols:
-                v, s = float(vals.loc[lab, c]), float(ses.loc[lab, c])
+                v, s = g.values[c], g.stderr[c]
                 cell = _num(v) if math.isnan(s) else f"{_num(v)} ({_num(s)})"
                 cells.append(f"{cell:>22}")
             lines.append(f"{lab:<{w}}  " + "  ".join(cells))
@@ -502,14 +507,13 @@ class GlobalResult:
 
     def _repr_html_(self) -> str:
         e = html.escape
-        vals, ses = self.values, self.stderr
         cols = [n for n in self.model.param_names if n not in self.fixed]
         head = "".join(f"<th>{e(c)}{' (shared)' if c in self.shared else ''}</th>" for c in cols)
         body = []
-        for lab in self.labels:
+        for lab, g in zip(self.labels, self.groups, strict=True):
             cells = []
             for c in cols:
-                v, s = float(vals.loc[lab, c]), float(ses.loc[lab, c])
+                v, s = g.values[c], g.stderr[c]
                 txt = _num(v) if math.isnan(s) else f"{_num(v)} ± {_num(s)}"
                 cells.append(f"<td>{e(txt)}</td>")
             body.append(f"<tr><th>{e(lab)}</th>{''.join(cells)}</tr>")

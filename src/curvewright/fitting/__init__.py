@@ -19,9 +19,9 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from ..data import Dataset, as_datasets, make_dataset
-from ..errors import DataError, FitError, ModelError, ParameterError
+from ..errors import DataError, FitError, ModelError
 from ..messages import outcome
-from ..models import Model, as_number
+from ..models import Model
 from ..result import FitResult
 from .assemble import _finish
 from .engine import _ladder, _linear_run, _polish, _Watch

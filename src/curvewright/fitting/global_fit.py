@@ -12,6 +12,7 @@ covariance comes from :func:`.assemble._covariance`, the per-group findings from
 
 from __future__ import annotations
 
+import itertools
 import math
 import threading
 import time
@@ -557,12 +558,11 @@ def _fit_groups(
         )
     for k, v in common_start.items():
         lo, hi = bnd[k]
-        if k in shared_free or k in own_free:
-            if not lo <= v <= hi:
-                raise ParameterError(
-                    f"start value {v:g} of {k!r} lies outside its bounds [{lo:g}, {hi:g}]; give "
-                    "a start inside them or widen the bounds."
-                )
+        if (k in shared_free or k in own_free) and not lo <= v <= hi:
+            raise ParameterError(
+                f"start value {v:g} of {k!r} lies outside its bounds [{lo:g}, {hi:g}]; give "
+                "a start inside them or widen the bounds."
+            )
     y_all = np.concatenate([d.y_used for d in groups.datasets])
     weighting, w = _weights(weights, groups.datasets, y_all)
 
@@ -594,7 +594,7 @@ def _fit_groups(
             elif given:
                 v = float(np.median(given))
             else:
-                v = _median([s.get(b) for s in solo], m.param(b).value)
+                v = _median([s.get(b) if s else None for s in solo], m.param(b).value)
         else:
             g = next(i for i in range(G) if cols[i][b] == j)
             if b in group_start[g]:
@@ -628,7 +628,7 @@ def _fit_groups(
         links={},
         lower=np.array([bnd[b][0] for b in base], dtype=float),
         upper=np.array([bnd[b][1] for b in base], dtype=float),
-        slices=tuple(slice(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:], strict=True)),
+        slices=tuple(slice(int(a), int(b)) for a, b in itertools.pairwise(edges)),
         held=tuple(held_g),
         cols=tuple(cols),
         group_links=link_exprs,

@@ -39,6 +39,7 @@ from curvewright.errors import ComparisonError, ParameterError
 from curvewright.result import CAUTION as _CAUTION
 
 if TYPE_CHECKING:
+    from curvewright.global_result import GlobalResult
     from curvewright.result import FitResult
 
 __all__ = ["Comparison", "akaike_weights", "compare", "extra_ss_f_test"]
@@ -418,7 +419,7 @@ def _resolve_pairs(
 
 # ------------------------------------------------------------------------------ compare
 def compare(
-    *results: FitResult,
+    *results: FitResult | GlobalResult,
     names: Sequence[str] | None = None,
     nested: bool | Sequence[tuple[int | str, int | str]] | None = None,
     alpha: float = 0.05,
@@ -428,8 +429,11 @@ def compare(
 
     Parameters
     ----------
-    *results : FitResult
-        Two or more least-squares fits to the same points with the same weights.
+    *results : FitResult or GlobalResult
+        Two or more least-squares fits to the same points with the same weights. Global fits
+        (:func:`curvewright.fit_global`) are compared with each other: nested when one shares
+        a strict superset of the other's shared parameters (see
+        :func:`curvewright.stats.groups.compare_global`).
     names : sequence of str, optional
         Labels for the fits (default: the model names, with fixed values).
     nested : None, bool or sequence of (simpler, larger)
@@ -462,6 +466,24 @@ def compare(
     parameters fixed at values inside their ranges; fixing a parameter at a bound (e.g. a
     second phase's amplitude at 0) makes its p value only approximate.
     """
+    from curvewright.global_result import GlobalResult
+
+    if any(isinstance(r, GlobalResult) for r in results):
+        # Global fits (several groups) nest by their shared parameters; see stats/groups.py.
+        from curvewright.stats.groups import compare_global
+
+        if nested is not None and not isinstance(nested, bool):
+            raise ParameterError(
+                "nested must be None or a bool for global fits; nesting is read from the "
+                "shared parameters."
+            )
+        return compare_global(
+            list(results),  # type: ignore[arg-type]  # compare_global checks every one
+            names=names,
+            nested=nested,
+            alpha=alpha,
+            prefer=prefer,
+        )
     if len(results) < 2:
         raise ComparisonError(f"compare needs at least two fits; got {len(results)}.")
     if not (isinstance(alpha, (int, float)) and 0.0 < float(alpha) < 1.0):
