@@ -174,6 +174,11 @@ def test_orange_shared_xmid_scal_matches_scipy_stacked_fit(orange: cw.GlobalResu
     # shared values repeat in every row; the per-group views carry the joint estimates
     assert orange.values["xmid"].nunique() == 1
     assert orange[3].values["Asym"] == orange.estimates["Asym[3]"]
+    assert [orange[3].parameters[n].scope for n in ("Asym", "xmid", "scal")] == [
+        "per_group",
+        "shared",
+        "shared",
+    ]
 
 
 def test_orange_against_all_per_tree_f_test(orange: cw.GlobalResult) -> None:
@@ -451,6 +456,9 @@ def test_competitive_inhibition_with_constant_matches_scipy() -> None:
     )
     agree(r, ref_v, ref_se)
     assert r.constants == ("I",)
+    recs = r["I=5"].parameters  # the parameter records carry each one's scope
+    assert recs["I"].fixed and recs["I"].value == 5.0 and recs["I"].scope == "per_group"
+    assert recs["Ki"].scope == "shared" and not recs["Ki"].fixed
     assert sorted(r.values["I"].tolist()) == [0.0, 2.0, 5.0, 10.0]
     assert r.stderr["I"].isna().all()
 

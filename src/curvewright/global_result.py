@@ -26,7 +26,9 @@ import numpy as np
 import pandas as pd
 
 from .errors import CurvewrightError, ModelError, ParameterError
+from .expr import Expr
 from .models import Model
+from .parameters import Parameter, Parameters
 from .result import (
     CAUTION,
     Attempt,
@@ -118,16 +120,52 @@ class GroupFit(FitResult):
         The group's label.
     shared : tuple of str
         The free parameters this group shares with the others.
+    constants : tuple of str
+        Parameters held at this group's value of a column.
     """
 
     group: str = ""
     shared: tuple[str, ...] = ()
+    constants: tuple[str, ...] = ()
 
     @property
     def group_ssr(self) -> float:
         """The group's own (weighted) sum of squared residuals."""
         r = np.asarray(self.weighted_residuals)
         return float(r @ r)
+
+    @property
+    def parameters(self) -> Parameters:
+        """The group's parameter records after the fit (estimate, bounds, holds, scope).
+
+        ``scope`` is "shared" for the parameters shared with the other groups and for those
+        fixed at one value for all; "per_group" for the group's own estimates, for constants
+        taken from its column (held, with this group's value) and for links that use any of
+        them.
+        """
+        recs = []
+        for p in self.model.params:
+            n = p.name
+            lo, hi = self.bounds.get(n, (p.lower, p.upper))
+            own = n not in self.shared and (n in self.free or n in self.constants)
+            if n in self.linked:
+                uses = Expr.parse(self.linked[n]).names
+                own = any(
+                    m not in self.shared and (m not in self.fixed or m in self.constants)
+                    for m in uses
+                )
+            recs.append(
+                Parameter(
+                    n,
+                    float(self.values[n]),
+                    lo,
+                    hi,
+                    fixed=n in self.fixed,
+                    link=self.linked.get(n),
+                    scope="per_group" if own else "shared",
+                )
+            )
+        return Parameters(recs)
 
     def residual_diagnostics(self, alpha: float = 0.05) -> Diagnostics:
         """Residual diagnostics of this group's points, given the shared parameters.
@@ -189,13 +227,19 @@ class GroupFit(FitResult):
         d = super().to_dict()
         d["group"] = self.group
         d["shared"] = list(self.shared)
+        d["constants"] = list(self.constants)
         return d
 
     @classmethod
     def _group_from_dict(cls, d: Mapping[str, Any], model: Model) -> GroupFit:
         base = cls._from_dict(d, model)
         assert isinstance(base, GroupFit)
-        return replace(base, group=str(d["group"]), shared=tuple(str(s) for s in d["shared"]))
+        return replace(
+            base,
+            group=str(d["group"]),
+            shared=tuple(str(s) for s in d["shared"]),
+            constants=tuple(str(s) for s in d["constants"]),
+        )
 
 
 # ----------------------------------------------------------------------------- result

@@ -892,6 +892,7 @@ def _assemble(
                 evaluations=sum(r.evaluations for r in runs),
                 group=lab,
                 shared=tuple(nm for nm in gfree if nm in shared_free),
+                constants=constants,
             )
         )
     ybar = float(np.sum(wts**2 * prob.y) / np.sum(wts**2))
