@@ -267,6 +267,12 @@ def test_orange_summary_html_frame_and_exact_json(orange: cw.GlobalResult) -> No
     assert isinstance(back[4], cw.GroupFit)
     assert back[4].confidence_band([500.0]).equals(orange[4].confidence_band([500.0]))
     assert orange.covariance.loc["xmid", "scal"] == orange.cov[5, 6]
+    import pickle
+
+    again = pickle.loads(pickle.dumps(orange))
+    assert again.to_json() == orange.to_json()
+    view = pickle.loads(pickle.dumps(orange[2]))
+    assert isinstance(view, cw.GroupFit) and view.group == "2"
     with pytest.raises(ParameterError, match="no group 9"):
         orange[9]
     # a group's residual diagnostics are its own points (tree 4's ages, its residuals)
@@ -687,6 +693,9 @@ def test_bad_input_is_our_error_with_advice() -> None:
     nan.loc[4, "Tree"] = np.nan
     with pytest.raises(DataError, match=r"group column 'Tree' is empty.*rows \[4\]"):
         cw.fit_global(LOGISTIC, data=nan, x="age", y="circumference", by="Tree")
+    neg = ORANGE.assign(age=ORANGE["age"] - 200.0)
+    with pytest.raises(cw.DomainError, match="group '1'"):
+        cw.fit_global(FPL_LOG, data=neg, x="age", y="circumference", by="Tree")
     with pytest.raises(ParameterError, match="both shared and fixed"):
         cw.fit_global(LOGISTIC, by="Tree", shared=["xmid"], fixed={"xmid": 700}, **kw)
     with pytest.raises(DataError, match="DataFrame"):

@@ -230,6 +230,10 @@ class GroupFit(FitResult):
         d["constants"] = list(self.constants)
         return d
 
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        # Through the exact JSON form, as FitResult does, so a GroupFit comes back a GroupFit.
+        return (_group_from_pickle, (self.to_json(), self.model))
+
     @classmethod
     def _group_from_dict(cls, d: Mapping[str, Any], model: Model) -> GroupFit:
         base = cls._from_dict(d, model)
@@ -629,6 +633,11 @@ class GlobalResult:
         """The result as strict JSON text (``**kwargs`` go to :func:`json.dumps`)."""
         return json.dumps(self.to_dict(), allow_nan=False, **kwargs)
 
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        # Pickled through the exact JSON form with the model alongside (a Python function
+        # travels by reference), so a process pool carries what a saved result carries.
+        return (_global_from_pickle, (self.to_json(), self.model))
+
     @classmethod
     def from_dict(
         cls, d: Mapping[str, Any], *, model: Model | Callable[..., Any] | None = None
@@ -700,6 +709,14 @@ class GlobalResult:
     ) -> GlobalResult:
         """Rebuild a result from :meth:`to_json` output (see :meth:`from_dict`)."""
         return cls.from_dict(json.loads(text), model=model)
+
+
+def _group_from_pickle(text: str, model: Model) -> GroupFit:
+    return GroupFit._group_from_dict(json.loads(text), model)
+
+
+def _global_from_pickle(text: str, model: Model) -> GlobalResult:
+    return GlobalResult.from_json(text, model=model)
 
 
 def _options_to_json(opts: Mapping[str, Any]) -> dict[str, Any]:

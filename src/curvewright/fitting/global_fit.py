@@ -206,6 +206,12 @@ def _split(
                 f"the group column {c!r} is empty (NaN) in rows {rows}: every row needs a group. "
                 "Fill those cells or drop the rows before fitting."
             )
+    for role, col in (("x", x), ("y", y)):
+        if not isinstance(col, str):
+            raise DataError(
+                f"{role}= must be a column name of data= in a global fit, got "
+                f"{type(col).__name__}; put the values in the table."
+            )
     n_rows = len(data)
     mask = np.zeros(n_rows, dtype=bool)
     if exclude is not None:
@@ -266,14 +272,20 @@ def _split(
                     f"of a group. Add {c!r} to by= to split the group, or correct the table."
                 )
             cv[c] = float(col[0])
-        ds = make_dataset(
-            x,
-            y,
-            data=sub,
-            sigma=sig_col if sig_col is not None else (None if sig_arr is None else sig_arr[pos]),
-            exclude=mask[pos] if exclude is not None else None,
-            name=label,
-        )
+        try:
+            ds = make_dataset(
+                x,
+                y,
+                data=sub,
+                sigma=sig_col
+                if sig_col is not None
+                else (None if sig_arr is None else sig_arr[pos]),
+                exclude=mask[pos] if exclude is not None else None,
+                name=label,
+            )
+        except DataError as exc:
+            # The same error, saying which group (a DataError subclass stays itself).
+            raise type(exc)(f"group {label!r}: {exc}") from exc
         keys.append(k)
         datasets.append(ds)
         consts.append(cv)
@@ -490,8 +502,11 @@ def _fit_groups(
         loss_scale = as_number(loss_scale, "loss_scale")
         if not loss_scale > 0 or math.isinf(loss_scale):
             raise ParameterError(f"loss_scale must be a positive number, got {loss_scale!r}.")
-    for d in groups.datasets:
-        m.check_domain(d.x_used)
+    for d, lab in zip(groups.datasets, groups.labels, strict=True):
+        try:
+            m.check_domain(d.x_used)
+        except DataError as exc:
+            raise type(exc)(f"group {lab!r}: {exc}") from exc
     common_start, group_start = _per_group_start(start, m, groups)
     held_raw = _as_names(fixed)
     _check_names(m, held_raw, "fixed")
