@@ -832,3 +832,58 @@ def test_interval_of_a_shared_parameter_covers_near_nominal() -> None:
         ci = r[0].ci(0.95)
         hits += bool(ci.loc["k", "lower"] <= 0.4 <= ci.loc["k", "upper"])
     assert abs(hits / reps - 0.95) <= 3 * math.sqrt(0.95 * 0.05 / reps)
+
+
+def test_link_and_zero_dose_controls_match_scipy() -> None:
+    # A link inside each group (scal = xmid/2, xmid shared) is the logistic with xmid/2 written
+    # in: scipy on that stacked residual is the reference (R datasets::Orange).
+    ln = cw.fit_global(
+        LOGISTIC,
+        data=ORANGE,
+        x="age",
+        y="circumference",
+        by="Tree",
+        shared=["xmid"],
+        links={"scal": "xmid/2"},
+    )
+    ref_v, ref_se, _, _, _ = stacked_reference(
+        lambda x, Asym, xmid: _logistic(x, Asym, xmid, xmid / 2),
+        _groups(ORANGE, "Tree", "age", "circumference"),
+        ["xmid"],
+        ["Asym"],
+        {"Asym": 190.0, "xmid": 730.0},
+    )
+    agree(ln, ref_v, ref_se)
+    # Zero-dose controls: the 4PL's derivative in n_h is 0 * log(0) there (NaN analytically,
+    # 0 in the limit); the fit takes the limit by differences. Simulated data, scipy reference.
+    df = _simulated_dose_response()
+    zeros = pd.DataFrame(
+        {
+            "compound": ["cpd-a", "cpd-b", "cpd-c"] * 2,
+            "conc": 0.0,
+            "resp": [99.0, 101.0, 98.5, 100.5, 102.0, 97.0],
+        }
+    )
+    df = pd.concat([df, zeros], ignore_index=True)
+
+    def f(
+        x: np.ndarray, zero_dose: float, full_effect: float, log_ic50: float, n_h: float
+    ) -> np.ndarray:
+        return full_effect + (zero_dose - full_effect) / (1 + (x / 10**log_ic50) ** n_h)
+
+    r = cw.fit_global(
+        "inhibition_4pl",
+        data=df,
+        x="conc",
+        y="resp",
+        by="compound",
+        shared=["zero_dose", "full_effect"],
+    )
+    ref_v, ref_se, _, _, _ = stacked_reference(
+        f,
+        _groups(df, "compound", "conc", "resp"),
+        ["zero_dose", "full_effect"],
+        ["log_ic50", "n_h"],
+        {"zero_dose": 100, "full_effect": 5, "log_ic50": 0, "n_h": 1},
+    )
+    agree(r, ref_v, ref_se)

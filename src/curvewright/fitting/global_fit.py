@@ -74,6 +74,46 @@ class _GlobalProblem(_Problem):
     group_links: dict[str, Expr] = field(default_factory=dict)
     base: tuple[str, ...] = ()  # model parameter name of each expanded free parameter
 
+    def __post_init__(self) -> None:
+        super().__post_init__()
+        names = self.model.param_names
+        n, p = self.x.size, len(self.free)
+        # Every parameter's value at every point is one gather from z = [theta, held values]:
+        # a formula model is then evaluated for all groups in one vectorised call (the
+        # residual is the hot path; a Python loop over groups would cost a call per group).
+        held_flat: list[float] = []
+        index = np.full((len(names), n), -1, dtype=np.intp)
+        for g, sl in enumerate(self.slices):
+            for i, nm in enumerate(names):
+                if nm in self.cols[g]:
+                    index[i, sl] = self.cols[g][nm]
+                elif nm in self.held[g]:
+                    index[i, sl] = p + len(held_flat)
+                    held_flat.append(self.held[g][nm])
+        self._index = index
+        self._held_flat = np.array(held_flat, dtype=float)
+        self._linked_rows = [
+            (names.index(nm), e.compile(list(names))) for nm, e in self.group_links.items()
+        ]
+        self._link_derivs = [
+            (
+                names.index(nm),
+                [(names.index(m), e.derivative(m).compile(list(names))) for m in e.names],
+            )
+            for nm, e in self.group_links.items()
+        ]
+        self._vectorised = self.model.expr is not None
+
+    def _rows(self, th: FloatArray) -> FloatArray:
+        """Each model parameter's value at each point, shape (n_params, n)."""
+        z = np.concatenate([np.asarray(th, dtype=float), self._held_flat])
+        rows = z[np.where(self._index >= 0, self._index, 0)]
+        if self._linked_rows:
+            with np.errstate(all="ignore"):
+                for i, fn in self._linked_rows:
+                    rows[i] = np.broadcast_to(np.asarray(fn(*rows), dtype=float), self.x.shape)
+        return rows
+
     def group_values(self, th: FloatArray, g: int) -> dict[str, float]:
         """Every model parameter's value in group ``g`` at the free vector ``th``."""
         v = dict(self.held[g])
@@ -92,10 +132,14 @@ class _GlobalProblem(_Problem):
 
     def curve(self, values: Mapping[str, float]) -> FloatArray:
         th = self.theta_of(values)
-        out = np.empty(self.x.size)
+        if self._vectorised:
+            with np.errstate(all="ignore"):
+                out = self.model.func(self.x, *self._rows(th))
+            return np.broadcast_to(np.asarray(out, dtype=float), self.x.shape).copy()
+        res = np.empty(self.x.size)
         for g, sl in enumerate(self.slices):
-            out[sl] = self.model.eval(self.x[sl], self.group_values(th, g))
-        return out
+            res[sl] = self.model.eval(self.x[sl], self.group_values(th, g))
+        return res
 
     def theta_from(self, seed: Mapping[str, float]) -> FloatArray:
         return np.array(
@@ -105,53 +149,48 @@ class _GlobalProblem(_Problem):
             ]
         )
 
-    def group_param_jacobian(self, g: int, gv: Mapping[str, float]) -> FloatArray:
-        """``d value / d theta`` of every model parameter of group ``g`` (n_params, nfree)."""
-        names = self.model.param_names
-        pj = np.zeros((len(names), len(self.free)))
-        cols = self.cols[g]
-        for i, n in enumerate(names):
-            if n in cols:
-                pj[i, cols[n]] = 1.0
-            elif n in self.group_links:
-                e = self.group_links[n]
-                with np.errstate(all="ignore"):
-                    for m in e.names:
-                        if m in cols:
-                            pj[i, cols[m]] = float(np.asarray(e.derivative(m).evaluate(gv)))
-        return pj
-
     def jacobian_override(self, theta: FloatArray, values: Mapping[str, float]) -> FloatArray:
         th = np.asarray(theta, dtype=float)
-        J = np.zeros((self.x.size, len(self.free)))
-        for g, sl in enumerate(self.slices):
-            gv = self.group_values(th, g)
-            xg = self.x[sl]
-            idx = sorted(set(self.cols[g].values()) | self._linked_cols(g))
-            if self.deriv_fns is not None:
-                args = [gv[m] for m in self.model.param_names]
-                with np.errstate(all="ignore"):
-                    full = np.column_stack(
-                        [
-                            np.broadcast_to(np.asarray(fn(xg, *args), float), xg.shape)
-                            for fn in self.deriv_fns
-                        ]
-                    )
-                    Jg = full @ self.group_param_jacobian(g, gv)
-                bad = ~np.all(np.isfinite(Jg), axis=1)
-                if bad.any():  # as in _model_jacobian: the limit by differences
-                    fd = self._group_fd(th, g, idx)
-                    Jg[np.ix_(bad, idx)] = np.where(np.isfinite(fd[bad]), fd[bad], 0.0)
-                    Jg[bad] = np.where(np.isfinite(Jg[bad]), Jg[bad], 0.0)
-                J[sl] = Jg
-            else:
+        n, p = self.x.size, len(self.free)
+        J = np.zeros((n, p))
+        if self.deriv_fns is None:
+            for g, sl in enumerate(self.slices):
+                idx = sorted(self.cols[g].values())
                 J[sl, idx] = self._group_fd(th, g, idx)
+            return J
+        rows = self._rows(th)
+        pts = np.arange(n)
+        with np.errstate(all="ignore"):
+            d = [
+                np.broadcast_to(np.asarray(fn(self.x, *rows), float), (n,)) for fn in self.deriv_fns
+            ]
+            for i, col in enumerate(self._index):
+                free_here = (col >= 0) & (col < p)
+                J[pts[free_here], col[free_here]] += d[i][free_here]
+            # a linked parameter passes its derivative on to the parameters its link uses
+            for i, parts in self._link_derivs:
+                for m, dfn in parts:
+                    col = self._index[m]
+                    free_here = (col >= 0) & (col < p)
+                    dm = np.broadcast_to(np.asarray(dfn(*rows), float), (n,))
+                    J[pts[free_here], col[free_here]] += (d[i] * dm)[free_here]
+        bad = ~np.all(np.isfinite(J), axis=1)
+        if bad.any():
+            # as in _model_jacobian: e.g. inf * 0 at a zero dose where the curve is flat;
+            # differences of that group give the limit
+            for g, sl in enumerate(self.slices):
+                rows_bad = bad[sl]
+                if not rows_bad.any():
+                    continue
+                idx = sorted(self.cols[g].values())
+                fd = self._group_fd(th, g, idx)
+                block = J[sl]
+                block[np.ix_(rows_bad, idx)] = np.where(
+                    np.isfinite(fd[rows_bad]), fd[rows_bad], 0.0
+                )
+                block[rows_bad] = np.where(np.isfinite(block[rows_bad]), block[rows_bad], 0.0)
+                J[sl] = block
         return J
-
-    def _linked_cols(self, g: int) -> set[int]:
-        return {
-            self.cols[g][m] for e in self.group_links.values() for m in e.names if m in self.cols[g]
-        }
 
     def _group_fd(self, th: FloatArray, g: int, idx: list[int]) -> FloatArray:
         sl = self.slices[g]
