@@ -135,7 +135,8 @@ class _GlobalProblem(_Problem):
         if self._vectorised:
             with np.errstate(all="ignore"):
                 out = self.model.func(self.x, *self._rows(th))
-            return np.broadcast_to(np.asarray(out, dtype=float), self.x.shape).copy()
+            full: FloatArray = np.broadcast_to(np.asarray(out, dtype=float), self.x.shape).copy()
+            return full
         res = np.empty(self.x.size)
         for g, sl in enumerate(self.slices):
             res[sl] = self.model.eval(self.x[sl], self.group_values(th, g))
