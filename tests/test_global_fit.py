@@ -506,6 +506,20 @@ def test_weighted_global_fit_matches_scipy() -> None:
     assert r.weighting == "sigma"
     agree(r, ref_v, ref_se)
     assert r.ssr == pytest.approx(ssr, rel=1e-9)
+    # sigma taken as exact: the covariance is (J'WJ)^-1 without the residual variance
+    exact = cw.fit_global(
+        "exponential_decay",
+        data=df,
+        x="t",
+        y="y",
+        by="strain",
+        sigma="sd",
+        shared=["baseline", "k"],
+        absolute_sigma=True,
+    )
+    s = math.sqrt(ssr / r.dof)
+    agree(exact, ref_v, {k: v / s for k, v in ref_se.items()})
+    assert exact.compare_groups("amplitude").dof == r.dof
 
 
 def test_robust_global_fit_matches_scipy_soft_l1() -> None:
@@ -743,6 +757,28 @@ def test_residual_diagnostics_of_several_datasets_use_every_dataset() -> None:
     assert len(a) == 14
     for col in ("x", "residual", "leverage"):
         assert sorted(a[col].to_numpy()) == pytest.approx(sorted(b[col].to_numpy()), rel=1e-7)
+    # bands with a given sigma interpolate it over every dataset's x, as the union fit does
+    s1, s2 = 0.05 * d1["circumference"] + 1, 0.05 * d2["circumference"] + 1
+    two_w = cw.fit(
+        LOGISTIC,
+        dataset=[
+            cw.make_dataset("age", "circumference", data=d1.assign(s=s1), sigma="s"),
+            cw.make_dataset("age", "circumference", data=d2.assign(s=s2), sigma="s"),
+        ],
+        start=start,
+    )
+    union_w = cw.fit(
+        LOGISTIC,
+        "age",
+        "circumference",
+        sigma="s",
+        start=start,
+        data=pd.concat([d1.assign(s=s1), d2.assign(s=s2)]),
+    )
+    xs = np.array([300.0, 900.0, 1400.0])
+    assert two_w.prediction_band(xs).to_numpy() == pytest.approx(
+        union_w.prediction_band(xs).to_numpy(), rel=1e-6
+    )
 
 
 # ------------------------------------------------------------------ properties
