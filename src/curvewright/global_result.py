@@ -475,11 +475,11 @@ class GlobalResult:
     def test_shared(self, name: str, alpha: float = 0.05) -> SharedTest:
         """Do the groups differ in ``name``? Refit with it shared and per group, and compare.
 
-        See :func:`curvewright.stats.groups.test_shared`.
+        See :func:`curvewright.stats.groups.shared_or_separate`.
         """
-        from .stats.groups import test_shared
+        from .stats.groups import shared_or_separate
 
-        return test_shared(self, name, alpha)
+        return shared_or_separate(self, name, alpha)
 
     def compare_groups(
         self, name: str, *, correction: str = "holm", alpha: float = 0.05

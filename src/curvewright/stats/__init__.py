@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from curvewright.numerics import aic, aicc, bic
 from curvewright.stats.compare import Comparison, akaike_weights, compare, extra_ss_f_test
-from curvewright.stats.groups import GroupComparison, SharedTest, compare_groups, test_shared
+from curvewright.stats.groups import GroupComparison, SharedTest, compare_groups, shared_or_separate
 from curvewright.stats.linearized import (
     TRANSFORMS,
     LinearizedFit,
@@ -57,5 +57,5 @@ __all__ = [
     "prediction_band",
     "profile_intervals",
     "select_degree",
-    "test_shared",
+    "shared_or_separate",
 ]

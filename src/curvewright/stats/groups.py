@@ -1,6 +1,6 @@
 """Questions about the groups of a global fit: do they differ in a parameter; which pairs do.
 
-* :func:`test_shared` refits the model with the parameter shared and per group and compares
+* :func:`shared_or_separate` refits the model with the parameter shared and per group and compares
   the two fits by the extra-sum-of-squares F test and AICc (common practice for "is one value
   enough for all groups?"; the F test is exact for linear models with normal errors,
   approximate otherwise).
@@ -35,7 +35,7 @@ __all__ = [
     "adjust_p",
     "compare_global",
     "compare_groups",
-    "test_shared",
+    "shared_or_separate",
 ]
 
 _CORRECTIONS = ("holm", "bonferroni", "none")
@@ -221,7 +221,7 @@ def compare_groups(
 # ------------------------------------------------------------------------ shared or not
 @dataclass(frozen=True)
 class SharedTest:
-    """Whether one value of a parameter serves every group (see :func:`test_shared`).
+    """Whether one value of a parameter serves every group (see :func:`shared_or_separate`).
 
     Attributes
     ----------
@@ -285,7 +285,7 @@ class SharedTest:
         )
 
 
-def test_shared(result: GlobalResult, name: str, alpha: float = 0.05) -> SharedTest:
+def shared_or_separate(result: GlobalResult, name: str, alpha: float = 0.05) -> SharedTest:
     """Do the groups differ in ``name``? Fit it shared and per group and compare the fits.
 
     The fit not at hand is made with the same data, groups and options, starting from this
