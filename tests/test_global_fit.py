@@ -275,6 +275,8 @@ def test_orange_summary_html_frame_and_exact_json(orange: cw.GlobalResult) -> No
     assert isinstance(view, cw.GroupFit) and view.group == "2"
     with pytest.raises(ParameterError, match="no group 9"):
         orange[9]
+    with pytest.raises(cw.FitError, match=r"not available for group '1'.*ci\(\)"):
+        orange[1].profile_ci()
     # a group's residual diagnostics are its own points (tree 4's ages, its residuals)
     pts = orange[4].residual_diagnostics().points
     tree4 = ORANGE[ORANGE["Tree"] == 4]

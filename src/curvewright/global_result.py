@@ -167,6 +167,26 @@ class GroupFit(FitResult):
             )
         return Parameters(recs)
 
+    def profile_ci(self, names: Sequence[str] | None = None, level: float = 0.95) -> pd.DataFrame:
+        """Not available for one group of a global fit.
+
+        A profile re-optimises every other parameter of the joint fit, over every group's
+        data; a view of one group holds only its own.
+
+        Raises
+        ------
+        FitError
+            Always, with what to use instead.
+        """
+        from .errors import FitError
+
+        raise FitError(
+            f"profile intervals are not available for group {self.group!r} of a global fit: "
+            "they would re-optimise the shared parameters on this group's points alone. Use "
+            "ci() (Wald intervals on the joint covariance), or fit this group alone with "
+            "curvewright.fit for its own profile."
+        )
+
     def residual_diagnostics(self, alpha: float = 0.05) -> Diagnostics:
         """Residual diagnostics of this group's points, given the shared parameters.
 
