@@ -645,7 +645,7 @@ def test_limits_cancel_progress_and_method() -> None:
     tr = cw.fit_global(
         LOGISTIC, method="trust_region", progress=lambda n, s: seen.append((n, s)), timeout=60, **kw
     )
-    assert tr.success and seen and seen[-1][0] == tr.evaluations
+    assert tr.success and seen and seen[-1][0] >= tr.evaluations
     assert tr.attempts[0].method == "trust_region"
 
 
