@@ -200,17 +200,20 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.start",
         "curvewright.catalog",
     ),
-    "result": ("curvewright.result",),
+    "result": ("curvewright.result", "curvewright.global_result"),
     "fit": (
         "curvewright.fitting",
         "curvewright.fitting.problem",
         "curvewright.fitting.engine",
         "curvewright.fitting.assemble",
+        "curvewright.fitting.single",
+        "curvewright.fitting.global_fit",
     ),
     "statistics": (
         "curvewright.stats",
         "curvewright.stats.compare",
         "curvewright.stats.diagnostics",
+        "curvewright.stats.groups",
         "curvewright.stats.linearized",
         "curvewright.stats.polynomial",
         "curvewright.stats.uncertainty",
@@ -258,15 +261,15 @@ def test_every_result_method_that_needs_the_statistics_finds_them() -> None:
 
     import curvewright  # noqa: F401  (registers the statistics)
 
-    tree = ast.parse((SRC / "result.py").read_text(encoding="utf-8"))
     asked = {
         node.args[0].value
-        for node in ast.walk(tree)
+        for path in ("result.py", "global_result.py")
+        for node in ast.walk(ast.parse((SRC / path).read_text(encoding="utf-8")))
         if isinstance(node, ast.Call)
         and isinstance(node.func, ast.Name)
         and node.func.id == "_statistic"
         and isinstance(node.args[0], ast.Constant)
     }
     registered = set(sys.modules["curvewright.result"]._STATISTICS)
-    assert len(asked) == 9
+    assert len(asked) == 12
     assert asked <= registered, sorted(asked - registered)

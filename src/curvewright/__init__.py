@@ -26,7 +26,8 @@ from .errors import (
     ParameterError,
     RankDeficiencyWarning,
 )
-from .fitting import fit
+from .fitting import fit, fit_global
+from .global_result import GlobalResult, GroupFit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
 from .parameters import Parameter, Parameters
@@ -47,6 +48,9 @@ from .stats.diagnostics import residual_diagnostics
 from .thresholds import CAUTION
 
 __all__ = [
+    "GlobalResult",
+    "GroupFit",
+    "fit_global",
     "CAUTION",
     "Comparison",
     "ComparisonError",

@@ -26,7 +26,6 @@ from scipy.optimize import least_squares, leastsq
 from ..errors import DataError, ParameterError
 from ..linear import solve_polynomial
 from ..messages import LEAST_SQUARES_STATUS, LEASTSQ_IER, outcome
-from ..parameters import move_inside
 from .problem import FloatArray, _curve, _model_jacobian, _Problem
 
 _LM = "levenberg_marquardt"
@@ -508,13 +507,7 @@ def _ladder(
 
         try:
             seed = generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed)
-            # The one rule for a start outside its bounds (parameters.move_inside).
-            theta = np.array(
-                [
-                    move_inside(float(lo), float(hi), seed[n])
-                    for n, lo, hi in zip(prob.free, prob.lower, prob.upper, strict=True)
-                ]
-            )
+            theta = prob.theta_from(seed)
             runs.append(_solve(prob, watch, theta, first, "multi-start", budget))
         except (DataError, ParameterError, ArithmeticError, ValueError):
             pass

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import functools
 import math
+import threading
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any, Literal, cast
@@ -23,7 +24,7 @@ from ..errors import DataError, ModelError, ParameterError
 from ..expr import Expr
 from ..models import Model, as_number, unknown_name_message
 from ..numerics import finite_difference_jacobian, free_jacobian
-from ..parameters import Moved, Parameter, Parameters
+from ..parameters import Moved, Parameter, Parameters, move_inside
 from ..start import guided_start
 
 FloatArray = NDArray[np.float64]
@@ -119,6 +120,10 @@ class _Problem:
         if self.w is None:
             rms = float(np.sqrt(np.mean(self.y**2))) if self.y.size else 0.0
             self.rscale = rms if math.isfinite(rms) and rms > 0 else 1.0
+        self._plan()
+
+    def _plan(self) -> None:
+        """Compile the links and the index plans of the model's argument vector."""
         order = (*self.free, *self.fixed)
         self._link_fns = [(n, e.compile(order)) for n, e in self.links.items()]
         # The model's own derivatives are compiled once per Model (Model.value_and_jacobian);
@@ -155,6 +160,83 @@ class _Problem:
     def weighted(self, values: Mapping[str, float]) -> FloatArray:
         r = self.y - self.curve(values)
         return r if self.w is None else r * self.w
+
+    # The solvers' two calls. A problem variant whose free parameters are not the model's own
+    # (a global fit of several groups, fitting/global_fit.py) overrides these and _plan; the
+    # engine and the assembly run on it unchanged.
+    def curve_at(self, theta: Sequence[float] | FloatArray) -> FloatArray:
+        """The model at the data for the free values ``theta`` (the solvers' inner loop)."""
+        x = self.x
+        with np.errstate(all="ignore"):
+            f = self.model.func(x, *_args(self, theta))
+        if np.shape(f) != x.shape:  # a formula without x gives one number
+            f = np.broadcast_to(np.asarray(f, dtype=float), x.shape)
+        out: FloatArray = np.asarray(f, dtype=float)
+        return out
+
+    def jacobian_at(self, theta: FloatArray) -> FloatArray:
+        """d f / d free at the data: analytic for formulas (through links), else differences."""
+        n, p = self.x.size, len(self.free)
+        if p == 0:
+            return np.zeros((n, 0))
+        grad = self.model._value_and_gradient  # compiled once per Model; None for a callable
+        if grad is None:
+            return finite_difference_jacobian(
+                self.curve_at, theta, lower=self.lower, upper=self.upper
+            )
+        args = _args(self, theta)
+        with np.errstate(all="ignore"):
+            if self.links:
+                _, full = self.model.value_and_jacobian(self.x, cast("Sequence[float]", args))
+                pj = _param_jacobian(self, theta)
+            else:
+                # Without links the chain rule only selects the free parameters' columns: copy
+                # those out (a constant derivative, e.g. d/d baseline = 1, broadcasts).
+                out = grad(self.x, *args)
+                full = np.empty((n, p))
+                for j, k in enumerate(self._free_index.tolist()):
+                    full[:, j] = out[k + 1]
+                pj = np.eye(p)
+        return free_jacobian(full, pj, self.curve_at, theta, lower=self.lower, upper=self.upper)
+
+    def theta_from(self, seed: Mapping[str, float]) -> FloatArray:
+        """The free-parameter vector from values by name, moved inside bounds by the one rule."""
+        return np.array(
+            [
+                move_inside(float(lo), float(hi), float(seed[n]))
+                for n, lo, hi in zip(self.free, self.lower, self.upper, strict=True)
+            ]
+        )
+
+
+def _check_limits(
+    method: str,
+    max_evaluations: int | None,
+    timeout: float | None,
+    cancel: threading.Event | Callable[[], bool] | None,
+) -> tuple[float | None, Callable[[], bool] | None]:
+    """Validate the solver options of a fit; the timeout as a float and cancel as a callable."""
+    if method not in _METHODS:
+        raise ParameterError(f"method must be one of {_METHODS}, got {method!r}.")
+    if max_evaluations is not None and (
+        isinstance(max_evaluations, bool)
+        or not isinstance(max_evaluations, (int, np.integer))
+        or max_evaluations < 1
+    ):
+        raise ParameterError(
+            f"max_evaluations must be a positive whole number, got {max_evaluations!r}."
+        )
+    if timeout is not None:
+        timeout = as_number(timeout, "timeout")
+        if not timeout > 0:
+            raise ParameterError(f"timeout must be a positive number of seconds, got {timeout}.")
+    if cancel is None:
+        return timeout, None
+    if isinstance(cancel, threading.Event):
+        return timeout, cancel.is_set
+    if callable(cancel):
+        return timeout, cancel
+    raise ParameterError("cancel must be a threading.Event or a callable returning a bool.")
 
 
 def request_parameters(
@@ -359,14 +441,8 @@ def _args(prob: _Problem, theta: Sequence[float] | FloatArray) -> FloatArray:
 
 
 def _curve(prob: _Problem, theta: Sequence[float] | FloatArray) -> FloatArray:
-    """The model at the data for the free values ``theta`` (the solvers' inner loop)."""
-    x = prob.x
-    with np.errstate(all="ignore"):
-        f = prob.model.func(x, *_args(prob, theta))
-    if np.shape(f) != x.shape:  # a formula without x gives one number
-        f = np.broadcast_to(np.asarray(f, dtype=float), x.shape)
-    out: FloatArray = np.asarray(f, dtype=float)
-    return out
+    """The model at the data for the free values ``theta`` (:meth:`_Problem.curve_at`)."""
+    return prob.curve_at(theta)
 
 
 def _param_jacobian(prob: _Problem, theta: Sequence[float] | FloatArray) -> FloatArray:
@@ -382,28 +458,5 @@ def _param_jacobian(prob: _Problem, theta: Sequence[float] | FloatArray) -> Floa
 
 
 def _model_jacobian(prob: _Problem, theta: FloatArray) -> FloatArray:
-    """d f / d free at the data: analytic for formulas (through links), else central differences."""
-    n, p = prob.x.size, len(prob.free)
-    if p == 0:
-        return np.zeros((n, 0))
-
-    def curve(th: FloatArray) -> FloatArray:
-        return _curve(prob, th)
-
-    grad = prob.model._value_and_gradient  # compiled once per Model; None for a callable
-    if grad is None:
-        return finite_difference_jacobian(curve, theta, lower=prob.lower, upper=prob.upper)
-    args = _args(prob, theta)
-    with np.errstate(all="ignore"):
-        if prob.links:
-            _, full = prob.model.value_and_jacobian(prob.x, cast("Sequence[float]", args))
-            pj = _param_jacobian(prob, theta)
-        else:
-            # Without links the chain rule only selects the free parameters' columns: copy
-            # those out (a constant derivative, e.g. d/d baseline = 1, broadcasts).
-            out = grad(prob.x, *args)
-            full = np.empty((n, p))
-            for j, k in enumerate(prob._free_index.tolist()):
-                full[:, j] = out[k + 1]
-            pj = np.eye(p)
-    return free_jacobian(full, pj, curve, theta, lower=prob.lower, upper=prob.upper)
+    """d f / d free at the data (:meth:`_Problem.jacobian_at`)."""
+    return prob.jacobian_at(theta)

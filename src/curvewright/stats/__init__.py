@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from curvewright.numerics import aic, aicc, bic
 from curvewright.stats.compare import Comparison, akaike_weights, compare, extra_ss_f_test
+from curvewright.stats.groups import GroupComparison, SharedTest, compare_groups, shared_or_separate
 from curvewright.stats.linearized import (
     TRANSFORMS,
     LinearizedFit,
@@ -33,13 +34,16 @@ __all__ = [
     "Comparison",
     "Correlation",
     "DegreeSelection",
+    "GroupComparison",
     "LinearizedFit",
     "PolynomialFit",
+    "SharedTest",
     "aic",
     "aicc",
     "akaike_weights",
     "bic",
     "compare",
+    "compare_groups",
     "confidence_band",
     "correlation",
     "derived_quantity",
@@ -53,4 +57,5 @@ __all__ = [
     "prediction_band",
     "profile_intervals",
     "select_degree",
+    "shared_or_separate",
 ]

@@ -36,12 +36,13 @@ import pandas as pd
 import scipy.stats
 
 from curvewright.errors import ComparisonError, ParameterError
+from curvewright.global_result import GlobalResult
 from curvewright.thresholds import CAUTION as _CAUTION
 
 if TYPE_CHECKING:
     from curvewright.result import FitResult
 
-__all__ = ["Comparison", "akaike_weights", "compare", "extra_ss_f_test"]
+__all__ = ["Comparison", "akaike_weights", "compare", "compare_global", "extra_ss_f_test"]
 
 
 # ------------------------------------------------------------------------------ plain maths
@@ -418,7 +419,7 @@ def _resolve_pairs(
 
 # ------------------------------------------------------------------------------ compare
 def compare(
-    *results: FitResult,
+    *results: FitResult | GlobalResult,
     names: Sequence[str] | None = None,
     nested: bool | Sequence[tuple[int | str, int | str]] | None = None,
     alpha: float = 0.05,
@@ -428,8 +429,11 @@ def compare(
 
     Parameters
     ----------
-    *results : FitResult
-        Two or more least-squares fits to the same points with the same weights.
+    *results : FitResult or GlobalResult
+        Two or more least-squares fits to the same points with the same weights. Global fits
+        (:func:`curvewright.fit_global`) are compared with each other: nested when one shares
+        a strict superset of the other's shared parameters (see
+        :func:`curvewright.stats.groups.compare_global`).
     names : sequence of str, optional
         Labels for the fits (default: the model names, with fixed values).
     nested : None, bool or sequence of (simpler, larger)
@@ -462,6 +466,20 @@ def compare(
     parameters fixed at values inside their ranges; fixing a parameter at a bound (e.g. a
     second phase's amplitude at 0) makes its p value only approximate.
     """
+    if any(isinstance(r, GlobalResult) for r in results):
+        # Global fits (several groups) nest by their shared parameters (compare_global).
+        if nested is not None and not isinstance(nested, bool):
+            raise ParameterError(
+                "nested must be None or a bool for global fits; nesting is read from the "
+                "shared parameters."
+            )
+        return compare_global(
+            list(results),  # type: ignore[arg-type]  # compare_global checks every one
+            names=names,
+            nested=nested,
+            alpha=alpha,
+            prefer=prefer,
+        )
     if len(results) < 2:
         raise ComparisonError(f"compare needs at least two fits; got {len(results)}.")
     if not (isinstance(alpha, (int, float)) and 0.0 < float(alpha) < 1.0):
@@ -620,3 +638,179 @@ def _recommend(
         reasons.append(f"Note on {preferred!r}: " + " ".join(warn))
     recommendation = f"Use {preferred!r} (decided by the {criterion})."
     return preferred, criterion, recommendation, reasons
+
+
+# ============================================================================ global fits
+def _check_global(r: object, label: str) -> GlobalResult:
+    if not isinstance(r, GlobalResult):
+        raise ComparisonError(
+            f"{label} is a {type(r).__name__}: global fits can be compared only with other "
+            "global fits (results of curvewright.fit_global) of the same data."
+        )
+    if r.loss != "squared":
+        raise ComparisonError(
+            f"{label!r} used the robust {r.loss!r} loss: the F test and AICc compare least-"
+            "squares fits. Refit with loss='squared' to compare."
+        )
+    if not r.success:
+        raise ComparisonError(
+            f"{label!r} did not converge ({r.message}); its sum of squares is not its best, so "
+            "any comparison would be misleading. Refit it first."
+        )
+    return r
+
+
+def _same_global_data(fits: Sequence[GlobalResult], labels: Sequence[str]) -> None:
+    ref = fits[0]
+    for r, lab in zip(fits[1:], labels[1:], strict=True):
+        same_w = (r.weights is None and ref.weights is None) or (
+            r.weights is not None
+            and ref.weights is not None
+            and np.allclose(r.weights, ref.weights, rtol=1e-12, atol=0.0)
+        )
+        if (
+            r.keys != ref.keys
+            or r.n != ref.n
+            or not (np.array_equal(r.x, ref.x) and np.array_equal(r.y, ref.y))
+        ):
+            raise ComparisonError(
+                f"{lab!r} and {labels[0]!r} were fitted to different groups or data: sums of "
+                "squares and AICc are comparable only on the same points."
+            )
+        if r.weighting != ref.weighting or not same_w:
+            raise ComparisonError(
+                f"{lab!r} and {labels[0]!r} used different weights; refit both with the same."
+            )
+
+
+def _nested_global(simple: GlobalResult, large: GlobalResult) -> bool:
+    """``simple`` is ``large`` with more parameters shared (same model, constants, holds)."""
+    return (
+        simple.model.same_form(large.model)
+        and simple.constants == large.constants
+        and simple.fixed == large.fixed
+        and dict(simple.linked) == dict(large.linked)
+        and set(simple.shared) | set(simple.per_group) == set(large.shared) | set(large.per_group)
+        and set(simple.shared) > set(large.shared)
+        and all(
+            simple.options.get("fixed", {}).get(k) == v
+            for k, v in large.options.get("fixed", {}).items()
+        )
+    )
+
+
+def compare_global(
+    results: Sequence[GlobalResult],
+    *,
+    names: Sequence[str] | None = None,
+    nested: bool | None = None,
+    alpha: float = 0.05,
+    prefer: str = "auto",
+) -> Comparison:
+    """Compare global fits of the same data (what :func:`curvewright.compare` does for them).
+
+    Two fits are nested when they use the same model, constants and fixed values and one
+    shares a strict superset of the other's shared parameters; nested pairs get the
+    extra-sum-of-squares F test. AICc is always reported.
+
+    Parameters
+    ----------
+    results : sequence of GlobalResult
+    names : sequence of str, optional
+        Labels (default: "shared: ..." of each).
+    nested : None or bool
+        None: detect nested pairs; False: no F tests; True: require every pair that differs in
+        its shared set to be nested (a ComparisonError otherwise).
+    alpha, prefer
+        As for :func:`curvewright.compare`.
+
+    Returns
+    -------
+    Comparison
+    """
+    if len(results) < 2:
+        raise ComparisonError(f"compare needs at least two fits; got {len(results)}.")
+    if not (isinstance(alpha, (int, float)) and 0.0 < float(alpha) < 1.0):
+        raise ParameterError(f"alpha must be between 0 and 1 (e.g. 0.05); got {alpha!r}.")
+    if prefer not in ("auto", "f", "aicc"):
+        raise ParameterError(f"prefer must be 'auto', 'f' or 'aicc'; got {prefer!r}.")
+    if nested is not None and not isinstance(nested, bool):
+        raise ParameterError(
+            "nested must be None (detect) or a bool for global fits; nesting is read from the "
+            "shared parameters."
+        )
+    fits = [_check_global(r, f"fit {i + 1}") for i, r in enumerate(results)]
+    if names is not None:
+        labels = [str(n) for n in names]
+        if len(labels) != len(fits) or len(set(labels)) != len(labels):
+            raise ParameterError(f"names must give one distinct label per fit, got {labels}.")
+    else:
+        labels = [f"{r.model.name} (shared: {', '.join(r.shared) or 'none'})" for r in fits]
+        labels = [
+            lab if labels.count(lab) == 1 else f"{lab} #{i + 1}" for i, lab in enumerate(labels)
+        ]
+    _same_global_data(fits, labels)
+    delta, weights = akaike_weights([r.aicc for r in fits])
+    table = pd.DataFrame(
+        {
+            "model": [r.model.name for r in fits],
+            "n": [r.n for r in fits],
+            "free_params": [r.nfree for r in fits],
+            "dof": [r.dof for r in fits],
+            "ssr": [r.ssr for r in fits],
+            "r2": [r.r2 for r in fits],
+            "aicc": [r.aicc for r in fits],
+            "delta_aicc": delta,
+            "akaike_weight": weights,
+            "bic": [r.bic for r in fits],
+        },
+        index=pd.Index(labels, name="fit"),
+    )
+    rows: list[dict[str, Any]] = []
+    if nested is not False:
+        for i, j in itertools.permutations(range(len(fits)), 2):
+            if _nested_global(fits[i], fits[j]):
+                s, b = fits[i], fits[j]
+                F, dn, dd, p = extra_ss_f_test(s.ssr, s.dof, b.ssr, b.dof)
+                rows.append(
+                    {
+                        "simpler": labels[i],
+                        "larger": labels[j],
+                        "how": "detected (more parameters shared)",
+                        "df_num": dn,
+                        "df_den": dd,
+                        "F": F,
+                        "p": p,
+                        "significant": bool(p < alpha) if math.isfinite(p) else False,
+                    }
+                )
+            elif (
+                nested is True
+                and i < j
+                and set(fits[i].shared) != set(fits[j].shared)
+                and not _nested_global(fits[j], fits[i])
+            ):
+                raise ComparisonError(
+                    f"{labels[i]!r} and {labels[j]!r} are not nested: one must share every "
+                    "parameter the other shares and more, with the same model and holds."
+                )
+    f_tests = pd.DataFrame(
+        rows, columns=["simpler", "larger", "how", "df_num", "df_den", "F", "p", "significant"]
+    )
+    preferred, criterion, recommendation, reasoning = _recommend(
+        fits,  # type: ignore[arg-type]  # _recommend reads only .diagnostics of a fit
+        labels,
+        table,
+        f_tests,
+        float(alpha),
+        prefer,
+    )
+    return Comparison(
+        table=table,
+        f_tests=f_tests,
+        preferred=preferred,
+        criterion=criterion,
+        recommendation=recommendation,
+        reasoning=tuple(reasoning),
+        alpha=float(alpha),
+    )

@@ -686,16 +686,17 @@ def residual_diagnostics(result: FitResult, alpha: float = 0.05) -> Diagnostics:
     x order (their signs are the same). Leverage and Cook's distance come from the Jacobian
     at the solution: exact for polynomial models, a first-order approximation otherwise.
     """
-    ds = result.dataset
+    # Every dataset's points, stacked as the fit stacked them (fitted, jacobian and weights
+    # cover all datasets one after another); rows are each point's row in its own input.
     w = _result_weights(result)
     return diagnose_arrays(
-        ds.x_used,
-        ds.y_used,
+        result.x,
+        result.y,
         result.fitted,
         result.jacobian,
         result.dof,
         weights=w,
-        rows=ds.row[ds.include],
+        rows=np.concatenate([ds.row[ds.include] for ds in result.datasets]),
         linear=result.model.polynomial_degree is not None,
         alpha=alpha,
     )
@@ -713,4 +714,4 @@ def _result_weights(result: FitResult) -> FloatArray | None:
     return np.asarray(w, dtype=float) ** 2
 
 
-register_statistics(residual_diagnostics=residual_diagnostics)
+register_statistics(residual_diagnostics=residual_diagnostics, diagnose_arrays=diagnose_arrays)
