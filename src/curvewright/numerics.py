@@ -158,7 +158,7 @@ def finite_difference_jacobian(
 
 def free_jacobian(
     analytic: FloatArray,
-    param_jacobian: FloatArray,
+    param_jacobian: FloatArray | None,
     curve: Callable[[FloatArray], FloatArray] | None,
     theta: ArrayLike,
     *,
@@ -174,8 +174,10 @@ def free_jacobian(
     ----------
     analytic : ndarray, shape (n, n_params)
         ``d f / d parameter`` for every parameter of the model (the symbolic derivatives).
-    param_jacobian : ndarray, shape (n_params, nfree)
+    param_jacobian : ndarray, shape (n_params, nfree), or None
         ``d parameter / d free parameter``: the chain rule through links, zero for fixed ones.
+        None when ``analytic`` already holds just the free parameters' columns (no links: the
+        chain rule is then a selection, which the caller has made).
     curve : callable or None
         ``curve(theta) -> f`` at the same points, as a function of the free parameters: for
         central differences (see :func:`finite_difference_jacobian`), used for the rows where
@@ -183,10 +185,15 @@ def free_jacobian(
     theta, lower, upper : array_like
         The free parameters and their bounds.
     """
-    with np.errstate(all="ignore"):
-        J = np.asarray(analytic, dtype=float) @ param_jacobian
+    if param_jacobian is None:
+        J = np.asarray(analytic, dtype=float)
+    else:
+        with np.errstate(all="ignore"):
+            J = np.asarray(analytic, dtype=float) @ param_jacobian
+    if curve is None or np.isfinite(J).all():  # the usual case, checked in one pass
+        return J
     bad = ~np.all(np.isfinite(J), axis=1)
-    if curve is not None and bad.any():
+    if bad.any():
         # e.g. d/dlogEC50 of 10**(log10(x)...) at a zero-dose control: inf * 0 analytically,
         # but the curve is flat there; differences give the limit.
         fd = finite_difference_jacobian(curve, theta, lower=lower, upper=upper)

@@ -20,6 +20,7 @@ import curvewright as cw
 import curvewright.fitting.engine as engine
 from curvewright.catalog import catalog
 from curvewright.expr import Expr
+from curvewright.fitting.problem import _Problem
 from curvewright.numerics import finite_difference_jacobian
 
 # (catalog model, x, true values, start, noise sd): invented, well-conditioned problems whose
@@ -133,7 +134,7 @@ def test_bounds_hold_and_the_model_is_never_evaluated_outside_them(
 ) -> None:
     model, x, y, _ = _data(name)
     seen: list[float] = []
-    real_curve, real_jac = engine._curve, engine._model_jacobian
+    real_curve, real_jac = _Problem.curve_at, _Problem.jacobian_at
 
     def curve(prob: Any, theta: Any) -> Any:
         seen.append(float(theta[prob.free.index(bounded)]))
@@ -143,8 +144,9 @@ def test_bounds_hold_and_the_model_is_never_evaluated_outside_them(
         seen.append(float(theta[prob.free.index(bounded)]))
         return real_jac(prob, theta)
 
-    monkeypatch.setattr(engine, "_curve", curve)
-    monkeypatch.setattr(engine, "_model_jacobian", jac)
+    # The solvers' two calls are the problem's methods (fitting/problem.py).
+    monkeypatch.setattr(_Problem, "curve_at", curve)
+    monkeypatch.setattr(_Problem, "jacobian_at", jac)
     r = cw.fit(model, x, y, start=start, bounds={bounded: (lo, hi)})
     assert r.success, r.message
     assert seen and all(lo <= v <= hi for v in seen)

@@ -22,7 +22,7 @@ from ..numerics import bic as _bic
 from ..result import Attempt, Diagnostic, FitResult
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
 from .engine import _lmfit_at, _Run
-from .problem import FloatArray, _curve, _model_jacobian, _param_jacobian, _Problem
+from .problem import FloatArray, _param_jacobian, _Problem
 
 
 # ============================================================================ statistics
@@ -180,7 +180,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         kept = min(runs, key=lambda r: r.objective)
     theta = kept.theta if kept is not None else np.zeros(0)
     values = prob.values(theta)
-    fitted = _curve(prob, theta).copy()
+    fitted = prob.curve_at(theta).copy()
     resid = prob.y - fitted
     rw = resid if prob.w is None else resid * prob.w
     ssr = float(rw @ rw)
@@ -196,7 +196,7 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         J = np.full((n, p), np.nan)
         cov, cond, singular = np.full((p, p), np.nan), math.nan, False
     else:
-        J = _model_jacobian(prob, theta)
+        J = prob.jacobian_at(theta)
         jw = J if prob.w is None else J * prob.w[:, None]
         cov, cond, singular = _covariance(jw, scale)
     pj = _param_jacobian(prob, theta)

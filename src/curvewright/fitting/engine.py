@@ -26,7 +26,7 @@ from scipy.optimize import least_squares, leastsq
 from ..errors import DataError, ParameterError
 from ..linear import solve_polynomial
 from ..messages import LEAST_SQUARES_STATUS, LEASTSQ_IER, outcome
-from .problem import FloatArray, _curve, _model_jacobian, _Problem
+from .problem import FloatArray, _Problem
 
 _LM = "levenberg_marquardt"
 _TR = "trust_region"
@@ -111,7 +111,7 @@ class _Watch:
     def residual(self, theta: FloatArray) -> FloatArray:
         self._tick()
         prob = self.prob
-        r = prob.y - _curve(prob, theta)
+        r = prob.y - prob.curve_at(theta)
         if prob.w is not None:
             r *= prob.w
         ssr = float(r @ r)
@@ -136,7 +136,7 @@ class _Watch:
         so that every evaluation is counted and checked.
         """
         self._tick()
-        J = _model_jacobian(self.prob, theta)
+        J = self.prob.jacobian_at(theta)
         J *= self._jscale
         return J
 
@@ -268,7 +268,7 @@ def _solve(
 
 
 def _weighted(prob: _Problem, theta: FloatArray) -> FloatArray:
-    r = prob.y - _curve(prob, theta)
+    r = prob.y - prob.curve_at(theta)
     return r if prob.w is None else r * prob.w
 
 

@@ -196,7 +196,7 @@ class _Problem:
                 full = np.empty((n, p))
                 for j, k in enumerate(self._free_index.tolist()):
                     full[:, j] = out[k + 1]
-                pj = np.eye(p)
+                pj = None
         return free_jacobian(full, pj, self.curve_at, theta, lower=self.lower, upper=self.upper)
 
     def theta_from(self, seed: Mapping[str, float]) -> FloatArray:
