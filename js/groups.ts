@@ -45,17 +45,17 @@ export const GROUP_COLOURS: readonly string[] = [
   "#8a8fd1", // light periwinkle
 ];
 
-// Marker shapes in order, cycled more slowly than the colours so colour + shape stays unique
-// for colours.length * markers.length groups.
+// Marker shapes in order. Colour and shape cycle together (8 and 6 long), so every group gets
+// another shape than its neighbours and the pair stays unique for lcm(8, 6) = 24 groups.
 export const GROUP_MARKERS: readonly Marker[] = ["circle", "square", "diamond", "triangle", "triangle_down", "hexagon"];
 
-/** The look of group i: colour cycles fastest; the marker changes after each colour cycle too. */
+/** The look of group i: colour i mod 8, marker i mod 6. */
 export function groupStyle(i: number): GroupStyle {
   const k = Math.max(0, Math.floor(i));
   const nc = GROUP_COLOURS.length;
   return {
     colour: GROUP_COLOURS[k % nc]!,
-    marker: GROUP_MARKERS[(k + Math.floor(k / nc)) % GROUP_MARKERS.length]!,
+    marker: GROUP_MARKERS[k % GROUP_MARKERS.length]!,
   };
 }
 
@@ -104,7 +104,7 @@ export function valuesForGroup(
   const out: Record<string, number> = {};
   for (const [name, r] of Object.entries(records)) {
     const v = own[name];
-    out[name] = r.scope === "per_group" && !r.fixed && typeof v === "number" ? v : r.value;
+    out[name] = r.scope === "per_group" && !r.fixed && typeof v === "number" ? v : (r.value ?? NaN);
   }
   return out;
 }
@@ -152,7 +152,7 @@ export function valueTable(
     fixed: r.fixed,
     cells: groups.labels.map((label) => ({
       label,
-      value: label === groups.selected ? r.value : valuesForGroup(groups, label, records)[name]!,
+      value: label === groups.selected ? (r.value ?? NaN) : valuesForGroup(groups, label, records)[name]!,
       selected: label === groups.selected,
     })),
   }));

@@ -173,6 +173,12 @@ class CurveBench(anywidget.AnyWidget):
     model : Model, str or callable
         A catalog name (see :func:`curvewright.catalog`), a :class:`~curvewright.Model`, a
         formula text such as ``"a*exp(-k*x) + c"``, or a Python function ``f(x, a, b, ...)``.
+    by : str or list of str, optional
+        Grouping column(s) of ``data``: one curve per group, fitted together by
+        :func:`curvewright.fit_global`. Each parameter is per group at first; see
+        :meth:`set_scope`, :meth:`select_group`, :meth:`hide_group`, :meth:`exclude_group` and
+        :attr:`group_values`. The table's checks are fit_global's (a missing column, an empty
+        group cell).
     sigma : str or array_like, optional
         Standard deviation of each y (or a column name); the fit weights by it.
     models : sequence, optional
@@ -194,8 +200,9 @@ class CurveBench(anywidget.AnyWidget):
 
     Attributes
     ----------
-    result : FitResult or None
-        The latest fit (an observable trait: ``widget.observe(fn, "result")``).
+    result : FitResult, GlobalResult or None
+        The latest fit (an observable trait: ``widget.observe(fn, "result")``); with ``by=`` the
+        :class:`~curvewright.GlobalResult`.
     history : tuple of FitResult
         Every fit made in this widget, oldest first, across models.
     show_confidence_band, show_prediction_band : bool
@@ -380,7 +387,7 @@ class CurveBench(anywidget.AnyWidget):
         return self._mem().settings.as_values()
 
     @property
-    def history(self) -> tuple[FitResult, ...]:
+    def history(self) -> tuple[FitResult | GlobalResult, ...]:
         """Every fit made in this widget, oldest first, across all models."""
         return tuple(self._history)
 
@@ -476,7 +483,6 @@ class CurveBench(anywidget.AnyWidget):
         with self.hold_sync(), self._internal():
             self._apply_settings(settings)
             self.status = {"state": "idle", "message": note or "guided start applied"}
-
 
     # =================================================================== public: groups
     @property
@@ -583,7 +589,7 @@ class CurveBench(anywidget.AnyWidget):
         self.exclude_group(label, excluded=False)
 
     # =================================================================== public: fitting
-    def fit(self, *, wait: bool = True) -> FitResult | None:
+    def fit(self, *, wait: bool = True) -> FitResult | GlobalResult | None:
         """Fit the current model to the included points, like the Fit button.
 
         The fit runs in a worker thread. With ``wait=True`` (the default) this call waits for
@@ -1256,8 +1262,8 @@ class CurveBench(anywidget.AnyWidget):
         fitted = None
         if gr is not None:
             fitted = {
-                lab: {n: float(gr.values.loc[lab, n]) for n in gr.model.param_names}
-                for lab in gr.labels
+                lab: dict(zip(gr.model.param_names, row.tolist(), strict=True))
+                for lab, row in zip(gr.labels, gr.values.to_numpy(dtype=float), strict=True)
             }
         rows = self.data.get("row", []) if isinstance(self.data, Mapping) else []
         return {
@@ -1650,13 +1656,12 @@ class CurveBench(anywidget.AnyWidget):
         self._history.append(res)
         if res.success:
             table = res.values
-            for lab in res.labels:
-                mem.group_values[lab].update(
-                    {n: float(table.loc[lab, n]) for n in res.model.param_names}
-                )
+            arr = table.to_numpy(dtype=float)
+            names = list(res.model.param_names)
+            for i, lab in enumerate(res.labels):
+                mem.group_values[lab].update(dict(zip(names, arr[i].tolist(), strict=True)))
             # Shared records take the fitted value; per-group ones show the selected group's.
-            first = res.labels[0]
-            shared = {n: float(table.loc[first, n]) for n in res.shared}
+            shared = {n: float(arr[0, names.index(n)]) for n in res.shared}
             mem.settings = mem.settings.with_values(shared)
             state: FitState = "done"
             message = f"fitted {name} to {len(res.labels)} groups: {res.message}"
