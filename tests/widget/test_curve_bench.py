@@ -447,7 +447,7 @@ def test_a_snapshot_in_the_old_format_is_refused_by_name(
     # Format 1 held other model and parameter names (e.g. a "logIC50" midpoint); restoring it
     # says which format it is and what to do, and changes nothing.
     good = w.snapshot()
-    assert good["format"] == "curvewright.widget/3"
+    assert good["format"] == "curvewright.widget/4"
     before = json.dumps(good, sort_keys=True)
     old = {**good, "format": "curvewright.widget/1"}
     old["params"] = {
@@ -468,6 +468,10 @@ def test_a_snapshot_in_the_old_format_is_refused_by_name(
     }
     with pytest.raises(cw.DataError, match=r"format 2 .*older layout \(a mapping by name\)"):
         w.restore(two)
+    # Format 3 had no place for groups; refused by name too.
+    three = {k: v for k, v in {**good, "format": "curvewright.widget/3"}.items() if k != "groups"}
+    with pytest.raises(cw.DataError, match=r"format 3 .*no place for groups"):
+        w.restore(three)
     assert json.dumps(w.snapshot(), sort_keys=True) == before
 
 

@@ -40,8 +40,10 @@ from ..errors import (
     ParameterError,
 )
 from ..fitting import point_weights, resolve_model
+from ..fitting.global_fit import _split as _split_groups
+from ..global_result import GlobalResult
 from ..models import Model, as_number, unknown_name_message
-from ..parameters import Moved, Parameters
+from ..parameters import SCOPES, Moved, Parameters
 from ..result import FitResult
 from ..start import guided_start
 from ..stats.compare import Comparison, compare
@@ -53,9 +55,11 @@ __all__ = ["CurveBench"]
 
 # The saved-state format; bump the number when its meaning changes, and say in
 # _OLD_STATE_FORMATS why an older one is refused. Version 3 keeps the parameters as the
-# record's JSON (a list, params_spec.json).
-STATE_FORMAT = "curvewright.widget/3"
+# record's JSON (a list, params_spec.json); version 4 adds "groups" (None for one curve, else the
+# grouping columns, labels, selected/hidden/excluded groups and each group's values).
+STATE_FORMAT = "curvewright.widget/4"
 _OLD_STATE_FORMATS = {
+    "curvewright.widget/3": (3, "had no place for groups (several curves) or their values"),
     "curvewright.widget/1": (1, "used older model and parameter names"),
     "curvewright.widget/2": (2, "kept parameter settings in an older layout (a mapping by name)"),
 }
@@ -97,10 +101,33 @@ export default { render({ el }) {
 
 @dataclass
 class _Memory:
-    """What the widget remembers per model, so switching back restores it."""
+    """What the widget remembers per model, so switching back restores it.
+
+    With groups, ``settings`` shows the selected group: a per-group record's value is that
+    group's, a shared one's is every group's; ``group_values`` holds every group's values and
+    ``result`` is the selected group's view of ``global_result``.
+    """
 
     settings: Parameters
     result: FitResult | None = None
+    group_values: dict[str, dict[str, float]] = field(default_factory=dict)
+    global_result: GlobalResult | None = None
+
+
+@dataclass
+class _GroupSetup:
+    """The groups of a widget made with ``by=``: fixed at construction, checked by the library."""
+
+    table: pd.DataFrame
+    x: str
+    y: str
+    by: tuple[str, ...]
+    sigma: str | np.ndarray | None
+    labels: tuple[str, ...]
+    row_group: np.ndarray  # group index of every table row
+    selected: str
+    hidden: set[str] = field(default_factory=set)
+    excluded: set[str] = field(default_factory=set)
 
 
 @dataclass(frozen=True)
@@ -111,6 +138,8 @@ class _FitRequest:
     dataset: Dataset
     parameters: Parameters
     options: dict[str, Any] = field(default_factory=dict)
+    # With groups: fit_global's data, x, y, by, sigma, shared, start and exclude arguments.
+    groups: dict[str, Any] | None = None
 
 
 def _running_loop() -> asyncio.AbstractEventLoop | None:
@@ -144,6 +173,12 @@ class CurveBench(anywidget.AnyWidget):
     model : Model, str or callable
         A catalog name (see :func:`curvewright.catalog`), a :class:`~curvewright.Model`, a
         formula text such as ``"a*exp(-k*x) + c"``, or a Python function ``f(x, a, b, ...)``.
+    by : str or list of str, optional
+        Grouping column(s) of ``data``: one curve per group, fitted together by
+        :func:`curvewright.fit_global`. Each parameter is per group at first; see
+        :meth:`set_scope`, :meth:`select_group`, :meth:`hide_group`, :meth:`exclude_group` and
+        :attr:`group_values`. The table's checks are fit_global's (a missing column, an empty
+        group cell).
     sigma : str or array_like, optional
         Standard deviation of each y (or a column name); the fit weights by it.
     models : sequence, optional
@@ -165,8 +200,9 @@ class CurveBench(anywidget.AnyWidget):
 
     Attributes
     ----------
-    result : FitResult or None
-        The latest fit (an observable trait: ``widget.observe(fn, "result")``).
+    result : FitResult, GlobalResult or None
+        The latest fit (an observable trait: ``widget.observe(fn, "result")``); with ``by=`` the
+        :class:`~curvewright.GlobalResult`.
     history : tuple of FitResult
         Every fit made in this widget, oldest first, across models.
     show_confidence_band, show_prediction_band : bool
@@ -227,9 +263,16 @@ class CurveBench(anywidget.AnyWidget):
     # answer proves every earlier update from the page has been applied here.
     sync_ping = traitlets.Int(0).tag(sync=True)
     sync_pong = traitlets.Int(0).tag(sync=True)
+    # With by=: the groups as the page draws them (_state.groups_json), None for one curve.
+    groups_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
 
     # ---- Python only
-    result = traitlets.Instance(FitResult, allow_none=True, default_value=None)
+    # A FitResult, or with by= the GlobalResult of fit_global.
+    result = traitlets.Union(
+        [traitlets.Instance(FitResult), traitlets.Instance(GlobalResult)],
+        allow_none=True,
+        default_value=None,
+    )
 
     def __init__(
         self,
@@ -238,6 +281,7 @@ class CurveBench(anywidget.AnyWidget):
         y: str | ArrayLike | None = None,
         *,
         model: Model | str | Callable[..., Any] | None = None,
+        by: str | Sequence[str] | None = None,
         sigma: str | ArrayLike | None = None,
         models: Sequence[Model | str | Callable[..., Any]] = (),
         exclude: ArrayLike | None = None,
@@ -254,9 +298,9 @@ class CurveBench(anywidget.AnyWidget):
         self._from_front = 0  # >0 while applying an update sent by the page
         self._thread: threading.Thread | None = None
         self._cancel_event: threading.Event | None = None
-        self._pending: tuple[_FitRequest, FitResult | BaseException] | None = None
-        self._history: list[FitResult] = []
-        self._callbacks: list[Callable[[FitResult], Any]] = []
+        self._pending: tuple[_FitRequest, FitResult | GlobalResult | BaseException] | None = None
+        self._history: list[FitResult | GlobalResult] = []
+        self._callbacks: list[Callable[[Any], Any]] = []
         self._memory: dict[str, _Memory] = {}
         self._comparison_key: tuple[int, ...] = ()
         self._degree_cache: tuple[tuple[Any, ...], dict[str, Any]] | None = None
@@ -271,6 +315,9 @@ class CurveBench(anywidget.AnyWidget):
                 )
             data, x, y = None, data, x
         table = data if isinstance(data, (pd.DataFrame, Mapping)) else None
+        self._groups: _GroupSetup | None = None
+        if by is not None:
+            self._groups = _group_setup(table, x, y, by, sigma)
         self._ds = make_dataset(x, y, data=table, sigma=sigma)
         self._excluded: list[int] = _state.check_rows(self._ds, exclude, "exclude")
         self._fit_options = self._check_fit_options(fit_options)
@@ -299,7 +346,7 @@ class CurveBench(anywidget.AnyWidget):
         settings, note = self._guided_settings(first)
         settings, moved = self._overlay(first, settings, start, fixed, bounds)
         note = " ".join(t for t in (note, *moved) if t)
-        self._memory[first.name] = _Memory(settings=settings)
+        self._memory[first.name] = self._new_memory(first, settings, keep=set(start or ()))
 
         with self.hold_sync(), self._internal():
             self.model_names = list(self._models)
@@ -340,7 +387,7 @@ class CurveBench(anywidget.AnyWidget):
         return self._mem().settings.as_values()
 
     @property
-    def history(self) -> tuple[FitResult, ...]:
+    def history(self) -> tuple[FitResult | GlobalResult, ...]:
         """Every fit made in this widget, oldest first, across all models."""
         return tuple(self._history)
 
@@ -437,8 +484,112 @@ class CurveBench(anywidget.AnyWidget):
             self._apply_settings(settings)
             self.status = {"state": "idle", "message": note or "guided start applied"}
 
+    # =================================================================== public: groups
+    @property
+    def groups(self) -> tuple[str, ...]:
+        """The group labels (``by=``), in the order fit_global uses; empty for one curve."""
+        return () if self._groups is None else self._groups.labels
+
+    @property
+    def selected_group(self) -> str | None:
+        """The group the handles and the value fields act on (None for one curve)."""
+        return None if self._groups is None else self._groups.selected
+
+    @property
+    def hidden_groups(self) -> tuple[str, ...]:
+        """Groups not drawn (they are still fitted unless excluded)."""
+        g = self._groups
+        return () if g is None else tuple(lab for lab in g.labels if lab in g.hidden)
+
+    @property
+    def excluded_groups(self) -> tuple[str, ...]:
+        """Groups left out of the fit (still drawn, in a faded style, unless hidden)."""
+        g = self._groups
+        return () if g is None else tuple(lab for lab in g.labels if lab in g.excluded)
+
+    @property
+    def group_values(self) -> pd.DataFrame:
+        """Every group's parameter values now, one row per group (shared values repeat).
+
+        Raises
+        ------
+        DataError
+            The widget was made without ``by=``.
+        """
+        g = self._need_groups("group_values")
+        mem = self._mem()
+        rows = [self._values_of(mem, lab) for lab in g.labels]
+        out: pd.DataFrame = pd.DataFrame(
+            rows,
+            index=pd.Index(list(g.labels), name="group"),
+            columns=pd.Index(list(self.model.param_names), name="parameter"),
+        )
+        return out
+
+    def select_group(self, label: str) -> None:
+        """Act on this group: its curve gets the handles, its values show in the table."""
+        g = self._need_groups("select_group")
+        lab = self._check_group(label)
+        mem = self._mem()
+        with self.hold_sync(), self._internal():
+            g.selected = lab
+            self._show_group(mem)
+
+    def set_scope(self, name: str, scope: str) -> None:
+        """Share a parameter across the groups (``"shared"``) or give each its own value.
+
+        Going per group, every group starts from the value shown; going shared, the selected
+        group's value becomes every group's.
+
+        Raises
+        ------
+        ParameterError
+            Unknown parameter or scope (nothing changes then).
+        """
+        g = self._need_groups("set_scope")
+        model = self.model
+        if name not in model.param_names:
+            raise ParameterError(unknown_name_message(name, model.param_names, repr(model.name)))
+        if scope not in SCOPES:
+            raise ParameterError(f"scope of {name!r} must be one of {SCOPES}, got {scope!r}.")
+        mem = self._mem()
+        settings = mem.settings.replace(name, scope=scope).validated(model)
+        if scope == "per_group":
+            for lab in g.labels:
+                mem.group_values[lab][name] = settings[name].value
+        with self.hold_sync(), self._internal():
+            self._apply_settings(settings)
+
+    def hide_group(self, label: str, hidden: bool = True) -> None:
+        """Stop drawing a group (``hidden=False`` draws it again); a fit still uses it."""
+        g = self._need_groups("hide_group")
+        lab = self._check_group(label)
+        (g.hidden.add if hidden else g.hidden.discard)(lab)
+        with self.hold_sync(), self._internal():
+            self.groups_json = self._groups_json()
+
+    def show_group(self, label: str) -> None:
+        """Draw a hidden group again."""
+        self.hide_group(label, hidden=False)
+
+    def exclude_group(self, label: str, excluded: bool = True) -> None:
+        """Leave a group out of the fit (``excluded=False`` puts it back)."""
+        g = self._need_groups("exclude_group")
+        lab = self._check_group(label)
+        if excluded and len(g.excluded | {lab}) == len(g.labels):
+            raise DataError(
+                f"Excluding {lab!r} would leave no group to fit; include another group first."
+            )
+        (g.excluded.add if excluded else g.excluded.discard)(lab)
+        with self.hold_sync(), self._internal():
+            self.groups_json = self._groups_json()
+
+    def include_group(self, label: str) -> None:
+        """Put an excluded group back into the fit."""
+        self.exclude_group(label, excluded=False)
+
     # =================================================================== public: fitting
-    def fit(self, *, wait: bool = True) -> FitResult | None:
+    def fit(self, *, wait: bool = True) -> FitResult | GlobalResult | None:
         """Fit the current model to the included points, like the Fit button.
 
         The fit runs in a worker thread. With ``wait=True`` (the default) this call waits for
@@ -657,7 +808,61 @@ class CurveBench(anywidget.AnyWidget):
             "show_prediction_band": bool(self.show_prediction_band),
             "show_residuals": bool(self.show_residuals),
             "n_input": int(self._ds.n_input),
+            "groups": self._groups_snapshot(),
         }
+
+    def _groups_snapshot(self) -> dict[str, Any] | None:
+        g = self._groups
+        if g is None:
+            return None
+        mem = self._mem()
+        return {
+            "by": list(g.by),
+            "labels": list(g.labels),
+            "selected": g.selected,
+            "hidden": [lab for lab in g.labels if lab in g.hidden],
+            "excluded": [lab for lab in g.labels if lab in g.excluded],
+            "values": {lab: self._values_of(mem, lab) for lab in g.labels},
+        }
+
+    def _parse_groups(self, raw: object, model: Model) -> dict[str, Any] | None:
+        """A snapshot's groups checked against this widget's (nothing applied here)."""
+        g = self._groups
+        if g is None:
+            if raw is not None:
+                raise DataError(
+                    "The snapshot holds groups (by=) but this widget shows one curve; make the "
+                    "widget with the same by= to restore it."
+                )
+            return None
+        if not isinstance(raw, Mapping):
+            raise DataError(
+                "The snapshot holds one curve but this widget has groups (by=); restore it on a "
+                "widget made the same way."
+            )
+        if list(raw.get("by", [])) != list(g.by) or list(raw.get("labels", [])) != list(g.labels):
+            raise DataError(
+                f"The snapshot's groups ({raw.get('by')!r}: {raw.get('labels')!r}) are not this "
+                f"widget's ({list(g.by)!r}: {list(g.labels)!r}); restore it on the same data."
+            )
+        selected = self._check_group(raw.get("selected"))
+        hidden = {self._check_group(v) for v in raw.get("hidden", [])}
+        excluded = {self._check_group(v) for v in raw.get("excluded", [])}
+        if len(excluded) == len(g.labels):
+            raise DataError("The snapshot excludes every group; at least one must be fitted.")
+        vals = raw.get("values")
+        if not isinstance(vals, Mapping) or set(vals) != set(g.labels):
+            raise DataError("The snapshot's group values must map every group to its values.")
+        values: dict[str, dict[str, float]] = {}
+        for lab in g.labels:
+            row = vals[lab]
+            if not isinstance(row, Mapping):
+                raise DataError(f"The snapshot's values of group {lab!r} must be a mapping.")
+            values[lab] = {
+                n: as_number(row.get(n), f"value of {n!r} in group {lab!r}")
+                for n in model.param_names
+            }
+        return {"selected": selected, "hidden": hidden, "excluded": excluded, "values": values}
 
     def restore(self, snapshot: Mapping[str, Any]) -> None:
         """Apply a :meth:`snapshot` (everything is checked first; on error nothing changes).
@@ -723,6 +928,7 @@ class CurveBench(anywidget.AnyWidget):
             f: _state.check_flag(snapshot.get(f, getattr(self, f)), f)
             for f in ("show_confidence_band", "show_prediction_band", "show_residuals")
         }
+        groups = self._parse_groups(snapshot.get("groups"), model)
         # Everything is valid: apply.
         with self.hold_sync(), self._internal():
             if new_model is not None:
@@ -730,6 +936,13 @@ class CurveBench(anywidget.AnyWidget):
                 self.model_names = list(self._models)
             mem = self._memory.setdefault(model.name, _Memory(settings=settings))
             mem.settings = settings
+            if groups is not None and self._groups is not None:
+                mem.group_values = groups["values"]
+                mem.global_result = None
+                mem.result = None
+                self._groups.selected = groups["selected"]
+                self._groups.hidden = groups["hidden"]
+                self._groups.excluded = groups["excluded"]
             self._excluded = rows
             self.excluded = list(rows)
             self.x_scale = xs
@@ -822,6 +1035,14 @@ class CurveBench(anywidget.AnyWidget):
                 self._preview_request(content)
             elif kind == "pins":
                 self._pins_request(content)
+            elif kind == "select_group":
+                self.select_group(content.get("label"))
+            elif kind == "set_scope":
+                self.set_scope(str(content.get("name")), str(content.get("scope")))
+            elif kind == "hide_group":
+                self.hide_group(content.get("label"), bool(content.get("hidden", True)))
+            elif kind == "exclude_group":
+                self.exclude_group(content.get("label"), bool(content.get("excluded", True)))
             elif kind == "dismiss":
                 self.error = ""
             elif kind == "use_degree":
@@ -953,6 +1174,140 @@ class CurveBench(anywidget.AnyWidget):
         records, moved = records.inside_bounds(only=guided)
         return records.validated(model), tuple(m.text for m in moved)
 
+    # ---- groups (by=)
+    def _need_groups(self, what: str) -> _GroupSetup:
+        if self._groups is None:
+            raise DataError(
+                f"{what} needs groups: make the widget with by='<group column>', e.g. "
+                "CurveBench(df, x='conc', y='response', by='compound', model=...)."
+            )
+        return self._groups
+
+    def _check_group(self, label: object) -> str:
+        g = self._need_groups("a group")
+        if not isinstance(label, str) or label not in g.labels:
+            raise DataError(unknown_name_message(str(label), g.labels, "the groups", kind="group"))
+        return label
+
+    def _values_of(self, mem: _Memory, label: str) -> dict[str, float]:
+        """One group's values: per-group records from the group, shared ones from the record."""
+        own = mem.group_values.get(label, {})
+        return {
+            n: (own.get(n, r.value) if r.scope == "per_group" and not r.fixed else r.value)
+            for n, r in mem.settings.items()
+        }
+
+    def _show_group(self, mem: _Memory) -> None:
+        """Show the selected group's values and fit (callers hold hold_sync + _internal)."""
+        g = self._groups
+        assert g is not None
+        own = mem.group_values.get(g.selected, {})
+        per = {n: own[n] for n, r in mem.settings.items() if r.scope == "per_group" and n in own}
+        mem.settings = mem.settings.with_values(per)
+        gr = mem.global_result
+        mem.result = gr[g.selected] if gr is not None and g.selected in gr.labels else None
+        self.params = _state.params_json(mem.settings)
+        if not self.model.has_preview:
+            self.preview_curve = self._python_curve(self.values)
+        self._refresh_view()
+
+    def _new_memory(self, model: Model, settings: Parameters, keep: set[str]) -> _Memory:
+        """A model's memory; with groups every parameter per group, each from its group's data.
+
+        ``keep``: names whose value the user gave (every group starts there).
+        """
+        g = self._groups
+        if g is None:
+            return _Memory(settings=settings)
+        for n in model.param_names:
+            settings = settings.replace(n, scope="per_group")
+        values: dict[str, dict[str, float]] = {}
+        for lab in g.labels:
+            values[lab] = self._guided_group(model, settings, lab, keep)
+        mem = _Memory(settings=settings, group_values=values)
+        own = values[g.selected]
+        mem.settings = settings.with_values({n: own[n] for n in settings.free})
+        return mem
+
+    def _guided_group(
+        self, model: Model, settings: Parameters, label: str, keep: set[str]
+    ) -> dict[str, float]:
+        """The guided start on one group's included points, inside the records' bounds."""
+        g = self._groups
+        assert g is not None
+        ds = self.dataset
+        in_group = g.row_group[ds.row] == g.labels.index(label)
+        used = in_group & ds.include
+        x, y = ds.x[used], ds.y[used]
+        if model.domain != "all":
+            ok = x > 0 if model.domain == "x>0" else x >= 0
+            x, y = x[ok], y[ok]
+        base = settings.as_values()
+        try:
+            guided = guided_start(model, x, y, fixed=settings.fixed or None)
+        except Exception:  # a start is a convenience: the group starts at the shown values
+            guided = {}
+        free = [n for n in settings.free if n not in keep]
+        moved, _ = settings.with_values(
+            {n: float(guided[n]) for n in free if n in guided and math.isfinite(guided[n])}
+        ).inside_bounds(only=free)
+        return {n: moved[n].value if n in free else base[n] for n in model.param_names}
+
+    def _groups_json(self) -> dict[str, Any] | None:
+        g = self._groups
+        if g is None:
+            return None
+        mem = self._mem()
+        gr = mem.global_result
+        fitted = None
+        if gr is not None:
+            fitted = {
+                lab: dict(zip(gr.model.param_names, row.tolist(), strict=True))
+                for lab, row in zip(gr.labels, gr.values.to_numpy(dtype=float), strict=True)
+            }
+        rows = self.data.get("row", []) if isinstance(self.data, Mapping) else []
+        return {
+            "by": list(g.by),
+            "labels": list(g.labels),
+            "selected": g.selected,
+            "hidden": [lab for lab in g.labels if lab in g.hidden],
+            "excluded": [lab for lab in g.labels if lab in g.excluded],
+            "values": {lab: self._values_of(mem, lab) for lab in g.labels},
+            "fitted": fitted,
+            "fit_success": None if gr is None else bool(gr.success),
+            "point_group": g.row_group[np.asarray(rows, dtype=np.int64)].tolist(),
+        }
+
+    def _group_request(self, records: Parameters) -> dict[str, Any]:
+        """fit_global's arguments for the groups, exclusions and per-group values shown."""
+        g = self._groups
+        assert g is not None
+        mem = self._mem()
+        keep_groups = [i for i, lab in enumerate(g.labels) if lab not in g.excluded]
+        rows = np.flatnonzero(np.isin(g.row_group, keep_groups))
+        table = g.table.iloc[rows].reset_index(drop=True)
+        excluded = np.zeros(len(g.table), dtype=bool)
+        excluded[self._excluded] = True
+        per = [n for n in records.free if records[n].scope == "per_group"]
+        shared = [n for n in records.free if records[n].scope == "shared"]
+        kept = [g.labels[i] for i in keep_groups]
+        start = pd.DataFrame(
+            [[mem.group_values[lab][n] for n in per] for lab in kept],
+            index=pd.Index(kept),
+            columns=pd.Index(per),
+        )
+        sigma = g.sigma[rows] if isinstance(g.sigma, np.ndarray) else g.sigma
+        return {
+            "data": table,
+            "x": g.x,
+            "y": g.y,
+            "by": list(g.by),
+            "sigma": sigma,
+            "shared": shared,
+            "start": start if per else None,
+            "exclude": excluded[rows] if excluded.any() else None,
+        }
+
     # ---- trait updates (callers hold hold_sync + _internal)
     def _show_model(self, name: str) -> None:
         model = self._models[name]
@@ -960,20 +1315,28 @@ class CurveBench(anywidget.AnyWidget):
         self.model_name = name
         self.model_json = model.to_dict()
         self.params = _state.params_json(mem.settings)
-        self._refresh_view()
+        if self._groups is not None:
+            self._show_group(mem)
+        else:
+            self._refresh_view()
 
     def _switch(self, name: str) -> None:
         model = self._models[name]
         note = ""
         if name not in self._memory:
             settings, note = self._guided_settings(model)
-            self._memory[name] = _Memory(settings=settings)
+            self._memory[name] = self._new_memory(model, settings, keep=set())
         self._show_model(name)
         if not self.fitting:
             self.status = {"state": "idle", "message": note}
 
     def _apply_settings(self, settings: Parameters) -> None:
-        self._mem().settings = settings
+        mem = self._mem()
+        mem.settings = settings
+        if self._groups is not None:
+            own = mem.group_values.setdefault(self._groups.selected, {})
+            own.update({n: r.value for n, r in settings.items() if r.scope == "per_group"})
+            self.groups_json = self._groups_json()
         self.params = _state.params_json(settings)
         if not self.model.has_preview:
             self.preview_curve = self._python_curve(self.values)
@@ -993,11 +1356,24 @@ class CurveBench(anywidget.AnyWidget):
         self.data = view
         res = self._mem().result
         self.fitted = None if res is None else _state.fitted_json(res, view, xs)
+        g = self._groups
+        if g is not None and self.fitted is not None:
+            # A group's fit says nothing of the other groups' points: no residual for them.
+            mine = g.row_group[np.asarray(view["row"], dtype=np.int64)] == g.labels.index(
+                g.selected
+            )
+            self.fitted = {
+                **self.fitted,
+                "residuals": [
+                    r if m else None for r, m in zip(self.fitted["residuals"], mine, strict=True)
+                ],
+            }
         self.preview_curve = None if model.has_preview else self._python_curve(self.values)
         self.compare = self._compare_json()
         self._update_comparison()
         self.bands_json = self._bands_json()
         self.degree_table_json = self._degree_json()
+        self.groups_json = self._groups_json()
 
     def _bands_json(self) -> dict[str, Any] | None:
         res = self._mem().result
@@ -1189,7 +1565,10 @@ class CurveBench(anywidget.AnyWidget):
         if links:
             # fit_options' links join the records here, the request's one conversion.
             records = Parameters.from_shorthand(model, links=links, base=records)
-        return _FitRequest(model=model, dataset=self.dataset, parameters=records, options=options)
+        groups = None if self._groups is None else self._group_request(records)
+        return _FitRequest(
+            model=model, dataset=self.dataset, parameters=records, options=options, groups=groups
+        )
 
     def _work(
         self,
@@ -1213,16 +1592,28 @@ class CurveBench(anywidget.AnyWidget):
             msg = f"fitting {req.model.name}: {evaluations} evaluations, SSR {ssr:.6g}"
             post(lambda: self._set_status("fitting", msg))
 
-        outcome: FitResult | BaseException
+        outcome: FitResult | GlobalResult | BaseException
         try:
-            outcome = fit(
-                req.model,
-                dataset=req.dataset,
-                params=req.parameters,
-                cancel=cancel,
-                progress=progress,
-                **req.options,
-            )
+            if req.groups is not None:
+                from ..fitting.global_fit import fit_global
+
+                outcome = fit_global(
+                    req.model,
+                    params=req.parameters,
+                    cancel=cancel,
+                    progress=progress,
+                    **req.groups,
+                    **req.options,
+                )
+            else:
+                outcome = fit(
+                    req.model,
+                    dataset=req.dataset,
+                    params=req.parameters,
+                    cancel=cancel,
+                    progress=progress,
+                    **req.options,
+                )
         except Exception as exc:
             outcome = exc
         with self._lock:
@@ -1241,7 +1632,7 @@ class CurveBench(anywidget.AnyWidget):
         # call_soon_threadsafe wants a callable returning None.
         self._apply_pending()
 
-    def _apply_pending(self) -> FitResult | BaseException | None:
+    def _apply_pending(self) -> FitResult | GlobalResult | BaseException | None:
         with self._lock:
             pending, self._pending = self._pending, None
         if pending is None:
@@ -1250,8 +1641,49 @@ class CurveBench(anywidget.AnyWidget):
         if isinstance(outcome, BaseException):
             self._report(outcome, fit_failed=True)
             return outcome
-        self._accept(req, outcome)
+        if isinstance(outcome, GlobalResult):
+            self._accept_global(req, outcome)
+        else:
+            self._accept(req, outcome)
         return outcome
+
+    def _accept_global(self, req: _FitRequest, res: GlobalResult) -> None:
+        name = req.model.name
+        mem = self._memory[name]
+        g = self._groups
+        assert g is not None
+        mem.global_result = res
+        self._history.append(res)
+        if res.success:
+            table = res.values
+            arr = table.to_numpy(dtype=float)
+            names = list(res.model.param_names)
+            for i, lab in enumerate(res.labels):
+                mem.group_values[lab].update(dict(zip(names, arr[i].tolist(), strict=True)))
+            # Shared records take the fitted value; per-group ones show the selected group's.
+            shared = {n: float(arr[0, names.index(n)]) for n in res.shared}
+            mem.settings = mem.settings.with_values(shared)
+            state: FitState = "done"
+            message = f"fitted {name} to {len(res.labels)} groups: {res.message}"
+        else:
+            state = "stopped"
+            message = f"{name} not fitted: {res.message}"
+        with self.hold_sync(), self._internal():
+            if name == self.model_name:
+                self._show_group(mem)
+            self.status = {"state": state, "message": message}
+        self._announce(res)
+
+    def _announce(self, res: FitResult | GlobalResult) -> None:
+        try:
+            self.result = res
+        except Exception as exc:  # an observer of `result` raised: show it, keep going
+            self._report(exc)
+        for cb in list(self._callbacks):
+            try:
+                cb(res)
+            except Exception as exc:  # a user's callback must not break the widget
+                self._report(exc)
 
     def _accept(self, req: _FitRequest, res: FitResult) -> None:
         name = req.model.name
@@ -1277,15 +1709,7 @@ class CurveBench(anywidget.AnyWidget):
                 self.compare = self._compare_json()
                 self._update_comparison()
             self.status = {"state": state, "message": message}
-        try:
-            self.result = res
-        except Exception as exc:  # an observer of `result` raised: show it, keep going
-            self._report(exc)
-        for cb in list(self._callbacks):
-            try:
-                cb(res)
-            except Exception as exc:  # a user's callback must not break the widget
-                self._report(exc)
+        self._announce(res)
 
 
 # ------------------------------------------------------------------------------ helpers
@@ -1339,6 +1763,47 @@ def _solve_pins(
     sol = least_squares(resid, u0, bounds=(lo, hi), max_nfev=100 * (len(free) + 1))
     out.update(dict(zip(free, (float(v) for v in sol.x), strict=True)))
     return out
+
+
+def _group_setup(
+    table: pd.DataFrame | Mapping[str, Any] | None,
+    x: object,
+    y: object,
+    by: str | Sequence[str],
+    sigma: object,
+) -> _GroupSetup:
+    """The groups of ``by=``, checked by fit_global's own table checks (one validator)."""
+    if not isinstance(table, pd.DataFrame):
+        raise DataError(
+            "by= needs the data as a pandas DataFrame with the x, y and group columns, e.g. "
+            "CurveBench(df, x='conc', y='response', by='compound', model=...); got "
+            f"{type(table).__name__}."
+        )
+    if isinstance(by, str):
+        cols: tuple[str, ...] = (by,)
+    elif isinstance(by, Sequence) and by and all(isinstance(c, str) for c in by):
+        cols = tuple(by)
+    else:
+        raise DataError(f"by= must be a column name or a list of column names, got {by!r}.")
+    sig: str | np.ndarray | None
+    if sigma is None or isinstance(sigma, str):
+        sig = sigma
+    else:
+        sig = np.asarray(sigma, dtype=float).ravel()
+    groups = _split_groups(table, x, y, cols, (), sig, None)  # type: ignore[arg-type]
+    row_group = np.empty(len(table), dtype=np.int64)
+    for i, pos in enumerate(table.groupby(list(cols), sort=True, dropna=False).indices.values()):
+        row_group[pos] = i
+    return _GroupSetup(
+        table=table,
+        x=str(x),
+        y=str(y),
+        by=cols,
+        sigma=sig,
+        labels=groups.labels,
+        row_group=row_group,
+        selected=groups.labels[0],
+    )
 
 
 def _catalog() -> Mapping[str, Model]:
