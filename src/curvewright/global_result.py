@@ -44,6 +44,7 @@ from .result import (
     _restore_model,
     _ro,
     _statistic,
+    fit_quality_lines,
 )
 from .thresholds import CAUTION
 
@@ -551,22 +552,7 @@ class GlobalResult:
                 cell = _num(v) if math.isnan(s) else f"{_num(v)} ({_num(s)})"
                 cells.append(f"{cell:>22}")
             lines.append(f"{lab:<{w}}  " + "  ".join(cells))
-        lines.append("")
-        lines.append("goodness of fit (all groups together)")
-        ss_name = "weighted SSR" if self.weights is not None else "SSR"
-        lines.append(
-            f"  {ss_name} {_num(self.ssr)}, residual SD {_num(self.sigma_resid)}, "
-            f"R^2 {_num(self.r2)}"
-        )
-        lines.append(f"  n {self.n}, free parameters {self.nfree}, degrees of freedom {self.dof}")
-        lines.append(f"  AICc {_num(self.aicc)}, BIC {_num(self.bic)}")
-        if self.diagnostics:
-            lines.append("")
-            lines.append("notes")
-            for d in self.diagnostics:
-                lines.append(f"  [{d.severity}] {d.text}")
-        lines.append("")
-        lines.append(CAUTION)
+        lines.extend(fit_quality_lines(self, "goodness of fit (all groups together)"))
         return "\n".join(lines)
 
     def __str__(self) -> str:

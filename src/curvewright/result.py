@@ -785,22 +785,7 @@ class FitResult:
                     f"{name!s:<{wd}}  {_num(row['value']):>13}  {_num(row['stderr']):>11}  "
                     f"{'[' + _num(row['lower']) + ', ' + _num(row['upper']) + ']':>29}  {flag}"
                 )
-        lines.append("")
-        lines.append("goodness of fit")
-        ss_name = "weighted SSR" if self.weights is not None else "SSR"
-        lines.append(
-            f"  {ss_name} {_num(self.ssr)}, residual SD {_num(self.sigma_resid)}, "
-            f"R^2 {_num(self.r2)}"
-        )
-        lines.append(f"  n {self.n}, free parameters {self.nfree}, degrees of freedom {self.dof}")
-        lines.append(f"  AICc {_num(self.aicc)}, BIC {_num(self.bic)}")
-        if self.diagnostics:
-            lines.append("")
-            lines.append("notes")
-            for d in self.diagnostics:
-                lines.append(f"  [{d.severity}] {d.text}")
-        lines.append("")
-        lines.append(CAUTION)
+        lines.extend(fit_quality_lines(self, "goodness of fit"))
         return "\n".join(lines)
 
     def __str__(self) -> str:
@@ -1145,3 +1130,18 @@ def _statistic(name: str) -> Callable[..., Any]:
             f"FitResult needs curvewright.stats for {name}, and it has not been imported; "
             "import curvewright (or curvewright.stats) first."
         ) from None
+
+
+def fit_quality_lines(r: Any, title: str) -> list[str]:
+    """A summary's end: goodness of fit, the notes and the caution (FitResult, GlobalResult)."""
+    ss_name = "weighted SSR" if r.weights is not None else "SSR"
+    lines = [
+        "",
+        title,
+        f"  {ss_name} {_num(r.ssr)}, residual SD {_num(r.sigma_resid)}, R^2 {_num(r.r2)}",
+        f"  n {r.n}, free parameters {r.nfree}, degrees of freedom {r.dof}",
+        f"  AICc {_num(r.aicc)}, BIC {_num(r.bic)}",
+    ]
+    if r.diagnostics:
+        lines += ["", "notes", *(f"  [{d.severity}] {d.text}" for d in r.diagnostics)]
+    return [*lines, "", CAUTION]

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -174,21 +175,41 @@ def _diagnostics(
     return out
 
 
-def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
+@dataclass(frozen=True)
+class _Solution:
+    """The kept run and what every result needs at its point: residuals, dof, covariance."""
+
+    kept: _Run | None
+    theta: FloatArray
+    fitted: FloatArray
+    resid: FloatArray
+    rw: FloatArray  # weighted residuals
+    ssr: float  # weighted
+    rss: float  # unweighted
+    n: int
+    p: int
+    dof: int
+    code: str
+    success: bool
+    J: FloatArray
+    cov: FloatArray
+    cond: float
+    singular: bool
+
+
+def _solution(prob: _Problem, runs: list[_Run]) -> _Solution:
+    """Pick the run to report (the best converged one, else the best) and evaluate it."""
     kept = min(runs, key=lambda r: (not outcome(r.code).success, r.objective)) if runs else None
     if kept is not None and not outcome(kept.code).success:
         kept = min(runs, key=lambda r: r.objective)
     theta = kept.theta if kept is not None else np.zeros(0)
-    values = prob.values(theta)
     fitted = prob.curve_at(theta).copy()
     resid = prob.y - fitted
     rw = resid if prob.w is None else resid * prob.w
     ssr = float(rw @ rw)
-    rss = float(resid @ resid)
     n, p = prob.x.size, len(prob.free)
     dof = n - p
     code = kept.code if kept is not None else "nothing_to_fit"
-    success = outcome(code).success
     scale = 1.0 if prob.absolute_sigma else (ssr / dof if dof > 0 else math.nan)
     if code in ("cancelled", "stopped_time"):
         # The user asked to stop: no further model evaluations (a slow callable would need
@@ -199,6 +220,39 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
         J = prob.jacobian_at(theta)
         jw = J if prob.w is None else J * prob.w[:, None]
         cov, cond, singular = _covariance(jw, scale)
+    return _Solution(
+        kept,
+        theta,
+        fitted,
+        resid,
+        rw,
+        ssr,
+        float(resid @ resid),
+        n,
+        p,
+        dof,
+        code,
+        outcome(code).success,
+        J,
+        cov,
+        cond,
+        singular,
+    )
+
+
+def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
+    sol = _solution(prob, runs)
+    kept, theta, fitted, resid, ssr, rss = (
+        sol.kept,
+        sol.theta,
+        sol.fitted,
+        sol.resid,
+        sol.ssr,
+        sol.rss,
+    )
+    n, p, dof, code, success = sol.n, sol.p, sol.dof, sol.code, sol.success
+    J, cov, cond, singular = sol.J, sol.cov, sol.cond, sol.singular
+    values = prob.values(theta)
     pj = _param_jacobian(prob, theta)
     var_all = delta_method_variance(pj, cov) if p else np.zeros(len(values))
     stderr = {}

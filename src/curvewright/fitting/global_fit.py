@@ -37,15 +37,15 @@ from ..numerics import finite_difference_jacobian
 from ..parameters import Moved, Parameter, Parameters, move_inside
 from ..result import Attempt, Diagnostic
 from ..start import guided_start
-from .assemble import _covariance, _diagnostics
+from .assemble import _diagnostics, _solution
 from .engine import _ladder, _polish, _Run, _Watch
 from .problem import (
-    _LOSSES,
     FloatArray,
     Loss,
     Method,
     Weighting,
     _check_limits,
+    _check_loss,
     _param_jacobian,
     _Problem,
     _weights,
@@ -551,12 +551,7 @@ def _fit_groups(
     labels: tuple[str, str],
 ) -> GlobalResult:
     # ---------------------------------------------------------------- validate everything
-    if loss not in _LOSSES:
-        raise ParameterError(f"loss must be one of {_LOSSES}, got {loss!r}.")
-    if loss_scale is not None:
-        loss_scale = as_number(loss_scale, "loss_scale")
-        if not loss_scale > 0 or math.isinf(loss_scale):
-            raise ParameterError(f"loss_scale must be a positive number, got {loss_scale!r}.")
+    loss_scale = _check_loss(loss, loss_scale)
     for d, lab in zip(groups.datasets, groups.labels, strict=True):
         try:
             m.check_domain(d.x_used)
@@ -842,27 +837,18 @@ def _assemble(
     options: Mapping[str, Any],
 ) -> GlobalResult:
     m = prob.model
-    kept = min(runs, key=lambda r: (not outcome(r.code).success, r.objective)) if runs else None
-    if kept is not None and not outcome(kept.code).success:
-        kept = min(runs, key=lambda r: r.objective)
-    theta = kept.theta if kept is not None else np.zeros(0)
+    sol = _solution(prob, runs)
+    kept, theta, fitted, resid, ssr, rss = (
+        sol.kept,
+        sol.theta,
+        sol.fitted,
+        sol.resid,
+        sol.ssr,
+        sol.rss,
+    )
+    n, p, dof, code, success = sol.n, sol.p, sol.dof, sol.code, sol.success
+    J, cov, cond, singular = sol.J, sol.cov, sol.cond, sol.singular
     values = prob.values(theta)
-    fitted = prob.curve(values)
-    resid = prob.y - fitted
-    rw = resid if prob.w is None else resid * prob.w
-    ssr, rss = float(rw @ rw), float(resid @ resid)
-    n, p = prob.x.size, len(prob.free)
-    dof = n - p
-    code = kept.code if kept is not None else "nothing_to_fit"
-    success = outcome(code).success
-    scale = 1.0 if prob.absolute_sigma else (ssr / dof if dof > 0 else math.nan)
-    if code in ("cancelled", "stopped_time"):
-        J = np.full((n, p), np.nan)
-        cov, cond, singular = np.full((p, p), np.nan), math.nan, False
-    else:
-        J = prob.jacobian_at(theta)
-        jw = J if prob.w is None else J * prob.w[:, None]
-        cov, cond, singular = _covariance(jw, scale)
     sigma_resid = math.sqrt(ssr / dof) if dof > 0 else math.nan
     wts = np.ones(n) if prob.w is None else prob.w
     attempts = tuple(
@@ -931,7 +917,7 @@ def _assemble(
         yg = prob.y[sl]
         ybar = float(np.sum(ww**2 * yg) / np.sum(ww**2))
         sst = float(np.sum((ww * (yg - ybar)) ** 2))
-        rwg = rw[sl]
+        rwg = sol.rw[sl]
         views.append(
             GroupFit(
                 model=m,

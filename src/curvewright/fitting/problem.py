@@ -239,6 +239,17 @@ def _check_limits(
     raise ParameterError("cancel must be a threading.Event or a callable returning a bool.")
 
 
+def _check_loss(loss: str, loss_scale: float | None) -> float | None:
+    """The loss name and scale, checked (the scale as a number, or None for the default)."""
+    if loss not in _LOSSES:
+        raise ParameterError(f"loss must be one of {_LOSSES}, got {loss!r}.")
+    if loss_scale is not None:
+        loss_scale = as_number(loss_scale, "loss_scale")
+        if not loss_scale > 0 or math.isinf(loss_scale):
+            raise ParameterError(f"loss_scale must be a positive number, got {loss_scale!r}.")
+    return loss_scale
+
+
 def request_parameters(
     model: Model,
     params: Parameters | Sequence[Parameter] | None = None,
@@ -373,12 +384,7 @@ def _build_problem(
         model.check_domain(d.x_used)
     x = np.concatenate([d.x_used for d in datasets])
     y = np.concatenate([d.y_used for d in datasets])
-    if loss not in _LOSSES:
-        raise ParameterError(f"loss must be one of {_LOSSES}, got {loss!r}.")
-    if loss_scale is not None:
-        loss_scale = as_number(loss_scale, "loss_scale")
-        if not loss_scale > 0 or math.isinf(loss_scale):
-            raise ParameterError(f"loss_scale must be a positive number, got {loss_scale!r}.")
+    loss_scale = _check_loss(loss, loss_scale)
     weighting, w = _weights(weights, datasets, y)
 
     recs = parameters.validated(model, allow_unset=True)

@@ -490,22 +490,7 @@ def compare(
     labels = _labels(fits, names)
     _check_same_data(fits, labels)
 
-    delta, weights = akaike_weights([r.aicc for r in fits])
-    table: pd.DataFrame = pd.DataFrame(
-        {
-            "model": [r.model.name for r in fits],
-            "n": [r.n for r in fits],
-            "free_params": [r.nfree for r in fits],
-            "dof": [r.dof for r in fits],
-            "ssr": [r.ssr for r in fits],
-            "r2": [r.r2 for r in fits],
-            "aicc": [r.aicc for r in fits],
-            "delta_aicc": delta,
-            "akaike_weight": weights,
-            "bic": [r.bic for r in fits],
-        },
-        index=pd.Index(labels, name="fit"),
-    )
+    table = _fit_table(fits, labels)
 
     rows = []
     for s, b, how in _resolve_pairs(fits, labels, nested):
@@ -750,22 +735,7 @@ def compare_global(
             lab if labels.count(lab) == 1 else f"{lab} #{i + 1}" for i, lab in enumerate(labels)
         ]
     _same_global_data(fits, labels)
-    delta, weights = akaike_weights([r.aicc for r in fits])
-    table = pd.DataFrame(
-        {
-            "model": [r.model.name for r in fits],
-            "n": [r.n for r in fits],
-            "free_params": [r.nfree for r in fits],
-            "dof": [r.dof for r in fits],
-            "ssr": [r.ssr for r in fits],
-            "r2": [r.r2 for r in fits],
-            "aicc": [r.aicc for r in fits],
-            "delta_aicc": delta,
-            "akaike_weight": weights,
-            "bic": [r.bic for r in fits],
-        },
-        index=pd.Index(labels, name="fit"),
-    )
+    table = _fit_table(fits, labels)
     rows: list[dict[str, Any]] = []
     if nested is not False:
         for i, j in itertools.permutations(range(len(fits)), 2):
@@ -814,3 +784,24 @@ def compare_global(
         reasoning=tuple(reasoning),
         alpha=float(alpha),
     )
+
+
+def _fit_table(fits: Sequence[Any], labels: Sequence[str]) -> pd.DataFrame:
+    """One row per fit: size, fit, AICc with its differences and Akaike weights, BIC."""
+    delta, weights = akaike_weights([r.aicc for r in fits])
+    table: pd.DataFrame = pd.DataFrame(
+        {
+            "model": [r.model.name for r in fits],
+            "n": [r.n for r in fits],
+            "free_params": [r.nfree for r in fits],
+            "dof": [r.dof for r in fits],
+            "ssr": [r.ssr for r in fits],
+            "r2": [r.r2 for r in fits],
+            "aicc": [r.aicc for r in fits],
+            "delta_aicc": delta,
+            "akaike_weight": weights,
+            "bic": [r.bic for r in fits],
+        },
+        index=pd.Index(labels, name="fit"),
+    )
+    return table
