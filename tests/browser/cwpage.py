@@ -74,6 +74,20 @@ def fit_d(root: Any) -> str:
     return str(root.locator(FIT_CURVE).first.get_attribute("d") or "")
 
 
+def wait_fit_drawn(page: Any, root: Any, timeout: float = 10_000) -> str:
+    """Wait until the fitted curve is drawn and return its path data.
+
+    The plot draws on the next animation frame, so ``data-cw-status="done"`` (the fit's state)
+    can be seen a frame before the curve's path is written.
+    """
+    page.wait_for_function(
+        "([el, sel]) => (el.querySelector(sel)?.getAttribute('d') ?? '').length > 10",
+        arg=[root.element_handle(), FIT_CURVE],
+        timeout=timeout,
+    )
+    return fit_d(root)
+
+
 def handles(root: Any) -> Any:
     """Locator of every handle (role=slider)."""
     return root.locator('[role="slider"]')

@@ -110,7 +110,7 @@ def test_quickstart_notebook_renders(
     assert root.get_by_role("checkbox", name=re.compile(r"\bzero_dose\b")).is_checked()
     assert float(root.get_by_role("textbox", name="zero_dose", exact=True).input_value()) == 100.0
     assert root.get_attribute("data-cw-excluded") == "[20]"
-    assert len(cwpage.fit_d(root)) > 10
+    assert len(cwpage.wait_fit_drawn(page, root)) > 10
     # The zero-dose wells cannot sit on the log x axis: they are listed, not silently dropped.
     assert re.search(r"rows 0, 1, 2\b", root.inner_text()), root.inner_text()
     harness.ARTIFACTS.mkdir(exist_ok=True)
@@ -192,7 +192,7 @@ def test_drag_nudge_fix_exclude_fit_then_result_in_python(
     assert fit.count() == 1
     fit.click()
     cwpage.wait_root_attr(page, root, "data-cw-status", "done", timeout=120_000)
-    assert len(cwpage.fit_d(root)) > 10, "no fitted curve drawn"
+    assert len(cwpage.wait_fit_drawn(page, root)) > 10, "no fitted curve drawn"
     s5 = _state(page, root)
     res = s5["result"]
     assert res is not None, "widget.result is still None after pressing Fit"
