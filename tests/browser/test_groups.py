@@ -339,3 +339,56 @@ def test_drag_moves_only_the_selected_group_and_fit_equals_fit_global(
     harness.ARTIFACTS.mkdir(exist_ok=True)
     root.screenshot(path=str(harness.ARTIFACTS / f"groups-fitted-{server.app}.png"))
     assert harness.real_page_errors(page.cw_errors) == []
+
+
+CALLABLE_SETUP = """
+import json
+import numpy as np
+import pandas as pd
+import curvewright as cw
+
+rng = np.random.default_rng(5)
+rows = []
+for name, k in (("arvo", 0.5), ("belin", 1.5), ("corra", 4.0)):
+    for xv in np.linspace(0.0, 10.0, 11):
+        rows.append((name, xv, 80.0 * np.exp(-xv / k) + 5 + rng.normal(0, 1.0)))
+df = pd.DataFrame(rows, columns=["group", "t", "signal"])
+
+
+def decay(t, a=50.0, k=1.0, c=0.0):
+    return a * np.exp(-t / k) + c
+
+
+w = cw.CurveBench(df, x="t", y="signal", by="group", model=decay)
+w
+"""
+
+
+def test_callable_model_draws_every_group_from_python_samples(
+    page: Any, server: harness.Server, notebook: Callable[..., str], widget_bundle: Any
+) -> None:
+    # The page cannot evaluate a Python callable: the selected group's curve comes from
+    # preview_curve, the others' from groups_json.curves (sampled in the kernel).
+    name = notebook(cells=[CALLABLE_SETUP, "print('CURVES', json.dumps(w.groups_json['curves']))"])
+    harness.open_notebook(page, server, name)
+    harness.run_cell(page, 0)
+    root = cwpage.wait_rendered(page, handles=False)
+    _wait_curves(page, root, 3)
+    curves = _curves(root)
+    assert set(curves) == {"arvo", "belin", "corra"}
+    for i, lab in enumerate(["arvo", "belin", "corra"]):
+        assert curves[lab]["stroke"] == _rgb(PALETTE[i])
+    sampled = cwpage.kernel_json(page, 1, "CURVES")
+    assert set(sampled) == {"belin", "corra"}  # the selected group (arvo) is preview_curve
+    # Each drawn curve is Python's samples put on the axes: one path vertex per sample, in
+    # order (every sample of this decay is finite), checked at the middle and the last.
+    cwpage.show_plot(root)
+    ax = cwpage.axes(root)
+    for lab in ("belin", "corra"):
+        pts = re.findall(r"[ML]([-\d.eE]+),([-\d.eE]+)", curves[lab]["d"])
+        xs, ys = sampled[lab]["x"], sampled[lab]["y"]
+        assert len(pts) == len(xs)
+        for k in (len(xs) // 2, len(xs) - 1):
+            assert float(pts[k][0]) == pytest.approx(ax.x(xs[k]), abs=1.0)
+            assert float(pts[k][1]) == pytest.approx(ax.y(ys[k]), abs=1.0)
+    assert harness.real_page_errors(page.cw_errors) == []
