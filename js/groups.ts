@@ -243,7 +243,8 @@ export function legendEntries(groups: GroupsJson): LegendEntry[] {
   return groups.labels.map((label, index) => {
     const h = hidden.has(label);
     const x = excluded.has(label);
-    const note = [h ? "hidden" : "", x ? "not fitted" : ""].filter(Boolean).join(", ");
+    const note = [h ? "hidden" : "", x ? "left out" : ""].filter(Boolean).join(", ");
+    const said = [h ? "hidden" : "", x ? "left out of the fit" : ""].filter(Boolean).join(", ");
     return {
       label,
       index,
@@ -251,7 +252,7 @@ export function legendEntries(groups: GroupsJson): LegendEntry[] {
       selected: label === groups.selected,
       hidden: h,
       excluded: x,
-      selectName: `Group ${label}${label === groups.selected ? " (selected)" : ""}${note ? `, ${note}` : ""}`,
+      selectName: `Group ${label}${label === groups.selected ? " (selected)" : ""}${said ? `, ${said}` : ""}`,
       hideName: `Hide group ${label}`,
       excludeName: `Leave group ${label} out of the fit`,
       note,

@@ -130,7 +130,7 @@ describe("legend and points", () => {
     expect(e[0]!.excluded && !e[0]!.hidden).toBe(true);
     expect(e[1]!.style).toEqual(groupStyle(1));
     expect(e[1]!.selectName).toContain("selected");
-    expect(e[0]!.selectName).toContain("not fitted");
+    expect(e[0]!.selectName).toContain("left out of the fit");
     const names = e.flatMap((x) => [x.selectName, x.hideName, x.excludeName]);
     expect(new Set(names).size).toBe(names.length);
   });
