@@ -49,7 +49,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any, NamedTuple
+from typing import Any, Literal, NamedTuple
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -59,6 +59,7 @@ from ..inference import quantile
 from ..models import Model
 from ..result import _power_of
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
+from .batch_kernel import STATUS, kernel_for
 from .problem import FloatArray
 
 __all__ = [
@@ -374,6 +375,75 @@ def _solve_systems(m: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArra
 
 
 # ============================================================================ solver
+# Groups per call of the compiled kernel: cancel is polled between calls.
+_CHUNK = 4096
+
+
+def _run_compiled(
+    run: Callable[..., None],
+    prob: BatchProblem,
+    idx: IntArray,
+    values: FloatArray,
+    ssr_out: FloatArray,
+    evals: IntArray,
+    iters: IntArray,
+    settled: BoolArray,
+    reason: list[str],
+    max_iterations: int,
+    cancel: Callable[[], bool] | None,
+) -> None:
+    """Solve the groups ``idx`` with the compiled kernel, in chunks, filling the outputs."""
+    free = np.ascontiguousarray(prob.free, dtype=np.bool_)
+    for c0 in range(0, idx.size, _CHUNK):
+        part = idx[c0 : c0 + _CHUNK]
+        if cancel is not None and cancel():
+            for i in idx[c0:]:
+                reason[i] = "cancelled"
+            return
+        x = np.ascontiguousarray(prob.x[part], dtype=float)
+        wt = np.ones_like(x) if prob.sw is None else np.ascontiguousarray(prob.sw[part])
+        th = np.ascontiguousarray(values[part], dtype=float)
+        k = part.size
+        ssr = np.full(k, np.nan)
+        ev = np.zeros(k, dtype=np.int64)
+        it = np.zeros(k, dtype=np.int64)
+        st = np.zeros(k, dtype=np.int64)
+        with np.errstate(all="ignore"):
+            run(
+                x,
+                np.ascontiguousarray(prob.y[part], dtype=float),
+                wt,
+                np.ascontiguousarray(prob.mask[part], dtype=np.bool_),
+                free,
+                th,
+                np.ascontiguousarray(prob.lower[part], dtype=float),
+                np.ascontiguousarray(prob.upper[part], dtype=float),
+                int(max_iterations),
+                FTOL,
+                XTOL,
+                GTOL,
+                _LAMBDA0,
+                _ACCEPT,
+                _LAMBDA_MAX,
+                _BACK,
+                _SNAP,
+                ssr,
+                ev,
+                it,
+                st,
+            )
+        values[part] = th
+        ssr_out[part] = ssr
+        evals[part] = ev
+        iters[part] = it
+        settled[part] = st == 0
+        for i, code, n_it in zip(part.tolist(), st.tolist(), it.tolist(), strict=True):
+            if code == 2 and n_it == 0:
+                reason[i] = "non-finite model values at the start"
+            elif code:
+                reason[i] = STATUS[code]
+
+
 def _bounded_step(
     theta: FloatArray, delta: FloatArray, lo: FloatArray, hi: FloatArray
 ) -> FloatArray:
@@ -401,6 +471,7 @@ def solve_batch(
     *,
     max_iterations: int = 200,
     cancel: Callable[[], bool] | None = None,
+    kernel: Literal["auto", "compiled", "numpy"] = "auto",
 ) -> BatchSolution:
     """Fit every group of ``problem`` by Levenberg-Marquardt, all groups advancing together.
 
@@ -410,8 +481,14 @@ def solve_batch(
     max_iterations : int
         Limit on iterations per group (each evaluates the model once).
     cancel : callable, optional
-        Polled once per iteration; when it returns True the groups still working stop with
-        the reason ``"cancelled"`` at their best point so far.
+        Polled once per iteration (numpy) or per chunk of groups (compiled); when it returns
+        True the groups still working stop with the reason ``"cancelled"``, at their best
+        point so far (numpy) or at their start (compiled chunks not yet run).
+    kernel : {"auto", "compiled", "numpy"}
+        ``"compiled"`` runs the same algorithm per group in code compiled by numba
+        (:mod:`.batch_kernel`), far faster; ``"numpy"`` advances all groups together in numpy;
+        ``"auto"`` takes the compiled kernel when numba is installed and compiles the model,
+        else numpy. ``"compiled"`` without numba raises.
 
     Returns
     -------
@@ -446,6 +523,37 @@ def solve_batch(
 
     # The working set, compacted as groups finish: global index and per-group arrays.
     idx = np.flatnonzero(start_ok & ~few)
+    run = None if kernel == "numpy" else kernel_for(model)
+    if kernel == "compiled" and run is None:
+        raise ModelError(
+            "kernel='compiled' needs numba (pip install numba) and a model it can compile; "
+            "use kernel='auto' to fall back to numpy."
+        )
+    if run is not None:
+        try:
+            _run_compiled(
+                run,
+                prob,
+                idx,
+                values,
+                ssr_out,
+                evals,
+                iters,
+                settled,
+                reason,
+                max_iterations,
+                cancel,
+            )
+        except Exception as exc:  # numba's compile errors come at the first call, of many types
+            if kernel == "compiled":
+                raise ModelError(
+                    f"numba could not compile the batch kernel of this model: {exc}"
+                ) from exc
+            run = None  # the numpy path below starts again from the starts
+            values[idx] = prob.start[idx]
+        else:
+            values[:, ~free] = prob.start[:, ~free]
+            return BatchSolution(values, ssr_out, evals, iters, settled, tuple(reason))
     x = prob.x[idx]
     y = prob.y[idx]
     real = prob.mask[idx]
@@ -505,7 +613,7 @@ def solve_batch(
             f_t, jac_t = _evaluate(grad, x, trial, P)
             _patch_jacobian(model, x, trial, f_t, jac_t, lo, hi, real)
             r_t, jw_t, ssr_t, ok_t = _residuals(f_t, jac_t, y, wt, real)
-            evals[idx] += 1
+            evals[idx] += ~done_g
             act = ssr - ssr_t
             rho = np.where(pred > 0, act / pred, -1.0)
             accept = ok_t & solved & ~done_g & (rho > _ACCEPT)
