@@ -12,37 +12,54 @@ Interface
     ``model`` (a formula model), padded ``x``, ``y``, ``mask`` (True = a real point) and
     ``sw`` (1/sigma, or None) of shape ``(G, N)``; ``free`` ``(P,)`` in ``model.param_names``
     order; ``start``, ``lower``, ``upper`` ``(G, P)``. :meth:`BatchProblem.from_groups` pads
-    ragged groups and broadcasts per-parameter settings.
-:func:`solve_batch` -> :class:`BatchSolution`
+    ragged groups and broadcasts per-parameter settings (``(P,)`` or ``(G, P)``; defaults: the
+    model's values and bounds, every parameter free). ``groups`` and ``n`` (real points per
+    group) are properties.
+:func:`solve_batch(problem, *, max_iterations=200, cancel=None, kernel="auto")
+<solve_batch>` -> :class:`BatchSolution`
     ``values (G, P)``, ``ssr (G,)``, ``evaluations (G,)``, ``iterations (G,)``,
-    ``settled (G,)`` and ``reason`` (``""`` when settled, else a short plain reason).
-:func:`batch_statistics` -> :class:`BatchStatistics`
-    ``n``, ``dof``, ``covariance (G, P, P)`` (NaN rows and columns for fixed parameters),
-    ``stderr (G, P)``, ``condition``, ``singular``, ``near_singular``, ``max_correlation``,
-    ``high_correlation``, ``at_lower``/``at_upper``/``at_bound`` and ``not_identified`` ``(G, P)``.
-:func:`batch_derived` -> ``{name: DerivedColumns(value, stderr, lower, upper, in_data_range)}``
-    each of shape ``(G,)``.
+    ``settled (G,)`` and ``reason`` (``""`` when settled, else one of "iteration limit",
+    "non-finite model values at the start", "non-finite model values", "singular system",
+    "start outside the bounds or not finite", "no more points than free parameters",
+    "cancelled").
+:func:`batch_statistics(problem, solution, *, absolute_sigma=False) <batch_statistics>`
+    -> :class:`BatchStatistics`: ``n``, ``dof``, ``covariance (G, P, P)`` (NaN rows and
+    columns for fixed parameters), ``stderr (G, P)``, ``condition``, ``singular``,
+    ``near_singular``, ``max_correlation``, ``high_correlation``, ``at_lower``/``at_upper``/
+    ``at_bound`` and ``not_identified`` ``(G, P)``, ``absolute_sigma``.
+:func:`batch_derived(problem, solution, stats, level=0.95) <batch_derived>`
+    -> ``{name: DerivedColumns(value, stderr, lower, upper, in_data_range)}``, each ``(G,)``
+    (``in_data_range`` None for a quantity not on the x axis).
 
 Method
 ------
 Levenberg-Marquardt with Marquardt's diagonal scaling (the running maximum of ``diag(J'J)``,
 as MINPACK), Nielsen's damping update, one damping factor per group. The model's value and
 analytic Jacobian come from one call of its compiled code (``Model._value_and_gradient``) on
-``(g, N)`` arrays with parameter columns ``(g, 1)``. Bounds are kept by projection: a parameter
-on a bound whose gradient points outwards is held for the step, the trial point is clipped into
-the box, so the model is never evaluated outside the bounds and a minimum on a bound is reached
-exactly (where the single fit's polish, a bounded trust-region run, also ends). A minimum inside
-the bounds is the unconstrained one, which is what the single fit's first run and polish reach.
+``(g, N)`` arrays with parameter columns ``(g, 1)``; a derivative that is not finite where the
+value is (the 4PL's slope at a zero-dose control) is replaced by central differences, as the
+single fit does. Two implementations run the same steps: numpy over the group axis (settled
+groups leave the working set), and a compiled per-group loop (:mod:`.batch_kernel`, numba),
+2-4 times faster; ``kernel="auto"`` takes the compiled one when it is available.
 
-A group settles when (MINPACK's three tests, tighter than its defaults because the single fit
-polishes to machine precision): the scaled gradient cosine ``max |J_j' r| / (|J_j| |r|)`` is
-below ``GTOL``; or an accepted step has actual and predicted relative reductions of the sum of
-squares below ``FTOL``; or the scaled step is below ``XTOL`` times the scaled parameters (also
-after a rejected step: no representable step reduces the sum any more). Points outside
-``mask`` take no part: their residuals and Jacobian rows are set to zero with ``np.where``, so
-whatever padding values they hold (even NaN) never change an answer. A non-finite model value
-at a trial point rejects the step (the damping grows), as the single fit's penalty does; at the
-start it ends the group with a reason. Settled groups leave the working set.
+Bounds: the model is never evaluated outside them. A step that would cross a bound goes half
+the way to it, so one long step cannot land on a bound where the model degenerates (a Hill
+slope of 0); a parameter already within a millionth of its step from the bound is put on it,
+and a parameter on a bound whose descent direction points outward is held for the step. A
+minimum on a bound is thus reached exactly (where the single fit's bounded polish also ends);
+one inside is the unconstrained minimum, which the single fit's MINPACK runs reach.
+
+A group settles by MINPACK's three tests, tighter than its defaults because the single fit
+polishes to machine precision: the scaled gradient cosine ``max |J_j' r| / (|J_j| |r|)`` below
+``GTOL``; an accepted step with actual and predicted relative reductions below ``FTOL``; or a
+scaled step below ``XTOL`` times the scaled parameters (also after a rejected step: no
+representable step reduces the sum any more). A group that settles while its scaling is stale
+(a running maximum over a thousand times the current curvature) starts again from there with
+fresh scaling, as the single fit's polish restarts MINPACK. Points outside ``mask`` take no
+part: their residuals and Jacobian rows are set to zero with ``np.where``, so whatever padding
+values they hold (even NaN) never change an answer. A non-finite model value at a trial point
+rejects the step (the damping grows), as the single fit's penalty does; at the start it ends
+the group with a reason.
 """
 
 from __future__ import annotations
@@ -97,6 +114,10 @@ _LAMBDA_MAX = 1e16
 # its step from the bound is put on it.
 _BACK = 0.5
 _SNAP = 1e-6
+# A group that settles while some scaling exceeds its current curvature this many times starts
+# again with fresh scaling, at most _RESTARTS times.
+_STALE = 1e3
+_RESTARTS = 10
 _TINY = np.finfo(float).tiny
 _EPS = float(np.finfo(float).eps)
 
@@ -427,6 +448,8 @@ def _run_compiled(
                 _LAMBDA_MAX,
                 _BACK,
                 _SNAP,
+                _STALE,
+                _RESTARTS,
                 ssr,
                 ev,
                 it,
@@ -574,11 +597,13 @@ def solve_batch(
     lam = np.full(idx.size, _LAMBDA0)
     nu = np.full(idx.size, 2.0)
     scale = np.zeros((idx.size, P))
+    restarts = np.zeros(idx.size, dtype=int)
 
     def compact(k: BoolArray) -> None:
-        nonlocal idx, x, y, real, wt, lo, hi, theta, r, jw, ssr, lam, nu, scale
+        nonlocal idx, x, y, real, wt, lo, hi, theta, r, jw, ssr, lam, nu, scale, restarts
         idx, x, y, real, wt, lo, hi = idx[k], x[k], y[k], real[k], wt[k], lo[k], hi[k]
         theta, r, jw, ssr, lam, nu, scale = theta[k], r[k], jw[k], ssr[k], lam[k], nu[k], scale[k]
+        restarts = restarts[k]
 
     compact(keep)
     eye = np.eye(P)
@@ -634,6 +659,19 @@ def solve_batch(
         done_x = small_step & (accept | (ok_t & solved))
         stuck = lam > _LAMBDA_MAX
         done = done_g | done_f | done_x | stuck
+        # A scaling frozen from early iterations (a running maximum far above the curvature
+        # now) can stall a run along a long valley, e.g. a 5PL asymmetry drifting to infinity;
+        # such a group starts again from where it stopped with fresh scaling and damping, as
+        # the single fit's polish restarts MINPACK.
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(frozen | (diag <= 0), 1.0, scale / diag)
+        again = (done_f | done_x) & (np.max(ratio, axis=1) > _STALE) & (restarts < _RESTARTS)
+        if again.any():
+            restarts += again
+            scale = np.where(again[:, None], 0.0, scale)
+            lam = np.where(again, _LAMBDA0, lam)
+            nu = np.where(again, 2.0, nu)
+            done &= ~again
         if done.any():
             fin = idx[done]
             values[fin] = theta[done]
