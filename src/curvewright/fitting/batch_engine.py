@@ -396,8 +396,8 @@ def _solve_systems(m: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArra
 
 
 # ============================================================================ solver
-# Groups per call of the compiled kernel: cancel is polled between calls.
-_CHUNK = 4096
+# Groups per call of the compiled kernel (cancel is polled between calls) and per numpy run.
+_CHUNK = 8192
 
 
 def _run_compiled(
@@ -489,94 +489,25 @@ def _bounded_step(
     return out
 
 
-def solve_batch(
-    problem: BatchProblem,
-    *,
-    max_iterations: int = 200,
-    cancel: Callable[[], bool] | None = None,
-    kernel: Literal["auto", "compiled", "numpy"] = "auto",
-) -> BatchSolution:
-    """Fit every group of ``problem`` by Levenberg-Marquardt, all groups advancing together.
-
-    Parameters
-    ----------
-    problem : BatchProblem
-    max_iterations : int
-        Limit on iterations per group (each evaluates the model once).
-    cancel : callable, optional
-        Polled once per iteration (numpy) or per chunk of groups (compiled); when it returns
-        True the groups still working stop with the reason ``"cancelled"``, at their best
-        point so far (numpy) or at their start (compiled chunks not yet run).
-    kernel : {"auto", "compiled", "numpy"}
-        ``"compiled"`` runs the same algorithm per group in code compiled by numba
-        (:mod:`.batch_kernel`), far faster; ``"numpy"`` advances all groups together in numpy;
-        ``"auto"`` takes the compiled kernel when numba is installed and compiles the model,
-        else numpy. ``"compiled"`` without numba raises.
-
-    Returns
-    -------
-    BatchSolution
-    """
-    prob = problem
+def _run_numpy(
+    prob: BatchProblem,
+    idx: IntArray,
+    values: FloatArray,
+    ssr_out: FloatArray,
+    evals: IntArray,
+    iters: IntArray,
+    settled: BoolArray,
+    reason: list[str],
+    max_iterations: int,
+    cancel: Callable[[], bool] | None,
+) -> bool:
+    """Solve the groups ``idx`` together in numpy, filling the outputs; True if cancelled."""
     model = prob.model
     grad = model._value_and_gradient
-    if grad is None:  # pragma: no cover - BatchProblem refuses callables
-        raise ModelError("The batch engine needs a formula model.")
-    G, P = prob.start.shape
-    values = np.array(prob.start, dtype=float)
-    ssr_out = np.full(G, np.nan)
-    evals = np.zeros(G, dtype=int)
-    iters = np.zeros(G, dtype=int)
-    settled = np.zeros(G, dtype=bool)
-    reason = [""] * G
-    if G == 0:
-        return BatchSolution(values, ssr_out, evals, iters, settled, ())
+    assert grad is not None  # BatchProblem refuses callables
+    P = prob.start.shape[1]
     free = np.asarray(prob.free, dtype=bool)
-    nfree = int(free.sum())
-    npts = prob.n
-
-    start_ok = np.all(
-        (values >= prob.lower) & (values <= prob.upper) | ~free[None, :], axis=1
-    ) & np.all(np.isfinite(values), axis=1)
-    for i in np.flatnonzero(~start_ok):
-        reason[i] = "start outside the bounds or not finite"
-    few = npts <= nfree
-    for i in np.flatnonzero(few & start_ok):
-        reason[i] = "no more points than free parameters"
-
-    # The working set, compacted as groups finish: global index and per-group arrays.
-    idx = np.flatnonzero(start_ok & ~few)
-    run = None if kernel == "numpy" else kernel_for(model)
-    if kernel == "compiled" and run is None:
-        raise ModelError(
-            "kernel='compiled' needs numba (pip install numba) and a model it can compile; "
-            "use kernel='auto' to fall back to numpy."
-        )
-    if run is not None:
-        try:
-            _run_compiled(
-                run,
-                prob,
-                idx,
-                values,
-                ssr_out,
-                evals,
-                iters,
-                settled,
-                reason,
-                max_iterations,
-                cancel,
-            )
-        except Exception as exc:  # numba's compile errors come at the first call, of many types
-            if kernel == "compiled":
-                raise ModelError(
-                    f"numba could not compile the batch kernel of this model: {exc}"
-                ) from exc
-            run = None  # the numpy path below starts again from the starts
-            values[idx] = prob.start[idx]
-        else:
-            values[:, ~free] = prob.start[:, ~free]
-            return BatchSolution(values, ssr_out, evals, iters, settled, tuple(reason))
+    cancelled = False
     x = prob.x[idx]
     y = prob.y[idx]
     real = prob.mask[idx]
@@ -613,6 +544,7 @@ def solve_batch(
         if cancel is not None and cancel():
             for i in idx:
                 reason[i] = "cancelled"
+            cancelled = True
             break
         iters[idx] += 1
         with np.errstate(all="ignore"):
@@ -688,6 +620,104 @@ def solve_batch(
     for i in idx:
         if not reason[i]:
             reason[i] = "iteration limit"
+    return cancelled
+
+
+def solve_batch(
+    problem: BatchProblem,
+    *,
+    max_iterations: int = 200,
+    cancel: Callable[[], bool] | None = None,
+    kernel: Literal["auto", "compiled", "numpy"] = "auto",
+) -> BatchSolution:
+    """Fit every group of ``problem`` by Levenberg-Marquardt, all groups advancing together.
+
+    Parameters
+    ----------
+    problem : BatchProblem
+    max_iterations : int
+        Limit on iterations per group (each evaluates the model once).
+    cancel : callable, optional
+        Polled once per iteration (numpy) or per chunk of groups (compiled); when it returns
+        True the groups still working stop with the reason ``"cancelled"``, at their best
+        point so far (numpy) or at their start (compiled chunks not yet run).
+    kernel : {"auto", "compiled", "numpy"}
+        ``"compiled"`` runs the same algorithm per group in code compiled by numba
+        (:mod:`.batch_kernel`), far faster; ``"numpy"`` advances all groups together in numpy;
+        ``"auto"`` takes the compiled kernel when numba is installed and compiles the model,
+        else numpy. ``"compiled"`` without numba raises.
+
+    Returns
+    -------
+    BatchSolution
+    """
+    prob = problem
+    model = prob.model
+    G = prob.start.shape[0]
+    values = np.array(prob.start, dtype=float)
+    ssr_out = np.full(G, np.nan)
+    evals = np.zeros(G, dtype=int)
+    iters = np.zeros(G, dtype=int)
+    settled = np.zeros(G, dtype=bool)
+    reason = [""] * G
+    if G == 0:
+        return BatchSolution(values, ssr_out, evals, iters, settled, ())
+    free = np.asarray(prob.free, dtype=bool)
+    nfree = int(free.sum())
+    npts = prob.n
+
+    start_ok = np.all(
+        (values >= prob.lower) & (values <= prob.upper) | ~free[None, :], axis=1
+    ) & np.all(np.isfinite(values), axis=1)
+    for i in np.flatnonzero(~start_ok):
+        reason[i] = "start outside the bounds or not finite"
+    few = npts <= nfree
+    for i in np.flatnonzero(few & start_ok):
+        reason[i] = "no more points than free parameters"
+
+    # The working set, compacted as groups finish: global index and per-group arrays.
+    idx = np.flatnonzero(start_ok & ~few)
+    run = None if kernel == "numpy" else kernel_for(model)
+    if kernel == "compiled" and run is None:
+        raise ModelError(
+            "kernel='compiled' needs numba (pip install numba) and a model it can compile; "
+            "use kernel='auto' to fall back to numpy."
+        )
+    if run is not None:
+        try:
+            _run_compiled(
+                run,
+                prob,
+                idx,
+                values,
+                ssr_out,
+                evals,
+                iters,
+                settled,
+                reason,
+                max_iterations,
+                cancel,
+            )
+        except Exception as exc:  # numba's compile errors come at the first call, of many types
+            if kernel == "compiled":
+                raise ModelError(
+                    f"numba could not compile the batch kernel of this model: {exc}"
+                ) from exc
+            run = None  # the numpy path below starts again from the starts
+            values[idx] = prob.start[idx]
+        else:
+            values[:, ~free] = prob.start[:, ~free]
+            return BatchSolution(values, ssr_out, evals, iters, settled, tuple(reason))
+    # The numpy path in chunks: bounded memory (arrays of shape (chunk, P, N)), and each
+    # chunk's working set shrinks as its groups settle.
+    for c0 in range(0, idx.size, _CHUNK):
+        if _run_numpy(
+            prob, idx[c0 : c0 + _CHUNK], values, ssr_out, evals, iters, settled, reason,
+            max_iterations, cancel,
+        ):  # fmt: skip
+            for i in idx[c0 + _CHUNK :]:
+                reason[i] = "cancelled"
+            break
     values[:, ~free] = prob.start[:, ~free]
     return BatchSolution(values, ssr_out, evals, iters, settled, tuple(reason))
 
