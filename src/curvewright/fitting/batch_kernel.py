@@ -48,6 +48,8 @@ def available() -> bool:
 
 _TOKEN = re.compile(r"\b(_t\d+|x)\b")
 _SQUARE = re.compile(r"^_pow\((\w+), 2\.0\)$")
+_MINUS_ONE = re.compile(r"^_sub\((\w+), 1\.0\)$")
+_POWER = re.compile(r"^_pow\((\w+), (\w+)\)$")
 
 
 def _sources(model: Model) -> str:
@@ -67,11 +69,26 @@ def _sources(model: Model) -> str:
     varying: set[str] = {"x"}
     fixed_lines: list[str] = []
     point_lines: list[str] = []
+    minus_one: dict[str, str] = {}  # temp -> b, for temp = b - 1
+    powers: dict[tuple[str, str], str] = {}  # (a, b) -> temp, for temp = a**b
     for b in body:
         temp, code = b.split(" = ", 1)
         sq = _SQUARE.match(code)
         if sq:
             code = f"_mul({sq.group(1)}, {sq.group(1)})"
+        sub = _MINUS_ONE.match(code)
+        if sub:
+            minus_one[temp] = sub.group(1)
+        pw = _POWER.match(code)
+        if pw:
+            base, expo = pw.group(1), pw.group(2)
+            known = powers.get((base, minus_one.get(expo, "")))
+            if known is not None:
+                # a**(b - 1) as a**b / a when a**b is already known (a power's derivative):
+                # one transcendental call fewer per point; at a = 0 the power itself.
+                code = f"(_div({known}, {base}) if {base} != 0.0 else {code})"
+            else:
+                powers[(base, expo)] = temp
         line = f"{temp} = {code}"
         lines.append((temp, line))
         if any(tok in varying for tok in _TOKEN.findall(code)):
