@@ -2,12 +2,15 @@
 
 Its one job is to run, for one formula model, the same algorithm as the numpy path of
 :func:`curvewright.fitting.batch_engine.solve_batch` one group at a time in code compiled by
-numba: the model's value and analytic derivatives at one point are generated as scalar code
-from the expression tree (the same straight-line statements :mod:`curvewright.expr` generates
-for numpy, run on floats), and the solver loop (normal equations, Cholesky solve, bounded step,
-convergence tests) is a plain compiled function specialised to that point function. numba is
-optional: :func:`kernel_for` returns None when it is missing or cannot compile a model, and the
-caller keeps the numpy path.
+numba. The model's value and analytic derivatives are generated as scalar code from the
+expression tree (the straight-line statements :mod:`curvewright.expr` generates for numpy, run
+on floats, with the statements that do not depend on x hoisted out of the loop over points);
+the solver loop (normal equations, Cholesky solve, bounded step, convergence tests, restart on
+stale scaling) is a fixed template. Both are written as one small module per model into
+:func:`cache_dir` and imported from there, so numba's on-disk cache serves later processes
+(compiling takes seconds; loading, a fraction of one). numba is optional at run time:
+:func:`kernel_for` returns None when it is missing or refuses the model, and the caller keeps
+the numpy path.
 """
 
 from __future__ import annotations
