@@ -190,3 +190,5 @@ def test_bad_input_gets_a_clear_error() -> None:
         guided_starts(m, x, x, np.ones((2, 3), dtype=bool), fixed={"n_h": math.nan})
     with pytest.raises(ParameterError, match="shape"):
         guided_starts(m, x, x, np.ones((2, 3), dtype=bool), lower=np.zeros(3))
+    with pytest.raises(ParameterError, match="'n_h' in group 0"):
+        guided_starts(m, x, x, np.ones((2, 3), dtype=bool), lower=[0, 0, 0, 2], upper=[1, 1, 1, 1])

@@ -1357,7 +1357,7 @@ def guided_starts(
         x, y and mask are not 2-d arrays of one shape, or the mask is not boolean.
     ParameterError
         ``fixed`` names an unknown parameter or gives a non-finite value; bounds of the wrong
-        shape.
+        shape, NaN, or a lower bound above the upper one.
     """
     xa, ya, ma = _checked(model, x, y, mask)
     G, N = xa.shape
@@ -1366,6 +1366,13 @@ def guided_starts(
     held = _checked_fixed(model, fixed, G)
     lo = _checked_bounds(model, lower, G, "lower")
     hi = _checked_bounds(model, upper, G, "upper")
+    crossed = ~(lo <= hi)  # NaN bounds count as crossed
+    if np.any(crossed):
+        g, j = (int(i[0]) for i in np.nonzero(crossed))
+        raise ParameterError(
+            f"guided_starts: bounds of {names[j]!r} in group {g} are [{lo[g, j]}, {hi[g, j]}]; "
+            "the lower bound must not exceed the upper one (and neither may be NaN)."
+        )
     starts = np.broadcast_to(np.array([p.value for p in model.params]), (G, P)).copy()
     ok = np.zeros(G, dtype=bool)
     fam = _family_of(model)
