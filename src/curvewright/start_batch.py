@@ -1353,8 +1353,10 @@ def guided_starts(
         False the row holds the model's defaults (moved inside the bounds).
     ok : ndarray of bool, shape (G,)
         False where the batched rule gives no start: too few or non-finite points, fewer than
-        two distinct x, x outside the model's domain, a degenerate solve, or a model without a
-        batched rule. Use :func:`curvewright.start.guided_start` for those groups.
+        two distinct x, x outside the model's domain, a degenerate solve, a level or amplitude
+        over a million times the data's size (a feature far outside the data), a growth model
+        with fixed parameters, or a model without a batched rule. Use
+        :func:`curvewright.start.guided_start` for those groups.
 
     Raises
     ------
@@ -1391,6 +1393,12 @@ def guided_starts(
             blk = _prepare(model, xa[rows], ya[rows], ma[rows], lo[rows], hi[rows], bh)
             vals, ssr = _run_family(fam, blk)
             good = np.isfinite(ssr)
+            # a level or amplitude a million times the data's size: the best trial put the
+            # curve's feature far outside the data; better the per-curve rule than that start
+            size = 1e6 * (np.max(np.abs(blk.y), axis=1) + np.sqrt(blk.syyc / blk.n) + 1e-300)
+            for n in fam.linear:
+                if n in vals:
+                    good &= np.abs(vals[n]) <= size
             for j, n in enumerate(names):
                 v = vals.get(n)
                 if v is not None:
