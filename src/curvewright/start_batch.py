@@ -1285,7 +1285,7 @@ def _checked_bounds(model: Model, bound: ArrayLike | None, g: int, which: str) -
         ) from None
 
 
-def _checked_fixed(model: Model, fixed: Mapping[str, ArrayLike] | None, g: int) -> Values:
+def _checked_fixed(model: Model, fixed: Mapping[str, float | FloatArray] | None, g: int) -> Values:
     out: Values = {}
     for name, value in (fixed or {}).items():
         if name not in model.param_names:
@@ -1323,7 +1323,7 @@ def guided_starts(
     x: FloatArray,
     y: FloatArray,
     mask: NDArray[np.bool_],
-    fixed: Mapping[str, float] | None = None,
+    fixed: Mapping[str, float | FloatArray] | None = None,
     lower: FloatArray | None = None,
     upper: FloatArray | None = None,
 ) -> tuple[FloatArray, NDArray[np.bool_]]:
