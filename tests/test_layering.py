@@ -208,6 +208,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.fitting.assemble",
         "curvewright.fitting.single",
         "curvewright.fitting.global_fit",
+        "curvewright.fitting.batch_engine",
     ),
     "statistics": (
         "curvewright.stats",
