@@ -200,7 +200,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.start",
         "curvewright.catalog",
     ),
-    "result": ("curvewright.result", "curvewright.global_result"),
+    "result": ("curvewright.result", "curvewright.global_result", "curvewright.batch_result"),
     "fit": (
         "curvewright.fitting",
         "curvewright.fitting.problem",
@@ -209,6 +209,8 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.fitting.single",
         "curvewright.fitting.global_fit",
         "curvewright.fitting.batch_engine",
+        "curvewright.fitting.batch",
+        "curvewright.fitting.batch_dask",
     ),
     "statistics": (
         "curvewright.stats",

@@ -31,7 +31,16 @@ from .errors import CurvewrightError, FitError, ModelError, ParameterError
 from .global_result import _key_from_json, _key_to_json
 from .models import Model
 from .parameters import Parameters
-from .result import FitResult, _dec, _dec_array, _enc, _enc_array, _num, _restore_model
+from .result import (
+    FitResult,
+    _dec,
+    _dec_array,
+    _enc,
+    _enc_array,
+    _need,
+    _num,
+    _restore_model,
+)
 from .thresholds import CAUTION
 
 __all__ = ["STATUSES", "PATHS", "BatchResult", "register_group_fit"]
@@ -154,7 +163,9 @@ class BatchResult:
         put(self, "options", MappingProxyType(dict(self.options)))
         for name in ("labels", "status", "reason", "path", "flags", "datasets"):
             if len(getattr(self, name)) != g:
-                raise ValueError(f"BatchResult: {name} has {len(getattr(self, name))} entries, not {g}.")
+                raise ValueError(
+                    f"BatchResult: {name} has {len(getattr(self, name))} entries, not {g}."
+                )
         bad = {s for s in self.status if s not in STATUSES} | {
             s for s in self.path if s not in PATHS
         }
@@ -224,9 +235,42 @@ class BatchResult:
         row = {n: float(self.starts[i, names.index(n)]) for n in free}
         return self.parameters.with_values({n: v for n, v in row.items() if math.isfinite(v)})
 
+    def take(self, indices: Sequence[int]) -> BatchResult:
+        """A batch of the groups at ``indices`` (in that order), with their cached fits."""
+        ix = [int(i) for i in indices]
+        out = BatchResult(
+            model=self.model,
+            by=self.by,
+            keys=tuple(self.keys[i] for i in ix),
+            labels=labels_of([self.keys[i] for i in ix]),
+            level=self.level,
+            value_array=self.value_array[ix],
+            stderr_array=self.stderr_array[ix],
+            lower_array=self.lower_array[ix],
+            upper_array=self.upper_array[ix],
+            ssr_array=self.ssr_array[ix],
+            n_used=self.n_used[ix],
+            n_dropped=self.n_dropped[ix],
+            status=tuple(self.status[i] for i in ix),
+            reason=tuple(self.reason[i] for i in ix),
+            path=tuple(self.path[i] for i in ix),
+            flags=tuple(self.flags[i] for i in ix),
+            derived_names=self.derived_names,
+            derived_array=self.derived_array[ix],
+            starts=self.starts[ix],
+            datasets=tuple(self.datasets[i] for i in ix),
+            parameters=self.parameters,
+            options=self.options,
+        )
+        for new, old in enumerate(ix):
+            if old in self._fits:
+                out._fits[new] = self._fits[old]
+        return out
+
     # ------------------------------------------------------------------ tables
     def _index(self) -> pd.Index:
-        return pd.Index(list(self.labels), name="group")
+        out: pd.Index = pd.Index(list(self.labels), name="group")
+        return out
 
     def _params_frame(self, a: FloatArray) -> pd.DataFrame:
         out: pd.DataFrame = pd.DataFrame(
@@ -420,7 +464,10 @@ class BatchResult:
             f"{c['flagged']} flagged, {c['failed']} failed</div>"
             "<table style='border-collapse:collapse'>"
             f"<thead><tr><th>{e(', '.join(self.by))}</th><th>status</th>{head}<th>reason</th>"
-            "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>" + more
+            "</tr></thead><tbody>"
+            + "".join(rows)
+            + "</tbody></table>"
+            + more
             + f"<div style='font-size:11px;opacity:0.75'>{e(CAUTION)}</div></div>"
         )
 
@@ -489,7 +536,10 @@ class BatchResult:
             )
         try:
             m = _restore_model(d["model"], model)
-            arrays = {k: _dec_array(d[k]) for k in ("values", "stderr", "lower", "upper")}
+            arrays = {
+                k: _need(_dec_array(d[k]))
+                for k in ("values", "stderr", "lower", "upper", "ssr", "derived", "starts")
+            }
             return cls(
                 model=m,
                 by=tuple(str(b) for b in d["by"]),
@@ -500,7 +550,7 @@ class BatchResult:
                 stderr_array=arrays["stderr"],
                 lower_array=arrays["lower"],
                 upper_array=arrays["upper"],
-                ssr_array=_dec_array(d["ssr"]),
+                ssr_array=arrays["ssr"],
                 n_used=np.asarray(d["n_used"], dtype=np.int64),
                 n_dropped=np.asarray(d["n_dropped"], dtype=np.int64),
                 status=tuple(str(s) for s in d["status"]),
@@ -508,8 +558,8 @@ class BatchResult:
                 path=tuple(str(s) for s in d["path"]),
                 flags=tuple(tuple(str(c) for c in f) for f in d["flags"]),
                 derived_names=tuple(str(s) for s in d["derived_names"]),
-                derived_array=_dec_array(d["derived"]),
-                starts=_dec_array(d["starts"]),
+                derived_array=arrays["derived"],
+                starts=arrays["starts"],
                 datasets=tuple(None if x is None else Dataset.from_dict(x) for x in d["datasets"]),
                 parameters=Parameters.from_json(d["parameters"]),
                 options={

@@ -522,7 +522,8 @@ def split_groups(
             )
     if errors == "keep":
         # A missing column is a mistake in the call, not in one group: say it once.
-        for role, c in (("x", x), ("y", y), ("sigma", sigma)):
+        named: list[tuple[str, object]] = [("x", x), ("y", y), ("sigma", sigma)]
+        for role, c in named:
             if isinstance(c, str):
                 _column_name(data, c, role)
     n_rows = len(data)
