@@ -523,9 +523,9 @@ def split_groups(
     if errors == "keep":
         # A missing column is a mistake in the call, not in one group: say it once.
         named: list[tuple[str, object]] = [("x", x), ("y", y), ("sigma", sigma)]
-        for role, c in named:
-            if isinstance(c, str):
-                _column_name(data, c, role)
+        for role, name in named:
+            if isinstance(name, str):
+                _column_name(data, name, role)
     n_rows = len(data)
     mask = np.zeros(n_rows, dtype=bool)
     if exclude is not None:

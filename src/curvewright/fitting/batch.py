@@ -486,7 +486,10 @@ def run_groups(
             if stopped:
                 break
             chunk = todo[a : a + CHUNK]
-            back, unrun = _run_vectorised(req, groups, chunk, starts, rows, stop_reason)
+            try:
+                back, unrun = _run_vectorised(req, groups, chunk, starts, rows, stop_reason)
+            except Exception:  # pragma: no cover - an engine bug must not stop the batch
+                back, unrun = chunk, []
             queue += back
             fin = set(chunk) - set(back) - set(unrun)
             finished |= fin
@@ -579,7 +582,14 @@ def _run_one(
         return _Row(reason=str(exc), path="per-group")
     except Exception as exc:  # a model function that raises something of its own
         return _Row(reason=f"the model raised {type(exc).__name__}: {exc}", path="per-group")
-    return _row_of_fit(r, req.level)
+    try:
+        return _row_of_fit(r, req.level)
+    except Exception as exc:  # pragma: no cover - a bug in the statistics, said plainly
+        return _Row(
+            reason=f"computing its statistics failed ({type(exc).__name__}: {exc})",
+            path="per-group",
+            fit=r,
+        )
 
 
 def _fit_group(
