@@ -353,7 +353,7 @@ def test_starts_dict_template_and_frame() -> None:
 
 def test_bad_input_gets_our_own_error() -> None:
     df = _plate(["a"])
-    with pytest.raises(cw.DataError, match="'compund'.*Did you mean 'compound'"):
+    with pytest.raises(cw.DataError, match=r"'compund'.*Did you mean 'compound'"):
         cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="compund")
     with pytest.raises(cw.DataError, match="empty table"):
         cw.fit_groups("inhibition_4pl", data=df.iloc[:0], x="conc", y="resp", by="compound")
