@@ -9,6 +9,7 @@ the local backend's group order, so the result is the local one.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import time
 from collections.abc import Callable
@@ -176,9 +177,11 @@ def _gather(
                 for i in pending:
                     out[i] = f"not run: {stopped}"
                 break
-            distributed.wait(
-                [futures[i] for i in pending], timeout=0.2, return_when="FIRST_COMPLETED"
-            )
+            # Short waits, so cancel and the time limit are seen while tasks run.
+            with contextlib.suppress(TimeoutError):
+                distributed.wait(
+                    [futures[i] for i in pending], timeout=0.2, return_when="FIRST_COMPLETED"
+                )
             for i in sorted(pending):
                 f = futures[i]
                 if f.status == "finished":
@@ -188,7 +191,8 @@ def _gather(
                 elif f.status in ("error", "cancelled", "lost"):
                     try:
                         exc = f.exception()
-                        why = f"{type(exc).__name__}: {exc}"
+                        first = (str(exc).strip().splitlines() or [""])[0]
+                        why = f"{type(exc).__name__}: {first}"
                     except Exception as e:  # a cancelled future has no exception to give
                         why = type(e).__name__
                     out[i] = f"the Dask task of this partition failed ({why})"
