@@ -199,6 +199,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.handles",
         "curvewright.start",
         "curvewright.catalog",
+        "curvewright.start_batch",
     ),
     "result": ("curvewright.result", "curvewright.global_result", "curvewright.batch_result"),
     "fit": (
