@@ -210,6 +210,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.fitting.single",
         "curvewright.fitting.global_fit",
         "curvewright.fitting.batch_engine",
+        "curvewright.fitting.batch_run",
         "curvewright.fitting.batch",
         "curvewright.fitting.batch_dask",
     ),

@@ -22,7 +22,7 @@ from numpy.typing import ArrayLike
 from ..batch_result import BatchResult, combine
 from ..data import labels_of
 from ..errors import DataError, DependencyError, ParameterError
-from .batch import _plain, _Request, check_frame, failed_part, run_table
+from .batch_run import _plain, _Request, check_frame, failed_part, run_table
 
 __all__ = ["run_dask"]
 
@@ -72,7 +72,8 @@ def run_dask(
             )
     own = None
     if client is None:
-        own = distributed.Client(distributed.LocalCluster(processes=True))
+        # A cluster for this call only: its dashboard on a free port, not a fixed one in use.
+        own = distributed.Client(distributed.LocalCluster(processes=True, dashboard_address=":0"))
         client = own
     try:
         if is_dask:
