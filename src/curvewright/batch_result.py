@@ -99,9 +99,9 @@ class BatchResult:
         Weighted sum of squared residuals of each group (NaN where failed).
     n_used, n_dropped : ndarray of int, shape (groups,)
         Points used in each group's fit and rows dropped because x, y or sigma was NaN.
-    status, reason, path : tuple of str
+    statuses, reasons, paths : tuple of str
         Per group: one of :data:`STATUSES`, why it is not ``ok`` (``""`` when it is), one of
-        :data:`PATHS`.
+        :data:`PATHS` (as Series: :attr:`status`, :attr:`reason`, :attr:`path`).
     flags : tuple of tuple of str
         Per group, the codes of the findings behind a ``flagged`` status (or a ``failed`` one
         such as ``"singular"``), e.g. ``("at_bound", "not_identified")``: data, not text.
@@ -135,9 +135,9 @@ class BatchResult:
     ssr_array: FloatArray
     n_used: NDArray[np.int64]
     n_dropped: NDArray[np.int64]
-    status: tuple[str, ...]
-    reason: tuple[str, ...]
-    path: tuple[str, ...]
+    statuses: tuple[str, ...]
+    reasons: tuple[str, ...]
+    paths: tuple[str, ...]
     flags: tuple[tuple[str, ...], ...]
     derived_names: tuple[str, ...]
     derived_array: FloatArray
@@ -156,18 +156,18 @@ class BatchResult:
         put(self, "derived_array", _frozen(np.reshape(self.derived_array, (g, d, 4))))
         for name in ("n_used", "n_dropped"):
             put(self, name, _frozen(np.reshape(getattr(self, name), (g,)), np.int64))
-        for name in ("by", "keys", "labels", "status", "reason", "path", "datasets"):
+        for name in ("by", "keys", "labels", "statuses", "reasons", "paths", "datasets"):
             put(self, name, tuple(getattr(self, name)))
         put(self, "flags", tuple(tuple(f) for f in self.flags))
         put(self, "derived_names", tuple(self.derived_names))
         put(self, "options", MappingProxyType(dict(self.options)))
-        for name in ("labels", "status", "reason", "path", "flags", "datasets"):
+        for name in ("labels", "statuses", "reasons", "paths", "flags", "datasets"):
             if len(getattr(self, name)) != g:
                 raise ValueError(
                     f"BatchResult: {name} has {len(getattr(self, name))} entries, not {g}."
                 )
-        bad = {s for s in self.status if s not in STATUSES} | {
-            s for s in self.path if s not in PATHS
+        bad = {s for s in self.statuses if s not in STATUSES} | {
+            s for s in self.paths if s not in PATHS
         }
         if bad:
             raise ValueError(f"BatchResult: unknown status or path {sorted(bad)}.")
@@ -219,7 +219,7 @@ class BatchResult:
         if cached is not None:
             return cached
         if self.datasets[i] is None:
-            raise FitError(f"group {self.labels[i]!r} has no fit: {self.reason[i]}")
+            raise FitError(f"group {self.labels[i]!r} has no fit: {self.reasons[i]}")
         if not _GROUP_FIT:
             raise CurvewrightError(
                 "BatchResult needs curvewright.fitting to fit a group; import curvewright first."
@@ -251,9 +251,9 @@ class BatchResult:
             ssr_array=self.ssr_array[ix],
             n_used=self.n_used[ix],
             n_dropped=self.n_dropped[ix],
-            status=tuple(self.status[i] for i in ix),
-            reason=tuple(self.reason[i] for i in ix),
-            path=tuple(self.path[i] for i in ix),
+            statuses=tuple(self.statuses[i] for i in ix),
+            reasons=tuple(self.reasons[i] for i in ix),
+            paths=tuple(self.paths[i] for i in ix),
             flags=tuple(self.flags[i] for i in ix),
             derived_names=self.derived_names,
             derived_array=self.derived_array[ix],
@@ -306,25 +306,25 @@ class BatchResult:
         return pd.Series(np.array(self.ssr_array), index=self._index(), name="ssr")
 
     @property
-    def statuses(self) -> pd.Series:
-        """Status per group as a Series (``ok``, ``flagged``, ``failed``)."""
-        return pd.Series(list(self.status), index=self._index(), name="status", dtype=object)
+    def status(self) -> pd.Series:
+        """Status per group (``ok``, ``flagged``, ``failed``)."""
+        return pd.Series(list(self.statuses), index=self._index(), name="status", dtype=object)
 
     @property
-    def reasons(self) -> pd.Series:
+    def reason(self) -> pd.Series:
         """Why each group that is not ``ok`` is not (only those groups)."""
-        keep = [i for i, s in enumerate(self.status) if s != "ok"]
+        keep = [i for i, s in enumerate(self.statuses) if s != "ok"]
         return pd.Series(
-            [self.reason[i] for i in keep],
+            [self.reasons[i] for i in keep],
             index=pd.Index([self.labels[i] for i in keep], name="group"),
             name="reason",
             dtype=object,
         )
 
     @property
-    def paths(self) -> pd.Series:
+    def path(self) -> pd.Series:
         """The path each group took (``vectorised``, ``per-group``, ``none``)."""
-        return pd.Series(list(self.path), index=self._index(), name="path", dtype=object)
+        return pd.Series(list(self.paths), index=self._index(), name="path", dtype=object)
 
     @property
     def dropped(self) -> pd.Series:
@@ -344,7 +344,7 @@ class BatchResult:
     @property
     def counts(self) -> dict[str, int]:
         """How many groups have each status."""
-        return {s: sum(1 for t in self.status if t == s) for s in STATUSES}
+        return {s: sum(1 for t in self.statuses if t == s) for s in STATUSES}
 
     @property
     def table(self) -> pd.DataFrame:
@@ -355,9 +355,9 @@ class BatchResult:
         each derived quantity.
         """
         cols: dict[str, Any] = {
-            "status": list(self.status),
-            "reason": list(self.reason),
-            "path": list(self.path),
+            "status": list(self.statuses),
+            "reason": list(self.reasons),
+            "path": list(self.paths),
             "n": np.array(self.n_used),
             "n_dropped": np.array(self.n_dropped),
             "ssr": np.array(self.ssr_array),
@@ -392,7 +392,7 @@ class BatchResult:
         )
         lines.append(f"groups by:  {', '.join(self.by)}")
         lines.append(f"status:     {c['ok']} ok, {c['flagged']} flagged, {c['failed']} failed")
-        paths = {p: sum(1 for t in self.path if t == p) for p in PATHS}
+        paths = {p: sum(1 for t in self.paths if t == p) for p in PATHS}
         lines.append(
             f"paths:      {paths['vectorised']} vectorised, {paths['per-group']} per-group fit, "
             f"{paths['none']} not fitted"
@@ -401,7 +401,7 @@ class BatchResult:
         if dropped:
             nd = int(np.count_nonzero(self.n_dropped))
             lines.append(f"NaN rows:   {dropped} dropped in {nd} group(s)")
-        ok = [i for i, s in enumerate(self.status) if s != "failed"]
+        ok = [i for i, s in enumerate(self.statuses) if s != "failed"]
         if ok:
             lines += ["", "parameters over the fitted groups (median [min, max])"]
             for j, p in enumerate(m.param_names):
@@ -412,14 +412,14 @@ class BatchResult:
                         f"  {p:<14} {_num(float(np.median(v)))} "
                         f"[{_num(float(v.min()))}, {_num(float(v.max()))}]"
                     )
-        bad = [i for i, s in enumerate(self.status) if s != "ok"]
+        bad = [i for i, s in enumerate(self.statuses) if s != "ok"]
         if bad:
             lines += ["", "groups that need a look"]
             w = max(len(self.labels[i]) for i in bad[:max_listed])
             for i in bad[:max_listed]:
-                lines.append(f"  {self.labels[i]:<{w}}  {self.status[i]:<7}  {self.reason[i]}")
+                lines.append(f"  {self.labels[i]:<{w}}  {self.statuses[i]:<7}  {self.reasons[i]}")
             if len(bad) > max_listed:
-                lines.append(f"  ... and {len(bad) - max_listed} more (see .reasons)")
+                lines.append(f"  ... and {len(bad) - max_listed} more (see .reason)")
         return "\n".join([*lines, "", CAUTION])
 
     def __str__(self) -> str:
@@ -437,7 +437,7 @@ class BatchResult:
         c = self.counts
         names = [n for n in self.model.param_names if n not in self.parameters.fixed]
         head = "".join(f"<th>{e(n)}</th>" for n in [*names, *self.derived_names])
-        order = sorted(range(len(self)), key=lambda i: STATUSES.index(self.status[i]) * -1)
+        order = sorted(range(len(self)), key=lambda i: STATUSES.index(self.statuses[i]) * -1)
         rows = []
         for i in order[:max_rows]:
             cells = []
@@ -450,8 +450,8 @@ class BatchResult:
                 cells.append(f"{_num(v)} [{_num(lo)}, {_num(hi)}]")
             tds = "".join(f"<td>{e(t)}</td>" for t in cells)
             rows.append(
-                f"<tr class='cw-{e(self.status[i])}'><th>{e(self.labels[i])}</th>"
-                f"<td>{e(self.status[i])}</td>{tds}<td>{e(self.reason[i])}</td></tr>"
+                f"<tr class='cw-{e(self.statuses[i])}'><th>{e(self.labels[i])}</th>"
+                f"<td>{e(self.statuses[i])}</td>{tds}<td>{e(self.reasons[i])}</td></tr>"
             )
         more = (
             f"<div>{len(self) - max_rows} more groups: see .table</div>"
@@ -489,9 +489,9 @@ class BatchResult:
             "ssr": _enc_array(self.ssr_array),
             "n_used": self.n_used.tolist(),
             "n_dropped": self.n_dropped.tolist(),
-            "status": list(self.status),
-            "reason": list(self.reason),
-            "path": list(self.path),
+            "status": list(self.statuses),
+            "reason": list(self.reasons),
+            "path": list(self.paths),
             "flags": [list(f) for f in self.flags],
             "derived_names": list(self.derived_names),
             "derived": _enc_array(self.derived_array),
@@ -553,9 +553,9 @@ class BatchResult:
                 ssr_array=arrays["ssr"],
                 n_used=np.asarray(d["n_used"], dtype=np.int64),
                 n_dropped=np.asarray(d["n_dropped"], dtype=np.int64),
-                status=tuple(str(s) for s in d["status"]),
-                reason=tuple(str(s) for s in d["reason"]),
-                path=tuple(str(s) for s in d["path"]),
+                statuses=tuple(str(s) for s in d["status"]),
+                reasons=tuple(str(s) for s in d["reason"]),
+                paths=tuple(str(s) for s in d["path"]),
                 flags=tuple(tuple(str(c) for c in f) for f in d["flags"]),
                 derived_names=tuple(str(s) for s in d["derived_names"]),
                 derived_array=arrays["derived"],
@@ -619,9 +619,9 @@ def combine(parts: Sequence[BatchResult]) -> BatchResult:
         ssr_array=cat("ssr_array"),
         n_used=cat("n_used"),
         n_dropped=cat("n_dropped"),
-        status=join("status"),
-        reason=join("reason"),
-        path=join("path"),
+        statuses=join("statuses"),
+        reasons=join("reasons"),
+        paths=join("paths"),
         flags=join("flags"),
         derived_names=first.derived_names,
         derived_array=cat("derived_array"),

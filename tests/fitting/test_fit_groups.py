@@ -60,8 +60,8 @@ def test_dnase_batch_agrees_with_fit_and_curve_fit_from_the_same_start() -> None
     m = catalog()["stimulation_4pl"]
     batch = cw.fit_groups(m, data=df, x="conc", y="density", by="Run", progress=False)
     assert len(batch) == df["Run"].nunique() == 11
-    assert set(batch.path) == {"vectorised"}
-    assert "failed" not in batch.status
+    assert set(batch.paths) == {"vectorised"}
+    assert "failed" not in batch.statuses
     names = list(m.param_names)
     for key in batch.keys:
         i = batch.index_of(key)
@@ -102,7 +102,7 @@ def test_dnase_batch_agrees_with_fit_and_curve_fit_from_the_same_start() -> None
             "extrapolation",
         }
         assert set(batch.flags[i]) == codes
-        assert (batch.status[i] == "flagged") == bool(codes)
+        assert (batch.statuses[i] == "flagged") == bool(codes)
 
 
 def test_orange_per_group_path_matches_fit() -> None:
@@ -116,7 +116,7 @@ def test_orange_per_group_path_matches_fit() -> None:
     batch = cw.fit_groups(
         logistic, data=df, x="age", y="circumference", by="Tree", start=start, progress=False
     )
-    assert set(batch.path) == {"per-group"}
+    assert set(batch.paths) == {"per-group"}
     for key in batch.keys:
         sub = df[df["Tree"] == key].reset_index(drop=True)
         one = cw.fit(logistic, data=sub, x="age", y="circumference", start=start)
@@ -176,8 +176,8 @@ def test_a_failed_group_never_stops_the_batch() -> None:
     batch = cw.fit_groups(
         "inhibition_4pl", data=df, x="conc", y="resp", by="compound", progress=False
     )
-    st = batch.statuses
-    reasons = dict(zip(batch.labels, batch.reason, strict=True))
+    st = batch.status
+    reasons = dict(zip(batch.labels, batch.reasons, strict=True))
     for i in range(4):
         assert st[f"good {i}"] in ("ok", "flagged")
     assert st["bad 0"] in ("ok", "flagged") and batch.dropped["bad 0"] == 3
@@ -190,11 +190,11 @@ def test_a_failed_group_never_stops_the_batch() -> None:
     assert st["bad 6"] == "failed" and "singular" in reasons["bad 6"]
     assert batch.flags[batch.index_of("bad 6")] == ("singular",)
     # every non-ok group has a reason; failed rows hold no numbers
-    assert all(batch.reason[i] for i, s in enumerate(batch.status) if s != "ok")
-    assert set(batch.reasons.index) == {
-        lab for lab, s in zip(batch.labels, batch.status, strict=True) if s != "ok"
+    assert all(batch.reasons[i] for i, s in enumerate(batch.statuses) if s != "ok")
+    assert set(batch.reason.index) == {
+        lab for lab, s in zip(batch.labels, batch.statuses, strict=True) if s != "ok"
     }
-    failed = [i for i, s in enumerate(batch.status) if s == "failed"]
+    failed = [i for i, s in enumerate(batch.statuses) if s == "failed"]
     assert np.isnan(batch.value_array[failed]).all() and np.isnan(batch.ssr_array[failed]).all()
     # the good groups are what fit() gives on them alone (a cross-check of the split)
     sub = df[df["compound"] == "good 1"].reset_index(drop=True)
@@ -232,9 +232,9 @@ def test_a_model_function_that_raises_fails_its_group_only() -> None:
     batch = cw.fit_groups(
         _raising, data=df, x="x", y="y", by="g", start={"top": 9, "k": 0.2}, progress=False
     )
-    assert batch.statuses["B"] == "failed"
-    assert "detector saturated" in batch.reason[batch.index_of("B")]
-    assert batch.statuses["A"] != "failed" and batch.statuses["C"] != "failed"
+    assert batch.status["B"] == "failed"
+    assert "detector saturated" in batch.reasons[batch.index_of("B")]
+    assert batch.status["A"] != "failed" and batch.status["C"] != "failed"
 
 
 # ============================================================================ routing
@@ -243,11 +243,11 @@ def test_routing_records_the_path_of_each_group(monkeypatch: pytest.MonkeyPatch)
     fast = cw.fit_groups(
         "inhibition_4pl", data=df, x="conc", y="resp", by="compound", progress=False
     )
-    assert fast.path == ("vectorised",) * 3
+    assert fast.paths == ("vectorised",) * 3
     robust = cw.fit_groups(
         "inhibition_4pl", data=df, x="conc", y="resp", by="compound", loss="huber", progress=False
     )
-    assert robust.path == ("per-group",) * 3
+    assert robust.paths == ("per-group",) * 3
     linked = cw.fit_groups(
         "inhibition_4pl",
         data=df,
@@ -257,7 +257,7 @@ def test_routing_records_the_path_of_each_group(monkeypatch: pytest.MonkeyPatch)
         links={"full_effect": "zero_dose/20"},
         progress=False,
     )
-    assert linked.path == ("per-group",) * 3
+    assert linked.paths == ("per-group",) * 3
     # the robust fit is fit()'s robust fit
     i = robust.index_of("b")
     sub = df[df["compound"] == "b"].reset_index(drop=True)
@@ -288,7 +288,7 @@ def test_routing_records_the_path_of_each_group(monkeypatch: pytest.MonkeyPatch)
     mixed = cw.fit_groups(
         "inhibition_4pl", data=df, x="conc", y="resp", by="compound", progress=False
     )
-    assert mixed.path == ("vectorised", "per-group", "vectorised")
+    assert mixed.paths == ("vectorised", "per-group", "vectorised")
     one = cw.fit(
         "inhibition_4pl",
         data=df[df["compound"] == "b"].reset_index(drop=True),
@@ -404,18 +404,18 @@ def test_cancel_and_timeout_keep_what_finished() -> None:
         )
     finally:
         batch_mod._run_one = real  # type: ignore[assignment]
-    assert [s != "failed" for s in b.status[:2]] == [True, True]
-    assert b.reason[2:] == ("not run: cancelled",) * 4
+    assert [s != "failed" for s in b.statuses[:2]] == [True, True]
+    assert b.reasons[2:] == ("not run: cancelled",) * 4
     ev = threading.Event()
     ev.set()
     b2 = cw.fit_groups(
         "inhibition_4pl", data=df, x="conc", y="resp", by="compound", cancel=ev, progress=False
     )
-    assert b2.status == ("failed",) * 6 and set(b2.reason) == {"not run: cancelled"}
+    assert b2.statuses == ("failed",) * 6 and set(b2.reasons) == {"not run: cancelled"}
     b3 = cw.fit_groups(
         f, data=df, x="conc", y="resp", by="compound", start=start, timeout=1e-9, progress=False
     )
-    assert set(b3.status) == {"failed"} and all("timed out" in r for r in b3.reason)
+    assert set(b3.statuses) == {"failed"} and all("timed out" in r for r in b3.reasons)
 
 
 # ============================================================================ the record
@@ -487,7 +487,7 @@ def test_batch_is_never_worse_than_fit_from_the_same_start(seed: int) -> None:
     batch = cw.fit_groups("inhibition_4pl", data=df, x="x", y="y", by="g", progress=False)
     names = batch.model.param_names
     for i, key in enumerate(batch.keys):
-        if batch.status[i] == "failed":
+        if batch.statuses[i] == "failed":
             continue
         one = cw.fit(
             "inhibition_4pl",

@@ -119,11 +119,11 @@ def test_a_partition_whose_task_raises_fails_its_groups_only(client: Any) -> Non
     for lab in batch.labels:
         i = batch.labels.index(lab)
         if lab in bad:
-            assert batch.status[i] == "failed"
-            assert "Dask task of this partition failed" in batch.reason[i]
-            assert "deserialization" in batch.reason[i]
+            assert batch.statuses[i] == "failed"
+            assert "Dask task of this partition failed" in batch.reasons[i]
+            assert "deserialization" in batch.reasons[i]
         else:
-            assert batch.status[i] != "failed", batch.reason[i]
+            assert batch.statuses[i] != "failed", batch.reasons[i]
 
 
 def test_without_dask_the_error_says_how_to_install(monkeypatch: pytest.MonkeyPatch) -> None:
