@@ -338,7 +338,7 @@ def make_dataset(
         )
     notes: tuple[str, ...] = ()
     if nan.any():
-        notes = (f"{int(nan.sum())} row(s) with a missing (NaN) value were dropped.",)
+        notes = (_nan_note(int(nan.sum())),)
     if xk.size == 0:
         raise DataError("No finite observations are left after dropping NaN rows.")
     return Dataset(
@@ -354,6 +354,10 @@ def make_dataset(
         name=name,
         notes=notes,
     )
+
+
+def _nan_note(k: int) -> str:
+    return f"{k} row(s) with a missing (NaN) value were dropped."
 
 
 def as_datasets(datasets: Dataset | Sequence[Dataset]) -> tuple[Dataset, ...]:
@@ -414,7 +418,8 @@ class Groups:
         Each group's observations; None where the group's data could not be read (with
         ``errors="keep"``), its error then in ``errors``.
     errors : tuple of DataError or None
-        Why a group's data could not be read (``errors="keep"`` only).
+        Why a group's data could not be read (``errors="keep"`` only; the message is about
+        that group's rows, numbered within the group).
     constants : tuple of dict
         Each group's values of the ``constants`` columns.
     """
@@ -563,6 +568,18 @@ def split_groups(
     whole: dict[str, FloatArray] = {}
     if all(c in data.columns for c in cols) and all(_numeric_column(data[c]) for c in cols):
         whole = {c: data[c].to_numpy(dtype=float, na_value=np.nan) for c in cols}
+    clean: BoolArray | None = None
+    if whole:
+        xa, ya = whole[x], whole[y]
+        sa = whole[sig_col] if sig_col is not None else sig_arr
+        nan_all = np.isnan(xa) | np.isnan(ya)
+        bad_all = np.isinf(xa) | np.isinf(ya)
+        if sa is not None:
+            nan_all |= np.isnan(sa)
+            with np.errstate(invalid="ignore"):
+                bad_all |= np.isinf(sa) | (sa <= 0)
+        # Rows make_dataset accepts as they are; a group with any other row goes through it.
+        clean = ~bad_all
     grouped = data.groupby(list(by), sort=True, dropna=False).indices
     several = len(by) > 1
     keys = [_plain_key(k, several) for k in grouped]
@@ -591,6 +608,31 @@ def split_groups(
                 )
             cv[c] = float(col[0])
         ex_g = mask[pos] if exclude is not None else None
+        if clean is not None and clean[pos].all() and not nan_all[pos].all():
+            # The fast path: the Dataset make_dataset would build from these finite rows
+            # (tests/test_data.py checks they are the same), without its per-call checks.
+            nan = nan_all[pos]
+            keep = ~nan
+            row = np.flatnonzero(keep).astype(np.int64)
+            k = int(nan.sum())
+            datasets.append(
+                Dataset(
+                    x=_frozen(xa[pos][keep]),
+                    y=_frozen(ya[pos][keep]),
+                    include=_frozen(np.ones(row.size, dtype=bool) if ex_g is None else ~ex_g[row]),
+                    row=_frozen(row),
+                    sigma=None if sa is None else _frozen(sa[pos][keep]),
+                    n_dropped=k,
+                    n_input=len(pos),
+                    x_label=x,
+                    y_label=y,
+                    name=label,
+                    notes=(_nan_note(k),) if k else (),
+                )
+            )
+            errs.append(None)
+            consts.append(cv)
+            continue
         try:
             if whole:
                 ds = make_dataset(
@@ -619,11 +661,10 @@ def split_groups(
                 )
         except DataError as exc:
             # The same error, saying which group (a DataError subclass stays itself).
-            err = type(exc)(f"group {label!r}: {exc}")
             if errors == "raise":
-                raise err from exc
+                raise type(exc)(f"group {label!r}: {exc}") from exc
             datasets.append(None)
-            errs.append(err)
+            errs.append(exc)
         else:
             datasets.append(ds)
             errs.append(None)
