@@ -43,7 +43,7 @@ from .result import (
 )
 from .thresholds import CAUTION
 
-__all__ = ["STATUSES", "PATHS", "BatchResult", "register_group_fit"]
+__all__ = ["STATUSES", "PATHS", "BatchResult", "register_group_fit", "start_records"]
 
 _FORMAT = "curvewright.BatchResult"
 _VERSION = 1
@@ -68,6 +68,15 @@ _GROUP_FIT: list[Callable[[BatchResult, int], FitResult]] = []
 def register_group_fit(fn: Callable[[BatchResult, int], FitResult]) -> None:
     """Tell :class:`BatchResult` how to fit one of its groups (called by the fitting layer)."""
     _GROUP_FIT[:] = [fn]
+
+
+def start_records(parameters: Parameters, names: Sequence[str], start: Any) -> Parameters:
+    """The shared records with one group's start row (model order; NaN: left unset).
+
+    What a group's fit in the batch and ``batch[group]`` both start from.
+    """
+    row = {n: float(start[j]) for j, n in enumerate(names) if n in parameters.free}
+    return parameters.with_values({n: v for n, v in row.items() if math.isfinite(v)})
 
 
 def _frozen(a: Any, dtype: Any = float) -> Any:
@@ -230,10 +239,7 @@ class BatchResult:
 
     def group_parameters(self, i: int) -> Parameters:
         """The parameter records group ``i``'s fit starts from (the shared settings, its start)."""
-        free = self.parameters.free
-        names = self.model.param_names
-        row = {n: float(self.starts[i, names.index(n)]) for n in free}
-        return self.parameters.with_values({n: v for n, v in row.items() if math.isfinite(v)})
+        return start_records(self.parameters, self.model.param_names, self.starts[i])
 
     def take(self, indices: Sequence[int]) -> BatchResult:
         """A batch of the groups at ``indices`` (in that order), with their cached fits."""

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..batch_result import BatchResult, register_group_fit
+from ..batch_result import BatchResult, register_group_fit, start_records
 from ..data import Dataset, Groups, labels_of, split_groups
 from ..errors import CurvewrightError, DataError, ParameterError
 from ..inference import quantile
@@ -146,7 +146,7 @@ def run_groups(
     free = recs.free
     rows = [_Row() for _ in range(G)]
     starts = np.full((G, P), np.nan)
-    records: list[Parameters | None] = [None] * G
+    started = np.zeros(G, dtype=bool)  # the group has its start and goes on to a fit
 
     def stop_reason() -> str | None:
         if cancel is not None and cancel():
@@ -169,25 +169,25 @@ def run_groups(
             continue
         ready.append(g)
     batched = _batched_starts(m, recs, groups, [g for g in ready if not frame_rows[g]])
+    col = [names.index(n) for n in free]
     for g in ready:
         ds = groups.datasets[g]
         assert ds is not None
+        got = batched.get(g)
+        if got is not None:
+            starts[g, col] = [got[n] for n in free]
+            started[g] = True
+            continue
         try:
-            got = batched.get(g)
-            records[g] = (
-                recs.with_values(got).validated(m, allow_unset=True)
-                if got is not None
-                else _group_records(m, recs, ds, frame_rows[g])
-            )
+            r = _group_records(m, recs, ds, frame_rows[g])
         except CurvewrightError as exc:
             rows[g].reason = str(exc)
             continue
         except Exception as exc:  # a model function raising in the guided start
             rows[g].reason = f"the model raised {type(exc).__name__}: {exc}"
             continue
-        r = records[g]
-        assert r is not None
-        starts[g] = [r[n].value if n in free else math.nan for n in names]
+        starts[g, col] = [r[n].value for n in free]
+        started[g] = True
 
     # ---------------------------------------------------------- route
     vector = (
@@ -196,7 +196,7 @@ def run_groups(
         and req.options["loss"] == "squared"
         and not recs.links
     )
-    todo = [g for g in range(G) if records[g] is not None]
+    todo = np.flatnonzero(started).tolist()
     finished = set(range(G)) - set(todo)
     if tick is not None:
         tick(len(finished))
@@ -223,7 +223,9 @@ def run_groups(
         stopped = stopped or stop_reason()
         if stopped:
             break
-        rows[g] = _run_one(req, groups.datasets[g], records[g], deadline, cancel)
+        rows[g] = _run_one(
+            req, groups.datasets[g], start_records(recs, names, starts[g]), deadline, cancel
+        )
         finished.add(g)
         if tick is not None:
             tick(1)
@@ -338,12 +340,12 @@ def _unfittable(m: Model, ds: Dataset, nfree: int) -> str:
 def _run_one(
     req: _Request,
     ds: Dataset | None,
-    records: Parameters | None,
+    records: Parameters,
     deadline: float | None,
     cancel: Callable[[], bool] | None,
 ) -> _Row:
     """One group by :func:`fit` (the per-group path); any error becomes the group's reason."""
-    assert ds is not None and records is not None
+    assert ds is not None
     timeout = None if deadline is None else max(deadline - time.time(), 1e-3)
     try:
         r = _fit_group(req.model, ds, records, req.options, timeout=timeout, cancel=cancel)
