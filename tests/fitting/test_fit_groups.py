@@ -502,3 +502,41 @@ def test_batch_is_never_worse_than_fit_from_the_same_start(seed: int) -> None:
                 batch.value_array[i], [one.values[n] for n in names], rtol=1e-6
             )
         assert math.isfinite(batch.ssr_array[i])
+
+
+@pytest.mark.parametrize("weights", [None, "relative"])
+def test_options_reach_every_group_as_in_fit(weights: str | None) -> None:
+    # sigma, exclusions, a fixed parameter and a bound, each passed on to every group: the
+    # vectorised path agrees with fit() on each group from the same start (1e-6)
+    df = _plate([f"c{i}" for i in range(5)])
+    rng = np.random.default_rng(11)
+    df["sd"] = rng.uniform(1, 3, len(df))
+    exclude = np.zeros(len(df), dtype=bool)
+    exclude[[2, 30, 31, 77]] = True
+    opts: dict[str, Any] = {
+        "fixed": {"full_effect": 5.0},
+        "bounds": {"n_h": (0.1, 1.1)},  # the curves' slope is about 1.2: some end at the bound
+    }
+    sigma = None if weights == "relative" else "sd"
+    batch = cw.fit_groups(
+        "inhibition_4pl", data=df, x="conc", y="resp", by="compound", sigma=sigma,
+        exclude=exclude, weights=weights, progress=False, **opts,
+    )  # fmt: skip
+    assert set(batch.paths) == {"vectorised"}
+    names = batch.model.param_names
+    for i, key in enumerate(batch.keys):
+        rows = np.flatnonzero(df["compound"] == key)
+        sub = df.iloc[rows].reset_index(drop=True)
+        start = {n: batch.starts[i, j] for j, n in enumerate(names) if n not in opts["fixed"]}
+        one = cw.fit(
+            "inhibition_4pl", data=sub, x="conc", y="resp", sigma=sigma, weights=weights,
+            exclude=exclude[rows], start=start, **opts,
+        )  # fmt: skip
+        np.testing.assert_allclose(batch.value_array[i], [one.values[n] for n in names], rtol=1e-6)
+        assert batch.ssr_array[i] == pytest.approx(one.ssr, rel=1e-6)
+        assert batch.n_used[i] == one.n
+        at = {d.params[0] for d in one.diagnostics if d.code == "at_bound"}
+        assert ("at_bound" in batch.flags[i]) == bool(at)
+        _same_fit(batch[key], one)
+    assert any("at_bound" in f for f in batch.flags)
+    assert batch.values["full_effect"].eq(5.0).all() and batch.stderr["full_effect"].isna().all()
