@@ -178,6 +178,10 @@ def run_groups(
             starts[g, col] = [got[n] for n in free]
             started[g] = True
             continue
+        halt = stop_reason()  # a per-curve guided start of a Python function can be slow
+        if halt:
+            rows[g].reason = f"not run: {halt}"
+            continue
         try:
             r = _group_records(m, recs, ds, frame_rows[g])
         except CurvewrightError as exc:
