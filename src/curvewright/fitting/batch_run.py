@@ -106,6 +106,59 @@ class _Row:
     fit: FitResult | None = None
 
 
+_SINGULAR = "singular fit: the data cannot tell the parameters apart"
+
+
+class _Out:
+    """Every group's outcome as arrays over groups (what the result is made of)."""
+
+    def __init__(self, G: int, P: int, D: int) -> None:
+        self.status: NDArray[np.object_] = np.full(G, "failed", dtype=object)
+        self.reason: NDArray[np.object_] = np.full(G, "", dtype=object)
+        self.path: NDArray[np.object_] = np.full(G, "none", dtype=object)
+        self.flags: list[tuple[str, ...]] = [()] * G
+        self.values = np.full((G, P), np.nan)
+        self.stderr = np.full((G, P), np.nan)
+        self.lower = np.full((G, P), np.nan)
+        self.upper = np.full((G, P), np.nan)
+        self.ssr = np.full(G, np.nan)
+        self.derived = np.full((G, D, 4), np.nan)
+        self.fits: dict[int, FitResult] = {}
+
+    def fail(
+        self,
+        g: int,
+        reason: str,
+        *,
+        path: str = "none",
+        flags: tuple[str, ...] = (),
+        fit: FitResult | None = None,
+    ) -> None:
+        """Group ``g`` is failed for ``reason`` (no numbers in its row)."""
+        self.status[g], self.reason[g], self.path[g], self.flags[g] = "failed", reason, path, flags
+        if fit is not None:
+            self.fits[g] = fit
+
+    def put(self, g: int, row: _Row) -> None:
+        """Group ``g``'s outcome from a per-group fit."""
+        if row.status == "failed":
+            self.fail(g, row.reason, path=row.path, flags=row.flags, fit=row.fit)
+            return
+        self.status[g], self.reason[g], self.path[g], self.flags[g] = (
+            row.status,
+            row.reason,
+            row.path,
+            row.flags,
+        )
+        for name in ("values", "stderr", "lower", "upper", "derived"):
+            v = getattr(row, name)
+            if v is not None:
+                getattr(self, name)[g] = v
+        self.ssr[g] = row.ssr
+        if row.fit is not None:
+            self.fits[g] = row.fit
+
+
 def run_table(
     req: _Request,
     table: pd.DataFrame,
@@ -144,7 +197,7 @@ def run_groups(
     G = len(groups)
     recs = req.parameters
     free = recs.free
-    rows = [_Row() for _ in range(G)]
+    out = _Out(G, P, len(m.derived))
     starts = np.full((G, P), np.nan)
     started = np.zeros(G, dtype=bool)  # the group has its start and goes on to a fit
 
@@ -161,11 +214,11 @@ def run_groups(
     for g in range(G):
         ds, err = groups.datasets[g], groups.errors[g]
         if ds is None:
-            rows[g].reason = str(err)
+            out.fail(g, str(err))
             continue
         why = _unfittable(m, ds, len(free))
         if why:
-            rows[g].reason = why
+            out.fail(g, why)
             continue
         ready.append(g)
     batched = _batched_starts(m, recs, groups, [g for g in ready if not frame_rows[g]])
@@ -180,15 +233,15 @@ def run_groups(
             continue
         halt = stop_reason()  # a per-curve guided start of a Python function can be slow
         if halt:
-            rows[g].reason = f"not run: {halt}"
+            out.fail(g, f"not run: {halt}")
             continue
         try:
             r = _group_records(m, recs, ds, frame_rows[g])
         except CurvewrightError as exc:
-            rows[g].reason = str(exc)
+            out.fail(g, str(exc))
             continue
         except Exception as exc:  # a model function raising in the guided start
-            rows[g].reason = f"the model raised {type(exc).__name__}: {exc}"
+            out.fail(g, f"the model raised {type(exc).__name__}: {exc}")
             continue
         starts[g, col] = [r[n].value for n in free]
         started[g] = True
@@ -213,7 +266,7 @@ def run_groups(
                 break
             chunk = todo[a : a + CHUNK]
             try:
-                back, unrun = _run_vectorised(req, groups, chunk, starts, rows, stop_reason)
+                back, unrun = _run_vectorised(req, groups, chunk, starts, out, stop_reason)
             except Exception:  # pragma: no cover - an engine bug must not stop the batch
                 back, unrun = chunk, []
             queue += back
@@ -227,16 +280,19 @@ def run_groups(
         stopped = stopped or stop_reason()
         if stopped:
             break
-        rows[g] = _run_one(
-            req, groups.datasets[g], start_records(recs, names, starts[g]), deadline, cancel
+        out.put(
+            g,
+            _run_one(
+                req, groups.datasets[g], start_records(recs, names, starts[g]), deadline, cancel
+            ),
         )
         finished.add(g)
         if tick is not None:
             tick(1)
     for g in todo:
         if g not in finished:
-            rows[g] = _Row(reason=f"not run: {stopped or stop_reason() or 'cancelled'}")
-    return _assemble(req, groups, rows, starts)
+            out.fail(g, f"not run: {stopped or stop_reason() or 'cancelled'}")
+    return _assemble(req, groups, out, starts)
 
 
 def _frame_lookup(frame: pd.DataFrame | None, groups: Groups) -> list[dict[str, float]]:
@@ -421,7 +477,7 @@ def _row_of_fit(r: FitResult, level: float) -> _Row:
         return _Row(reason=f"did not converge: {r.message}", path="per-group", fit=r)
     if any(d.code == "singular" for d in r.diagnostics):
         return _Row(
-            reason="singular fit: the data cannot tell the parameters apart",
+            reason=_SINGULAR,
             path="per-group",
             flags=("singular",),
             fit=r,
@@ -455,7 +511,7 @@ def _run_vectorised(
     groups: Groups,
     chunk: list[int],
     starts: FloatArray,
-    rows: list[_Row],
+    out: _Out,
     stop_reason: Callable[[], str | None],
 ) -> tuple[list[int], list[int]]:
     """Fit ``chunk`` with the batch engine.
@@ -477,7 +533,7 @@ def _run_vectorised(
         try:
             _, w = point_weights(weighting, (ds,))
         except CurvewrightError as exc:
-            rows[g] = _Row(reason=str(exc))
+            out.fail(g, str(exc))
             continue
         take.append(g)
         ws.append(w)
@@ -519,22 +575,38 @@ def _run_vectorised(
     for d in np.unique(stats.dof):
         q[stats.dof == d] = quantile(req.level, float(d), known_sigma=req.options["absolute_sigma"])
     dq = list(derived.values())
-    back: list[int] = []
-    unrun: list[int] = []
-    for k, g in enumerate(take):
-        if not sol.settled[k]:
-            if sol.reason[k] == "cancelled":
-                unrun.append(g)  # reported as not run by the caller
-            else:
-                back.append(g)  # the per-group fit, with its ladder, takes it
-            continue
-        if stats.singular[k]:
-            rows[g] = _Row(
-                reason="singular fit: the data cannot tell the parameters apart",
-                path="vectorised",
-                flags=("singular",),
-            )
-            continue
+    tk = np.array(take)
+    cancelled = ~sol.settled & np.array([r == "cancelled" for r in sol.reason], dtype=bool)
+    back = tk[~sol.settled & ~cancelled].tolist()  # to the per-group fit, with its ladder
+    unrun = tk[cancelled].tolist()  # reported as not run by the caller
+    for g in tk[sol.settled & stats.singular].tolist():
+        out.fail(g, _SINGULAR, path="vectorised", flags=("singular",))
+    good = sol.settled & ~stats.singular
+    gi = tk[good]
+    v, se, qq = sol.values[good], stats.stderr[good], q[good][:, None]
+    out.values[gi], out.stderr[gi] = v, se
+    out.lower[gi], out.upper[gi] = v - qq * se, v + qq * se
+    out.ssr[gi] = sol.ssr[good]
+    K = len(take)
+    outside = np.zeros((K, len(dq)), dtype=bool)
+    if dq:
+        four = np.stack([np.stack([c.value, c.stderr, c.lower, c.upper], axis=-1) for c in dq], 1)
+        out.derived[gi] = four[good]
+        for j, c in enumerate(dq):
+            if c.in_data_range is not None:
+                outside[:, j] = ~c.in_data_range
+    flagged = (
+        stats.at_bound.any(axis=1)
+        | stats.not_identified.any(axis=1)
+        | stats.near_singular
+        | stats.high_correlation
+        | outside.any(axis=1)
+    )
+    out.status[gi] = np.where(flagged[good], "flagged", "ok")
+    out.path[gi] = "vectorised"
+    qnames = list(derived)
+    # Words only for the flagged groups: the findings named, as for a per-group fit.
+    for k in np.flatnonzero(good & flagged).tolist():
         found: list[tuple[str, tuple[str, ...]]] = []
         for code, arr in (("at_bound", stats.at_bound), ("not_identified", stats.not_identified)):
             ps = tuple(n for j, n in enumerate(names) if arr[k, j])
@@ -544,44 +616,16 @@ def _run_vectorised(
             found.append(("near_singular", ()))
         if stats.high_correlation[k]:
             found.append(("high_correlation", ()))
-        ext = tuple(
-            name
-            for name, col in derived.items()
-            if col.in_data_range is not None and not bool(col.in_data_range[k])
-        )
+        ext = tuple(qnames[j] for j in np.flatnonzero(outside[k]).tolist())
         if ext:
             found.append(("extrapolation", ext))
-        v = sol.values[k]
-        se = stats.stderr[k]
-        rows[g] = _Row(
-            status="flagged" if found else "ok",
-            reason=_findings_text(found),
-            path="vectorised",
-            flags=tuple(c for c, _ in found),
-            values=v,
-            stderr=se,
-            lower=v - q[k] * se,
-            upper=v + q[k] * se,
-            ssr=float(sol.ssr[k]),
-            derived=np.array(
-                [[c.value[k], c.stderr[k], c.lower[k], c.upper[k]] for c in dq]
-            ).reshape(len(dq), 4),
-        )
+        out.reason[tk[k]] = _findings_text(found)
+        out.flags[tk[k]] = tuple(c for c, _ in found)
     return back, unrun
 
 
-def _assemble(req: _Request, groups: Groups, rows: list[_Row], starts: FloatArray) -> BatchResult:
+def _assemble(req: _Request, groups: Groups, out: _Out, starts: FloatArray) -> BatchResult:
     m = req.model
-    G, P, D = len(rows), len(m.param_names), len(m.derived)
-
-    def stack(name: str, shape: tuple[int, ...]) -> FloatArray:
-        out = np.full((G, *shape), np.nan)
-        for g, r in enumerate(rows):
-            v = getattr(r, name)
-            if v is not None and r.status != "failed":
-                out[g] = v
-        return out
-
     datasets = groups.datasets
     n_used = np.array([0 if d is None else d.n for d in datasets], dtype=np.int64)
     n_dropped = np.array([0 if d is None else d.n_dropped for d in datasets], dtype=np.int64)
@@ -591,27 +635,25 @@ def _assemble(req: _Request, groups: Groups, rows: list[_Row], starts: FloatArra
         keys=groups.keys,
         labels=groups.labels,
         level=req.level,
-        value_array=stack("values", (P,)),
-        stderr_array=stack("stderr", (P,)),
-        lower_array=stack("lower", (P,)),
-        upper_array=stack("upper", (P,)),
-        ssr_array=np.array([r.ssr if r.status != "failed" else math.nan for r in rows]),
+        value_array=out.values,
+        stderr_array=out.stderr,
+        lower_array=out.lower,
+        upper_array=out.upper,
+        ssr_array=out.ssr,
         n_used=n_used,
         n_dropped=n_dropped,
-        statuses=tuple(r.status for r in rows),
-        reasons=tuple(r.reason for r in rows),
-        paths=tuple(r.path for r in rows),
-        flags=tuple(r.flags for r in rows),
+        statuses=tuple(str(v) for v in out.status),
+        reasons=tuple(str(v) for v in out.reason),
+        paths=tuple(str(v) for v in out.path),
+        flags=tuple(out.flags),
         derived_names=tuple(d.name for d in m.derived),
-        derived_array=stack("derived", (D, 4)),
+        derived_array=out.derived,
         starts=starts,
         datasets=datasets,
         parameters=req.parameters,
         options=req.options,
     )
-    for g, r in enumerate(rows):
-        if r.fit is not None:
-            batch._fits[g] = r.fit
+    batch._fits.update(out.fits)
     return batch
 
 
