@@ -321,6 +321,9 @@ def test_starts_dict_template_and_frame() -> None:
     by_cols = pd.DataFrame({"compound": ["a"], "n_h": [0.8]})
     b4 = cw.fit_groups(m, data=df, x="conc", y="resp", by="compound", start=by_cols, progress=False)
     assert b4.starts[0, names.index("n_h")] == 0.8
+    other = cw.fit("exponential_decay", x=np.arange(8.0), y=np.exp(-np.arange(8.0)) + 0.1)
+    with pytest.raises(cw.ParameterError, match="template result's model"):
+        cw.fit_groups(m, data=df, x="conc", y="resp", by="compound", start=other)
     with pytest.raises(cw.ParameterError, match="not in the data"):
         cw.fit_groups(
             m,
@@ -467,6 +470,16 @@ def test_progress_bar_is_drawn_when_asked(capsys: pytest.CaptureFixture[str]) ->
     cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="compound")
     assert "fitting groups" not in capsys.readouterr().err  # not interactive: off by default
     cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="compound", progress=True)
+    assert "fitting groups" in capsys.readouterr().err
+
+
+def test_progress_is_on_by_default_at_a_prompt(
+    monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    import sys
+
+    monkeypatch.setattr(sys, "ps1", ">>> ", raising=False)  # what an interactive prompt sets
+    cw.fit_groups("inhibition_4pl", data=_plate(["a"]), x="conc", y="resp", by="compound")
     assert "fitting groups" in capsys.readouterr().err
 
 
