@@ -209,6 +209,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.fitting.assemble",
         "curvewright.fitting.single",
         "curvewright.fitting.global_fit",
+        "curvewright.fitting.batch_kernel",
         "curvewright.fitting.batch_engine",
         "curvewright.fitting.batch_run",
         "curvewright.fitting.batch",
