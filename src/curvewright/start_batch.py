@@ -36,7 +36,7 @@ Values = dict[str, FloatArray]
 
 _LN10 = math.log(10.0)
 #: Elements of one (groups x trials x points) block: small enough to stay in cache.
-_BLOCK = 1 << 17
+_BLOCK = 1 << 16
 
 
 # ============================================================================ bounds
@@ -89,6 +89,12 @@ class _Block:
     hi: FloatArray  # (g, P)
     held: Values  # name -> (g,)
     model: Model
+    n: FloatArray  # (g,) number of real points
+    ybar: FloatArray  # (g,) their mean
+    yc: FloatArray  # (g, n) y - ybar, 0 in the padding
+    syy: FloatArray  # (g,) sum of y**2
+    syyc: FloatArray  # (g,) sum of (y - ybar)**2
+    padded: bool  # whether any point of the block is padding
     cache: dict[str, FloatArray] = field(default_factory=dict)
 
     @property
@@ -120,6 +126,23 @@ class _Block:
             with np.errstate(all="ignore"):
                 self.cache["lnx"] = np.log(self.x)
         return self.cache["lnx"]
+
+    @property
+    def lnx_ref(self) -> FloatArray:
+        """(g,) the mean ln x over the positive x (0 when there is none)."""
+        if "lnx_ref" not in self.cache:
+            lnx = self.lnx()
+            use = (self.x > 0) * self.w
+            with np.errstate(all="ignore"):
+                ref = np.sum(np.where(use > 0, lnx, 0.0), axis=1) / np.sum(use, axis=1)
+            self.cache["lnx_ref"] = np.where(np.isfinite(ref), ref, 0.0)
+        return self.cache["lnx_ref"]
+
+    def lnx_centred(self) -> FloatArray:
+        """ln x - lnx_ref (-inf at x = 0)."""
+        if "lnx_c" not in self.cache:
+            self.cache["lnx_c"] = self.lnx() - self.lnx_ref[:, None]
+        return self.cache["lnx_c"]
 
 
 def _prepare(
@@ -155,7 +178,28 @@ def _prepare(
     ux.ravel()[idx[flat_new]] = xs.ravel()[flat_new]
     with np.errstate(all="ignore"):
         my = np.where(uw > 0, sums / np.where(counts > 0, counts, 1.0), 0.0)
-    return _Block(xs, ys, w, ux, my, uw, nd, lo, hi, held, model)
+    cnt = np.sum(w, axis=1)
+    ybar = np.sum(ys, axis=1) / cnt
+    yc = (ys - ybar[:, None]) * w
+    return _Block(
+        xs,
+        ys,
+        w,
+        ux,
+        my,
+        uw,
+        nd,
+        lo,
+        hi,
+        held,
+        model,
+        cnt,
+        ybar,
+        yc,
+        np.sum(ys * ys, axis=1),
+        np.sum(yc * yc, axis=1),
+        not bool(np.all(ms)),
+    )
 
 
 # ============================================================================ batched line fits
@@ -280,7 +324,10 @@ def _row(v: ArrayLike, g: int) -> FloatArray:
 
 
 # ============================================================================ families
-Basis = Callable[[_Block, Values], tuple[FloatArray | None, Values]]
+#: For a coordinate, which distinct value each trial takes (trials sharing a value share work).
+Share = Mapping[str, NDArray[np.intp]]
+Single = Callable[[_Block, Values, Share], FloatArray]
+Split = Callable[[FloatArray], Values]
 
 
 @dataclass(frozen=True)
@@ -290,7 +337,14 @@ class _Family:
     ``coords`` are the searched coordinates (the model's nonlinear parameters unless ``native``
     maps other ones back), ``linear`` the parameters solved exactly for each trial, ``trials``
     the seeds and grid, ``steps`` the refinement step of each coordinate (in log units for the
-    ``logged`` ones), ``basis`` an optional fast form of the curve as ``f0 + sum(c_j*A_j)``.
+    ``logged`` ones).
+
+    Most catalog curves are ``a + c*s`` or ``c*s`` for one shape ``s`` of the nonlinear
+    coordinates (``single``): then the linear solve needs three sums per trial. ``affine`` maps
+    ``(a, c)`` to the linear parameters (None for the form ``c*s``, where ``c`` is
+    ``linear[0]``); ``split`` gives each linear parameter's column of ``s`` for the general
+    solve (fixed or bounded linear parameters). ``columns`` gives the columns directly for a
+    model without one shape; without any of these the model's own function is evaluated.
     """
 
     coords: tuple[str, ...]
@@ -298,10 +352,15 @@ class _Family:
     trials: Callable[[_Block], Values]
     steps: Mapping[str, float]
     logged: frozenset[str]
-    basis: Basis | None = None
+    single: Single | None = None
+    split: Split | None = None
+    affine: Callable[[FloatArray, FloatArray], Values] | None = None
+    columns: Callable[[_Block, Values], Values] | None = None
     native: Callable[[Values], Values] | None = None
     finish: Callable[[Values], Values] | None = None
     allows_fixed: bool = True
+    rounds: int = 3
+    max_scale: float = 4.0
 
 
 def _dose_trials(mid: str, kind: str, asymmetry: bool) -> Callable[[_Block], Values]:
@@ -320,12 +379,12 @@ def _dose_trials(mid: str, kind: str, asymmetry: bool) -> Callable[[_Block], Val
         lmin, lmax = _log_range_clipped(b)
         seeds: Values = {mid: np.column_stack([m0, cross]), "n_h": np.column_stack([nh0, nh0])}
         grid_axes = {
-            mid: lmin[:, None] + (lmax - lmin)[:, None] * np.linspace(-0.2, 1.2, 8)[None, :],
-            "n_h": _row([0.7, 2.0], g),
+            mid: lmin[:, None] + (lmax - lmin)[:, None] * np.linspace(-0.2, 1.2, 3)[None, :],
+            "n_h": _row([1.0], g),
         }
         if asymmetry:
             seeds["g"] = np.ones((g, 2))
-            grid_axes["g"] = _row([0.4, 2.5], g)
+            grid_axes["g"] = _row([0.1, 0.4, 2.5, 10.0], g)
         return _join(seeds, _grid(grid_axes))
 
     return trials
@@ -337,23 +396,45 @@ def _log_range_clipped(b: _Block) -> tuple[FloatArray, FloatArray]:
     return np.where(same, lmin - 1.0, lmin), np.where(same, lmax + 1.0, lmax)
 
 
-def _dose_basis(mid: str, kind: str, asymmetry: bool) -> Basis:
-    def basis(b: _Block, v: Values) -> tuple[FloatArray | None, Values]:
-        lnx = b.lnx()[:, None, :]
+def _dose_single(mid: str, kind: str, asymmetry: bool) -> Single:
+    def single(b: _Block, v: Values, share: Share) -> FloatArray:
+        nh = v["n_h"]
+        # (x/c50)**n_h = exp(n_h*(ln x - ref)) * exp(n_h*(ref - ln c50)), ref a typical ln x:
+        # the first factor is the costly one, and trials sharing n_h share it
+        idx = share.get("n_h")
+        sign = -1.0 if kind == "three" else 1.0  # the 3PL takes (c50/x)**n_h
         with np.errstate(all="ignore"):
-            if kind == "three":
-                # full_effect/(1 + (c50/x)**n_h); x = 0 gives exp(inf) = inf and a zero column
-                s = 1.0 / (1.0 + np.exp(v["n_h"] * (_LN10 * v[mid] - lnx)))
-                return None, {"full_effect": s}
-            h = np.exp(v["n_h"] * (lnx - _LN10 * v[mid]))  # (x/c50)**n_h, 0 at x = 0
+            lnx = b.lnx_centred()[:, None, :]
+            if idx is not None:
+                first = [int(np.argmax(idx == u)) for u in range(int(idx.max()) + 1)]
+                h = np.exp(sign * nh[:, first, :] * lnx)[:, idx, :]
+            else:
+                h = np.multiply(sign * nh, lnx)
+                np.exp(h, out=h)
+            # the second factor kept finite and nonzero, so that 0*inf (NaN) cannot occur; only
+            # a trial hundreds of decades off the data would notice
+            h *= np.exp(np.clip(sign * nh * (b.lnx_ref[:, None, None] - _LN10 * v[mid]), -700, 700))
             if asymmetry:
                 gg = v["g"]
-                s = np.exp(-gg * np.log1p((2.0 ** (1.0 / gg) - 1.0) * h))
-            else:
-                s = 1.0 / (1.0 + h)
-        return None, {"zero_dose": s, "full_effect": 1.0 - s}
+                h *= 2.0 ** (1.0 / gg) - 1.0
+                np.log1p(h, out=h)
+                h *= -gg
+                np.exp(h, out=h)
+                return h
+            h += 1.0
+            np.reciprocal(h, out=h)
+        return h
 
-    return basis
+    return single
+
+
+def _dose_ac(a: FloatArray, c: FloatArray) -> Values:
+    # full_effect + (zero_dose - full_effect)*s
+    return {"zero_dose": a + c, "full_effect": a}
+
+
+def _dose_split(s: FloatArray) -> Values:
+    return {"zero_dose": s, "full_effect": 1.0 - s}
 
 
 def _rate_axis(b: _Block, n: int) -> FloatArray:
@@ -461,11 +542,11 @@ def _hill_trials(b: _Block) -> Values:
     return _join({"K05": k05[:, None], "n_h": nh[:, None]}, grid)
 
 
-def _hill_basis(b: _Block, v: Values) -> tuple[FloatArray | None, Values]:
+def _hill_single(b: _Block, v: Values, share: Share) -> FloatArray:
     lnx = b.lnx()[:, None, :]
     with np.errstate(all="ignore"):
-        s = 1.0 / (1.0 + np.exp(v["n_h"] * (np.log(v["K05"]) - lnx)))
-    return None, {"Vmax": s}
+        out: FloatArray = 1.0 / (1.0 + np.exp(v["n_h"] * (np.log(v["K05"]) - lnx)))
+    return out
 
 
 # Growth models are searched in coordinates where the capacity K is linear: the logistic as
@@ -482,9 +563,10 @@ def _logistic_trials(b: _Block) -> Values:
     return _grid({"r": r_ax, "xi": xi_ax})
 
 
-def _logistic_basis(b: _Block, v: Values) -> tuple[FloatArray | None, Values]:
+def _logistic_single(b: _Block, v: Values, share: Share) -> FloatArray:
     with np.errstate(all="ignore"):
-        return None, {"K": 1.0 / (1.0 + np.exp(-v["r"] * (b.x[:, None, :] - v["xi"])))}
+        out: FloatArray = 1.0 / (1.0 + np.exp(-v["r"] * (b.x[:, None, :] - v["xi"])))
+    return out
 
 
 def _logistic_native(v: Values) -> Values:
@@ -507,9 +589,10 @@ def _gompertz_trials(b: _Block) -> Values:
     return _grid({"r": r_ax, "beta": beta_ax})
 
 
-def _gompertz_basis(b: _Block, v: Values) -> tuple[FloatArray | None, Values]:
+def _gompertz_single(b: _Block, v: Values, share: Share) -> FloatArray:
     with np.errstate(all="ignore"):
-        return None, {"K": np.exp(-v["beta"] * np.exp(-v["r"] * b.x[:, None, :]))}
+        out: FloatArray = np.exp(-v["beta"] * np.exp(-v["r"] * b.x[:, None, :]))
+    return out
 
 
 def _gompertz_native(v: Values) -> Values:
@@ -606,6 +689,108 @@ def _no_trials(b: _Block) -> Values:
     return {}
 
 
+def _x3(b: _Block) -> FloatArray:
+    return b.x[:, None, :]
+
+
+def _decay_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    with np.errstate(all="ignore"):
+        out: FloatArray = np.exp(-v["k"] * _x3(b))
+    return out
+
+
+def _growth_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    with np.errstate(all="ignore"):
+        out: FloatArray = np.exp(v["k"] * _x3(b))
+    return out
+
+
+def _biexp_columns(b: _Block, v: Values) -> Values:
+    x = _x3(b)
+    with np.errstate(all="ignore"):
+        e1 = np.exp(-v["k1"] * x)
+        e2 = np.exp(-v["k2"] * x)
+    return {"baseline": np.ones_like(e1), "a1": e1, "a2": e2}
+
+
+def _mm_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    x = _x3(b)
+    with np.errstate(all="ignore"):
+        out: FloatArray = x / (v["Km"] + x)
+    return out
+
+
+def _si_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    x = _x3(b)
+    with np.errstate(all="ignore"):
+        out: FloatArray = x / (v["Km"] + x + x * x / v["Ki"])
+    return out
+
+
+def _gauss_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    with np.errstate(all="ignore"):
+        z = (_x3(b) - v["center"]) / v["sigma"]
+        out: FloatArray = np.exp(-0.5 * z * z)
+    return out
+
+
+def _lorentz_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    with np.errstate(all="ignore"):
+        z = (_x3(b) - v["center"]) / v["hwhm"]
+        out: FloatArray = 1.0 / (1.0 + z * z)
+    return out
+
+
+def _boltzmann_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    with np.errstate(all="ignore"):
+        out: FloatArray = 1.0 / (1.0 + np.exp((v["x_half"] - _x3(b)) / v["width"]))
+    return out
+
+
+def _power_single(b: _Block, v: Values, share: Share) -> FloatArray:
+    with np.errstate(all="ignore"):
+        out: FloatArray = np.exp(v["b"] * b.lnx()[:, None, :])
+    return out
+
+
+def _level_split(level: str, amplitude: str) -> Split:
+    def split(s: FloatArray) -> Values:
+        return {level: np.ones_like(s), amplitude: s}
+
+    return split
+
+
+def _level_ac(level: str, amplitude: str) -> Callable[[FloatArray, FloatArray], Values]:
+    def ac(a: FloatArray, c: FloatArray) -> Values:
+        return {level: a, amplitude: c}
+
+    return ac
+
+
+def _rise_split(s: FloatArray) -> Values:
+    return {"baseline": np.ones_like(s), "amplitude": 1.0 - s}
+
+
+def _rise_ac(a: FloatArray, c: FloatArray) -> Values:
+    # baseline + amplitude*(1 - s) = (baseline + amplitude) - amplitude*s
+    return {"baseline": a + c, "amplitude": -c}
+
+
+def _boltzmann_split(s: FloatArray) -> Values:
+    return {"low": 1.0 - s, "high": s}
+
+
+def _boltzmann_ac(a: FloatArray, c: FloatArray) -> Values:
+    return {"low": a, "high": a + c}
+
+
+def _scale_split(name: str) -> Split:
+    def split(s: FloatArray) -> Values:
+        return {name: s}
+
+    return split
+
+
 def _families() -> dict[str, _Family]:
     fams: dict[str, _Family] = {}
     for kind, mid in (("inhibition", "log_ic50"), ("stimulation", "log_ec50")):
@@ -615,9 +800,14 @@ def _families() -> dict[str, _Family]:
                 coords,
                 ("zero_dose", "full_effect"),
                 _dose_trials(mid, kind, asym),
-                {mid: 0.2, "n_h": 0.35, "g": 0.5},
+                {mid: 0.2, "n_h": 0.35, "g": 0.35},
                 frozenset({"n_h", "g"}),
-                basis=_dose_basis(mid, kind, asym),
+                single=_dose_single(mid, kind, asym),
+                split=_dose_split,
+                affine=_dose_ac,
+                # the 5PL's asymmetry trades off against the steepness along a long valley
+                rounds=20 if asym else 2,
+                max_scale=16.0 if asym else 4.0,
             )
     fams["stimulation_3pl"] = _Family(
         ("log_ec50", "n_h"),
@@ -625,17 +815,40 @@ def _families() -> dict[str, _Family]:
         _dose_trials("log_ec50", "three", False),
         {"log_ec50": 0.2, "n_h": 0.35},
         frozenset({"n_h"}),
-        basis=_dose_basis("log_ec50", "three", False),
+        single=_dose_single("log_ec50", "three", False),
+        split=_scale_split("full_effect"),
     )
     rate = {"k": 0.35}
+    k = frozenset({"k"})
+    lin = ("baseline", "amplitude")
     fams["exponential_decay"] = _Family(
-        ("k",), ("baseline", "amplitude"), _decay_trials("decay"), rate, frozenset({"k"})
+        ("k",),
+        lin,
+        _decay_trials("decay"),
+        rate,
+        k,
+        single=_decay_single,
+        split=_level_split(*lin),
+        affine=_level_ac(*lin),
     )
     fams["exponential_rise"] = _Family(
-        ("k",), ("baseline", "amplitude"), _decay_trials("rise"), rate, frozenset({"k"})
+        ("k",),
+        lin,
+        _decay_trials("rise"),
+        rate,
+        k,
+        single=_decay_single,
+        split=_rise_split,
+        affine=_rise_ac,
     )
     fams["exponential_growth"] = _Family(
-        ("k",), ("y0",), _decay_trials("growth"), rate, frozenset({"k"})
+        ("k",),
+        ("y0",),
+        _decay_trials("growth"),
+        rate,
+        k,
+        single=_growth_single,
+        split=_scale_split("y0"),
     )
     fams["biexponential_decay"] = _Family(
         ("k1", "k2"),
@@ -643,13 +856,21 @@ def _families() -> dict[str, _Family]:
         _biexp_trials,
         {"k1": 0.35, "k2": 0.35},
         frozenset({"k1", "k2"}),
+        columns=_biexp_columns,
         finish=_finish_biexp,
     )
+    vmax = _scale_split("Vmax")
     fams["michaelis_menten"] = _Family(
-        ("Km",), ("Vmax",), _mm_trials, {"Km": 0.35}, frozenset({"Km"})
+        ("Km",), ("Vmax",), _mm_trials, {"Km": 0.35}, frozenset({"Km"}), _mm_single, vmax
     )
     fams["substrate_inhibition"] = _Family(
-        ("Km", "Ki"), ("Vmax",), _si_trials, {"Km": 0.5, "Ki": 0.5}, frozenset({"Km", "Ki"})
+        ("Km", "Ki"),
+        ("Vmax",),
+        _si_trials,
+        {"Km": 0.5, "Ki": 0.5},
+        frozenset({"Km", "Ki"}),
+        _si_single,
+        vmax,
     )
     fams["hill"] = _Family(
         ("K05", "n_h"),
@@ -657,7 +878,8 @@ def _families() -> dict[str, _Family]:
         _hill_trials,
         {"K05": 0.4, "n_h": 0.35},
         frozenset({"K05", "n_h"}),
-        basis=_hill_basis,
+        _hill_single,
+        vmax,
     )
     fams["logistic_growth"] = _Family(
         ("r", "xi"),
@@ -665,7 +887,8 @@ def _families() -> dict[str, _Family]:
         _logistic_trials,
         {"r": 0.3, "xi": 0.05},
         frozenset({"r"}),
-        basis=_logistic_basis,
+        _logistic_single,
+        _scale_split("K"),
         native=_logistic_native,
         allows_fixed=False,
     )
@@ -675,23 +898,31 @@ def _families() -> dict[str, _Family]:
         _gompertz_trials,
         {"r": 0.3, "beta": 0.3},
         frozenset({"r", "beta"}),
-        basis=_gompertz_basis,
+        _gompertz_single,
+        _scale_split("K"),
         native=_gompertz_native,
         allows_fixed=False,
     )
+    peak = ("baseline", "amplitude")
     fams["gaussian_peak"] = _Family(
         ("center", "sigma"),
-        ("baseline", "amplitude"),
+        peak,
         _peak_trials("sigma", 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))),
         {"center": 0.03, "sigma": 0.3},
         frozenset({"sigma"}),
+        _gauss_single,
+        _level_split(*peak),
+        _level_ac(*peak),
     )
     fams["lorentzian_peak"] = _Family(
         ("center", "hwhm"),
-        ("baseline", "amplitude"),
+        peak,
         _peak_trials("hwhm", 0.5),
         {"center": 0.03, "hwhm": 0.3},
         frozenset({"hwhm"}),
+        _lorentz_single,
+        _level_split(*peak),
+        _level_ac(*peak),
     )
     fams["boltzmann"] = _Family(
         ("x_half", "width"),
@@ -699,13 +930,18 @@ def _families() -> dict[str, _Family]:
         _boltzmann_trials,
         {"x_half": 0.03, "width": 0.3},
         frozenset(),
+        _boltzmann_single,
+        _boltzmann_split,
+        _boltzmann_ac,
         finish=_finish_boltzmann,
     )
-    fams["power_law"] = _Family(("b",), ("a",), _power_trials, {"b": 0.15}, frozenset())
+    fams["power_law"] = _Family(
+        ("b",), ("a",), _power_trials, {"b": 0.15}, frozenset(), _power_single, _scale_split("a")
+    )
     fams["straight_line"] = _Family((), ("intercept", "slope"), _no_trials, {}, frozenset())
-    for k in range(1, 11):
-        fams[f"polynomial_{k}"] = _Family(
-            (), tuple(f"c{j}" for j in range(k + 1)), _no_trials, {}, frozenset()
+    for deg in range(1, 11):
+        fams[f"polynomial_{deg}"] = _Family(
+            (), tuple(f"c{j}" for j in range(deg + 1)), _no_trials, {}, frozenset()
         )
     return fams
 
@@ -769,6 +1005,7 @@ class _Search:
     free_linear: tuple[str, ...]
     fixed_linear: tuple[str, ...]
     coords: tuple[str, ...]  # searched coordinates that are not fixed
+    fast: bool  # the linear solve by sums (one shape, no fixed or bounded level)
 
     def _clip(self, name: str, v: FloatArray) -> FloatArray:
         """Trial values inside their bounds (parameters of the model only)."""
@@ -780,12 +1017,14 @@ class _Search:
         j = self.b.col(name)
         p = m.param(name)
         lo, hi = self.b.lo[:, j : j + 1], self.b.hi[:, j : j + 1]
+        if np.all((lo < v) & (v <= hi)):
+            return v  # the usual case: every trial inside (and positive where it must be)
         v = np.where(np.isfinite(v), v, p.value)
         if p.lower >= 0 and (p.positive or p.log_scale):
             v = np.where(v > 0, v, np.maximum(lo, max(abs(p.value) * 1e-6, 1e-12)))
         return move_inside_batch(lo, hi, v)
 
-    def evaluate(self, trial: Values) -> tuple[Values, FloatArray]:
+    def evaluate(self, trial: Values, share: Share | None = None) -> tuple[Values, FloatArray]:
         """Every trial's values (linear ones solved) and its residual sum of squares."""
         b = self.b
         g = b.g
@@ -796,13 +1035,15 @@ class _Search:
                 v3[n] = np.broadcast_to(b.held[n][:, None, None], (g, C, 1))
             else:
                 v3[n] = self._clip(n, np.broadcast_to(trial[n], (g, C)))[:, :, None]
+        out: Values = {n: v[:, :, 0] for n, v in v3.items()}
+        if self.fast and self.fam.single is not None:
+            return self._moments(self.fam.single(b, v3, self._share(share, C)), out)
         f0, cols = self._curve_parts(v3, C)
         r = b.y[:, None, :] - (f0 if f0 is not None else 0.0)
         for n in self.fixed_linear:
             r = r - b.held[n][:, None, None] * cols[n]
         w = b.w[:, None, :]
         K = len(self.free_linear)
-        out: Values = {n: v[:, :, 0] for n, v in v3.items()}
         ok = np.ones((g, C), dtype=bool)
         with np.errstate(all="ignore"):
             if K:
@@ -822,6 +1063,37 @@ class _Search:
                     r = r - c[..., i, None] * cols[n]
             ssr = np.einsum("gcn,gcn->gc", r * w, r)
         ssr = np.where(ok & np.isfinite(ssr), ssr, np.inf)
+        return out, ssr
+
+    def _moments(self, s: FloatArray, out: Values) -> tuple[Values, FloatArray]:
+        """The linear solve of ``c*s`` or ``a + c*s`` from three sums per trial."""
+        b = self.b
+        g, n = b.x.shape
+        s = np.broadcast_to(s, (g, s.shape[1], n))
+        with np.errstate(all="ignore"):
+            # einsum over the short point axis: several times faster than sum(axis=2) here
+            if b.padded:
+                sss = np.einsum("gcn,gcn,gn->gc", s, s, b.w)
+            else:
+                sss = np.einsum("gcn,gcn->gc", s, s)
+            if self.fam.affine is None:
+                ssy = np.einsum("gcn,gn->gc", s, b.y)  # padding has y = 0
+                name = self.free_linear[0]
+                j = b.col(name)
+                c = np.clip(ssy / sss, b.lo[:, j : j + 1], b.hi[:, j : j + 1])
+                ssr = b.syy[:, None] - 2.0 * c * ssy + c * c * sss
+                out[name] = c
+                good = sss > 0
+            else:
+                ss = np.einsum("gcn,gn->gc", s, b.w)
+                ssy = np.einsum("gcn,gn->gc", s, b.yc)  # centred y, 0 in the padding
+                var = sss - ss * ss / b.n[:, None]
+                c = ssy / var
+                a = b.ybar[:, None] - c * ss / b.n[:, None]
+                ssr = b.syyc[:, None] - c * ssy
+                out.update(self.fam.affine(a, c))
+                good = var > 1e-12 * sss
+        ssr = np.where(good & np.isfinite(ssr), np.maximum(ssr, 0.0), np.inf)
         return out, ssr
 
     def _bound_linear(self, c: FloatArray, S: FloatArray, bv: FloatArray) -> FloatArray:
@@ -856,8 +1128,10 @@ class _Search:
 
     def _curve_parts(self, v3: Values, C: int) -> tuple[FloatArray | None, Values]:
         b = self.b
-        if self.fam.basis is not None:
-            return self.fam.basis(b, v3)
+        if self.fam.columns is not None:
+            return None, self.fam.columns(b, v3)
+        if self.fam.single is not None and self.fam.split is not None:
+            return None, self.fam.split(self.fam.single(b, v3, {}))
         m = b.model
         g, n = b.x.shape
         x3 = b.x[:, None, :]
@@ -883,56 +1157,74 @@ class _Search:
             cols[name] = run(a) - f0
         return f0, cols
 
-    def best(self, trial: Values) -> tuple[Values, FloatArray]:
-        vals, ssr = self.evaluate(trial)
+    def _share(self, share: Share | None, C: int) -> Share:
+        out = dict(share or {})
+        for n in self.fam.coords:
+            if n in self.b.held:
+                out[n] = np.zeros(C, dtype=np.intp)  # a fixed value: one for every trial
+        return out
+
+    def best(self, trial: Values, share: Share | None = None) -> tuple[Values, FloatArray]:
+        vals, ssr = self.evaluate(trial, share)
         i = np.argmin(ssr, axis=1)
         r = np.arange(self.b.g)
         return {n: v[r, i] for n, v in vals.items()}, ssr[r, i]
 
-    def refine(self, start: Values, rounds: int = 2) -> tuple[Values, FloatArray]:
-        """Trials around the best point on a shrinking lattice (3**d points a round)."""
-        cur = {n: start[n] for n in self.coords}
-        vals, ssr = self.best({n: cur[n][:, None] for n in self.coords})
+    def refine(self, vals: Values, ssr: FloatArray, rounds: int) -> tuple[Values, FloatArray]:
+        """A pattern search around each group's best trial, ``3**d - 1`` trials a round.
+
+        A group whose best point moves keeps its step (and may double it, up to four times the
+        first), so a start can walk off a coarse grid; one whose best point stays halves it.
+        """
         if not self.coords:
             return vals, ssr
-        span = self.b.span
-        offs = np.array(list(product((-1.0, 0.0, 1.0), repeat=len(self.coords))))
-        for k in range(rounds):
+        span = self.b.span[:, None]
+        offs = np.array([o for o in product((-1.0, 0.0, 1.0), repeat=len(self.coords)) if any(o)])
+        scale = np.ones((self.b.g, 1))
+        for _ in range(rounds):
             trial: Values = {}
             for j, n in enumerate(self.coords):
-                step = self.fam.steps[n] * 0.5**k
-                o = offs[None, :, j]
+                step = self.fam.steps[n] * scale * offs[None, :, j]
                 c = vals[n][:, None]
-                if n in self.fam.logged:
-                    trial[n] = c * np.exp(step * o)
+                if n in self.fam.logged or n in _WIDTH_LIKE:
+                    trial[n] = c * np.exp(step)
                 elif n in _X_RELATIVE:
-                    trial[n] = c + step * span[:, None] * o
-                elif n in _WIDTH_LIKE:
-                    trial[n] = c * np.exp(step * o)
+                    trial[n] = c + step * span
                 else:
-                    trial[n] = c + step * o
-            nv, ns = self.best(trial)
-            better = ns <= ssr
+                    trial[n] = c + step
+            # trials with the same offset in a coordinate share its value
+            share = {n: (offs[:, j] + 1).astype(np.intp) for j, n in enumerate(self.coords)}
+            nv, ns = self.best(trial, share)
+            better = ns < ssr
             vals = {n: np.where(better, nv[n], vals[n]) for n in vals}
             ssr = np.where(better, ns, ssr)
+            scale = np.where(
+                better[:, None], np.minimum(2.0 * scale, self.fam.max_scale), 0.5 * scale
+            )
         return vals, ssr
 
 
 def _run_family(fam: _Family, b: _Block) -> tuple[Values, FloatArray]:
     coords = tuple(n for n in fam.coords if n not in b.held)
+    fixed_linear = tuple(n for n in fam.linear if n in b.held)
+    fast = fam.single is not None and not fixed_linear
+    if fast and fam.affine is not None:
+        j = [b.col(n) for n in fam.linear]
+        fast = bool(np.all(np.isinf(b.lo[:, j])) and np.all(np.isinf(b.hi[:, j])))
     search = _Search(
         fam,
         b,
         tuple(n for n in fam.linear if n not in b.held),
-        tuple(n for n in fam.linear if n in b.held),
+        fixed_linear,
         coords,
+        fast,
     )
     if coords:
         trial = fam.trials(b)
-        best, _ = search.best({n: trial[n] for n in coords})
+        vals, ssr = search.best({n: trial[n] for n in coords})
     else:
-        best = {}
-    vals, ssr = search.refine(best)
+        vals, ssr = search.best({})
+    vals, ssr = search.refine(vals, ssr, fam.rounds)
     if fam.native is not None:
         vals = fam.native(vals)
     if fam.finish is not None:
@@ -1065,7 +1357,7 @@ def guided_starts(
         x, y and mask are not 2-d arrays of one shape, or the mask is not boolean.
     ParameterError
         ``fixed`` names an unknown parameter or gives a non-finite value; bounds of the wrong
-        shape.
+        shape, NaN, or a lower bound above the upper one.
     """
     xa, ya, ma = _checked(model, x, y, mask)
     G, N = xa.shape
@@ -1074,6 +1366,13 @@ def guided_starts(
     held = _checked_fixed(model, fixed, G)
     lo = _checked_bounds(model, lower, G, "lower")
     hi = _checked_bounds(model, upper, G, "upper")
+    crossed = ~(lo <= hi)  # NaN bounds count as crossed
+    if np.any(crossed):
+        g, j = (int(i[0]) for i in np.nonzero(crossed))
+        raise ParameterError(
+            f"guided_starts: bounds of {names[j]!r} in group {g} are [{lo[g, j]}, {hi[g, j]}]; "
+            "the lower bound must not exceed the upper one (and neither may be NaN)."
+        )
     starts = np.broadcast_to(np.array([p.value for p in model.params]), (G, P)).copy()
     ok = np.zeros(G, dtype=bool)
     fam = _family_of(model)
@@ -1115,8 +1414,8 @@ def _inside(model: Model, starts: FloatArray, lo: FloatArray, hi: FloatArray) ->
 
 
 def _trial_count(fam: _Family, n: int) -> int:
-    # a rough upper bound on the trials of one round, to size the blocks
-    return {0: 1, 1: 16, 2: 40, 3: 60}.get(len(fam.coords), 64)
+    # the trials of one refinement round (the first round's grid may be larger), to size blocks
+    return max(int(3 ** len(fam.coords)) - 1, 1)
 
 
 def _family_of(model: Model) -> _Family | None:
@@ -1125,6 +1424,7 @@ def _family_of(model: Model) -> _Family | None:
         return None
     if find_builtin(model.name, model.formula) is None:
         return None  # a user's model that only borrows a catalog name
-    if any(n not in model.param_names for n in (*fam.linear, *fam.coords) if fam.native is None):
+    wanted = fam.linear if fam.native is not None else (*fam.linear, *fam.coords)
+    if any(n not in model.param_names for n in wanted):
         return None
     return fam
