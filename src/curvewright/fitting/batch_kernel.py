@@ -163,7 +163,8 @@ def kernel_for(model: Model) -> Callable[..., None] | None:
     """The compiled solver for ``model``, or None when numba is missing or refuses the model.
 
     The returned function is called as ``run(X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol,
-    gtol, lambda0, accept, lambda_max, back, snap, SSR, EVALS, ITERS, STATUS)`` on C-contiguous
+    gtol, lambda0, accept, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS,
+    STATUS)`` on C-contiguous
     arrays; it updates ``TH`` in place and fills the last four (see :data:`STATUS`). Compiling
     happens at the first call (numba is lazy), so a model it cannot compile fails there: the
     caller then falls back to numpy.
@@ -269,7 +270,7 @@ def cholesky_solve(mat, rhs, out, low):
 @_jit
 def loop(
     X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
-    lambda0, accept_ratio, lambda_max, back, snap, SSR, EVALS, ITERS, STATUS,
+    lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
 ):
     G, N = X.shape
     P = TH.shape[1]
@@ -305,6 +306,7 @@ def loop(
             continue
         lam = lambda0
         nu = 2.0
+        restarts = 0
         for j in range(P):
             scale[j] = 0.0
         for _ in range(maxit):
@@ -409,6 +411,19 @@ def loop(
                 lam *= nu
                 nu *= 2.0
             done_x = small and (accepted or (ok_t and solved))
+            if (done_f or done_x) and restarts < max_restarts:
+                # stale scaling (batch_engine's _STALE): start again from here, fresh
+                worst = 1.0
+                for j in range(P):
+                    if not frozen[j] and a[j, j] > 0 and scale[j] / a[j, j] > worst:
+                        worst = scale[j] / a[j, j]
+                if worst > stale:
+                    restarts += 1
+                    lam = lambda0
+                    nu = 2.0
+                    for j in range(P):
+                        scale[j] = 0.0
+                    continue
             if done_f or done_x:
                 status = 0
                 break
