@@ -157,3 +157,137 @@ export function valueTable(
     })),
   }));
 }
+
+// ---------------------------------------------------------------------------------------------
+// Markers: one geometry for the canvas points and the legend's SVG swatches
+// ---------------------------------------------------------------------------------------------
+
+/** What a marker is traced into: a canvas context or a Path2D (both have these). */
+export interface PathSink {
+  moveTo(x: number, y: number): void;
+  lineTo(x: number, y: number): void;
+  arc(x: number, y: number, r: number, a0: number, a1: number): void;
+  closePath(): void;
+}
+
+/**
+ * The corners of a polygon marker of "radius" r around (0, 0), y down as on screen; null for
+ * the circle. Each shape is scaled to about the circle's area, so no group looks heavier.
+ */
+export function markerVertices(marker: Marker, r: number): [number, number][] | null {
+  const poly = (n: number, rot: number, scale: number): [number, number][] =>
+    Array.from({ length: n }, (_, k) => {
+      const a = rot + (2 * Math.PI * k) / n;
+      return [scale * r * Math.cos(a), scale * r * Math.sin(a)] as [number, number];
+    });
+  switch (marker) {
+    case "circle":
+      return null;
+    case "square":
+      return poly(4, Math.PI / 4, 1.25);
+    case "diamond":
+      return poly(4, 0, 1.3);
+    case "triangle":
+      return poly(3, -Math.PI / 2, 1.45);
+    case "triangle_down":
+      return poly(3, Math.PI / 2, 1.45);
+    case "hexagon":
+      return poly(6, 0, 1.1);
+  }
+}
+
+/** Trace one marker centred at (x, y) into a canvas path (fill or stroke it after). */
+export function traceMarker(sink: PathSink, marker: Marker, x: number, y: number, r: number): void {
+  const v = markerVertices(marker, r);
+  if (v === null) {
+    sink.moveTo(x + r, y);
+    sink.arc(x, y, r, 0, 2 * Math.PI);
+    return;
+  }
+  sink.moveTo(x + v[0]![0], y + v[0]![1]);
+  for (let k = 1; k < v.length; k++) sink.lineTo(x + v[k]![0], y + v[k]![1]);
+  sink.closePath();
+}
+
+/** The same marker as SVG path data (the legend's swatches). */
+export function markerSvgPath(marker: Marker, x: number, y: number, r: number): string {
+  const f = (n: number): string => String(Math.round(n * 100) / 100);
+  const v = markerVertices(marker, r);
+  if (v === null) return `M${f(x - r)},${f(y)}a${f(r)},${f(r)} 0 1,0 ${f(2 * r)},0a${f(r)},${f(r)} 0 1,0 ${f(-2 * r)},0Z`;
+  return `M${v.map(([dx, dy]) => `${f(x + dx)},${f(y + dy)}`).join("L")}Z`;
+}
+
+// ---------------------------------------------------------------------------------------------
+// What the page shows for the groups
+// ---------------------------------------------------------------------------------------------
+
+export interface LegendEntry {
+  label: string;
+  index: number;
+  style: GroupStyle;
+  selected: boolean;
+  hidden: boolean;
+  excluded: boolean;
+  /** Accessible names of the entry's three buttons. */
+  selectName: string;
+  hideName: string;
+  excludeName: string;
+  /** A short word on the entry's state, for sighted users ("" when plain). */
+  note: string;
+}
+
+/** One legend entry per group, in the groups' order. */
+export function legendEntries(groups: GroupsJson): LegendEntry[] {
+  const hidden = new Set(groups.hidden);
+  const excluded = new Set(groups.excluded);
+  return groups.labels.map((label, index) => {
+    const h = hidden.has(label);
+    const x = excluded.has(label);
+    const note = [h ? "hidden" : "", x ? "left out" : ""].filter(Boolean).join(", ");
+    const said = [h ? "hidden" : "", x ? "left out of the fit" : ""].filter(Boolean).join(", ");
+    return {
+      label,
+      index,
+      style: groupStyle(index),
+      selected: label === groups.selected,
+      hidden: h,
+      excluded: x,
+      selectName: `Group ${label}${label === groups.selected ? " (selected)" : ""}${said ? `, ${said}` : ""}`,
+      hideName: `Hide group ${label}`,
+      excludeName: `Leave group ${label} out of the fit`,
+      note,
+    };
+  });
+}
+
+/** The look of every drawn point: -1 for a point not drawn (its group hidden). */
+export interface PointGroups {
+  /** Group index of each point of the `data` trait, -1 where the group is hidden. */
+  index: Int32Array;
+  styles: GroupStyle[];
+  /** Per group: left out of the fit (drawn faded and hollow). */
+  faded: boolean[];
+}
+
+/** The points' groups as the plot draws them; null when the trait does not fit the data. */
+export function pointGroups(groups: GroupsJson, n: number): PointGroups | null {
+  if (groups.point_group.length !== n) return null;
+  const hidden = new Set(groups.hidden.map((l) => groups.labels.indexOf(l)));
+  const excluded = new Set(groups.excluded);
+  const index = Int32Array.from(groups.point_group, (g) => (hidden.has(g) ? -1 : g));
+  return {
+    index,
+    styles: groups.labels.map((_, i) => groupStyle(i)),
+    faded: groups.labels.map((l) => excluded.has(l)),
+  };
+}
+
+/** Is a group's curve at its fitted values (to rounding)? Such curves are drawn solid. */
+export function atFitted(groups: GroupsJson, label: string, values: Readonly<Record<string, number>>): boolean {
+  const f = groups.fitted?.[label];
+  if (!f) return false;
+  return Object.entries(values).every(([n, v]) => {
+    const w = f[n];
+    return typeof w === "number" && Math.abs(v - w) <= 1e-12 * Math.max(1, Math.abs(w));
+  });
+}

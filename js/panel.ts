@@ -3,7 +3,8 @@
 // here (validate.ts) and shown inline when invalid; only valid settings reach the widget.
 
 import { el } from "./dom";
-import { defaultRecord } from "./params";
+import type { GroupStyle } from "./groups";
+import { defaultRecord, type Scope } from "./params";
 import type { FittedJson, ModelJson, ParamInfo, ParamRecord } from "./state";
 import { type FieldKind, checkSetting, formatNumber, parseField } from "./validate";
 
@@ -11,7 +12,23 @@ export interface PanelCallbacks {
   onCommit(name: string, setting: ParamRecord): void;
   /** A valid value being typed (not yet committed), for live preview; null when abandoned. */
   onTyping?(name: string, value: number | null): void;
+  /** The shared / per-group switch of a parameter (widgets made with by=). */
+  onScope?(name: string, scope: Scope): void;
 }
+
+/** What the panel shows of the groups (by=): every group's value of every parameter. */
+export interface GroupsView {
+  selected: string;
+  rows: {
+    name: string;
+    shared: boolean;
+    fixed: boolean;
+    cells: { label: string; value: number; selected: boolean; style: GroupStyle }[];
+  }[];
+}
+
+// Above this many groups a row's per-group values fold into a disclosure.
+const OPEN_GROUPS = 6;
 
 export interface DerivedView {
   name: string;
@@ -31,6 +48,8 @@ interface Row {
   se: HTMLTableCellElement;
   ci: HTMLTableCellElement;
   flag: HTMLTableCellElement;
+  scope: HTMLInputElement;
+  groupValues: HTMLElement;
   msg: HTMLElement;
   setting: ParamRecord;
   dirty: Set<FieldKind>;
@@ -58,6 +77,7 @@ export class ParamPanel {
   private readonly table: HTMLTableElement;
   private readonly tbody: HTMLTableSectionElement;
   private readonly ciHeader: HTMLTableCellElement;
+  private readonly valueHeader: HTMLTableCellElement;
   private readonly derivedEl: HTMLDivElement;
   private rows = new Map<string, Row>();
   private readonly id = ++uid;
@@ -78,14 +98,16 @@ export class ParamPanel {
       ["Lower", ""],
       ["Upper", ""],
       ["Unit", ""],
+      ["Groups", "cw-groupcol"],
       ["Estimate", "cw-fitcol"],
       ["Std. error", "cw-fitcol"],
       ["CI", "cw-fitcol"],
       ["", "cw-fitcol"],
     ];
     this.ciHeader = el("th");
+    this.valueHeader = el("th");
     for (const [label, cls] of headers) {
-      const th = label === "CI" ? this.ciHeader : el("th");
+      const th = label === "CI" ? this.ciHeader : label === "Value" ? this.valueHeader : el("th");
       th.setAttribute("scope", "col");
       th.textContent = label;
       if (cls) th.className = cls;
@@ -158,6 +180,23 @@ export class ParamPanel {
       }
     }
     tr.appendChild(el("td", { class: "cw-unit" }, info.unit));
+    // Groups (by=): the share switch and every group's value; the column hides without groups.
+    const groupCell = el("td", { class: "cw-groupcol" });
+    const scopeId = `${base}-scope`;
+    const scope = el("input", {
+      id: scopeId,
+      type: "checkbox",
+      class: "cw-scope",
+      "aria-label": `Share ${info.name} across groups`,
+      "data-lm-suppress-shortcuts": "true",
+      title: "Checked: one value for every group. Unchecked: each group gets its own value.",
+    });
+    const scopeLabel = el("label", { for: scopeId, class: "cw-scope-label", "aria-hidden": "true" }, "shared");
+    const scopeWrap = el("span", { class: "cw-scope-switch" });
+    scopeWrap.append(scope, scopeLabel);
+    const groupValues = el("div", { class: "cw-group-values" });
+    groupCell.append(scopeWrap, groupValues);
+    tr.appendChild(groupCell);
     const est = el("td", { class: "cw-fitcol cw-num" });
     const se = el("td", { class: "cw-fitcol cw-num" });
     const ci = el("td", { class: "cw-fitcol cw-num" });
@@ -165,13 +204,13 @@ export class ParamPanel {
     tr.append(est, se, ci, flag);
     this.tbody.appendChild(tr);
     const msgRow = el("tr", { class: "cw-msgrow" });
-    const msgCell = el("td", { colspan: "10" });
+    const msgCell = el("td", { colspan: "11" });
     const msg = el("div", { id: msgId, class: "cw-msg", "aria-live": "polite" });
     msgCell.appendChild(msg);
     msgRow.appendChild(msgCell);
     this.tbody.appendChild(msgRow);
 
-    const row: Row = { info, tr, value, fixed, lower, upper, est, se, ci, flag, msg, setting, dirty: new Set() };
+    const row: Row = { info, tr, value, fixed, lower, upper, est, se, ci, flag, scope, groupValues, msg, setting, dirty: new Set() };
     this.showSetting(row, setting, true);
     const fields: [HTMLInputElement, FieldKind][] = [
       [value, "value"],
@@ -202,6 +241,12 @@ export class ParamPanel {
       });
       input.addEventListener("change", () => this.commitField(row, kind));
     }
+    scope.addEventListener("change", () => {
+      // Python decides (set_scope) and sends the records back; show its answer, not the click.
+      const want: Scope = scope.checked ? "shared" : "per_group";
+      scope.checked = row.setting.scope === "shared";
+      this.cb.onScope?.(row.info.name, want);
+    });
     fixed.addEventListener("change", () => {
       const next = { ...row.setting, fixed: fixed.checked };
       this.apply(row, next);
@@ -263,6 +308,8 @@ export class ParamPanel {
     put(row.upper, "upper", s.upper);
     row.fixed.checked = s.fixed;
     row.tr.classList.toggle("cw-isfixed", s.fixed);
+    row.scope.checked = s.scope === "shared";
+    row.tr.dataset["scope"] = s.scope;
   }
 
   /** New synced settings (from Python or our own commit coming back). */
@@ -281,6 +328,46 @@ export class ParamPanel {
       const v = values[name];
       if (typeof v === "number" && !row.dirty.has("value") && document.activeElement !== row.value) {
         row.value.value = formatNumber(v);
+      }
+    }
+  }
+
+  /** Every group's values (by=), or null for one curve (the Groups column hides). */
+  setGroups(view: GroupsView | null): void {
+    this.table.classList.toggle("cw-has-groups", view !== null);
+    this.valueHeader.textContent = view === null ? "Value" : `Value (${view.selected})`;
+    this.valueHeader.title = view === null ? "" : `The values of the selected group, ${view.selected}; shared values are every group's`;
+    for (const [name, row] of this.rows) {
+      const r = view?.rows.find((q) => q.name === name);
+      if (!r) {
+        row.groupValues.replaceChildren();
+        continue;
+      }
+      if (r.fixed || r.shared) {
+        const v = r.cells[0]?.value;
+        row.groupValues.replaceChildren(
+          el("span", { class: "cw-group-same" }, `${r.fixed ? "fixed, " : ""}all groups${v === undefined ? "" : ` ${formatNumber(v, 4)}`}`),
+        );
+        continue;
+      }
+      const list = el("ul", { class: "cw-group-list", "aria-label": `${name} by group` });
+      for (const c of r.cells) {
+        const li = el("li", { "data-group": c.label, "data-value": String(c.value) });
+        if (c.selected) li.setAttribute("aria-current", "true");
+        const dot = el("span", { class: "cw-group-dot", "aria-hidden": "true" });
+        dot.style.background = c.style.colour;
+        li.append(dot, el("span", { class: "cw-group-name" }, c.label), el("span", { class: "cw-num" }, formatNumber(c.value, 4)));
+        list.appendChild(li);
+      }
+      if (r.cells.length > OPEN_GROUPS) {
+        const wasOpen = row.groupValues.querySelector("details")?.open === true;
+        const details = el("details");
+        details.open = wasOpen;
+        const sel = r.cells.find((c) => c.selected);
+        details.append(el("summary", {}, `${r.cells.length} values${sel ? ` (${sel.label}: ${formatNumber(sel.value, 4)})` : ""}`), list);
+        row.groupValues.replaceChildren(details);
+      } else {
+        row.groupValues.replaceChildren(list);
       }
     }
   }

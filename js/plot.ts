@@ -9,6 +9,7 @@ import { select, type Selection } from "d3-selection";
 import { zoom, zoomIdentity, type D3ZoomEvent, type ZoomBehavior, type ZoomTransform } from "d3-zoom";
 import { areaFromPixels, pathFromPixels, sampleAxis } from "./curve";
 import { decimateCells } from "./decimate";
+import { type PointGroups, traceMarker } from "./groups";
 import type { Point } from "./handles";
 import type { BandView, BandViews } from "./judge";
 import type { PointSet, Scale } from "./state";
@@ -34,6 +35,17 @@ export interface PlotCallbacks {
   /** Arrow-key nudge of a handle by (dx, dy) pixels (screen directions, y down). */
   onNudge(key: string, dxPx: number, dyPx: number): void;
   onToggleRows(rows: number[]): void;
+}
+
+/** Another group's curve (with by=): drawn on its own layer, redrawn apart from the selected one. */
+export interface GroupCurveView {
+  label: string;
+  colour: string;
+  source: CurveSource;
+  /** Left out of the fit: drawn faded. */
+  excluded: boolean;
+  /** At the group's fitted values: drawn solid (else dashed, like the selected start curve). */
+  fitted: boolean;
 }
 
 /** A curve either as a function to sample across the view, or as given samples. */
@@ -103,6 +115,7 @@ export class Plot {
   private readonly predictionPath: SVGSel<SVGPathElement>;
   private readonly confidencePath: SVGSel<SVGPathElement>;
   private readonly compareGroup: SVGSel;
+  private readonly groupLayer: SVGSel;
   private readonly curvePath: SVGSel<SVGPathElement>;
   private readonly gBrush: SVGSel;
   private readonly gHandles: SVGSel;
@@ -134,6 +147,8 @@ export class Plot {
   private fitted: CurveSource = null;
   private compared: { name: string; source: CurveSource }[] = [];
   private handles: HandleView[] = [];
+  private pointGroups: PointGroups | null = null;
+  private groupCurves: GroupCurveView[] = [];
   private residuals: Float64Array | null = null;
   private residualsShown = true;
   private bands: BandViews = { confidence: null, prediction: null };
@@ -142,7 +157,9 @@ export class Plot {
   // The click that ends a box drag must not also toggle the point under the pointer.
   private suppressClick = false;
 
-  private dirty = { points: true, curves: true, handles: true, axes: true, resid: true };
+  // `groups` (the other groups' curves) is apart from `curves` so a drag, which redraws the
+  // selected group's curve every frame, never redraws the others.
+  private dirty = { points: true, curves: true, groups: true, handles: true, axes: true, resid: true };
   private frame: number | null = null;
   private readonly resizeObserver: ResizeObserver | null;
 
@@ -182,6 +199,8 @@ export class Plot {
     this.predictionPath = clipped.append("path").attr("class", "cw-band cw-band-prediction");
     this.confidencePath = clipped.append("path").attr("class", "cw-band cw-band-confidence");
     this.compareGroup = clipped.append("g").attr("class", "cw-compare");
+    // The other groups' curves (by=): under the selected group's, on their own redraw flag.
+    this.groupLayer = clipped.append("g").attr("class", "cw-group-curves");
     this.fitPath = clipped.append("path").attr("class", "cw-curve-fit");
     this.curvePath = clipped.append("path").attr("class", "cw-curve");
     this.gBrush = this.area.append("g").attr("class", "cw-brush");
@@ -224,7 +243,7 @@ export class Plot {
       })
       .on("zoom", (event: D3ZoomEvent<SVGSVGElement, unknown>) => {
         this.transform = event.transform;
-        this.invalidate("points", "curves", "handles", "axes", "resid");
+        this.invalidate("points", "curves", "groups", "handles", "axes", "resid");
       });
     this.svg.call(this.zoomer).on("dblclick.zoom", null);
     // The wheel zooms only once the plot has been pressed (or with Ctrl/Cmd), so scrolling the
@@ -275,7 +294,7 @@ export class Plot {
     this.xLabel.text(xLabel);
     this.yLabel.text(yLabel);
     if (resetView) this.fitDomains();
-    this.invalidate("points", "resid", "axes", "curves", "handles");
+    this.invalidate("points", "resid", "axes", "curves", "groups", "handles");
   }
 
   setScales(x: Scale, y: Scale): void {
@@ -317,6 +336,38 @@ export class Plot {
     this.invalidate("curves");
   }
 
+  /** Colour and marker per point (by=), or null for one curve; hidden groups are not drawn. */
+  setPointGroups(groups: PointGroups | null): void {
+    this.pointGroups = groups;
+    this.invalidate("points", "resid");
+  }
+
+  /** The curves of the groups other than the selected one (by=). */
+  setGroupCurves(curves: GroupCurveView[]): void {
+    this.groupCurves = curves;
+    this.invalidate("groups");
+  }
+
+  /**
+   * The selected group (by=): its curves carry its label (the widget sets the colour, as the
+   * --cw-curve and --cw-fit variables, for the plot and the key above it); null for one curve.
+   */
+  setSelectedGroup(group: { label: string; colour: string } | null): void {
+    if (group === null) {
+      this.curvePath.attr("data-cw-group-curve", null);
+      this.fitPath.attr("data-cw-group-fit", null);
+    } else {
+      this.curvePath.attr("data-cw-group-curve", group.label).attr("data-colour", group.colour);
+      this.fitPath.attr("data-cw-group-fit", group.label).attr("data-colour", group.colour);
+    }
+    this.el.classList.toggle("cw-grouped", group !== null);
+  }
+
+  /** Is point i drawn (its group not hidden)? */
+  private shown(i: number): boolean {
+    return this.pointGroups === null || this.pointGroups.index[i]! >= 0;
+  }
+
   /** Viewport (client) coordinates of the drawn point of an input row, or null (tests, a11y). */
   pointClientXY(row: number): { x: number; y: number } | null {
     const { x, y } = this.scales();
@@ -324,6 +375,7 @@ export class Plot {
     const { x: xs, y: ys, row: rows, n } = this.points;
     for (let i = 0; i < n; i++) {
       if (rows[i] !== row) continue;
+      if (!this.shown(i)) return null;
       const px = x(xs[i]!);
       const py = y(ys[i]!);
       if (!Number.isFinite(px) || !Number.isFinite(py)) return null;
@@ -416,7 +468,7 @@ export class Plot {
     this.sizeCanvas(this.residCanvas, this.plotW, rh, MARGIN.left, RESID_MARGIN.top);
     this.xBase.range([0, this.plotW]);
     this.yBase.range([this.plotH, 0]);
-    this.invalidate("points", "curves", "handles", "axes", "resid");
+    this.invalidate("points", "curves", "groups", "handles", "axes", "resid");
   }
 
   private sizeCanvas(c: HTMLCanvasElement, w: number, h: number, left: number, top: number): void {
@@ -437,7 +489,7 @@ export class Plot {
     this.transform = zoomIdentity;
     // Keep d3-zoom's stored transform in step without firing a redraw per call.
     (this.svg.node() as SVGSVGElement & { __zoom?: ZoomTransform }).__zoom = zoomIdentity;
-    this.invalidate("points", "curves", "handles", "axes", "resid");
+    this.invalidate("points", "curves", "groups", "handles", "axes", "resid");
   }
 
   // ------------------------------------------------------------------ drawing
@@ -457,9 +509,10 @@ export class Plot {
     if (d.axes) this.drawAxes(x, y);
     if (d.points) this.drawPoints(x, y);
     if (d.curves) this.drawCurves(x, y);
+    if (d.groups) this.drawGroupCurves(x, y);
     if (d.handles) this.drawHandles(x, y);
     if (d.resid) this.drawResiduals(x);
-    this.dirty = { points: false, curves: false, handles: false, axes: false, resid: false };
+    this.dirty = { points: false, curves: false, groups: false, handles: false, axes: false, resid: false };
   }
 
   private drawAxes(x: Lin, y: Lin): void {
@@ -483,6 +536,10 @@ export class Plot {
     const dpr = this.canvas.width / Math.max(1, this.plotW);
     ctx.setTransform(dpr, 0, 0, dpr, 0, 0);
     ctx.clearRect(0, 0, this.plotW, this.plotH);
+    if (this.pointGroups !== null) {
+      this.drawGroupPoints(ctx, x, y, this.pointGroups);
+      return;
+    }
     const { x: xs, y: ys, excluded, n } = this.points;
     const pointColour = cssVar(this.el, "--cw-point", "#3d3d3d");
     const excludedColour = cssVar(this.el, "--cw-excluded", "#a0a0a0");
@@ -553,6 +610,94 @@ export class Plot {
         ctx.stroke();
       }
     }
+  }
+
+  /**
+   * Points by group (by=): each group in its colour and marker, excluded rows hollow and grey,
+   * groups left out of the fit hollow and faded, hidden groups not at all; replicate means and
+   * spreads within each group.
+   */
+  private drawGroupPoints(ctx: CanvasRenderingContext2D, x: Lin, y: Lin, pg: PointGroups): void {
+    const { x: xs, y: ys, excluded, n } = this.points;
+    const r = n > 2000 ? 2.2 : 3.4;
+    const excludedColour = cssVar(this.el, "--cw-excluded", "#a0a0a0");
+    const byGroup: number[][] = pg.styles.map(() => []);
+    for (let i = 0; i < n; i++) {
+      const g = pg.index[i]!;
+      if (g >= 0 && g < byGroup.length) byGroup[g]!.push(i);
+    }
+    const thin = (idx: number[]): ArrayLike<number> => {
+      if (idx.length <= THIN_ABOVE) return idx;
+      const sx = Float64Array.from(idx, (i) => xs[i]!);
+      const sy = Float64Array.from(idx, (i) => ys[i]!);
+      const keep = decimateCells(sx, sy, this.plotW, this.plotH, (v) => x(v), (v) => y(v), 2);
+      return Array.from(keep, (k) => idx[k]!);
+    };
+    byGroup.forEach((idx, g) => {
+      const { colour, marker } = pg.styles[g]!;
+      const faded = pg.faded[g]!;
+      const filled = new Path2D();
+      const hollow = new Path2D();
+      const out = new Path2D();
+      const drawn = thin(idx);
+      for (let k = 0; k < drawn.length; k++) {
+        const i = drawn[k]!;
+        const px = x(xs[i]!);
+        const py = y(ys[i]!);
+        if (!Number.isFinite(px) || !Number.isFinite(py)) continue;
+        traceMarker(excluded[i] ? out : faded ? hollow : filled, marker, px, py, r);
+      }
+      ctx.globalAlpha = faded ? 0.45 : n > 2000 ? 0.6 : 0.9;
+      ctx.fillStyle = colour;
+      ctx.fill(filled);
+      ctx.strokeStyle = colour;
+      ctx.lineWidth = 1.3;
+      ctx.stroke(hollow);
+      ctx.globalAlpha = 1;
+      ctx.strokeStyle = excludedColour;
+      ctx.lineWidth = 1.2;
+      ctx.stroke(out);
+      if (n > 20000 || idx.length < 2) return;
+      const skip = Array.from({ length: n }, (_, i) => excluded[i] === 1 || pg.index[i] !== g);
+      const reps = groupReplicates(xs, ys, skip);
+      if (!reps.some((q) => q.n > 1) || reps.length > 400) return;
+      ctx.strokeStyle = colour;
+      ctx.globalAlpha = faded ? 0.45 : 1;
+      ctx.lineWidth = 1.5;
+      ctx.beginPath();
+      for (const q of reps) {
+        if (q.n < 2) continue;
+        const px = x(q.x);
+        const pm = y(q.mean);
+        if (!Number.isFinite(px) || !Number.isFinite(pm)) continue;
+        ctx.moveTo(px - 6, pm);
+        ctx.lineTo(px + 6, pm);
+        const lo = y(q.mean - q.sd);
+        const hi = y(q.mean + q.sd);
+        if (Number.isFinite(lo) && Number.isFinite(hi)) {
+          ctx.moveTo(px, lo);
+          ctx.lineTo(px, hi);
+        }
+      }
+      ctx.stroke();
+      ctx.globalAlpha = 1;
+    });
+  }
+
+  private drawGroupCurves(x: Lin, y: Lin): void {
+    const sel = this.groupLayer
+      .selectAll<SVGPathElement, GroupCurveView>("path")
+      .data(this.groupCurves, (c) => c.label);
+    sel.exit().remove();
+    sel
+      .enter()
+      .append("path")
+      .merge(sel)
+      .attr("class", (c) => `cw-group-curve${c.excluded ? " cw-group-excluded" : ""}${c.fitted ? " cw-group-fitted" : ""}`)
+      .attr("data-cw-group-curve", (c) => c.label)
+      .attr("data-colour", (c) => c.colour)
+      .style("stroke", (c) => c.colour)
+      .attr("d", (c) => this.curvePathData(c.source, x, y));
   }
 
   private curvePathData(src: CurveSource, x: Lin, y: Lin): string {
@@ -738,7 +883,8 @@ export class Plot {
     ctx.clearRect(0, 0, this.plotW, rh);
     const n = Math.min(res.length, xs.length);
     const r = n > 2000 ? 1.5 : 2.5;
-    ctx.fillStyle = cssVar(this.el, "--cw-point", "#3d3d3d");
+    // With groups the residuals are the selected group's: drawn in its colour.
+    ctx.fillStyle = cssVar(this.el, this.pointGroups !== null ? "--cw-fit" : "--cw-point", "#3d3d3d");
     ctx.strokeStyle = cssVar(this.el, "--cw-excluded", "#a0a0a0");
     const filled = new Path2D();
     const hollow = new Path2D();
@@ -762,6 +908,7 @@ export class Plot {
     const rows: number[] = [];
     const { x: xs, y: ys, row, n } = this.points;
     for (let i = 0; i < n; i++) {
+      if (!this.shown(i)) continue;
       const px = x(xs[i]!);
       const py = y(ys[i]!);
       if (px >= x0 && px <= x1 && py >= y0 && py <= y1) rows.push(row[i]!);
@@ -790,6 +937,7 @@ export class Plot {
     let best = -1;
     let bestD = 7 * 7; // click within 7 px of a point
     for (let i = 0; i < n; i++) {
+      if (!this.shown(i)) continue;
       const dx = x(xs[i]!) - cx;
       const dy = y(ys[i]!) - cy;
       const d = dx * dx + dy * dy;

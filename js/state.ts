@@ -266,6 +266,8 @@ export interface WidgetModel {
   /** Flush: the page sets sync_ping, Python answers by setting sync_pong to the same number. */
   sync_ping: number;
   sync_pong: number;
+  /** With by=: the groups as the page draws them (js/groups.ts GroupsJson), else null. */
+  groups_json: unknown;
 }
 
 /** Messages the front end sends with model.send(). */
@@ -279,6 +281,11 @@ export type FrontMessage =
     }
   | { type: "cancel" }
   | { type: "guided_start" }
+  /** Groups (by=): each calls the Python method of the same name. */
+  | { type: "select_group"; label: string }
+  | { type: "hide_group"; label: string; hidden: boolean }
+  | { type: "exclude_group"; label: string; excluded: boolean }
+  | { type: "set_scope"; name: string; scope: "shared" | "per_group" }
   /** A row of the degree table picked: show the polynomial of this degree. */
   | { type: "use_degree"; degree: number }
   /** Large data: compute the degree table now. */

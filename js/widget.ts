@@ -54,6 +54,24 @@
 //                         above 20k included points a <button> "Compute degree table" asks first
 //   error area            .cw-error (role="alert"), text in .cw-error-text, button "Dismiss"
 //   announcements         .cw-live (aria-live="polite", visually hidden)
+//   groups (by=)          root data-cw-group-selected (label), data-cw-groups-hidden and
+//                         data-cw-groups-excluded (JSON arrays of labels; all "" for one curve).
+//                         Legend .cw-group-legend (role="group", aria-label "Groups"): per group
+//                         a .cw-group-entry[data-group=<label>][data-colour][data-marker] with
+//                         three <button>s: .cw-group-select (aria-label "Group <label>…",
+//                         aria-pressed = selected; arrow keys move between them), .cw-group-hide
+//                         (aria-label "Hide group <label>", aria-pressed = hidden) and
+//                         .cw-group-exclude (aria-label "Leave group <label> out of the fit",
+//                         aria-pressed = excluded). Each sends a message calling the Python method.
+//                         Curves: exactly one path[data-cw-group-curve=<label>] per drawn group,
+//                         stroke colour in data-colour: the selected group's is path.cw-curve,
+//                         the others' are path.cw-group-curve (class cw-group-fitted when at the
+//                         group's fitted values, cw-group-excluded when left out); the selected
+//                         group's fit is path.cw-curve-fit[data-cw-group-fit=<label>].
+//                         Parameter rows <tr data-param=<name> data-scope=shared|per_group>:
+//                         checkbox aria-label "Share <name> across groups" (calls set_scope);
+//                         ul.cw-group-list > li[data-group][data-value] per group (per-group
+//                         parameters only; li[aria-current] is the selected group).
 //   test hook             root._cwModel is the anywidget model (get/set/save_changes/on/off);
 //                         flush: set sync_ping to n, save_changes, wait for sync_pong === n
 // ------------------------------------------------------------------------------------------
@@ -81,10 +99,12 @@ import {
   usesPins,
   withValues,
 } from "./interact";
+import { atFitted, type GroupsJson, groupStyle, legendEntries, otherCurves, pointGroups, readGroups, valueTable } from "./groups";
+import { GroupLegend } from "./legend";
 import { bandViews, bandsDrawn, DEGREE_COLUMNS, degreeCaption, degreeLabel, degreeRows, degreeSuggestion } from "./judge";
 import { ParamPanel } from "./panel";
 import { ParamsError, byName, readParams, toList } from "./params";
-import { type CurveSource, Plot } from "./plot";
+import { type CurveSource, type GroupCurveView, Plot } from "./plot";
 import {
   type CompareJson,
   type DataJson,
@@ -231,6 +251,19 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   );
   root.insertBefore(legend, plot.el);
 
+  // Groups (by=): the legend that selects, hides and leaves out groups; each button asks
+  // Python (the method of the same name) and the legend is redrawn from groups_json.
+  const groupLegend = new GroupLegend({
+    onSelect: (label) => send(model, { type: "select_group", label }),
+    onHide: (label, hidden) => send(model, { type: "hide_group", label, hidden }),
+    onExclude: (label, excluded) => send(model, { type: "exclude_group", label, excluded }),
+  });
+  root.insertBefore(groupLegend.el, legend);
+  let groups: GroupsJson | null = null;
+  // The selected group is hidden: its points, curves and handles are not drawn.
+  let selectedHidden = false;
+  let otherKey = "";
+
   // Display toggles: the fit's bands and the residual strip (synced, so Python can set them).
   const toggles = h("div", { class: "cw-toggles", role: "group", "aria-label": "Show on the plot" });
   const toggleIds = Math.random().toString(36).slice(2);
@@ -296,6 +329,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
       ui.preview = { ...valuesOf(mj, params), ...typing };
       drawCurrent();
     },
+    onScope: (name, scope) => send(model, { type: "set_scope", name, scope }),
   });
   cleanups.push(() => panel.destroy());
 
@@ -357,7 +391,9 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
 
   function drawCurrent(): void {
     const values = ui.preview;
-    if (mj.tree !== null) {
+    if (selectedHidden) {
+      plot.setCurve(null);
+    } else if (mj.tree !== null) {
       const tree = mj.tree;
       plot.setCurve({ kind: "fn", fn: (xs) => evalCurve(tree, values, xs) });
     } else {
@@ -375,6 +411,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     } else {
       plot.setHandles(mj.tree !== null ? handleViews(mj, values, fixedSet()) : []);
     }
+    if (selectedHidden) plot.setHandles([]);
     if (ui.dragging !== null || Object.keys(typing).length > 0) panel.setPreview(values);
     const derived = (mj.derived ?? []).flatMap((d) => {
       try {
@@ -393,7 +430,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     const f: FittedJson | null = model.get("fitted");
     const mine = f !== null && (f.model_name === undefined || f.model_name === mj.name);
     legend.classList.toggle("cw-has-fit", mine);
-    if (!mine || f === null) {
+    if (!mine || f === null || selectedHidden) {
       plot.setFitted(null, null);
       root.dataset["cwFitted"] = "";
     } else {
@@ -408,6 +445,74 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     panel.setFitted(mine ? f : null);
     showResult(mine ? f : null);
     drawBands();
+  }
+
+  /** Everything drawn of the groups (by=): legend, points' looks, other curves, the table. */
+  function drawGroups(): void {
+    groups = readGroups(model.get("groups_json"));
+    const wasHidden = selectedHidden;
+    selectedHidden = groups !== null && groups.hidden.includes(groups.selected);
+    groupLegend.show(groups ? legendEntries(groups) : null);
+    root.dataset["cwGroupSelected"] = groups?.selected ?? "";
+    root.dataset["cwGroupsHidden"] = groups ? JSON.stringify(groups.hidden) : "";
+    root.dataset["cwGroupsExcluded"] = groups ? JSON.stringify(groups.excluded) : "";
+    plot.setPointGroups(groups ? pointGroups(groups, points.n) : null);
+    const sel = groups ? groupStyle(groups.labels.indexOf(groups.selected)) : null;
+    plot.setSelectedGroup(groups && sel ? { label: groups.selected, colour: sel.colour } : null);
+    // The selected group's colour for its curves, handles, bands and the line key.
+    for (const v of ["--cw-curve", "--cw-fit"]) {
+      if (sel) root.style.setProperty(v, sel.colour);
+      else root.style.removeProperty(v);
+    }
+    plot.el.classList.toggle("cw-selected-excluded", groups !== null && groups.excluded.includes(groups.selected));
+    drawOtherCurves();
+    const g = groups;
+    panel.setGroups(
+      g === null
+        ? null
+        : {
+            selected: g.selected,
+            rows: valueTable(g, params).map((r) => ({
+              ...r,
+              cells: r.cells.map((c) => ({ ...c, style: groupStyle(g.labels.indexOf(c.label)) })),
+            })),
+          },
+    );
+    if (wasHidden !== selectedHidden) {
+      drawCurrent();
+      drawFitted();
+    }
+  }
+
+  /**
+   * The other groups' curves, on the plot's own layer. Not called during a drag (the selected
+   * group's curve is the only one a drag redraws); a shared value moved by a drag reaches the
+   * other curves when the drag is committed.
+   */
+  function drawOtherCurves(): void {
+    if (groups === null) {
+      if (otherKey !== "") plot.setGroupCurves([]);
+      otherKey = "";
+      return;
+    }
+    const g = groups;
+    const tree = mj.tree;
+    const others = otherCurves(g, params);
+    const views: GroupCurveView[] = others.map((c) => {
+      const vals = c.values;
+      return {
+        label: c.label,
+        colour: c.style.colour,
+        excluded: c.excluded,
+        fitted: atFitted(g, c.label, vals),
+        source: tree !== null ? { kind: "fn", fn: (xs) => evalCurve(tree, vals, xs) } : samples(g.curves?.[c.label]),
+      };
+    });
+    // Skip the redraw when nothing drawn would change (e.g. a selected group's own edit).
+    const key = JSON.stringify([mj.name, views.map((v) => [v.label, v.excluded, v.fitted]), others.map((c) => c.values), tree === null ? g.curves : null]);
+    if (key === otherKey) return;
+    otherKey = key;
+    plot.setGroupCurves(views);
   }
 
   function drawBands(): void {
@@ -630,6 +735,8 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     drawFitted();
     drawCompare();
     drawDegrees();
+    otherKey = "";
+    drawGroups();
   }
 
   function loadData(resetViewToo: boolean): void {
@@ -663,6 +770,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     model.save_changes();
     ui.preview = { ...valuesOf(mj, params), ...typing };
     drawCurrent();
+    if (groups !== null) drawGroups();
   }
 
   let dragQueued: { key: string; target: Point } | null = null;
@@ -882,12 +990,15 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
       if ((usesPins(mj) || kernelPins()) && before !== ui.pins.length) ui.pins = [];
       drawCurrent();
     }
+    if (groups !== null) drawGroups();
   });
   listen("change:data", () => {
     loadData(false);
+    drawGroups();
     drawFitted();
     drawCurrent();
   });
+  listen("change:groups_json", drawGroups);
   listen("change:excluded", () => {
     loadData(false);
   });

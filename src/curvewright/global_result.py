@@ -366,8 +366,9 @@ class GlobalResult:
         for k, lab, g in zip(self.keys, self.labels, self.groups, strict=True):
             if group == k or (isinstance(group, str) and group == lab):
                 return g
+        shown = repr(group) if isinstance(group, (str, int, float, tuple)) else type(group).__name__
         raise ParameterError(
-            f"no group {group!r} in this fit; the groups are {list(self.labels)} (by key or label)."
+            f"no group {shown} in this fit; the groups are {list(self.labels)} (by key or label)."
         )
 
     def __iter__(self) -> Any:

@@ -311,7 +311,9 @@ def test_fit_applies_through_a_running_event_loop(w: CurveBench) -> None:
     # In a kernel the page's Fit runs with an event loop: the result is applied on it.
     async def main() -> cw.FitResult | None:
         page_sends(w, {"type": "fit"})
-        for _ in range(2000):
+        # A generous wait (up to about 2 minutes), not a speed check: a loaded CI machine can
+        # take seconds to schedule the fit's thread.
+        for _ in range(12000):
             if w.result is not None:
                 return w.result
             await asyncio.sleep(0.01)

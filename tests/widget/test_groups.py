@@ -116,3 +116,21 @@ def test_bad_group_input_is_refused(plate: pd.DataFrame) -> None:
     w = bench(plate)
     with pytest.raises(cw.ParameterError, match="scope"):
         w.set_scope("n_h", "everywhere")
+
+
+def test_callable_model_curves_are_sampled_per_drawn_group(plate: pd.DataFrame) -> None:
+    # A Python callable: the page cannot evaluate it, so groups_json carries every drawn
+    # group's curve (all but the selected one, whose curve is preview_curve, and the hidden).
+    def falling(x: np.ndarray, top: float = 100.0, k: float = 1.0) -> np.ndarray:
+        return top / (1.0 + x / k)
+
+    w = CurveBench(plate, x="conc", y="resp", by="compound", model=falling)
+    w.hide_group("quillamide")
+    gj = w.groups_json
+    assert gj is not None and set(gj["curves"]) == {"zeltarin"}
+    vals = w.group_values.loc["zeltarin"]
+    c = gj["curves"]["zeltarin"]
+    xs = np.asarray(c["x"], dtype=float)
+    # The samples are the callable itself at the group's values (numpy, written out here).
+    np.testing.assert_allclose(c["y"], vals["top"] / (1.0 + xs / vals["k"]), rtol=1e-12)
+    assert bench(plate).groups_json["curves"] is None  # a formula's curves are drawn on the page

@@ -1266,16 +1266,29 @@ class CurveBench(anywidget.AnyWidget):
                 for lab, row in zip(gr.labels, gr.values.to_numpy(dtype=float), strict=True)
             }
         rows = self.data.get("row", []) if isinstance(self.data, Mapping) else []
+        values = {lab: self._values_of(mem, lab) for lab in g.labels}
+        # The page draws a formula's curves itself; a callable's are sampled here, for the
+        # groups drawn beside the selected one (whose curve is preview_curve).
+        curves = (
+            None
+            if self.model.has_preview
+            else {
+                lab: self._python_curve(values[lab])
+                for lab in g.labels
+                if lab != g.selected and lab not in g.hidden
+            }
+        )
         return {
             "by": list(g.by),
             "labels": list(g.labels),
             "selected": g.selected,
             "hidden": [lab for lab in g.labels if lab in g.hidden],
             "excluded": [lab for lab in g.labels if lab in g.excluded],
-            "values": {lab: self._values_of(mem, lab) for lab in g.labels},
+            "values": values,
             "fitted": fitted,
             "fit_success": None if gr is None else bool(gr.success),
             "point_group": g.row_group[np.asarray(rows, dtype=np.int64)].tolist(),
+            "curves": curves,
         }
 
     def _group_request(self, records: Parameters) -> dict[str, Any]:
