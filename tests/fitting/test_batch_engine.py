@@ -470,3 +470,23 @@ def test_from_groups_pads_ragged_groups(sizes: list[int]) -> None:
         assert not prob.mask[i, k:].any()
     assert prob.start.shape == prob.lower.shape == (len(sizes), 2)
     assert np.all(np.isinf(prob.lower)) and math.isinf(float(prob.upper.max()))
+
+
+def test_the_compiled_kernel_is_kept_on_disk_for_later_processes(
+    tmp_path: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # numba's cache lives beside the generated module: after one solve both are in the cache
+    # directory, and a second process would load the machine code instead of compiling it.
+    _kernel_ok("compiled")
+    monkeypatch.setenv("CURVEWRIGHT_CACHE", str(tmp_path))
+    m = Model.from_formula("base + amp*exp(-rate*x)")  # a model no other test compiles
+    x = np.linspace(0.0, 5.0, 15)
+    y = 1.0 + 4.0 * np.exp(-0.7 * x)
+    prob = BatchProblem.from_groups(m, [x], [y], None, start=[0.8, 3.5, 0.5])
+    sol = solve_batch(prob, kernel="compiled")
+    assert sol.settled[0]
+    np.testing.assert_allclose(sol.values[0], [1.0, 4.0, 0.7], rtol=1e-8)
+    folder = tmp_path / "kernels"
+    modules = list(folder.glob("cw_kernel_*.py"))
+    assert len(modules) == 1 and "def _points" in modules[0].read_text(encoding="utf-8")
+    assert list((folder / "__pycache__").glob("*.nbi")), "numba wrote no cache index"

@@ -2,12 +2,15 @@
 
 Its one job is to run, for one formula model, the same algorithm as the numpy path of
 :func:`curvewright.fitting.batch_engine.solve_batch` one group at a time in code compiled by
-numba: the model's value and analytic derivatives at one point are generated as scalar code
-from the expression tree (the same straight-line statements :mod:`curvewright.expr` generates
-for numpy, run on floats), and the solver loop (normal equations, Cholesky solve, bounded step,
-convergence tests) is a plain compiled function specialised to that point function. numba is
-optional: :func:`kernel_for` returns None when it is missing or cannot compile a model, and the
-caller keeps the numpy path.
+numba. The model's value and analytic derivatives are generated as scalar code from the
+expression tree (the straight-line statements :mod:`curvewright.expr` generates for numpy, run
+on floats, with the statements that do not depend on x hoisted out of the loop over points);
+the solver loop (normal equations, Cholesky solve, bounded step, convergence tests, restart on
+stale scaling) is a fixed template. Both are written as one small module per model into
+:func:`cache_dir` and imported from there, so numba's on-disk cache serves later processes
+(compiling takes seconds; loading, a fraction of one). numba is optional at run time:
+:func:`kernel_for` returns None when it is missing or refuses the model, and the caller keeps
+the numpy path.
 """
 
 from __future__ import annotations
@@ -48,6 +51,8 @@ def available() -> bool:
 
 _TOKEN = re.compile(r"\b(_t\d+|x)\b")
 _SQUARE = re.compile(r"^_pow\((\w+), 2\.0\)$")
+_MINUS_ONE = re.compile(r"^_sub\((\w+), 1\.0\)$")
+_POWER = re.compile(r"^_pow\((\w+), (\w+)\)$")
 
 
 def _sources(model: Model) -> str:
@@ -67,11 +72,26 @@ def _sources(model: Model) -> str:
     varying: set[str] = {"x"}
     fixed_lines: list[str] = []
     point_lines: list[str] = []
+    minus_one: dict[str, str] = {}  # temp -> b, for temp = b - 1
+    powers: dict[tuple[str, str], str] = {}  # (a, b) -> temp, for temp = a**b
     for b in body:
         temp, code = b.split(" = ", 1)
         sq = _SQUARE.match(code)
         if sq:
             code = f"_mul({sq.group(1)}, {sq.group(1)})"
+        sub = _MINUS_ONE.match(code)
+        if sub:
+            minus_one[temp] = sub.group(1)
+        pw = _POWER.match(code)
+        if pw:
+            base, expo = pw.group(1), pw.group(2)
+            known = powers.get((base, minus_one.get(expo, "")))
+            if known is not None:
+                # a**(b - 1) as a**b / a when a**b is already known (a power's derivative):
+                # one transcendental call fewer per point; at a = 0 the power itself.
+                code = f"(_div({known}, {base}) if {base} != 0.0 else {code})"
+            else:
+                powers[(base, expo)] = temp
         line = f"{temp} = {code}"
         lines.append((temp, line))
         if any(tok in varying for tok in _TOKEN.findall(code)):
