@@ -201,7 +201,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.catalog",
         "curvewright.start_batch",
     ),
-    "result": ("curvewright.result", "curvewright.global_result"),
+    "result": ("curvewright.result", "curvewright.global_result", "curvewright.batch_result"),
     "fit": (
         "curvewright.fitting",
         "curvewright.fitting.problem",
@@ -211,6 +211,9 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.fitting.global_fit",
         "curvewright.fitting.batch_kernel",
         "curvewright.fitting.batch_engine",
+        "curvewright.fitting.batch_run",
+        "curvewright.fitting.batch",
+        "curvewright.fitting.batch_dask",
     ),
     "statistics": (
         "curvewright.stats",
