@@ -53,6 +53,7 @@ __all__ = [
     "lineweaver_burk",
     "logit_line",
     "loglog_power",
+    "plausible_sizes",
     "semilog_rate",
 ]
 
@@ -1275,6 +1276,45 @@ def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) ->
         if hi_l < lo_l:
             lo_l = hi_l
         out[n] = _Range("log", lo_l, hi_l, signs)
+    return out
+
+
+def plausible_sizes(
+    model: Model, x: ArrayLike, y: ArrayLike, names: Sequence[str]
+) -> dict[str, tuple[float, float]]:
+    """A typical and a largest plausible magnitude for each named parameter, from the data.
+
+    The sampling ranges of :func:`generic_start` (unit hints, the dimension inferred from the
+    formula, the finest and coarsest x scale of the data, bounds) read as sizes: a log range
+    ``10**lo .. 10**hi`` gives ``(10**((lo + hi)/2), 10**hi)``, a linear range its width and its
+    largest absolute end. The fit judges runaway parameters and standard errors by them.
+
+    Parameters
+    ----------
+    model : Model
+    x, y : array_like
+        Finite data of equal length.
+    names : sequence of str
+        Parameters of ``model``.
+
+    Returns
+    -------
+    dict
+        ``{name: (typical, largest)}``, both positive and finite.
+    """
+    xa = np.asarray(x, dtype=float).ravel()
+    ya = np.asarray(y, dtype=float).ravel()
+    out: dict[str, tuple[float, float]] = {}
+    for n, r in _ranges(model, xa, ya, names).items():
+        if r.kind == "log":
+            typical, largest = 10.0 ** ((r.lo + r.hi) / 2.0), 10.0**r.hi
+        else:
+            largest = max(abs(r.lo), abs(r.hi))
+            typical = max(r.hi - r.lo, 1e-300)
+        largest = max(largest, typical)
+        if not (math.isfinite(typical) and math.isfinite(largest) and typical > 0):
+            typical = largest = 1.0
+        out[n] = (typical, largest)
     return out
 
 
