@@ -24,6 +24,7 @@ import inspect
 import itertools
 import math
 import warnings
+import zlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any, NamedTuple
@@ -46,6 +47,7 @@ __all__ = [
     "PowerEstimate",
     "RateEstimate",
     "SeparableRule",
+    "data_seed",
     "eadie_hofstee",
     "generic_start",
     "guided_start",
@@ -520,6 +522,104 @@ class _Problem:
         r = self.residual(values)
         return float(np.dot(r, r))
 
+    # --- the analytic path (formula models): variable projection with the model's Jacobian
+    @property
+    def analytic(self) -> bool:
+        """Whether :meth:`_analytic_eval` applies: a formula, and no bounded linear parameter."""
+        if not self.model.has_jacobian:
+            return False
+        return all(
+            math.isinf(self.model.param(n).lower) and math.isinf(self.model.param(n).upper)
+            for n in self.linear
+        )
+
+    def _theta(self, u: FloatArray, base: Mapping[str, float]) -> FloatArray:
+        v = {**base, **self.held}
+        for n, ui in zip(self.nonlinear, u, strict=True):
+            v[n] = self.from_u(n, float(ui))
+        for n in self.linear:
+            v[n] = 0.0
+        return np.array([float(v[n]) for n in self.model.param_names])
+
+    def _linear_solve(self, theta: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray] | None:
+        """The linear parameters solved at ``theta``'s nonlinear values (its linear ones 0).
+
+        Returns the linear values by least squares, the curve they give and an orthonormal
+        basis of the linear columns' span. The model is affine in them: ``f = f0 + A c`` with
+        ``A`` the Jacobian's linear columns,
+        both from one evaluation. None when something is not finite.
+        """
+        f0, J = self.model.value_and_jacobian(self.x, theta.tolist())
+        lin = [self.model.param_names.index(n) for n in self.linear]
+        A = J[:, lin]
+        rhs = self.y - f0
+        if not (np.all(np.isfinite(A)) and np.all(np.isfinite(rhs))):
+            return None
+        U, sv, Vt = np.linalg.svd(A, full_matrices=False)
+        keep = sv > sv[0] * 1e-12 * max(A.shape) if sv.size and sv[0] > 0 else sv > 0
+        Uk = U[:, keep]
+        c = Vt[keep].T @ ((Uk.T @ rhs) / sv[keep])
+        return c, f0 + A @ c, Uk
+
+    def screen(self, values: Mapping[str, float]) -> float:
+        """Residual sum of squares after solving the linear parameters: one evaluation."""
+        u = np.array([self.to_u(n, float(values[n])) for n in self.nonlinear])
+        theta = self._theta(u, values)
+        with np.errstate(all="ignore"):
+            if not self.linear:
+                r = self.residual(dict(zip(self.model.param_names, theta.tolist(), strict=True)))
+                return float(r @ r)
+            got = self._linear_solve(theta)
+        if got is None:
+            return math.inf
+        r = (got[1] - self.y) / self.scale
+        ssr = float(r @ r)
+        return ssr if math.isfinite(ssr) else math.inf
+
+    def _analytic_residual(
+        self, u: FloatArray, base: Mapping[str, float]
+    ) -> tuple[FloatArray, FloatArray]:
+        """Residual at ``u`` (linear parameters solved: one evaluation) and the full vector."""
+        theta = self._theta(u, base)
+        if self.linear:
+            got = self._linear_solve(theta)
+            if got is None:
+                return np.full(self.x.size, self.big / self.scale), theta
+            c, f, _ = got
+            theta[[self.model.param_names.index(n) for n in self.linear]] = c
+        else:
+            f = self.model.value_and_jacobian(self.x, theta.tolist())[0]
+        r = (f - self.y) / self.scale
+        bad = ~np.isfinite(r)
+        if bad.any():
+            r = np.where(bad, self.big / self.scale, r)
+        return r, theta
+
+    def _analytic_jacobian(self, theta: FloatArray) -> FloatArray:
+        """The residual's Jacobian in the searched (log) parameters at the full vector ``theta``.
+
+        With linear parameters it is Kaufman's (1975) variable-projection Jacobian: the model's
+        nonlinear columns, at the solved linear values, with their part in the span of the
+        linear columns removed.
+        """
+        names = self.model.param_names
+        non = [names.index(n) for n in self.nonlinear]
+        _, J = self.model.value_and_jacobian(self.x, theta.tolist())
+        Jn = J[:, non] / self.scale
+        for j, n in enumerate(self.nonlinear):
+            if self.logged(n):
+                Jn[:, j] *= theta[non[j]]  # d theta / d log theta
+        if self.linear:
+            A = J[:, [names.index(n) for n in self.linear]]
+            if np.all(np.isfinite(A)):
+                U, sv, _ = np.linalg.svd(A, full_matrices=False)
+                keep = sv > sv[0] * 1e-12 * max(A.shape) if sv.size and sv[0] > 0 else sv > 0
+                basis = U[:, keep]
+                Jn = Jn - basis @ (basis.T @ Jn)
+        if not np.all(np.isfinite(Jn)):
+            Jn = np.nan_to_num(Jn, nan=0.0, posinf=0.0, neginf=0.0)
+        return Jn
+
     def search(self, base: Mapping[str, float], budget: int) -> dict[str, float]:
         """Short least-squares run on the nonlinear parameters (linear ones projected out)."""
         if not self.nonlinear:
@@ -527,6 +627,8 @@ class _Problem:
         u0 = np.array([self.to_u(n, base[n]) for n in self.nonlinear])
         lo, hi = self.u_bounds(self.nonlinear)
         u0 = np.clip(u0, np.nextafter(lo, hi), np.nextafter(hi, lo))
+        if self.analytic:
+            return self._search_analytic(u0, lo, hi, base, budget)
 
         # Searched in units of each parameter's own size: least_squares checks gtol on the
         # unscaled gradient, which otherwise depends on the unit of x (a midpoint at 3e7 has a
@@ -546,6 +648,51 @@ class _Problem:
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             u = u0
         return self.full(u, base)
+
+    def _search_analytic(
+        self,
+        u0: FloatArray,
+        lo: FloatArray,
+        hi: FloatArray,
+        base: Mapping[str, float],
+        budget: int,
+    ) -> dict[str, float]:
+        """:meth:`search` with the model's analytic Jacobian (variable projection)."""
+        logged = np.array([self.logged(n) for n in self.nonlinear])
+        typ = np.where(logged, 1.0, np.abs(u0))
+        typ = np.where(typ > 0, typ, 1.0)
+        last: dict[bytes, FloatArray] = {}  # the full vector at the last residual's point
+
+        def fun(w: FloatArray) -> FloatArray:
+            r, theta = self._analytic_residual(w * typ, base)
+            last.clear()
+            last[w.tobytes()] = theta
+            return r
+
+        def jac(w: FloatArray) -> FloatArray:
+            theta = last.get(w.tobytes())
+            if theta is None:  # the solver asks at the last residual's point; just in case
+                theta = self._analytic_residual(w * typ, base)[1]
+            return self._analytic_jacobian(theta) * typ
+
+        best = u0
+        try:
+            with np.errstate(all="ignore"):
+                sol = least_squares(
+                    fun,
+                    u0 / typ,
+                    jac=jac,
+                    bounds=(lo / typ, hi / typ),
+                    x_scale="jac",
+                    max_nfev=budget,
+                )
+            best = sol.x * typ
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            pass
+        with np.errstate(all="ignore"):
+            theta = self._analytic_residual(best, base)[1]
+        out = {**base, **dict(zip(self.model.param_names, theta.tolist(), strict=True))}
+        return {**out, **self.held}
 
 
 def _polish(
@@ -1368,7 +1515,7 @@ def generic_start(
     *,
     fixed: Mapping[str, float] | None = None,
     n_starts: int | None = None,
-    seed: int = 0,
+    seed: int | None = None,
 ) -> dict[str, float]:
     """Starting values for any model without a user's numbers: scale-aware multi-start.
 
@@ -1396,8 +1543,9 @@ def generic_start(
         Parameters held at given values.
     n_starts : int, optional
         Number of sampled starts (default ``12 + 8 * d`` for ``d`` searched parameters).
-    seed : int
-        Seed of the Latin hypercube, so results are reproducible.
+    seed : int, optional
+        Seed of the Latin hypercube; by default one made from the bytes of x and y
+        (:func:`data_seed`), so the same data always give the same starts, in any process.
 
     Returns
     -------
@@ -1415,7 +1563,28 @@ def generic_start(
     held = _check_fixed(model, fixed)
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
-        return _generic(model, xa, ya, held, n_starts, seed)
+        return _generic(model, xa, ya, held, n_starts, data_seed(xa, ya) if seed is None else seed)
+
+
+def data_seed(x: ArrayLike, y: ArrayLike) -> int:
+    """A seed made from the data's bytes: the same data give the same seed in any process.
+
+    No global random state is read or changed (Python's ``hash`` of bytes changes between
+    processes, so a checksum of the float64 bytes is used).
+
+    Parameters
+    ----------
+    x, y : array_like
+        The data.
+
+    Returns
+    -------
+    int
+        In ``[0, 2**32)``.
+    """
+    xa = np.ascontiguousarray(np.asarray(x, dtype=np.float64))
+    ya = np.ascontiguousarray(np.asarray(y, dtype=np.float64))
+    return zlib.crc32(ya.tobytes(), zlib.crc32(xa.tobytes())) & 0xFFFFFFFF
 
 
 def _sample(
@@ -1533,8 +1702,12 @@ def _feature_starts(
     ranges: Mapping[str, _Range],
     base: dict[str, float],
     seed: int,
+    per: int = 4,
 ) -> list[dict[str, float]]:
-    """Extra starts with the location parameters put on features of the data."""
+    """Extra starts with the location parameters put on features of the data.
+
+    ``per`` starts per searched parameter (and ``per`` more); the others are drawn.
+    """
     inferred = _infer_dims(model)
     where = _locations(model)
 
@@ -1545,7 +1718,9 @@ def _feature_starts(
 
     # positions on the x axis only (a phase added to w*x is not one)
     locs = [n for n in names if n in where and x_sized(n)]
-    feats = _features(x, y) if locs else np.zeros(0)
+    feats, widths = _peak_shapes(x, y) if locs else (np.zeros(0), np.zeros(0))
+    scales = [n for n in names if n not in where and x_sized(n)]
+    pairs = _location_widths(model, locs, scales)
     rates = {n: r for n, r in _trig_rates(model).items() if n in names}
     omegas = _spectral_peaks(x, y) if rates else np.zeros(0)
     if feats.size == 0 and omegas.size == 0:
@@ -1564,11 +1739,20 @@ def _feature_starts(
 
     loc_sets = assignments(feats, len(locs))
     rate_sets = assignments(omegas, len(rates))
+    width_of = dict(zip(feats.tolist(), widths.tolist(), strict=True))
     out = []
-    n_out = 4 + 4 * len(names)
+    n_out = per * (1 + len(names))
     for i, s in enumerate(_sample(ranges, names, n_out, seed + 31)):
         if loc_sets:
-            s.update(dict(zip(locs, loc_sets[i % len(loc_sets)], strict=True)))
+            pick_locs = loc_sets[i % len(loc_sets)]
+            s.update(dict(zip(locs, pick_locs, strict=True)))
+            # a peak's width from the data's curvature there, scaled by turns (the formula's
+            # width may be a standard deviation, a half width or sqrt(2) times either)
+            factor = _WIDTH_FACTORS[(i // len(loc_sets)) % len(_WIDTH_FACTORS)]
+            for loc, at in zip(locs, pick_locs, strict=True):
+                wv = width_of.get(at, math.nan)
+                if loc in pairs and math.isfinite(wv) and wv > 0:
+                    s[pairs[loc]] = factor * wv
         if rate_sets:
             # a sine's rate from a peak of the periodogram: slope s1*value**power = omega
             pick = rate_sets[(i // max(len(loc_sets), 1)) % len(rate_sets)]
@@ -1577,6 +1761,100 @@ def _feature_starts(
                 s[n] = math.copysign(v, s[n]) if n in s and s[n] != 0 else v
         out.append(_clip_into_bounds(model, {**base, **s}))
     return out
+
+
+_WIDTH_FACTORS = (1.0, 1.4, 0.7, 2.0, 0.5)
+
+
+def _peak_shapes(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Positions and widths of the peaks, dips and shoulders of the (smoothed) data.
+
+    The prominent extrema (:func:`_features`) and the extrema of the second derivative, which
+    also mark a peak hidden as a shoulder of its neighbour; each with a width from the
+    curvature there, ``sqrt(height / |y''|)`` (a Gaussian's standard deviation).
+    """
+    ux, my = _means_by_x(x, y)
+    ext = _features(x, y)
+    if ux.size < 7:
+        return ext, np.full(ext.size, math.nan)
+    w = max(3, (ux.size // 25) | 1)
+    kern = np.ones(w) / w
+    sm = np.convolve(np.pad(my, w // 2, mode="edge"), kern, mode="valid")
+    with np.errstate(all="ignore"):
+        d2 = np.gradient(np.gradient(sm, ux), ux)
+    d2 = np.convolve(np.pad(d2, w // 2, mode="edge"), kern, mode="valid")
+    if not np.all(np.isfinite(d2)):
+        return ext, np.full(ext.size, math.nan)
+    lo, hi = float(np.min(sm)), float(np.max(sm))
+    cands: list[tuple[float, float, float]] = []  # (prominence, x, width)
+    for sgn in (1.0, -1.0):  # peaks bend down, dips bend up
+        idx, props = find_peaks(-sgn * d2, prominence=0.05 * _span(d2))
+        for i, prom in zip(idx, props["prominences"], strict=True):
+            h = sm[i] - lo if sgn > 0 else hi - sm[i]
+            curv = -sgn * d2[i]
+            width = math.sqrt(h / curv) if h > 0 and curv > 0 else math.nan
+            cands.append((float(prom), float(ux[i]), width))
+    cands.sort(key=lambda c: -c[0])
+    xs = [float(v) for v in ext]
+    near = 2.0 * w * float(np.median(np.diff(ux)))
+
+    def width_at(v: float) -> float:
+        if not cands:
+            return math.nan
+        return min(cands, key=lambda c: abs(c[1] - v))[2]
+
+    ws = [width_at(v) for v in xs]
+    for _, xv, wv in cands:
+        if len(xs) >= 8:
+            break
+        if all(abs(xv - v) > near for v in xs):
+            xs.append(xv)
+            ws.append(wv)
+    return np.array(xs, dtype=float), np.array(ws, dtype=float)
+
+
+def _location_widths(model: Model, locs: Sequence[str], scales: Sequence[str]) -> dict[str, str]:
+    """Which width goes with which position: the smallest part of the formula holding both.
+
+    For ``a1*exp(-(x - m1)**2/(2*s1**2)) + ...`` that is ``{"m1": "s1", ...}``. A position
+    whose smallest enclosing part holds no width, or more than one, is left out.
+    """
+    if model.expr is None or not locs or not scales:
+        return {}
+    found: dict[str, tuple[int, str]] = {}
+    wanted = set(scales)
+
+    def walk(n: Mapping[str, Any]) -> set[str]:
+        kids = [n[k] for k in ("arg", "left", "right") if k in n] + list(n.get("args", []))
+        names: set[str] = set()
+        if n.get("type") == "name":
+            names.add(str(n.get("id")))
+        for k in kids:
+            names |= walk(k)
+        ws = names & wanted
+        for m in locs:
+            if m in names and len(ws) == 1 and (m not in found or len(names) < found[m][0]):
+                found[m] = (len(names), next(iter(ws)))
+        return names
+
+    walk(model.expr.to_json())
+    return {m: w for m, (_, w) in found.items()}
+
+
+#: Screening (formula models): candidates drawn per search start, and searches made per round.
+_SCREEN = 8
+_KEEP = 4
+
+
+def _best_screened(
+    prob: _Problem, pool: Sequence[dict[str, float]], k: int
+) -> list[dict[str, float]]:
+    """The ``k`` candidates of ``pool`` with the lowest screened sum of squares, best first."""
+    if len(pool) <= k:
+        return list(pool)
+    scores = np.array([prob.screen(c) for c in pool])
+    order = np.argsort(scores, kind="stable")
+    return [pool[int(i)] for i in order[:k]]
 
 
 def _generic(
@@ -1610,8 +1888,33 @@ def _generic(
             _clip_into_bounds(model, {**base0, **s})
             for s in _sample(ranges, prob.nonlinear, n, seed + 1009 * rnd)
         ]
-        if rnd == 0:
-            starts += _feature_starts(model, x, y, prob.nonlinear, ranges, base0, seed)
+        fast = prob.analytic and bool(prob.nonlinear)
+        feature = (
+            _feature_starts(
+                model, x, y, prob.nonlinear, ranges, base0, seed, _SCREEN * 4 if fast else 4
+            )
+            if rnd == 0
+            else []
+        )
+        if fast:
+            # Cheap screening: many more candidates, each scored by one evaluation with the
+            # linear parameters solved; only the best few (and the best few placed on
+            # features of the data) are searched.
+            pool = starts + [
+                _clip_into_bounds(model, {**base0, **s})
+                for s in _sample(ranges, prob.nonlinear, _SCREEN * n, seed + 7919 + 1009 * rnd)
+            ]
+            starts = _best_screened(prob, pool, _KEEP + d) + _best_screened(
+                prob, feature, _KEEP + d
+            )
+        else:
+            starts += feature
+        if fast:
+            # Successive halving: a short run from every start, then only the best go on.
+            short = [prob.search(s, max(budget // 4, d + 2)) for s in starts]
+            scores = [prob.ssr(r) for r in short]
+            keep = np.argsort(scores, kind="stable")[: _KEEP + d // 2]
+            starts = [short[int(i)] for i in keep]
         for s in starts:
             r = prob.search(s, budget) if prob.nonlinear else prob.project(s)
             results.append((prob.ssr(r), r))
@@ -1715,4 +2018,4 @@ def guided_start(
             pass  # the generic strategy below needs nothing from the rule
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
-        return _generic(model, xa, ya, held, None, 0)
+        return _generic(model, xa, ya, held, None, data_seed(xa, ya))

@@ -524,19 +524,23 @@ def _global_search(prob: _Problem, watch: _Watch, method: str, budget: int) -> l
     from ..start import generic_start, guided_start
 
     seeds: list[tuple[str, Callable[[], dict[str, float]]]] = []
-    if prob.model.start_rule is not None:
+    # With no start given the fit began from the rule (or, without one, from the multi-start):
+    # the same deterministic start again would only repeat the first run.
+    no_start = set(prob.free) <= prob.guided
+    if prob.model.start_rule is not None and not no_start:
         seeds.append(
             (
                 "global search: start rule",
                 lambda: guided_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
             )
         )
-    seeds.append(
-        (
-            "global search: multi-start",
-            lambda: generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
+    if prob.model.start_rule is not None or not no_start:
+        seeds.append(
+            (
+                "global search: multi-start",
+                lambda: generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
+            )
         )
-    )
     runs: list[_Run] = []
     for strategy, make in seeds:
         try:

@@ -48,16 +48,20 @@ def _search_globally(
     deg: _Degeneracy,
     method: str,
     budget: int,
-) -> tuple[_Solution, _Degeneracy, _Search]:
+) -> tuple[_Solution, _Degeneracy, _Search | None]:
     """The global search after a suspect stop; the better minimum is kept (``runs`` grows).
 
     The user's point stays unless the search's is clearly lower
-    (:data:`~curvewright.thresholds.CLEARLY_LOWER`); the point kept is judged again.
+    (:data:`~curvewright.thresholds.CLEARLY_LOWER`); the point kept is judged again. No
+    search (None) when there was nothing new to try: no start was given and the model has no
+    start rule, so the fit began from the multi-start already.
     """
     user, deg0 = sol.kept, deg
     assert user is not None  # a suspect point is a solver run's
     first = _TR if (method == _TR or prob.loss != "squared") else _LM
     found = _global_search(prob, watch, first, budget)
+    if not found:
+        return sol, deg, None
     runs.extend(found)
     good = [r for r in found if outcome(r.code).success and math.isfinite(r.objective)]
     best = min(good, key=lambda r: r.objective) if good else None
