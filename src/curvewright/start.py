@@ -620,15 +620,20 @@ class _Problem:
             Jn = np.nan_to_num(Jn, nan=0.0, posinf=0.0, neginf=0.0)
         return Jn
 
-    def search(self, base: Mapping[str, float], budget: int) -> dict[str, float]:
-        """Short least-squares run on the nonlinear parameters (linear ones projected out)."""
+    def search(
+        self, base: Mapping[str, float], budget: int, tol: float | None = None
+    ) -> dict[str, float]:
+        """Short least-squares run on the nonlinear parameters (linear ones projected out).
+
+        ``tol`` tightens the analytic path's tolerances (a polish); scipy's defaults otherwise.
+        """
         if not self.nonlinear:
             return self.full(np.zeros(0), base)
         u0 = np.array([self.to_u(n, base[n]) for n in self.nonlinear])
         lo, hi = self.u_bounds(self.nonlinear)
         u0 = np.clip(u0, np.nextafter(lo, hi), np.nextafter(hi, lo))
         if self.analytic:
-            return self._search_analytic(u0, lo, hi, base, budget)
+            return self._search_analytic(u0, lo, hi, base, budget, tol)
 
         # Searched in units of each parameter's own size: least_squares checks gtol on the
         # unscaled gradient, which otherwise depends on the unit of x (a midpoint at 3e7 has a
@@ -656,6 +661,7 @@ class _Problem:
         hi: FloatArray,
         base: Mapping[str, float],
         budget: int,
+        tol: float | None = None,
     ) -> dict[str, float]:
         """:meth:`search` with the model's analytic Jacobian (variable projection)."""
         logged = np.array([self.logged(n) for n in self.nonlinear])
@@ -685,6 +691,9 @@ class _Problem:
                     bounds=(lo / typ, hi / typ),
                     x_scale="jac",
                     max_nfev=budget,
+                    ftol=1e-8 if tol is None else tol,  # scipy's defaults unless told
+                    xtol=1e-8 if tol is None else tol,
+                    gtol=1e-8 if tol is None else tol,
                 )
             best = sol.x * typ
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
@@ -693,6 +702,9 @@ class _Problem:
             theta = self._analytic_residual(best, base)[1]
         out = {**base, **dict(zip(self.model.param_names, theta.tolist(), strict=True))}
         return {**out, **self.held}
+
+
+_POLISH_TOL = 1e-14
 
 
 def _polish(
@@ -708,7 +720,9 @@ def _polish(
     if not prob.nonlinear:
         return dict(values)
     start = {**values, **held}
-    refined = prob.search(start, budget)
+    # exact derivatives make tight tolerances cheap: the start rules return exact values on
+    # clean data in any unit
+    refined = prob.search(start, budget, _POLISH_TOL)
     return refined if prob.ssr(refined) <= prob.ssr(start) else start
 
 
@@ -1526,13 +1540,21 @@ def generic_start(
        on the x axis (``x0`` in ``x - x0``) are drawn across the data; x scales (widths, time
        constants) and their inverses (rates) between the data's finest spacing and its span.
     2. Parameters the model is affine in (detected numerically) are not sampled: for each trial
-       of the others they are solved by linear least squares.
+       of the others they are solved by linear least squares (variable projection). For a
+       formula model the searches use its analytic Jacobian with Kaufman's projected Jacobian
+       for the nonlinear parameters.
     3. A Latin hypercube (``scipy.stats.qmc``) of ``n_starts`` points, plus the model's default
-       values, plus starts with the x positions on prominent extrema of the data and the rates
-       of sines and cosines on peaks of its Lomb-Scargle periodogram; each is followed by a
-       short least-squares run, and the best few by residual sum of squares are polished.
+       values, plus starts with the x positions on peaks, dips and shoulders of the data (the
+       extrema of the smoothed data and of its second derivative), the widths paired with them
+       in the formula set from the curvature there, and the rates of sines and cosines on
+       peaks of its Lomb-Scargle periodogram. For a formula model many more candidates are
+       drawn and screened by one evaluation each (linear parameters solved); the best few get
+       a short run, the best of those a longer one (successive halving). Otherwise each start
+       gets a short least-squares run. The best few by residual sum of squares are polished.
     4. When the best minimum was reached from only one start, the landscape is rugged (periodic
        or multi-peak models): up to three more rounds of fresh starts are run.
+
+    Deterministic: the only random draws are the hypercubes, seeded from the data's bytes.
 
     Parameters
     ----------
