@@ -576,6 +576,49 @@ class _Problem:
         ssr = float(r @ r)
         return ssr if math.isfinite(ssr) else math.inf
 
+    def screen_many(self, pool: Sequence[Mapping[str, float]]) -> FloatArray:
+        """:meth:`screen` of many candidates at once (formula models): one broadcast call.
+
+        The model is evaluated with each nonlinear parameter as a column of candidate values
+        (the formula's numpy code broadcasts), and the linear least-squares problems are solved
+        together by a stacked QR. A candidate whose linear columns are (nearly) dependent gets
+        infinity: its projected sum of squares is not reliable, and it is a poor start anyway.
+        """
+        names = self.model.param_names
+        fn = self.model._value_and_gradient
+        if fn is None or not pool or not self.linear:
+            return np.array([self.screen(c) for c in pool])
+        k = len(pool)
+        args: list[Any] = []
+        for n in names:
+            if n in self.linear:
+                args.append(0.0)
+            elif n in self.held:
+                args.append(float(self.held[n]))
+            else:
+                args.append(np.array([[float(c[n])] for c in pool]))
+        with np.errstate(all="ignore"):
+            out = fn(self.x[None, :], *args)
+            shape = (k, self.x.size)
+            f0 = np.broadcast_to(np.asarray(out[0], dtype=float), shape)
+            lin = [names.index(n) + 1 for n in self.linear]
+            A = np.stack(
+                [np.broadcast_to(np.asarray(out[i], dtype=float), shape) for i in lin], axis=2
+            )
+            rhs = self.y[None, :] - f0
+            ok = np.all(np.isfinite(A), axis=(1, 2)) & np.all(np.isfinite(rhs), axis=1)
+            A = np.where(ok[:, None, None], A, 0.0)
+            rhs = np.where(ok[:, None], rhs, 0.0)
+            norms = np.linalg.norm(A, axis=1, keepdims=True)
+            good = np.all(norms[:, 0, :] > 0, axis=1)
+            q, r = np.linalg.qr(A / np.where(norms > 0, norms, 1.0))
+            diag = np.abs(np.diagonal(r, axis1=1, axis2=2))
+            good &= np.min(diag, axis=1) > 1e-10
+            proj = np.einsum("knl,kn->kl", q, rhs)
+            ssr = (np.sum(rhs * rhs, axis=1) - np.sum(proj * proj, axis=1)) / self.scale**2
+        ssr = np.maximum(ssr, 0.0)
+        return np.where(ok & good & np.isfinite(ssr), ssr, np.inf)
+
     def _analytic_residual(
         self, u: FloatArray, base: Mapping[str, float]
     ) -> tuple[FloatArray, FloatArray]:
@@ -714,15 +757,20 @@ def _polish(
     values: Mapping[str, float],
     held: Mapping[str, float],
     budget: int,
+    tol: float | None = _POLISH_TOL,
 ) -> dict[str, float]:
-    """Least squares on every free parameter at once, from ``values``; keeps the better."""
+    """Least squares on every free parameter at once, from ``values``; keeps the better.
+
+    ``tol``: the analytic path's tolerances (None: scipy's defaults, for candidates that the
+    fit polishes anyway).
+    """
     prob = _Problem.make(model, x, y, held, ())
     if not prob.nonlinear:
         return dict(values)
     start = {**values, **held}
     # exact derivatives make tight tolerances cheap: the start rules return exact values on
     # clean data in any unit
-    refined = prob.search(start, budget, _POLISH_TOL)
+    refined = prob.search(start, budget, tol)
     return refined if prob.ssr(refined) <= prob.ssr(start) else start
 
 
@@ -1716,6 +1764,68 @@ def _spectral_peaks(x: FloatArray, y: FloatArray) -> FloatArray:
     return np.asarray(omega[top], dtype=float)
 
 
+def _location_plan(model: Model, names: Sequence[str]) -> tuple[list[str], dict[str, str]]:
+    """The x positions among ``names`` and the width paired with each (see _location_widths)."""
+    inferred = _infer_dims(model)
+    where = _locations(model)
+
+    def x_sized(n: str) -> bool:
+        unit = model.param(n).unit
+        dims = _unit_dims(unit) if unit else None
+        return (dims if dims is not None else inferred.get(n)) == (1.0, 0.0)
+
+    # positions on the x axis only (a phase added to w*x is not one)
+    locs = [n for n in names if n in where and x_sized(n)]
+    scales = [n for n in names if n not in where and x_sized(n)]
+    return locs, _location_widths(model, locs, scales)
+
+
+def _residual_moves(
+    model: Model,
+    x: FloatArray,
+    y: FloatArray,
+    best: Mapping[str, float],
+    locs: Sequence[str],
+    pairs: Mapping[str, str],
+) -> list[dict[str, float]]:
+    """Starts that move one position of the best fit so far onto a feature of its residuals.
+
+    Two peaks the data show as one are fitted as one (or as two on top of each other); the
+    residuals then peak where the other one is. Each position in turn is moved onto each of
+    the residuals' main features, its paired width set from the curvature there.
+    """
+    with np.errstate(all="ignore"):
+        r = y - np.asarray(model.func(x, *(best[n] for n in model.param_names)), dtype=float)
+    if not np.all(np.isfinite(r)):
+        return []
+    feats, widths = _peak_shapes(x, r)
+    out: list[dict[str, float]] = []
+    for loc in locs:
+        for fx, fw in zip(feats[:4].tolist(), widths[:4].tolist(), strict=True):
+            for factor in _WIDTH_FACTORS[:3]:
+                v = dict(best)
+                v[loc] = fx
+                if loc in pairs and math.isfinite(fw) and fw > 0:
+                    v[pairs[loc]] = factor * fw
+                out.append(_clip_into_bounds(model, v))
+    # two components fitted on top of each other (or cancelling): split them apart
+    span = float(np.ptp(x)) or 1.0
+    for i, a in enumerate(locs):
+        for b in locs[i + 1 :]:
+            wa = abs(best[pairs[a]]) if a in pairs else span / 20
+            wb = abs(best[pairs[b]]) if b in pairs else span / 20
+            w = max(min(wa, wb, span / 4), span / 200)
+            c = (best[a] + best[b]) / 2.0
+            for delta in (0.5 * w, w, 1.5 * w):
+                v = dict(best)
+                v[a], v[b] = c - delta, c + delta
+                for n in (pairs.get(a), pairs.get(b)):
+                    if n is not None:
+                        v[n] = w
+                out.append(_clip_into_bounds(model, v))
+    return out
+
+
 def _feature_starts(
     model: Model,
     x: FloatArray,
@@ -1730,19 +1840,8 @@ def _feature_starts(
 
     ``per`` starts per searched parameter (and ``per`` more); the others are drawn.
     """
-    inferred = _infer_dims(model)
-    where = _locations(model)
-
-    def x_sized(n: str) -> bool:
-        unit = model.param(n).unit
-        dims = _unit_dims(unit) if unit else None
-        return (dims if dims is not None else inferred.get(n)) == (1.0, 0.0)
-
-    # positions on the x axis only (a phase added to w*x is not one)
-    locs = [n for n in names if n in where and x_sized(n)]
+    locs, pairs = _location_plan(model, names)
     feats, widths = _peak_shapes(x, y) if locs else (np.zeros(0), np.zeros(0))
-    scales = [n for n in names if n not in where and x_sized(n)]
-    pairs = _location_widths(model, locs, scales)
     rates = {n: r for n, r in _trig_rates(model).items() if n in names}
     omegas = _spectral_peaks(x, y) if rates else np.zeros(0)
     if feats.size == 0 and omegas.size == 0:
@@ -1866,6 +1965,8 @@ def _location_widths(model: Model, locs: Sequence[str], scales: Sequence[str]) -
 #: Screening (formula models): candidates drawn per search start, and searches made per round.
 _SCREEN = 8
 _KEEP = 4
+#: Rounds of moving a position onto a feature of the residuals (peak models).
+_MOVES = 2
 
 
 def _best_screened(
@@ -1874,7 +1975,7 @@ def _best_screened(
     """The ``k`` candidates of ``pool`` with the lowest screened sum of squares, best first."""
     if len(pool) <= k:
         return list(pool)
-    scores = np.array([prob.screen(c) for c in pool])
+    scores = prob.screen_many(pool) if prob.analytic else np.array([prob.screen(c) for c in pool])
     order = np.argsort(scores, kind="stable")
     return [pool[int(i)] for i in order[:k]]
 
@@ -1926,8 +2027,8 @@ def _generic(
                 _clip_into_bounds(model, {**base0, **s})
                 for s in _sample(ranges, prob.nonlinear, _SCREEN * n, seed + 7919 + 1009 * rnd)
             ]
-            starts = _best_screened(prob, pool, _KEEP + d) + _best_screened(
-                prob, feature, _KEEP + d
+            starts = _best_screened(prob, pool, _KEEP + d // 2) + _best_screened(
+                prob, feature, _KEEP + d // 2
             )
         else:
             starts += feature
@@ -1943,7 +2044,7 @@ def _generic(
         order = sorted(range(len(results)), key=lambda i: results[i][0])
         for i in [i for i in order if i not in done][:3]:
             done.add(i)
-            pol = _polish(model, x, y, results[i][1], held, 200 * (len(free) + 1))
+            pol = _polish(model, x, y, results[i][1], held, 200 * (len(free) + 1), None)
             polished.append((probe.ssr(pol), pol))
         polished.sort(key=lambda t: t[0])
         best_ssr = polished[0][0]
@@ -1953,6 +2054,21 @@ def _generic(
         agree = sum(1 for sr, _ in polished if sr <= best_ssr * (1 + 1e-6) + exact)
         if agree >= 2 or best_ssr <= exact or not prob.nonlinear:
             break
+    if polished and prob.analytic and prob.nonlinear and polished[0][0] > exact:
+        locs, pairs = _location_plan(model, prob.nonlinear)
+        for _ in range(_MOVES if locs else 0):
+            # Peaks the data merge: move one position onto what the residuals still show.
+            cur_ssr, cur = polished[0]
+            moves = _best_screened(prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP)
+            tried = [prob.search(s, budget) for s in moves]
+            if not tried:
+                break
+            r = min(tried, key=prob.ssr)
+            pol = _polish(model, x, y, r, held, 200 * (len(free) + 1), None)
+            pol_ssr = probe.ssr(pol)
+            if not pol_ssr < cur_ssr * (1 - 1e-6):
+                break
+            polished.insert(0, (pol_ssr, pol))
     best = polished[0][1] if polished else base0
     return _clip_into_bounds(model, {**best, **held})
 
