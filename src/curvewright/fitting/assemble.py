@@ -294,18 +294,21 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
         reasons.append("singular")
     elif sol.cond > NEAR_SINGULAR:
         reasons.append("near_singular")
-    theta = sol.theta
-    se = np.sqrt(np.abs(np.diag(sol.cov))) if not sol.singular else np.full(sol.p, np.nan)
-    corr = math.nan
-    if not sol.singular and sol.p > 1 and np.all(np.isfinite(sol.cov)):
-        c = np.abs(correlation_matrix(sol.cov))
-        np.fill_diagonal(c, 0.0)
-        corr = float(np.max(c))
-    # Sizes only when something is large against the parameter itself (the cheap test first).
-    big = (np.abs(theta) > RUNAWAY) | (np.isfinite(se) & (se > DEGENERATE_SE * np.abs(theta)))
+    # Few numpy calls on purpose: this runs after every fit (tens of microseconds).
+    theta, cov = sol.theta, sol.cov
+    with np.errstate(all="ignore"):
+        se = np.sqrt(np.abs(cov.diagonal()))
+        corr = math.nan
+        if not sol.singular and sol.p > 1:
+            r = np.abs(cov / np.outer(se, se))
+            r.flat[:: sol.p + 1] = 0.0
+            corr = float(np.max(r))  # NaN when some variance is 0 or not finite
+        a = np.abs(theta)
+        # Sizes only when something is large against the parameter itself (the cheap test).
+        big = (a > RUNAWAY) | (se > DEGENERATE_SE * a)
     runaway: list[tuple[str, float, float]] = []
     undetermined: list[tuple[str, float, float]] = []
-    if np.any(big):
+    if big.any():
         from ..start import plausible_sizes
 
         names = [prob.free[i] for i in np.flatnonzero(big)]
