@@ -1823,6 +1823,21 @@ def _residual_moves(
                     if n is not None:
                         v[n] = w
                 out.append(_clip_into_bounds(model, v))
+    # one wide component covering two peaks: split it, the freed one taken from elsewhere
+    for a in locs:
+        if a not in pairs:
+            continue
+        w = abs(best[pairs[a]])
+        for b in locs:
+            if b == a:
+                continue
+            for delta in (0.5 * w, w):
+                v = dict(best)
+                v[a], v[b] = best[a] - delta, best[a] + delta
+                v[pairs[a]] = w / 2.0
+                if b in pairs:
+                    v[pairs[b]] = w / 2.0
+                out.append(_clip_into_bounds(model, v))
     return out
 
 
@@ -1848,13 +1863,16 @@ def _feature_starts(
         return []
     rng = np.random.default_rng(seed + 17)
 
+    # with screening (per > 4) the six most prominent features are combined, else five
+    top = 6 if per > 4 else 5
+
     def assignments(cands: FloatArray, k: int) -> list[tuple[float, ...]]:
         # distinct candidates, the most prominent combinations first; random when too few
         if k == 0 or cands.size == 0:
             return []
         if cands.size < k:
             return [tuple(rng.choice(cands, size=k)) for _ in range(8)]
-        combos = list(itertools.permutations(range(min(cands.size, 5)), k))
+        combos = list(itertools.permutations(range(min(cands.size, top)), k))
         combos.sort(key=sum)
         return [tuple(float(cands[i]) for i in c) for c in combos]
 
@@ -2014,7 +2032,7 @@ def _generic(
         fast = prob.analytic and bool(prob.nonlinear)
         feature = (
             _feature_starts(
-                model, x, y, prob.nonlinear, ranges, base0, seed, _SCREEN * 4 if fast else 4
+                model, x, y, prob.nonlinear, ranges, base0, seed, _SCREEN * 8 if fast else 4
             )
             if rnd == 0
             else []
@@ -2059,8 +2077,12 @@ def _generic(
         for _ in range(_MOVES if locs else 0):
             # Peaks the data merge: move one position onto what the residuals still show.
             cur_ssr, cur = polished[0]
-            moves = _best_screened(prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP)
-            tried = [prob.search(s, budget) for s in moves]
+            moves = _best_screened(
+                prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP + d
+            )
+            short = [prob.search(s, max(budget // 4, d + 2)) for s in moves]
+            keep = np.argsort([prob.ssr(r) for r in short], kind="stable")[:2]
+            tried = [prob.search(short[int(i)], budget) for i in keep]
             if not tried:
                 break
             r = min(tried, key=prob.ssr)
