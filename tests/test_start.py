@@ -4,7 +4,9 @@ References: scipy.stats.linregress and statsmodels OLS on the transformed data f
 linearisation; Bates & Watts' Puromycin worked example (values from memory, as noted there);
 NIST StRD nonlinear certified values (tests/data/nist_nonlinear, read with tests/nist_nonlinear.py)
 reached from the guided start with no NIST number; synthetic data from known parameters (the
-truth is the reference) for the generic multi-start and the property tests.
+truth is the reference) for the generic multi-start and the property tests; numpy's lstsq for
+the screening's linear solve; scipy's least_squares from the true values for three overlapping
+peaks fitted with no start.
 """
 
 from __future__ import annotations
