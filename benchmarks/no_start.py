@@ -45,13 +45,15 @@ PEAKS = (
 )
 
 
-def _median(fn: object, repeat: int) -> tuple[float, object]:
-    times, out = [], None
+def _median(fn: object, repeat: int) -> tuple[float, object, float]:
+    """Median wall time, the last result and the median CPU time of ``repeat`` calls."""
+    times, cpu, out = [], [], None
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         out = fn()  # type: ignore[operator]
         times.append(time.perf_counter() - t0)
-    return statistics.median(times), out
+        cpu.append(time.process_time() - c0)
+    return statistics.median(times), out, statistics.median(cpu)
 
 
 def _curve_fit_from(model: Model, x: np.ndarray, y: np.ndarray, p0: list[float]) -> object:
@@ -62,19 +64,24 @@ def _curve_fit_from(model: Model, x: np.ndarray, y: np.ndarray, p0: list[float])
 
 
 def nist_table(repeat: int, only: str) -> None:
-    head = ("problem", "no start s", "solved", "min LRE", "scipy ms", "ratio")
-    print(f"{head[0]:10s} {head[1]:>10s} {head[2]:>6s} {head[3]:>7s} {head[4]:>9s} {head[5]:>7s}")
+    head = ("problem", "no start s", "CPU s", "solved", "min LRE", "scipy ms", "ratio")
+    print(
+        f"{head[0]:10s} {head[1]:>10s} {head[2]:>6s} {head[3]:>6s} {head[4]:>7s} "
+        f"{head[5]:>9s} {head[6]:>7s}"
+    )
     for name in sorted(FORMULAS):
         if only not in name:
             continue
         p = read(name)
         model = Model.from_formula(FORMULAS[name], params=list(p.names))
-        t, r = _median(functools.partial(fit, model, p.x, p.y), repeat)
+        t, r, c = _median(functools.partial(fit, model, p.x, p.y), repeat)
         got = _in_nist_order(name, dict(r.values), GROUPS[name])  # type: ignore[attr-defined]
         low = min(lre(got[b], c) for b, c in zip(p.names, p.certified, strict=True))
-        ts, _ = _median(functools.partial(_curve_fit_from, model, p.x, p.y, list(p.start1)), repeat)
+        ts, _, _ = _median(
+            functools.partial(_curve_fit_from, model, p.x, p.y, list(p.start1)), repeat
+        )
         ok = "yes" if bool(r.success) and low >= 6 else "no"  # type: ignore[attr-defined]
-        print(f"{name:10s} {t:10.3f} {ok:>6s} {low:7.1f} {ts * 1e3:9.2f} {t / ts:7.0f}")
+        print(f"{name:10s} {t:10.3f} {c:6.3f} {ok:>6s} {low:7.1f} {ts * 1e3:9.2f} {t / ts:7.0f}")
 
 
 def _residual(model: Model, x: np.ndarray, y: np.ndarray, b: np.ndarray) -> np.ndarray:
