@@ -2077,9 +2077,7 @@ def _generic(
         for _ in range(_MOVES if locs else 0):
             # Peaks the data merge: move one position onto what the residuals still show.
             cur_ssr, cur = polished[0]
-            moves = _best_screened(
-                prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP + d
-            )
+            moves = _best_screened(prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP + d)
             short = [prob.search(s, max(budget // 4, d + 2)) for s in moves]
             keep = np.argsort([prob.ssr(r) for r in short], kind="stable")[:2]
             tried = [prob.search(short[int(i)], budget) for i in keep]
