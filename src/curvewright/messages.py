@@ -98,6 +98,13 @@ _ROWS: tuple[Outcome, ...] = (
         "values and the bounds",
     ),
     Outcome("not_converged", False, "the solver stopped without meeting a convergence test"),
+    Outcome(
+        "degenerate_stop",
+        False,
+        "stopped at a degenerate point: the solver's stopping test was met, but there the data "
+        "do not determine the parameters (see the notes); the numbers are not estimates, and "
+        "the global search found no better point",
+    ),
 )
 
 #: Every outcome by code, read-only.

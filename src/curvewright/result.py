@@ -75,7 +75,10 @@ class Diagnostic:
         Numbers and words that qualify it, JSON-ready: ``side`` and ``bound`` for
         ``at_bound``, ``r`` for ``high_correlation``, ``condition`` for ``near_singular``,
         ``quantity``, ``value`` and ``range`` for ``extrapolation``, ``stderr`` and ``value``
-        for ``not_identified``.
+        for ``not_identified``; ``reasons`` (a list of ``"singular"``, ``"near_singular"``,
+        ``"runaway"``, ``"undetermined"``) for ``degenerate_stop``; ``value`` and ``largest``
+        for ``runaway``; ``reasons``, ``used``, ``user_objective`` and ``search_objective`` for
+        ``global_search`` (the answer came from the search when ``used``).
     """
 
     code: str
@@ -111,7 +114,20 @@ class Diagnostic:
 
 # Entries of Diagnostic.extra that are floats (encoded like every other float in the JSON).
 _FLOAT_EXTRAS = frozenset(
-    {"bound", "r", "condition", "value", "stderr", "before", "after", "lower", "upper"}
+    {
+        "bound",
+        "r",
+        "condition",
+        "value",
+        "stderr",
+        "before",
+        "after",
+        "lower",
+        "upper",
+        "largest",
+        "user_objective",
+        "search_objective",
+    }
 )
 
 
@@ -123,7 +139,9 @@ class Attempt:
     ----------
     strategy : str
         Why this run was made: ``"first run"``, ``"restart from best point"``,
-        ``"switch method"``, ``"rescaled parameters"``, ``"multi-start"``, ``"polish"`` (the
+        ``"switch method"``, ``"rescaled parameters"``, ``"multi-start"``, ``"global search:
+        start rule"``, ``"global search: multi-start"`` and ``"global search: polish"`` (after
+        a suspect stop, from starts that ignore the given ones), ``"polish"`` (the
         last run, from the best point, with the analytic Jacobian for a formula) or
         ``"linear"``.
     method : str
@@ -744,7 +762,12 @@ class FitResult:
         )
         if self.loss != "squared":
             lines.append(f"loss:       {self.loss} (residual scale {self.loss_scale:.6g})")
-        lines.append(f"outcome:    {'OK' if self.success else 'NOT CONVERGED'} - {self.message}")
+        verdict = (
+            "OK"
+            if self.success
+            else ("DEGENERATE" if self.code == "degenerate_stop" else "NOT CONVERGED")
+        )
+        lines.append(f"outcome:    {verdict} - {self.message}")
         lines.append(
             f"            method {self.method}, {self.evaluations} model evaluations, "
             f"{len(self.attempts)} solver run(s)"

@@ -24,6 +24,7 @@ import inspect
 import itertools
 import math
 import warnings
+import zlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any, NamedTuple
@@ -46,6 +47,7 @@ __all__ = [
     "PowerEstimate",
     "RateEstimate",
     "SeparableRule",
+    "data_seed",
     "eadie_hofstee",
     "generic_start",
     "guided_start",
@@ -53,6 +55,7 @@ __all__ = [
     "lineweaver_burk",
     "logit_line",
     "loglog_power",
+    "plausible_sizes",
     "semilog_rate",
 ]
 
@@ -519,13 +522,161 @@ class _Problem:
         r = self.residual(values)
         return float(np.dot(r, r))
 
-    def search(self, base: Mapping[str, float], budget: int) -> dict[str, float]:
-        """Short least-squares run on the nonlinear parameters (linear ones projected out)."""
+    # --- the analytic path (formula models): variable projection with the model's Jacobian
+    @property
+    def analytic(self) -> bool:
+        """Whether :meth:`_analytic_eval` applies: a formula, and no bounded linear parameter."""
+        if not self.model.has_jacobian:
+            return False
+        return all(
+            math.isinf(self.model.param(n).lower) and math.isinf(self.model.param(n).upper)
+            for n in self.linear
+        )
+
+    def _theta(self, u: FloatArray, base: Mapping[str, float]) -> FloatArray:
+        v = {**base, **self.held}
+        for n, ui in zip(self.nonlinear, u, strict=True):
+            v[n] = self.from_u(n, float(ui))
+        for n in self.linear:
+            v[n] = 0.0
+        return np.array([float(v[n]) for n in self.model.param_names])
+
+    def _linear_solve(self, theta: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray] | None:
+        """The linear parameters solved at ``theta``'s nonlinear values (its linear ones 0).
+
+        Returns the linear values by least squares, the curve they give and an orthonormal
+        basis of the linear columns' span. The model is affine in them: ``f = f0 + A c`` with
+        ``A`` the Jacobian's linear columns,
+        both from one evaluation. None when something is not finite.
+        """
+        f0, J = self.model.value_and_jacobian(self.x, theta.tolist())
+        lin = [self.model.param_names.index(n) for n in self.linear]
+        A = J[:, lin]
+        rhs = self.y - f0
+        if not (np.all(np.isfinite(A)) and np.all(np.isfinite(rhs))):
+            return None
+        U, sv, Vt = np.linalg.svd(A, full_matrices=False)
+        keep = sv > sv[0] * 1e-12 * max(A.shape) if sv.size and sv[0] > 0 else sv > 0
+        Uk = U[:, keep]
+        c = Vt[keep].T @ ((Uk.T @ rhs) / sv[keep])
+        return c, f0 + A @ c, Uk
+
+    def screen(self, values: Mapping[str, float]) -> float:
+        """Residual sum of squares after solving the linear parameters: one evaluation."""
+        u = np.array([self.to_u(n, float(values[n])) for n in self.nonlinear])
+        theta = self._theta(u, values)
+        with np.errstate(all="ignore"):
+            if not self.linear:
+                r = self.residual(dict(zip(self.model.param_names, theta.tolist(), strict=True)))
+                return float(r @ r)
+            got = self._linear_solve(theta)
+        if got is None:
+            return math.inf
+        r = (got[1] - self.y) / self.scale
+        ssr = float(r @ r)
+        return ssr if math.isfinite(ssr) else math.inf
+
+    def screen_many(self, pool: Sequence[Mapping[str, float]]) -> FloatArray:
+        """:meth:`screen` of many candidates at once (formula models): one broadcast call.
+
+        The model is evaluated with each nonlinear parameter as a column of candidate values
+        (the formula's numpy code broadcasts), and the linear least-squares problems are solved
+        together by a stacked QR. A candidate whose linear columns are (nearly) dependent gets
+        infinity: its projected sum of squares is not reliable, and it is a poor start anyway.
+        """
+        names = self.model.param_names
+        fn = self.model._value_and_gradient
+        if fn is None or not pool or not self.linear:
+            return np.array([self.screen(c) for c in pool])
+        k = len(pool)
+        args: list[Any] = []
+        for n in names:
+            if n in self.linear:
+                args.append(0.0)
+            elif n in self.held:
+                args.append(float(self.held[n]))
+            else:
+                args.append(np.array([[float(c[n])] for c in pool]))
+        with np.errstate(all="ignore"):
+            out = fn(self.x[None, :], *args)
+            shape = (k, self.x.size)
+            f0 = np.broadcast_to(np.asarray(out[0], dtype=float), shape)
+            lin = [names.index(n) + 1 for n in self.linear]
+            A = np.stack(
+                [np.broadcast_to(np.asarray(out[i], dtype=float), shape) for i in lin], axis=2
+            )
+            rhs = self.y[None, :] - f0
+            ok = np.all(np.isfinite(A), axis=(1, 2)) & np.all(np.isfinite(rhs), axis=1)
+            A = np.where(ok[:, None, None], A, 0.0)
+            rhs = np.where(ok[:, None], rhs, 0.0)
+            norms = np.linalg.norm(A, axis=1, keepdims=True)
+            good = np.all(norms[:, 0, :] > 0, axis=1)
+            q, r = np.linalg.qr(A / np.where(norms > 0, norms, 1.0))
+            diag = np.abs(np.diagonal(r, axis1=1, axis2=2))
+            good &= np.min(diag, axis=1) > 1e-10
+            proj = np.einsum("knl,kn->kl", q, rhs)
+            ssr = (np.sum(rhs * rhs, axis=1) - np.sum(proj * proj, axis=1)) / self.scale**2
+        ssr = np.maximum(ssr, 0.0)
+        return np.where(ok & good & np.isfinite(ssr), ssr, np.inf)
+
+    def _analytic_residual(
+        self, u: FloatArray, base: Mapping[str, float]
+    ) -> tuple[FloatArray, FloatArray]:
+        """Residual at ``u`` (linear parameters solved: one evaluation) and the full vector."""
+        theta = self._theta(u, base)
+        if self.linear:
+            got = self._linear_solve(theta)
+            if got is None:
+                return np.full(self.x.size, self.big / self.scale), theta
+            c, f, _ = got
+            theta[[self.model.param_names.index(n) for n in self.linear]] = c
+        else:
+            f = self.model.value_and_jacobian(self.x, theta.tolist())[0]
+        r = (f - self.y) / self.scale
+        bad = ~np.isfinite(r)
+        if bad.any():
+            r = np.where(bad, self.big / self.scale, r)
+        return r, theta
+
+    def _analytic_jacobian(self, theta: FloatArray) -> FloatArray:
+        """The residual's Jacobian in the searched (log) parameters at the full vector ``theta``.
+
+        With linear parameters it is Kaufman's (1975) variable-projection Jacobian: the model's
+        nonlinear columns, at the solved linear values, with their part in the span of the
+        linear columns removed.
+        """
+        names = self.model.param_names
+        non = [names.index(n) for n in self.nonlinear]
+        _, J = self.model.value_and_jacobian(self.x, theta.tolist())
+        Jn = J[:, non] / self.scale
+        for j, n in enumerate(self.nonlinear):
+            if self.logged(n):
+                Jn[:, j] *= theta[non[j]]  # d theta / d log theta
+        if self.linear:
+            A = J[:, [names.index(n) for n in self.linear]]
+            if np.all(np.isfinite(A)):
+                U, sv, _ = np.linalg.svd(A, full_matrices=False)
+                keep = sv > sv[0] * 1e-12 * max(A.shape) if sv.size and sv[0] > 0 else sv > 0
+                basis = U[:, keep]
+                Jn = Jn - basis @ (basis.T @ Jn)
+        if not np.all(np.isfinite(Jn)):
+            Jn = np.nan_to_num(Jn, nan=0.0, posinf=0.0, neginf=0.0)
+        return Jn
+
+    def search(
+        self, base: Mapping[str, float], budget: int, tol: float | None = None
+    ) -> dict[str, float]:
+        """Short least-squares run on the nonlinear parameters (linear ones projected out).
+
+        ``tol`` tightens the analytic path's tolerances (a polish); scipy's defaults otherwise.
+        """
         if not self.nonlinear:
             return self.full(np.zeros(0), base)
         u0 = np.array([self.to_u(n, base[n]) for n in self.nonlinear])
         lo, hi = self.u_bounds(self.nonlinear)
         u0 = np.clip(u0, np.nextafter(lo, hi), np.nextafter(hi, lo))
+        if self.analytic:
+            return self._search_analytic(u0, lo, hi, base, budget, tol)
 
         # Searched in units of each parameter's own size: least_squares checks gtol on the
         # unscaled gradient, which otherwise depends on the unit of x (a midpoint at 3e7 has a
@@ -546,6 +697,58 @@ class _Problem:
             u = u0
         return self.full(u, base)
 
+    def _search_analytic(
+        self,
+        u0: FloatArray,
+        lo: FloatArray,
+        hi: FloatArray,
+        base: Mapping[str, float],
+        budget: int,
+        tol: float | None = None,
+    ) -> dict[str, float]:
+        """:meth:`search` with the model's analytic Jacobian (variable projection)."""
+        logged = np.array([self.logged(n) for n in self.nonlinear])
+        typ = np.where(logged, 1.0, np.abs(u0))
+        typ = np.where(typ > 0, typ, 1.0)
+        last: dict[bytes, FloatArray] = {}  # the full vector at the last residual's point
+
+        def fun(w: FloatArray) -> FloatArray:
+            r, theta = self._analytic_residual(w * typ, base)
+            last.clear()
+            last[w.tobytes()] = theta
+            return r
+
+        def jac(w: FloatArray) -> FloatArray:
+            theta = last.get(w.tobytes())
+            if theta is None:  # the solver asks at the last residual's point; just in case
+                theta = self._analytic_residual(w * typ, base)[1]
+            return self._analytic_jacobian(theta) * typ
+
+        best = u0
+        try:
+            with np.errstate(all="ignore"):
+                sol = least_squares(
+                    fun,
+                    u0 / typ,
+                    jac=jac,
+                    bounds=(lo / typ, hi / typ),
+                    x_scale="jac",
+                    max_nfev=budget,
+                    ftol=1e-8 if tol is None else tol,  # scipy's defaults unless told
+                    xtol=1e-8 if tol is None else tol,
+                    gtol=1e-8 if tol is None else tol,
+                )
+            best = sol.x * typ
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            pass
+        with np.errstate(all="ignore"):
+            theta = self._analytic_residual(best, base)[1]
+        out = {**base, **dict(zip(self.model.param_names, theta.tolist(), strict=True))}
+        return {**out, **self.held}
+
+
+_POLISH_TOL = 1e-14
+
 
 def _polish(
     model: Model,
@@ -554,13 +757,20 @@ def _polish(
     values: Mapping[str, float],
     held: Mapping[str, float],
     budget: int,
+    tol: float | None = _POLISH_TOL,
 ) -> dict[str, float]:
-    """Least squares on every free parameter at once, from ``values``; keeps the better."""
+    """Least squares on every free parameter at once, from ``values``; keeps the better.
+
+    ``tol``: the analytic path's tolerances (None: scipy's defaults, for candidates that the
+    fit polishes anyway).
+    """
     prob = _Problem.make(model, x, y, held, ())
     if not prob.nonlinear:
         return dict(values)
     start = {**values, **held}
-    refined = prob.search(start, budget)
+    # exact derivatives make tight tolerances cheap: the start rules return exact values on
+    # clean data in any unit
+    refined = prob.search(start, budget, tol)
     return refined if prob.ssr(refined) <= prob.ssr(start) else start
 
 
@@ -1278,6 +1488,45 @@ def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) ->
     return out
 
 
+def plausible_sizes(
+    model: Model, x: ArrayLike, y: ArrayLike, names: Sequence[str]
+) -> dict[str, tuple[float, float]]:
+    """A typical and a largest plausible magnitude for each named parameter, from the data.
+
+    The sampling ranges of :func:`generic_start` (unit hints, the dimension inferred from the
+    formula, the finest and coarsest x scale of the data, bounds) read as sizes: a log range
+    ``10**lo .. 10**hi`` gives ``(10**((lo + hi)/2), 10**hi)``, a linear range its width and its
+    largest absolute end. The fit judges runaway parameters and standard errors by them.
+
+    Parameters
+    ----------
+    model : Model
+    x, y : array_like
+        Finite data of equal length.
+    names : sequence of str
+        Parameters of ``model``.
+
+    Returns
+    -------
+    dict
+        ``{name: (typical, largest)}``, both positive and finite.
+    """
+    xa = np.asarray(x, dtype=float).ravel()
+    ya = np.asarray(y, dtype=float).ravel()
+    out: dict[str, tuple[float, float]] = {}
+    for n, r in _ranges(model, xa, ya, names).items():
+        if r.kind == "log":
+            typical, largest = 10.0 ** ((r.lo + r.hi) / 2.0), 10.0**r.hi
+        else:
+            largest = max(abs(r.lo), abs(r.hi))
+            typical = max(r.hi - r.lo, 1e-300)
+        largest = max(largest, typical)
+        if not (math.isfinite(typical) and math.isfinite(largest) and typical > 0):
+            typical = largest = 1.0
+        out[n] = (typical, largest)
+    return out
+
+
 def _clamp_lin(p: Param, lo: float, hi: float) -> _Range:
     lo2, hi2 = max(lo, p.lower), min(hi, p.upper)
     if hi2 < lo2:
@@ -1328,7 +1577,7 @@ def generic_start(
     *,
     fixed: Mapping[str, float] | None = None,
     n_starts: int | None = None,
-    seed: int = 0,
+    seed: int | None = None,
 ) -> dict[str, float]:
     """Starting values for any model without a user's numbers: scale-aware multi-start.
 
@@ -1339,13 +1588,21 @@ def generic_start(
        on the x axis (``x0`` in ``x - x0``) are drawn across the data; x scales (widths, time
        constants) and their inverses (rates) between the data's finest spacing and its span.
     2. Parameters the model is affine in (detected numerically) are not sampled: for each trial
-       of the others they are solved by linear least squares.
+       of the others they are solved by linear least squares (variable projection). For a
+       formula model the searches use its analytic Jacobian with Kaufman's projected Jacobian
+       for the nonlinear parameters.
     3. A Latin hypercube (``scipy.stats.qmc``) of ``n_starts`` points, plus the model's default
-       values, plus starts with the x positions on prominent extrema of the data and the rates
-       of sines and cosines on peaks of its Lomb-Scargle periodogram; each is followed by a
-       short least-squares run, and the best few by residual sum of squares are polished.
+       values, plus starts with the x positions on peaks, dips and shoulders of the data (the
+       extrema of the smoothed data and of its second derivative), the widths paired with them
+       in the formula set from the curvature there, and the rates of sines and cosines on
+       peaks of its Lomb-Scargle periodogram. For a formula model many more candidates are
+       drawn and screened by one evaluation each (linear parameters solved); the best few get
+       a short run, the best of those a longer one (successive halving). Otherwise each start
+       gets a short least-squares run. The best few by residual sum of squares are polished.
     4. When the best minimum was reached from only one start, the landscape is rugged (periodic
        or multi-peak models): up to three more rounds of fresh starts are run.
+
+    Deterministic: the only random draws are the hypercubes, seeded from the data's bytes.
 
     Parameters
     ----------
@@ -1356,8 +1613,9 @@ def generic_start(
         Parameters held at given values.
     n_starts : int, optional
         Number of sampled starts (default ``12 + 8 * d`` for ``d`` searched parameters).
-    seed : int
-        Seed of the Latin hypercube, so results are reproducible.
+    seed : int, optional
+        Seed of the Latin hypercube; by default one made from the bytes of x and y
+        (:func:`data_seed`), so the same data always give the same starts, in any process.
 
     Returns
     -------
@@ -1375,7 +1633,28 @@ def generic_start(
     held = _check_fixed(model, fixed)
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
-        return _generic(model, xa, ya, held, n_starts, seed)
+        return _generic(model, xa, ya, held, n_starts, data_seed(xa, ya) if seed is None else seed)
+
+
+def data_seed(x: ArrayLike, y: ArrayLike) -> int:
+    """A seed made from the data's bytes: the same data give the same seed in any process.
+
+    No global random state is read or changed (Python's ``hash`` of bytes changes between
+    processes, so a checksum of the float64 bytes is used).
+
+    Parameters
+    ----------
+    x, y : array_like
+        The data.
+
+    Returns
+    -------
+    int
+        In ``[0, 2**32)``.
+    """
+    xa = np.ascontiguousarray(np.asarray(x, dtype=np.float64))
+    ya = np.ascontiguousarray(np.asarray(y, dtype=np.float64))
+    return zlib.crc32(ya.tobytes(), zlib.crc32(xa.tobytes())) & 0xFFFFFFFF
 
 
 def _sample(
@@ -1485,16 +1764,8 @@ def _spectral_peaks(x: FloatArray, y: FloatArray) -> FloatArray:
     return np.asarray(omega[top], dtype=float)
 
 
-def _feature_starts(
-    model: Model,
-    x: FloatArray,
-    y: FloatArray,
-    names: Sequence[str],
-    ranges: Mapping[str, _Range],
-    base: dict[str, float],
-    seed: int,
-) -> list[dict[str, float]]:
-    """Extra starts with the location parameters put on features of the data."""
+def _location_plan(model: Model, names: Sequence[str]) -> tuple[list[str], dict[str, str]]:
+    """The x positions among ``names`` and the width paired with each (see _location_widths)."""
     inferred = _infer_dims(model)
     where = _locations(model)
 
@@ -1505,12 +1776,95 @@ def _feature_starts(
 
     # positions on the x axis only (a phase added to w*x is not one)
     locs = [n for n in names if n in where and x_sized(n)]
-    feats = _features(x, y) if locs else np.zeros(0)
+    scales = [n for n in names if n not in where and x_sized(n)]
+    return locs, _location_widths(model, locs, scales)
+
+
+def _residual_moves(
+    model: Model,
+    x: FloatArray,
+    y: FloatArray,
+    best: Mapping[str, float],
+    locs: Sequence[str],
+    pairs: Mapping[str, str],
+) -> list[dict[str, float]]:
+    """Starts that move one position of the best fit so far onto a feature of its residuals.
+
+    Two peaks the data show as one are fitted as one (or as two on top of each other); the
+    residuals then peak where the other one is. Each position in turn is moved onto each of
+    the residuals' main features, its paired width set from the curvature there.
+    """
+    with np.errstate(all="ignore"):
+        r = y - np.asarray(model.func(x, *(best[n] for n in model.param_names)), dtype=float)
+    if not np.all(np.isfinite(r)):
+        return []
+    feats, widths = _peak_shapes(x, r)
+    out: list[dict[str, float]] = []
+    for loc in locs:
+        for fx, fw in zip(feats[:4].tolist(), widths[:4].tolist(), strict=True):
+            for factor in _WIDTH_FACTORS[:3]:
+                v = dict(best)
+                v[loc] = fx
+                if loc in pairs and math.isfinite(fw) and fw > 0:
+                    v[pairs[loc]] = factor * fw
+                out.append(_clip_into_bounds(model, v))
+    # two components fitted on top of each other (or cancelling): split them apart
+    span = float(np.ptp(x)) or 1.0
+    for i, a in enumerate(locs):
+        for b in locs[i + 1 :]:
+            wa = abs(best[pairs[a]]) if a in pairs else span / 20
+            wb = abs(best[pairs[b]]) if b in pairs else span / 20
+            w = max(min(wa, wb, span / 4), span / 200)
+            c = (best[a] + best[b]) / 2.0
+            for delta in (0.5 * w, w, 1.5 * w):
+                v = dict(best)
+                v[a], v[b] = c - delta, c + delta
+                for n in (pairs.get(a), pairs.get(b)):
+                    if n is not None:
+                        v[n] = w
+                out.append(_clip_into_bounds(model, v))
+    # one wide component covering two peaks: split it, the freed one taken from elsewhere
+    for a in locs:
+        if a not in pairs:
+            continue
+        w = abs(best[pairs[a]])
+        for b in locs:
+            if b == a:
+                continue
+            for delta in (0.5 * w, w):
+                v = dict(best)
+                v[a], v[b] = best[a] - delta, best[a] + delta
+                v[pairs[a]] = w / 2.0
+                if b in pairs:
+                    v[pairs[b]] = w / 2.0
+                out.append(_clip_into_bounds(model, v))
+    return out
+
+
+def _feature_starts(
+    model: Model,
+    x: FloatArray,
+    y: FloatArray,
+    names: Sequence[str],
+    ranges: Mapping[str, _Range],
+    base: dict[str, float],
+    seed: int,
+    per: int = 4,
+) -> list[dict[str, float]]:
+    """Extra starts with the location parameters put on features of the data.
+
+    ``per`` starts per searched parameter (and ``per`` more); the others are drawn.
+    """
+    locs, pairs = _location_plan(model, names)
+    feats, widths = _peak_shapes(x, y) if locs else (np.zeros(0), np.zeros(0))
     rates = {n: r for n, r in _trig_rates(model).items() if n in names}
     omegas = _spectral_peaks(x, y) if rates else np.zeros(0)
     if feats.size == 0 and omegas.size == 0:
         return []
     rng = np.random.default_rng(seed + 17)
+
+    # with screening (per > 4) the six most prominent features are combined, else five
+    top = 6 if per > 4 else 5
 
     def assignments(cands: FloatArray, k: int) -> list[tuple[float, ...]]:
         # distinct candidates, the most prominent combinations first; random when too few
@@ -1518,17 +1872,26 @@ def _feature_starts(
             return []
         if cands.size < k:
             return [tuple(rng.choice(cands, size=k)) for _ in range(8)]
-        combos = list(itertools.permutations(range(min(cands.size, 5)), k))
+        combos = list(itertools.permutations(range(min(cands.size, top)), k))
         combos.sort(key=sum)
         return [tuple(float(cands[i]) for i in c) for c in combos]
 
     loc_sets = assignments(feats, len(locs))
     rate_sets = assignments(omegas, len(rates))
+    width_of = dict(zip(feats.tolist(), widths.tolist(), strict=True))
     out = []
-    n_out = 4 + 4 * len(names)
+    n_out = per * (1 + len(names))
     for i, s in enumerate(_sample(ranges, names, n_out, seed + 31)):
         if loc_sets:
-            s.update(dict(zip(locs, loc_sets[i % len(loc_sets)], strict=True)))
+            pick_locs = loc_sets[i % len(loc_sets)]
+            s.update(dict(zip(locs, pick_locs, strict=True)))
+            # a peak's width from the data's curvature there, scaled by turns (the formula's
+            # width may be a standard deviation, a half width or sqrt(2) times either)
+            factor = _WIDTH_FACTORS[(i // len(loc_sets)) % len(_WIDTH_FACTORS)]
+            for loc, at in zip(locs, pick_locs, strict=True):
+                wv = width_of.get(at, math.nan)
+                if loc in pairs and math.isfinite(wv) and wv > 0:
+                    s[pairs[loc]] = factor * wv
         if rate_sets:
             # a sine's rate from a peak of the periodogram: slope s1*value**power = omega
             pick = rate_sets[(i // max(len(loc_sets), 1)) % len(rate_sets)]
@@ -1537,6 +1900,102 @@ def _feature_starts(
                 s[n] = math.copysign(v, s[n]) if n in s and s[n] != 0 else v
         out.append(_clip_into_bounds(model, {**base, **s}))
     return out
+
+
+_WIDTH_FACTORS = (1.0, 1.4, 0.7, 2.0, 0.5)
+
+
+def _peak_shapes(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Positions and widths of the peaks, dips and shoulders of the (smoothed) data.
+
+    The prominent extrema (:func:`_features`) and the extrema of the second derivative, which
+    also mark a peak hidden as a shoulder of its neighbour; each with a width from the
+    curvature there, ``sqrt(height / |y''|)`` (a Gaussian's standard deviation).
+    """
+    ux, my = _means_by_x(x, y)
+    ext = _features(x, y)
+    if ux.size < 7:
+        return ext, np.full(ext.size, math.nan)
+    w = max(3, (ux.size // 25) | 1)
+    kern = np.ones(w) / w
+    sm = np.convolve(np.pad(my, w // 2, mode="edge"), kern, mode="valid")
+    with np.errstate(all="ignore"):
+        d2 = np.gradient(np.gradient(sm, ux), ux)
+    d2 = np.convolve(np.pad(d2, w // 2, mode="edge"), kern, mode="valid")
+    if not np.all(np.isfinite(d2)):
+        return ext, np.full(ext.size, math.nan)
+    lo, hi = float(np.min(sm)), float(np.max(sm))
+    cands: list[tuple[float, float, float]] = []  # (prominence, x, width)
+    for sgn in (1.0, -1.0):  # peaks bend down, dips bend up
+        idx, props = find_peaks(-sgn * d2, prominence=0.05 * _span(d2))
+        for i, prom in zip(idx, props["prominences"], strict=True):
+            h = sm[i] - lo if sgn > 0 else hi - sm[i]
+            curv = -sgn * d2[i]
+            width = math.sqrt(h / curv) if h > 0 and curv > 0 else math.nan
+            cands.append((float(prom), float(ux[i]), width))
+    cands.sort(key=lambda c: -c[0])
+    xs = [float(v) for v in ext]
+    near = 2.0 * w * float(np.median(np.diff(ux)))
+
+    def width_at(v: float) -> float:
+        if not cands:
+            return math.nan
+        return min(cands, key=lambda c: abs(c[1] - v))[2]
+
+    ws = [width_at(v) for v in xs]
+    for _, xv, wv in cands:
+        if len(xs) >= 8:
+            break
+        if all(abs(xv - v) > near for v in xs):
+            xs.append(xv)
+            ws.append(wv)
+    return np.array(xs, dtype=float), np.array(ws, dtype=float)
+
+
+def _location_widths(model: Model, locs: Sequence[str], scales: Sequence[str]) -> dict[str, str]:
+    """Which width goes with which position: the smallest part of the formula holding both.
+
+    For ``a1*exp(-(x - m1)**2/(2*s1**2)) + ...`` that is ``{"m1": "s1", ...}``. A position
+    whose smallest enclosing part holds no width, or more than one, is left out.
+    """
+    if model.expr is None or not locs or not scales:
+        return {}
+    found: dict[str, tuple[int, str]] = {}
+    wanted = set(scales)
+
+    def walk(n: Mapping[str, Any]) -> set[str]:
+        kids = [n[k] for k in ("arg", "left", "right") if k in n] + list(n.get("args", []))
+        names: set[str] = set()
+        if n.get("type") == "name":
+            names.add(str(n.get("id")))
+        for k in kids:
+            names |= walk(k)
+        ws = names & wanted
+        for m in locs:
+            if m in names and len(ws) == 1 and (m not in found or len(names) < found[m][0]):
+                found[m] = (len(names), next(iter(ws)))
+        return names
+
+    walk(model.expr.to_json())
+    return {m: w for m, (_, w) in found.items()}
+
+
+#: Screening (formula models): candidates drawn per search start, and searches made per round.
+_SCREEN = 8
+_KEEP = 4
+#: Rounds of moving a position onto a feature of the residuals (peak models).
+_MOVES = 2
+
+
+def _best_screened(
+    prob: _Problem, pool: Sequence[dict[str, float]], k: int
+) -> list[dict[str, float]]:
+    """The ``k`` candidates of ``pool`` with the lowest screened sum of squares, best first."""
+    if len(pool) <= k:
+        return list(pool)
+    scores = prob.screen_many(pool) if prob.analytic else np.array([prob.screen(c) for c in pool])
+    order = np.argsort(scores, kind="stable")
+    return [pool[int(i)] for i in order[:k]]
 
 
 def _generic(
@@ -1570,15 +2029,40 @@ def _generic(
             _clip_into_bounds(model, {**base0, **s})
             for s in _sample(ranges, prob.nonlinear, n, seed + 1009 * rnd)
         ]
-        if rnd == 0:
-            starts += _feature_starts(model, x, y, prob.nonlinear, ranges, base0, seed)
+        fast = prob.analytic and bool(prob.nonlinear)
+        feature = (
+            _feature_starts(
+                model, x, y, prob.nonlinear, ranges, base0, seed, _SCREEN * 8 if fast else 4
+            )
+            if rnd == 0
+            else []
+        )
+        if fast:
+            # Cheap screening: many more candidates, each scored by one evaluation with the
+            # linear parameters solved; only the best few (and the best few placed on
+            # features of the data) are searched.
+            pool = starts + [
+                _clip_into_bounds(model, {**base0, **s})
+                for s in _sample(ranges, prob.nonlinear, _SCREEN * n, seed + 7919 + 1009 * rnd)
+            ]
+            starts = _best_screened(prob, pool, _KEEP + d // 2) + _best_screened(
+                prob, feature, _KEEP + d // 2
+            )
+        else:
+            starts += feature
+        if fast:
+            # Successive halving: a short run from every start, then only the best go on.
+            short = [prob.search(s, max(budget // 4, d + 2)) for s in starts]
+            scores = [prob.ssr(r) for r in short]
+            keep = np.argsort(scores, kind="stable")[: _KEEP + d // 2]
+            starts = [short[int(i)] for i in keep]
         for s in starts:
             r = prob.search(s, budget) if prob.nonlinear else prob.project(s)
             results.append((prob.ssr(r), r))
         order = sorted(range(len(results)), key=lambda i: results[i][0])
         for i in [i for i in order if i not in done][:3]:
             done.add(i)
-            pol = _polish(model, x, y, results[i][1], held, 200 * (len(free) + 1))
+            pol = _polish(model, x, y, results[i][1], held, 200 * (len(free) + 1), None)
             polished.append((probe.ssr(pol), pol))
         polished.sort(key=lambda t: t[0])
         best_ssr = polished[0][0]
@@ -1588,6 +2072,23 @@ def _generic(
         agree = sum(1 for sr, _ in polished if sr <= best_ssr * (1 + 1e-6) + exact)
         if agree >= 2 or best_ssr <= exact or not prob.nonlinear:
             break
+    if polished and prob.analytic and prob.nonlinear and polished[0][0] > exact:
+        locs, pairs = _location_plan(model, prob.nonlinear)
+        for _ in range(_MOVES if locs else 0):
+            # Peaks the data merge: move one position onto what the residuals still show.
+            cur_ssr, cur = polished[0]
+            moves = _best_screened(prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP + d)
+            short = [prob.search(s, max(budget // 4, d + 2)) for s in moves]
+            keep = np.argsort([prob.ssr(r) for r in short], kind="stable")[:2]
+            tried = [prob.search(short[int(i)], budget) for i in keep]
+            if not tried:
+                break
+            r = min(tried, key=prob.ssr)
+            pol = _polish(model, x, y, r, held, 200 * (len(free) + 1), None)
+            pol_ssr = probe.ssr(pol)
+            if not pol_ssr < cur_ssr * (1 - 1e-6):
+                break
+            polished.insert(0, (pol_ssr, pol))
     best = polished[0][1] if polished else base0
     return _clip_into_bounds(model, {**best, **held})
 
@@ -1675,4 +2176,4 @@ def guided_start(
             pass  # the generic strategy below needs nothing from the rule
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
-        return _generic(model, xa, ya, held, None, 0)
+        return _generic(model, xa, ya, held, None, data_seed(xa, ya))

@@ -7,7 +7,16 @@ defined once here. The module imports nothing of ours (it is the bottom layer).
 
 from __future__ import annotations
 
-__all__ = ["CAUTION", "HIGH_CORRELATION", "NEAR_SINGULAR", "NOT_IDENTIFIED_RSE"]
+__all__ = [
+    "CAUTION",
+    "CLEARLY_LOWER",
+    "DEGENERATE_CORRELATION",
+    "DEGENERATE_SE",
+    "HIGH_CORRELATION",
+    "NEAR_SINGULAR",
+    "NOT_IDENTIFIED_RSE",
+    "RUNAWAY",
+]
 
 #: The caution printed with every summary (and shown by the widget).
 CAUTION = (
@@ -26,3 +35,24 @@ NOT_IDENTIFIED_RSE = 1.0
 
 #: A column-scaled Jacobian with a condition number above this has a near-singular covariance.
 NEAR_SINGULAR = 1e10
+
+#: |correlation| above which a fit's stopping point is suspect: the global search is run, and
+#: the point is kept unless the search finds a clearly lower minimum (ill-conditioned problems
+#: such as sums of exponentials reach |r| = 0.9999 and more at their true minimum, so this alone
+#: never fails a fit).
+DEGENERATE_CORRELATION = 0.9999
+
+#: A standard error above this multiple of the parameter's size (its absolute value or, when
+#: larger, the typical size the data suggest for it) marks a degenerate point: the data do not
+#: determine the parameter at all (a rate run off where the curve no longer depends on it).
+#: Ordinary "not identified" parameters (standard error about their value) stay a warning.
+DEGENERATE_SE = 1e3
+
+#: A parameter beyond this multiple of the largest size the data make plausible for it has run
+#: away (a rate or width heading for infinity or a midpoint far outside the data).
+RUNAWAY = 1e6
+
+#: Relative reduction of the objective by which a minimum found by the global search counts as
+#: clearly lower than the one the user's start reached (smaller differences are the same
+#: minimum, reached to the solver's precision, and the user's point is kept).
+CLEARLY_LOWER = 1e-6

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -21,7 +21,14 @@ from ..messages import outcome
 from ..numerics import aicc as _aicc
 from ..numerics import bic as _bic
 from ..result import Attempt, Diagnostic, FitResult
-from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
+from ..thresholds import (
+    DEGENERATE_CORRELATION,
+    DEGENERATE_SE,
+    HIGH_CORRELATION,
+    NEAR_SINGULAR,
+    NOT_IDENTIFIED_RSE,
+    RUNAWAY,
+)
 from .engine import _lmfit_at, _Run
 from .problem import FloatArray, _param_jacobian, _Problem
 
@@ -75,7 +82,7 @@ def _diagnostics(
                 },
             )
         )
-    if not success:
+    if not success and code != "degenerate_stop":
         out.append(
             Diagnostic(
                 "not_converged",
@@ -197,11 +204,17 @@ class _Solution:
     singular: bool
 
 
-def _solution(prob: _Problem, runs: list[_Run]) -> _Solution:
-    """Pick the run to report (the best converged one, else the best) and evaluate it."""
+def _solution(prob: _Problem, runs: list[_Run], keep: _Run | None = None) -> _Solution:
+    """Pick the run to report (the best converged one, else the best) and evaluate it.
+
+    ``keep`` overrides the choice (the user's point after a global search that found no clearly
+    lower minimum).
+    """
     kept = min(runs, key=lambda r: (not outcome(r.code).success, r.objective)) if runs else None
     if kept is not None and not outcome(kept.code).success:
         kept = min(runs, key=lambda r: r.objective)
+    if keep is not None:
+        kept = keep
     theta = kept.theta if kept is not None else np.zeros(0)
     fitted = prob.curve_at(theta).copy()
     resid = prob.y - fitted
@@ -240,8 +253,183 @@ def _solution(prob: _Problem, runs: list[_Run]) -> _Solution:
     )
 
 
-def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
-    sol = _solution(prob, runs)
+@dataclass(frozen=True)
+class _Degeneracy:
+    """Why a fit's stopping point is degenerate or suspect (see :func:`_degeneracy`)."""
+
+    reasons: tuple[str, ...]  # "singular", "near_singular", "undetermined", "runaway"
+    runaway: tuple[tuple[str, float, float], ...] = ()  # (name, value, largest plausible size)
+    undetermined: tuple[tuple[str, float, float], ...] = ()  # (name, stderr, size)
+    correlation: float = math.nan  # the largest |r| between two free parameters
+
+    @property
+    def degenerate(self) -> bool:
+        """The point is degenerate: its numbers are not estimates."""
+        return bool(self.reasons)
+
+    @property
+    def suspect(self) -> bool:
+        """Degenerate, or |r| so close to 1 that a lower minimum elsewhere is worth a look."""
+        return self.degenerate or self.correlation > DEGENERATE_CORRELATION
+
+    @property
+    def params(self) -> tuple[str, ...]:
+        """The parameters a runaway or undetermined finding names, in order, once each."""
+        return tuple(dict.fromkeys(n for n, _, _ in (*self.runaway, *self.undetermined)))
+
+
+def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
+    """Judge the stopping point from what the assembly computed anyway (covariance, condition).
+
+    Degenerate: a singular or near-singular covariance, a standard error above
+    :data:`~curvewright.thresholds.DEGENERATE_SE` times the parameter's size, or a parameter
+    beyond :data:`~curvewright.thresholds.RUNAWAY` times the largest size the data make
+    plausible for it. Sizes come from :func:`curvewright.start.plausible_sizes`, computed only
+    when a value or standard error is large enough to need them.
+    """
+    if sol.p == 0 or sol.kept is None or sol.kept.method == "linear" or not sol.success:
+        return _Degeneracy(())
+    reasons: list[str] = []
+    if sol.singular:
+        reasons.append("singular")
+    elif sol.cond > NEAR_SINGULAR:
+        reasons.append("near_singular")
+    # Few numpy calls on purpose: this runs after every fit (tens of microseconds).
+    theta, cov = sol.theta, sol.cov
+    with np.errstate(all="ignore"):
+        se = np.sqrt(np.abs(cov.diagonal()))
+        corr = math.nan
+        if not sol.singular and sol.p > 1:
+            r = np.abs(cov / np.outer(se, se))
+            r.flat[:: sol.p + 1] = 0.0
+            corr = float(np.max(r))  # NaN when some variance is 0 or not finite
+        a = np.abs(theta)
+        # Sizes only when something is large against the parameter itself (the cheap test).
+        big = (a > RUNAWAY) | (se > DEGENERATE_SE * a)
+    runaway: list[tuple[str, float, float]] = []
+    undetermined: list[tuple[str, float, float]] = []
+    if big.any():
+        from ..start import plausible_sizes
+
+        names = [prob.free[i] for i in np.flatnonzero(big)]
+        try:
+            with np.errstate(all="ignore"):
+                sizes = plausible_sizes(prob.model, prob.x, prob.y, names)
+        except (ValueError, ArithmeticError, KeyError):
+            sizes = {n: (1.0, 1.0) for n in names}
+        for i in np.flatnonzero(big):
+            n, v = prob.free[i], float(theta[i])
+            typical, largest = sizes.get(n, (1.0, 1.0))
+            if abs(v) > RUNAWAY * largest:
+                runaway.append((n, v, largest))
+            size = max(abs(v), typical)
+            if math.isfinite(se[i]) and se[i] > DEGENERATE_SE * size:
+                undetermined.append((n, float(se[i]), size))
+    if runaway:
+        reasons.append("runaway")
+    if undetermined:
+        reasons.append("undetermined")
+    return _Degeneracy(tuple(reasons), tuple(runaway), tuple(undetermined), corr)
+
+
+def _degenerate_diagnostics(deg: _Degeneracy) -> list[Diagnostic]:
+    """The degenerate stop as data: one error naming the reasons, one finding per runaway."""
+    words = {
+        "singular": "the covariance is singular",
+        "near_singular": "the covariance is nearly singular",
+        "runaway": "a parameter ran away",
+        "undetermined": "a parameter is not determined at all",
+    }
+    out = [
+        Diagnostic(
+            "degenerate_stop",
+            "error",
+            "The fit stopped at a degenerate point ("
+            + "; ".join(words[r] for r in deg.reasons)
+            + "), and the global search found no better one. The numbers below are not "
+            "estimates: try other starting values, fix a parameter, or simplify the model.",
+            params=deg.params,
+            extra={"reasons": list(deg.reasons)},
+        )
+    ]
+    for n, v, largest in deg.runaway:
+        out.append(
+            Diagnostic(
+                "runaway",
+                "error",
+                f"'{n}' ran off to {v:.3g}, more than {RUNAWAY:.0e} times the largest size the "
+                f"data make plausible for it ({largest:.3g}).",
+                params=(n,),
+                extra={"value": v, "largest": largest},
+            )
+        )
+    return out
+
+
+@dataclass(frozen=True)
+class _Search:
+    """What the global search did for a suspect fit (for the result's notes)."""
+
+    why: tuple[str, ...]  # the suspect point's reasons ("correlation" when only |r| ~ 1)
+    user_objective: float  # the best the user's start reached
+    search_objective: float  # the best the search reached
+    used: bool  # the answer is the search's minimum, not the user's
+
+
+_WHY = {
+    "singular": "a singular covariance",
+    "near_singular": "a nearly singular covariance",
+    "runaway": "a parameter running away",
+    "undetermined": "a parameter not determined at all",
+    "correlation": "two parameters nearly interchangeable",
+}
+
+
+def _search_diagnostic(search: _Search, loss: str) -> Diagnostic:
+    what = "sum of squares" if loss == "squared" else "robust loss"
+    why = ", ".join(_WHY[w] for w in search.why)
+    if search.used:
+        text = (
+            f"The answer comes from the global search, not from the given starting values: "
+            f"those stopped at a suspect point ({why}; {what} {search.user_objective:.6g}), "
+            f"and the search found a lower minimum ({search.search_objective:.6g}). The "
+            "attempts list shows both."
+        )
+    else:
+        text = (
+            f"The point reached from the given starting values was suspect ({why}), so a "
+            f"global search was run; it found no lower minimum ({what} "
+            f"{search.search_objective:.6g} against {search.user_objective:.6g})."
+        )
+    return Diagnostic(
+        "global_search",
+        "info",
+        text,
+        extra={
+            "reasons": list(search.why),
+            "used": search.used,
+            "user_objective": search.user_objective,
+            "search_objective": search.search_objective,
+        },
+    )
+
+
+def _finish(
+    prob: _Problem,
+    runs: list[_Run],
+    sol: _Solution | None = None,
+    degeneracy: _Degeneracy | None = None,
+    search: _Search | None = None,
+) -> FitResult:
+    """The result record; ``sol`` when the caller has evaluated the kept run already.
+
+    A ``degeneracy`` that is degenerate turns the outcome into ``"degenerate_stop"`` (not a
+    success); ``search`` adds a note on the global search.
+    """
+    if sol is None:
+        sol = _solution(prob, runs)
+    if degeneracy is not None and degeneracy.degenerate:
+        sol = replace(sol, code="degenerate_stop", success=False)
     kept, theta, fitted, resid, ssr, rss = (
         sol.kept,
         sol.theta,
@@ -265,6 +453,10 @@ def _finish(prob: _Problem, runs: list[_Run]) -> FitResult:
     ybar = float(np.sum(wts**2 * prob.y) / np.sum(wts**2))
     sst = float(np.sum((wts * (prob.y - ybar)) ** 2))
     diags = _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
+    if degeneracy is not None and degeneracy.degenerate:
+        diags[:0] = _degenerate_diagnostics(degeneracy)
+    if search is not None:
+        diags.insert(0, _search_diagnostic(search, prob.loss))
     attempts = [
         Attempt(
             strategy=r.strategy,

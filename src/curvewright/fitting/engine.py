@@ -514,6 +514,56 @@ def _ladder(
     return runs
 
 
+def _global_search(prob: _Problem, watch: _Watch, method: str, budget: int) -> list[_Run]:
+    """Fits from starts that ignore the user's: the catalog's rule (if any), the multi-start.
+
+    Run when the point the user's start reached is suspect (degenerate, or parameters nearly
+    interchangeable). Each start gets the first run's solver; the best of them is polished.
+    Returns every run made, named ``"global search: ..."`` in the attempts.
+    """
+    from ..start import generic_start, guided_start
+
+    seeds: list[tuple[str, Callable[[], dict[str, float]]]] = []
+    # With no start given the fit began from the rule (or, without one, from the multi-start):
+    # the same deterministic start again would only repeat the first run.
+    no_start = set(prob.free) <= prob.guided
+    if prob.model.start_rule is not None and not no_start:
+        seeds.append(
+            (
+                "global search: start rule",
+                lambda: guided_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
+            )
+        )
+    if prob.model.start_rule is not None or not no_start:
+        seeds.append(
+            (
+                "global search: multi-start",
+                lambda: generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
+            )
+        )
+    runs: list[_Run] = []
+    for strategy, make in seeds:
+        try:
+            theta = prob.theta_from(make())
+        except (DataError, ParameterError, ArithmeticError, ValueError, np.linalg.LinAlgError):
+            continue
+        if not np.all(np.isfinite(theta)):
+            continue
+        run = _first_run(prob, watch, theta, method, budget)
+        run.strategy = strategy
+        runs.append(run)
+        if run.code in _STOP:
+            return runs
+    done = [r for r in runs if outcome(r.code).success and math.isfinite(r.objective)]
+    if done:
+        best = min(done, key=lambda r: r.objective)
+        polished = _polish(prob, watch, best, budget)
+        if polished.objective <= best.objective and outcome(polished.code).success:
+            polished.strategy = "global search: polish"
+            runs.append(polished)
+    return runs
+
+
 def _polish(prob: _Problem, watch: _Watch, best: _Run, budget: int) -> _Run:
     """Finish from the best point with exact derivatives and tolerances at machine precision.
 

@@ -101,6 +101,8 @@ class _Problem:
     # starts the one rule moved inside their bounds (they become diagnostics of the result).
     parameters: Parameters = field(default_factory=lambda: Parameters(()))
     moved: tuple[Moved, ...] = ()
+    # Free parameters whose start came from the guided start (no value given by the user).
+    guided: frozenset[str] = frozenset()
     _link_fns: list[tuple[str, Callable[..., Any]]] = field(default_factory=list)
     # Index plans for building the model's argument vector from the free values (filled in
     # __post_init__): the solvers' inner loop then does no dict work per evaluation.
@@ -425,6 +427,7 @@ def _build_problem(
         link_texts=dict(recs.links),
         parameters=recs,
         moved=moved,
+        guided=frozenset(unset),
     )
 
 

@@ -22,19 +22,62 @@ from ..messages import outcome
 from ..models import Model
 from ..parameters import Parameter, Parameters
 from ..result import FitResult
-from .assemble import _finish
-from .engine import _ladder, _linear_run, _polish, _Watch
+from ..thresholds import CLEARLY_LOWER
+from .assemble import _Degeneracy, _degeneracy, _finish, _Search, _Solution, _solution
+from .engine import _LM, _TR, _global_search, _ladder, _linear_run, _polish, _Run, _Watch
 from .problem import (
     Loss,
     Method,
     Weighting,
     _build_problem,
     _check_limits,
+    _Problem,
     request_parameters,
     resolve_model,
 )
 
 __all__ = ["fit"]
+
+
+# ============================================================================ suspect stops
+def _search_globally(
+    prob: _Problem,
+    watch: _Watch,
+    runs: list[_Run],
+    sol: _Solution,
+    deg: _Degeneracy,
+    method: str,
+    budget: int,
+) -> tuple[_Solution, _Degeneracy, _Search | None]:
+    """The global search after a suspect stop; the better minimum is kept (``runs`` grows).
+
+    The user's point stays unless the search's is clearly lower
+    (:data:`~curvewright.thresholds.CLEARLY_LOWER`); the point kept is judged again. No
+    search (None) when there was nothing new to try: no start was given and the model has no
+    start rule, so the fit began from the multi-start already.
+    """
+    user, deg0 = sol.kept, deg
+    assert user is not None  # a suspect point is a solver run's
+    first = _TR if (method == _TR or prob.loss != "squared") else _LM
+    found = _global_search(prob, watch, first, budget)
+    if not found:
+        return sol, deg, None
+    runs.extend(found)
+    good = [r for r in found if outcome(r.code).success and math.isfinite(r.objective)]
+    best = min(good, key=lambda r: r.objective) if good else None
+    used = best is not None and best.objective < user.objective * (1.0 - CLEARLY_LOWER)
+    if used and best is not None:
+        sol = _solution(prob, runs, keep=best)
+        deg = _degeneracy(prob, sol)
+    else:
+        sol = _solution(prob, runs, keep=user)
+    search = _Search(
+        why=deg0.reasons or ("correlation",),
+        user_objective=user.objective,
+        search_objective=best.objective if best is not None else math.nan,
+        used=used,
+    )
+    return sol, deg, search
 
 
 # ============================================================================ entry point
@@ -188,10 +231,15 @@ def fit(
         # Kept only if it does not lose ground: the polish refines, it never replaces a better run.
         if polished.objective <= best.objective and outcome(polished.code).success:
             runs.append(polished)
-    if progress is not None:
-        progress(watch.evaluations, watch.best_ssr)
     try:
-        return _finish(prob, runs)
+        sol = _solution(prob, runs)
+        deg = _degeneracy(prob, sol)
+        search = None
+        if deg.suspect and runs[-1].code not in ("cancelled", "stopped_time"):
+            sol, deg, search = _search_globally(prob, watch, runs, sol, deg, method, budget)
+        if progress is not None:
+            progress(watch.evaluations, watch.best_ssr)
+        return _finish(prob, runs, sol, deg, search)
     except ModelError:
         raise
     except (ValueError, ArithmeticError) as exc:  # pragma: no cover - a bug, said plainly

@@ -251,6 +251,12 @@ def _check_fit(r: object, label: str) -> FitResult:
             f"{label!r} used the robust {r.loss!r} loss: the F test and AICc compare least-"
             "squares fits. Refit with loss='squared' (after excluding outliers) to compare."
         )
+    if r.code == "degenerate_stop":
+        raise ComparisonError(
+            f"{label!r} stopped at a degenerate point (a parameter the data do not determine, "
+            "see its notes): the model is not identified by these data, so a comparison "
+            "would be misleading. Fix the undetermined parameter, or compare without this model."
+        )
     if not r.success:
         raise ComparisonError(
             f"{label!r} did not converge ({r.message}); its sum of squares is not its best, so "
@@ -636,6 +642,12 @@ def _check_global(r: object, label: str) -> GlobalResult:
         raise ComparisonError(
             f"{label!r} used the robust {r.loss!r} loss: the F test and AICc compare least-"
             "squares fits. Refit with loss='squared' to compare."
+        )
+    if r.code == "degenerate_stop":
+        raise ComparisonError(
+            f"{label!r} stopped at a degenerate point (a parameter the data do not determine, "
+            "see its notes): the model is not identified by these data, so a comparison "
+            "would be misleading. Fix the undetermined parameter, or compare without this model."
         )
     if not r.success:
         raise ComparisonError(
