@@ -39,6 +39,7 @@ from curvewright.fitting.batch_engine import (
     solve_batch,
 )
 from curvewright.fitting.batch_kernel import available
+from curvewright.fitting.batch_run import _runaway
 from curvewright.models import Model
 from curvewright.thresholds import NOT_IDENTIFIED_RSE
 from test_catalog import CASES, EXTRA_CASES, Case
@@ -135,6 +136,19 @@ def _check_against_single(
 ) -> None:
     """The batch's group ``i`` reached the single fit's minimum (sum of squares, values)."""
     assert sol.settled[i], sol.reason[i]
+    if r.code == "degenerate_stop":
+        # The single fit found no finite minimum from this start, even after its global search
+        # (e.g. a 5PL asymmetry running off to 1e14). The batch's statistics must see the same
+        # degeneracy, which is what sends such a group to the per-group fit in fit_groups.
+        if stats is not None:
+            free = np.ones(len(m.param_names), dtype=bool)
+            one = BatchProblem.from_groups(m, [r.x], [r.y], start=sol.values[i : i + 1])
+            assert (
+                stats.singular[i]
+                or stats.near_singular[i]
+                or bool(_runaway(one, sol.values[i : i + 1], stats.stderr[i : i + 1], free)[0])
+            ), (i, r.message)
+        return
     if _at_infinity(r):
         # Both must then say so: the batch's statistics flag the same parameter.
         if stats is not None:

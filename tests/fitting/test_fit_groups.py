@@ -188,7 +188,9 @@ def test_a_failed_group_never_stops_the_batch() -> None:
     assert st["bad 4"] == "failed" and "not numeric" in reasons["bad 4"]
     assert st["bad 5"] == "failed" and "needs non-negative x" in reasons["bad 5"]
     assert st["bad 6"] == "failed" and "singular" in reasons["bad 6"]
-    assert batch.flags[batch.index_of("bad 6")] == ("singular",)
+    # A singular stop is suspect: the group went to the per-group fit, whose global search
+    # found nothing better, so it is a degenerate stop with its reason as data.
+    assert batch.flags[batch.index_of("bad 6")] == ("degenerate_stop", "singular")
     # every non-ok group has a reason; failed rows hold no numbers
     assert all(batch.reasons[i] for i, s in enumerate(batch.statuses) if s != "ok")
     assert set(batch.reason.index) == {

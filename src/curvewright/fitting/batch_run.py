@@ -27,8 +27,9 @@ from ..inference import quantile
 from ..models import Model
 from ..parameters import Parameters
 from ..result import FitResult
-from ..start import guided_start
+from ..start import guided_start, plausible_sizes
 from ..start_batch import guided_starts
+from ..thresholds import DEGENERATE_SE, RUNAWAY
 from .batch_engine import BatchProblem, batch_derived, batch_statistics, solve_batch
 from .problem import (
     FloatArray,
@@ -447,6 +448,39 @@ def _fit_group(
     )
 
 
+def _runaway(
+    prob: BatchProblem, values: FloatArray, stderr: FloatArray, free: NDArray[np.bool_]
+) -> NDArray[np.bool_]:
+    """Groups with a free parameter run off or undetermined, by the single fit's rule.
+
+    The cheap test of ``assemble._degeneracy`` (a value above RUNAWAY, a standard error above
+    DEGENERATE_SE times the value) runs on every group at once; only the groups it picks get
+    the data-based sizes (``start.plausible_sizes``), as a single fit does.
+    """
+    v, se = values[:, free], stderr[:, free]
+    with np.errstate(invalid="ignore"):
+        a = np.abs(v)
+        big = (a > RUNAWAY) | (se > DEGENERATE_SE * a)
+    out = np.zeros(values.shape[0], dtype=bool)
+    names = [n for n, f in zip(prob.model.param_names, free.tolist(), strict=True) if f]
+    for k in np.flatnonzero(big.any(axis=1)).tolist():
+        m = prob.mask[k]
+        cols = np.flatnonzero(big[k]).tolist()
+        try:
+            with np.errstate(all="ignore"):
+                sizes = plausible_sizes(
+                    prob.model, prob.x[k][m], prob.y[k][m], [names[j] for j in cols]
+                )
+        except (ValueError, ArithmeticError, KeyError):
+            sizes = {}
+        for j in cols:
+            typical, largest = sizes.get(names[j], (1.0, 1.0))
+            if a[k, j] > RUNAWAY * largest or se[k, j] > DEGENERATE_SE * max(a[k, j], typical):
+                out[k] = True
+                break
+    return out
+
+
 def _findings_text(found: Sequence[tuple[str, tuple[str, ...]]]) -> str:
     words = {
         "not_identified": "not identified",
@@ -473,6 +507,25 @@ def _row_of_fit(r: FitResult, level: float) -> _Row:
         return _Row(reason="stopped: cancelled", path="per-group", fit=r)
     if r.code == "stopped_time":
         return _Row(reason="stopped: timed out", path="per-group", fit=r)
+    if r.code == "degenerate_stop":
+        # The reasons as data (the diagnostic's extra) and in the batch's words.
+        why: tuple[str, ...] = ()
+        for d in r.diagnostics:
+            if d.code == "degenerate_stop":
+                why = tuple(str(w) for w in d.extra.get("reasons", ()))
+        words = {
+            "singular": _SINGULAR,
+            "near_singular": "nearly singular covariance",
+            "runaway": "a parameter ran off",
+            "undetermined": "a parameter is not determined",
+        }
+        text = "; ".join(words.get(w, w) for w in why) or "no finite minimum"
+        return _Row(
+            reason=f"stopped at a degenerate point ({text}); the global search found no better",
+            path="per-group",
+            flags=("degenerate_stop", *why),
+            fit=r,
+        )
     if not r.success:
         return _Row(reason=f"did not converge: {r.message}", path="per-group", fit=r)
     if any(d.code == "singular" for d in r.diagnostics):
@@ -577,11 +630,16 @@ def _run_vectorised(
     dq = list(derived.values())
     tk = np.array(take)
     cancelled = ~sol.settled & np.array([r == "cancelled" for r in sol.reason], dtype=bool)
-    back = tk[~sol.settled & ~cancelled].tolist()  # to the per-group fit, with its ladder
+    # A group settled at a degenerate point (singular or near-singular covariance, a standard
+    # error over DEGENERATE_SE times its value) is suspect, as in the single fit: it goes to
+    # the per-group fit, whose global search keeps a clearly lower minimum or reports the
+    # degenerate stop, so the batch row and batch[group] tell the same story.
+    suspect = sol.settled & (
+        stats.singular | stats.near_singular | _runaway(prob, sol.values, stats.stderr, free)
+    )
+    back = tk[(~sol.settled & ~cancelled) | suspect].tolist()  # to the per-group fit
     unrun = tk[cancelled].tolist()  # reported as not run by the caller
-    for g in tk[sol.settled & stats.singular].tolist():
-        out.fail(g, _SINGULAR, path="vectorised", flags=("singular",))
-    good = sol.settled & ~stats.singular
+    good = sol.settled & ~suspect
     gi = tk[good]
     v, se, qq = sol.values[good], stats.stderr[good], q[good][:, None]
     out.values[gi], out.stderr[gi] = v, se
