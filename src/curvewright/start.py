@@ -1424,6 +1424,72 @@ def _locations(model: Model) -> set[str]:
     return found
 
 
+def location_parameters(model: Model) -> dict[str, str]:
+    """The parameters that are positions on the x axis, and on which scale.
+
+    ``"log"`` for a log10 midpoint (unit ``"log10(x)"``, e.g. a dose-response ``log_ic50``),
+    ``"lin"`` for a position added to or subtracted from x (a peak centre, a half-activation
+    voltage). Such a parameter's value can sit at or near zero where nothing is wrong (an IC50
+    of 1 in the data's unit has ``log_ic50 = 0``), so its standard error is judged against the
+    span of the data along x, not against its own size. Cached per model.
+    """
+    key = id(model)
+    hit = _LOCATION_CACHE.get(key)
+    if hit is not None and hit[0] is model:
+        return hit[1]
+    out = {p.name: "log" for p in model.params if p.unit == "log10(x)"}
+    for n in sorted(_x_offsets(model)):
+        out.setdefault(n, "lin")
+    if len(_LOCATION_CACHE) > 256:
+        _LOCATION_CACHE.clear()
+    _LOCATION_CACHE[key] = (model, out)
+    return out
+
+
+def _x_offsets(model: Model) -> set[str]:
+    """Names in ``x - name`` or ``name - x`` themselves: positions such as a centre.
+
+    Not a baseline added to a curve in x (which :func:`_locations` also counts, for its
+    sampling), nor a scale such as ``Km + x``.
+    """
+    if model.expr is None:
+        return set()
+    found: set[str] = set()
+
+    def is_x(n: Mapping[str, Any]) -> bool:
+        return n.get("type") == "name" and n.get("id") == "x"
+
+    def walk(n: Mapping[str, Any]) -> None:
+        if n.get("type") == "bin" and n.get("op") == "-":
+            for a, b in ((n["left"], n["right"]), (n["right"], n["left"])):
+                if a.get("type") == "name" and a.get("id") != "x" and is_x(b):
+                    found.add(str(a["id"]))
+        for k in ("arg", "left", "right"):
+            if k in n:
+                walk(n[k])
+        for a in n.get("args", []):
+            walk(a)
+
+    walk(model.expr.to_json())
+    return found
+
+
+# id(model) -> (model, locations); the model is kept so an id is never reused while cached.
+_LOCATION_CACHE: dict[int, tuple[Model, dict[str, str]]] = {}
+
+
+def x_span(x: FloatArray, scale: str) -> float:
+    """The data's extent along x on a location's scale (log10 decades for "log"); NaN if none."""
+    xa = np.asarray(x, dtype=float)
+    xa = xa[np.isfinite(xa)]
+    if scale == "log":
+        xa = xa[xa > 0]
+        if xa.size < 2:
+            return math.nan
+        return float(np.log10(np.max(xa)) - np.log10(np.min(xa)))
+    return float(np.ptp(xa)) if xa.size >= 2 else math.nan
+
+
 def _ranges(model: Model, x: FloatArray, y: FloatArray, names: Sequence[str]) -> dict[str, _Range]:
     """Plausible sampling ranges for the named parameters from the data scales."""
     ax = float(np.max(np.abs(x))) or 1.0

@@ -21,6 +21,7 @@ from ..messages import outcome
 from ..numerics import aicc as _aicc
 from ..numerics import bic as _bic
 from ..result import Attempt, Diagnostic, FitResult
+from ..start import location_parameters, x_span
 from ..thresholds import (
     DEGENERATE_CORRELATION,
     DEGENERATE_SE,
@@ -127,19 +128,42 @@ def _diagnostics(
                 extra={"condition": cond},
             )
         )
+    locations = location_parameters(prob.model)
     for n in prob.free:
         se, v = stderr[n], values[n]
-        if math.isfinite(se) and v != 0 and se / abs(v) > NOT_IDENTIFIED_RSE:
-            out.append(
-                Diagnostic(
-                    "not_identified",
-                    "warning",
-                    f"'{n}' is not identified by the data: its standard error ({se:.3g}) exceeds "
-                    f"its value ({v:.3g}). Collect data where it matters, or fix it.",
-                    params=(n,),
-                    extra={"stderr": se, "value": v},
-                )
+        if not math.isfinite(se):
+            continue
+        # A position on the x axis (log_ic50, a peak centre) is judged against the data's span
+        # along x: its value can be zero with nothing wrong (an IC50 of 1 in the data's unit),
+        # or far from zero with an interval wider than the data. A global fit's per-group
+        # name is "name[group]".
+        where = locations.get(n.split("[", 1)[0])
+        span = x_span(prob.x, where) if where is not None else math.nan
+        if math.isfinite(span) and span > 0:
+            if se <= NOT_IDENTIFIED_RSE * span:
+                continue
+            unit = " decades" if where == "log" else ""
+            text = (
+                f"'{n}' is not identified by the data: its standard error ({se:.3g}) is wider "
+                f"than the data's whole span along x ({span:.3g}{unit}). Collect data around "
+                "it, or fix it."
             )
+        else:
+            if v == 0 or se / abs(v) <= NOT_IDENTIFIED_RSE:
+                continue
+            text = (
+                f"'{n}' is not identified by the data: its standard error ({se:.3g}) exceeds "
+                f"its value ({v:.3g}). Collect data where it matters, or fix it."
+            )
+        out.append(
+            Diagnostic(
+                "not_identified",
+                "warning",
+                text,
+                params=(n,),
+                extra={"stderr": se, "value": v, "span": span if math.isfinite(span) else None},
+            )
+        )
     if cov.size and not singular:
         for i, j, r in correlated_pairs(correlation_matrix(cov), HIGH_CORRELATION):
             out.append(

@@ -75,6 +75,7 @@ from ..errors import DataError, ModelError, ParameterError
 from ..inference import quantile
 from ..models import Model
 from ..result import _power_of
+from ..start import location_parameters
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
 from .batch_kernel import STATUS, kernel_for
 from .problem import FloatArray
@@ -768,6 +769,21 @@ class BatchStatistics:
     absolute_sigma: bool
 
 
+def _x_spans(prob: BatchProblem, where: str) -> FloatArray:
+    """Each group's extent along x (log10 decades for ``"log"``; NaN when under two points)."""
+    ok = prob.mask & np.isfinite(prob.x)
+    if where == "log":
+        ok &= prob.x > 0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xv = np.log10(np.where(ok, prob.x, 1.0))
+    else:
+        xv = prob.x
+    hi = np.where(ok, xv, -np.inf).max(axis=1)
+    lo = np.where(ok, xv, np.inf).min(axis=1)
+    span: FloatArray = np.where(ok.sum(axis=1) >= 2, hi - lo, np.nan)
+    return span
+
+
 def batch_statistics(
     problem: BatchProblem, solution: BatchSolution, *, absolute_sigma: bool = False
 ) -> BatchStatistics:
@@ -861,6 +877,18 @@ def batch_statistics(
             & (vals != 0)
             & (stderr / np.abs(vals) > NOT_IDENTIFIED_RSE)
         )
+        # Positions on the x axis are judged against each group's span along x, as in the
+        # single fit (assemble._diagnostics, start.location_parameters).
+        for j, name in enumerate(prob.model.param_names):
+            where = location_parameters(prob.model).get(name)
+            if where is None or not free[j]:
+                continue
+            span = _x_spans(prob, where)
+            usable = np.isfinite(span) & (span > 0)
+            by_span = (
+                free[j] & np.isfinite(stderr[:, j]) & (stderr[:, j] > NOT_IDENTIFIED_RSE * span)
+            )
+            not_id[:, j] = np.where(usable, by_span, not_id[:, j])
     return BatchStatistics(
         n=n,
         dof=dof,
