@@ -140,3 +140,99 @@ def test_split_groups_gives_each_group_what_make_dataset_gives_its_rows(
             continue
         assert ds is not None and err is None
         assert ds.to_dict() == want.to_dict()
+
+
+@settings(max_examples=40)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    with_sigma=st.booleans(),
+    with_exclude=st.booleans(),
+    object_column=st.booleans(),
+)
+def test_split_groups_arrays_equal_the_datasets_made_one_by_one(
+    seed: int, with_sigma: bool, with_exclude: bool, object_column: bool
+) -> None:
+    # Reference: make_dataset on each group's own sub-table. The split's arrays (counts, the
+    # joined used points, the padded scatter) must say what those Datasets say, group by
+    # group, for the array split of numeric columns and the group-by-group one (a column of
+    # Python objects). Random tables with NaN, inf, constant, all-NaN and excluded groups.
+    from curvewright.data import GroupDatasets, split_groups
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 80))
+    df = pd.DataFrame(
+        {
+            "g": rng.integers(0, 7, n),
+            "x": rng.normal(size=n),
+            "y": rng.normal(size=n),
+            "s": rng.uniform(0.5, 2, n),
+        }
+    )
+    for col in ("x", "y", "s"):
+        df.loc[rng.random(n) < 0.15, col] = np.nan
+    df.loc[df["g"] == 1, "y"] = 3.0  # a constant response
+    df.loc[df["g"] == 2, "x"] = np.nan  # no finite row
+    if rng.random() < 0.3:
+        df.loc[int(rng.integers(n)), "x"] = -np.inf
+    if rng.random() < 0.3:
+        df.loc[int(rng.integers(n)), "s"] = 0.0
+    if object_column:
+        df["y"] = df["y"].astype(object)
+    exclude = rng.random(n) < 0.25 if with_exclude else None
+    sigma = "s" if with_sigma else None
+    groups = split_groups(df, "x", "y", ["g"], sigma=sigma, exclude=exclude, errors="keep")
+    assert isinstance(groups.datasets, GroupDatasets) != object_column
+    G = len(groups)
+    assert groups.used_offsets.shape == (G + 1,)
+    for g, pos in enumerate(groups.positions):
+        sub = df.iloc[pos].reset_index(drop=True).infer_objects()
+        ex = None if exclude is None else exclude[pos]
+        lo, hi = groups.used_offsets[g], groups.used_offsets[g + 1]
+        try:
+            want = make_dataset("x", "y", data=sub, sigma=sigma, exclude=ex, name=groups.labels[g])
+        except DataError as exc:
+            assert groups.datasets[g] is None and str(groups.errors[g]) == str(exc)
+            assert (groups.n_used[g], groups.n_dropped[g], hi - lo) == (0, 0, 0)
+            continue
+        got = groups.datasets[g]
+        assert got is not None and got.to_dict() == want.to_dict()
+        assert (groups.n_used[g], groups.n_dropped[g]) == (want.n, want.n_dropped)
+        assert np.array_equal(groups.used_x[lo:hi], want.x_used)
+        assert np.array_equal(groups.used_y[lo:hi], want.y_used)
+        if sigma is None:
+            assert groups.used_sigma is None
+        else:
+            assert groups.used_sigma is not None
+            assert np.array_equal(groups.used_sigma[lo:hi], want.sigma_used)
+    # The padded scatter: each row is the group's used points, then padding.
+    order = rng.permutation(G)
+    for fill in ("nan", "first"):
+        x, y, s, mask = groups.padded(order, fill=fill)
+        assert x.shape == y.shape == mask.shape and x.shape[0] == G
+        for r, g in enumerate(order.tolist()):
+            ds = groups.datasets[g]
+            k = 0 if ds is None else ds.n
+            assert mask[r].sum() == k and mask[r, :k].all()
+            if ds is None:
+                continue
+            assert np.array_equal(x[r, :k], ds.x_used) and np.array_equal(y[r, :k], ds.y_used)
+            if s is not None:
+                assert np.array_equal(s[r, :k], ds.sigma_used)
+            if fill == "nan":
+                assert np.isnan(x[r, k:]).all() and np.isnan(y[r, k:]).all()
+            elif k:
+                assert (x[r, k:] == ds.x_used[0]).all() and (y[r, k:] == ds.y_used[0]).all()
+
+
+def test_group_datasets_are_made_on_use_and_kept() -> None:
+    # Contract of the lazy sequence: indexing (negative too), slices, iteration and the same
+    # object on a second look; out of range is an IndexError as for a tuple.
+    from curvewright.data import split_groups
+
+    df = pd.DataFrame({"g": [0, 0, 1, 1, 1], "x": [1.0, 2, 1, 2, 3], "y": [1.0, 2, 2, 3, 4]})
+    ds = split_groups(df, "x", "y", ["g"], errors="keep").datasets
+    assert len(ds) == 2 and ds[-1] is ds[1] and ds[0] is ds[0]
+    assert [d.n for d in ds if d is not None] == [2, 3]
+    assert ds[0:2] == (ds[0], ds[1])
+    with pytest.raises(IndexError):
+        ds[2]

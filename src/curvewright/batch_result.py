@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from .data import Dataset, labels_of
+from .data import Dataset, GroupDatasets, labels_of
 from .errors import CurvewrightError, FitError, ModelError, ParameterError
 from .global_result import _key_from_json, _key_to_json
 from .models import Model
@@ -122,8 +122,9 @@ class BatchResult:
     starts : ndarray, shape (groups, params)
         The start each group's fit began from (NaN for fixed and linked parameters, and for a
         group that was never fitted, which ``batch[group]`` starts from the guided start).
-    datasets : tuple of Dataset or None
-        Each group's data (None where it could not be read).
+    datasets : sequence of Dataset or None
+        Each group's data (None where it could not be read); a :class:`GroupDatasets` from a
+        fit makes each one when first asked for.
     parameters : Parameters
         The parameter settings every group shares (bounds, fixed values, links); the values
         are the common start (NaN where each group has its own).
@@ -151,7 +152,7 @@ class BatchResult:
     derived_names: tuple[str, ...]
     derived_array: FloatArray
     starts: FloatArray
-    datasets: tuple[Dataset | None, ...]
+    datasets: Sequence[Dataset | None]
     parameters: Parameters
     options: Mapping[str, Any] = field(default_factory=dict)
     _fits: dict[int, FitResult] = field(default_factory=dict, repr=False, compare=False)
@@ -165,8 +166,10 @@ class BatchResult:
         put(self, "derived_array", _frozen(np.reshape(self.derived_array, (g, d, 4))))
         for name in ("n_used", "n_dropped"):
             put(self, name, _frozen(np.reshape(getattr(self, name), (g,)), np.int64))
-        for name in ("by", "keys", "labels", "statuses", "reasons", "paths", "datasets"):
+        for name in ("by", "keys", "labels", "statuses", "reasons", "paths"):
             put(self, name, tuple(getattr(self, name)))
+        if not isinstance(self.datasets, GroupDatasets):  # those are made on use, and kept
+            put(self, "datasets", tuple(self.datasets))
         put(self, "flags", tuple(tuple(f) for f in self.flags))
         put(self, "derived_names", tuple(self.derived_names))
         put(self, "options", MappingProxyType(dict(self.options)))

@@ -9,7 +9,7 @@ across several datasets can share parameters later; today's ``fit`` passes one.
 from __future__ import annotations
 
 import difflib
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -19,7 +19,15 @@ from numpy.typing import ArrayLike, NDArray
 
 from .errors import DataError
 
-__all__ = ["Dataset", "Groups", "group_label", "labels_of", "make_dataset", "split_groups"]
+__all__ = [
+    "Dataset",
+    "GroupDatasets",
+    "Groups",
+    "group_label",
+    "labels_of",
+    "make_dataset",
+    "split_groups",
+]
 
 FloatArray = NDArray[np.float64]
 BoolArray = NDArray[np.bool_]
@@ -400,6 +408,81 @@ def labels_of(keys: Sequence[object]) -> tuple[str, ...]:
     return tuple(out)
 
 
+class GroupDatasets(Sequence["Dataset | None"]):
+    """Each group's :class:`Dataset`, built when first asked for (``Groups.datasets``).
+
+    A batch fit reads its groups from the arrays of :class:`Groups`; a Dataset is made only for
+    a group that needs one (its per-group fit, ``batch[group]``, the JSON form), from the
+    table's columns as :func:`split_groups` read them, and kept.
+    """
+
+    def __init__(
+        self,
+        n: int,
+        *,
+        order: NDArray[np.intp],
+        offsets: NDArray[np.intp],
+        x: FloatArray,
+        y: FloatArray,
+        sigma: FloatArray | None,
+        nan: BoolArray,
+        exclude: BoolArray | None,
+        x_label: str,
+        y_label: str,
+        labels: Sequence[str],
+        made: Mapping[int, Dataset | None],
+    ) -> None:
+        self._n = n
+        self._order, self._offsets = order, offsets
+        self._x, self._y, self._sigma, self._nan, self._exclude = x, y, sigma, nan, exclude
+        self._x_label, self._y_label, self._labels = x_label, y_label, labels
+        self._made: dict[int, Dataset | None] = dict(made)
+
+    def __len__(self) -> int:
+        return self._n
+
+    def __iter__(self) -> Iterator[Dataset | None]:
+        return (self._get(i) for i in range(self._n))
+
+    def __getitem__(self, i: Any) -> Any:
+        if isinstance(i, slice):
+            return tuple(self._get(j) for j in range(*i.indices(self._n)))
+        j = int(i)
+        if j < 0:
+            j += self._n
+        if not 0 <= j < self._n:
+            raise IndexError(f"group {i} out of range (there are {self._n}).")
+        return self._get(j)
+
+    def _get(self, g: int) -> Dataset | None:
+        if g not in self._made:
+            self._made[g] = self._build(g)
+        return self._made[g]
+
+    def _build(self, g: int) -> Dataset:
+        # The Dataset make_dataset builds from these finite rows (tests/test_data.py checks
+        # they are the same), without its per-call checks.
+        pos = self._order[self._offsets[g] : self._offsets[g + 1]]
+        nan = self._nan[pos]
+        keep = ~nan
+        row = np.flatnonzero(keep).astype(np.int64)
+        k = int(nan.sum())
+        ex = None if self._exclude is None else self._exclude[pos]
+        return Dataset(
+            x=_frozen(self._x[pos][keep]),
+            y=_frozen(self._y[pos][keep]),
+            include=_frozen(np.ones(row.size, dtype=bool) if ex is None else ~ex[row]),
+            row=_frozen(row),
+            sigma=None if self._sigma is None else _frozen(self._sigma[pos][keep]),
+            n_dropped=k,
+            n_input=len(pos),
+            x_label=self._x_label,
+            y_label=self._y_label,
+            name=self._labels[g],
+            notes=(_nan_note(k),) if k else (),
+        )
+
+
 @dataclass(frozen=True, eq=False)
 class Groups:
     """A long table checked and split by its group columns (:func:`split_groups`).
@@ -414,26 +497,105 @@ class Groups:
         Their display labels (:func:`labels_of`).
     positions : tuple of ndarray of int
         Each group's row positions in the table.
-    datasets : tuple of Dataset or None
-        Each group's observations; None where the group's data could not be read (with
-        ``errors="keep"``), its error then in ``errors``.
+    datasets : sequence of Dataset or None
+        Each group's observations (a :class:`GroupDatasets`, built on use, or a tuple); None
+        where the group's data could not be read (with ``errors="keep"``), its error then in
+        ``errors``.
     errors : tuple of DataError or None
         Why a group's data could not be read (``errors="keep"`` only; the message is about
         that group's rows, numbered within the group).
     constants : tuple of dict
         Each group's values of the ``constants`` columns.
+    n_used, n_dropped : ndarray of int, shape (G,)
+        Each group's used points and dropped NaN rows (0 and 0 where ``datasets`` is None).
+    used_x, used_y : ndarray
+        Every group's used points one group after the other (``datasets[g].x_used`` is
+        ``used_x[used_offsets[g]:used_offsets[g + 1]]``).
+    used_sigma : ndarray or None
+        Their standard deviations, None when the table has none.
+    used_offsets : ndarray of int, shape (G + 1,)
+        Where each group's used points start in ``used_x``.
     """
 
     by: tuple[str, ...]
     keys: tuple[Any, ...]
     labels: tuple[str, ...]
     positions: tuple[NDArray[np.intp], ...]
-    datasets: tuple[Dataset | None, ...]
+    datasets: Sequence[Dataset | None]
     errors: tuple[DataError | None, ...]
     constants: tuple[dict[str, float], ...]
+    n_used: NDArray[np.int64]
+    n_dropped: NDArray[np.int64]
+    used_x: FloatArray
+    used_y: FloatArray
+    used_sigma: FloatArray | None
+    used_offsets: NDArray[np.intp]
 
     def __len__(self) -> int:
         return len(self.keys)
+
+    def padded(
+        self, idx: Sequence[int] | NDArray[np.intp], *, fill: str = "nan"
+    ) -> tuple[FloatArray, FloatArray, FloatArray | None, BoolArray]:
+        """The used points of groups ``idx`` as padded ``(len(idx), N)`` arrays, in one scatter.
+
+        Parameters
+        ----------
+        idx : sequence of int
+            The groups, in the order of the rows wanted.
+        fill : {"nan", "first"}
+            Padding: NaN, or a group's first point (x 1.0, y 0.0 for a group without points)
+            with sigma 1, as :meth:`BatchProblem.from_groups` pads.
+
+        Returns
+        -------
+        (x, y, sigma or None, mask)
+            ``mask`` is True for a real point.
+        """
+        ix = np.asarray(idx, dtype=np.intp)
+        lens = self.n_used[ix]
+        n = int(lens.max()) if lens.size else 0
+        mask = np.arange(n)[None, :] < lens[:, None]
+        starts = self.used_offsets[ix]
+        total = int(lens.sum())
+        flat = np.arange(total) + np.repeat(starts - (np.cumsum(lens) - lens), lens)
+        has = lens > 0
+        first = np.minimum(starts, max(self.used_x.size - 1, 0))
+        out: list[FloatArray | None] = []
+        for arr, empty in ((self.used_x, 1.0), (self.used_y, 0.0), (self.used_sigma, 1.0)):
+            if arr is None:
+                out.append(None)
+                continue
+            if fill == "nan":
+                a = np.full((ix.size, n), np.nan)
+            else:
+                pad = np.full(ix.size, empty)
+                if arr is not self.used_sigma and arr.size:
+                    pad[has] = arr[first[has]]
+                a = np.repeat(pad[:, None], n, axis=1)
+            a[mask] = arr[flat]
+            out.append(a)
+        x, y, s = out
+        assert x is not None and y is not None
+        return x, y, s, mask
+
+
+def _used_arrays(
+    datasets: Sequence[Dataset | None], has_sigma: bool
+) -> tuple[FloatArray, FloatArray, FloatArray | None, NDArray[np.intp]]:
+    """The used points of datasets made one by one, joined (the group-by-group split)."""
+    ds = [d for d in datasets if d is not None]
+    n = np.array([0 if d is None else d.n for d in datasets], dtype=np.intp)
+    off = np.zeros(len(datasets) + 1, dtype=np.intp)
+    off[1:] = np.cumsum(n)
+
+    def cat(parts: list[FloatArray]) -> FloatArray:
+        return np.concatenate(parts) if parts else np.zeros(0)
+
+    sig = None
+    if has_sigma:
+        sig = cat([d.sigma_used for d in ds if d.sigma_used is not None])
+    return cat([d.x_used for d in ds]), cat([d.y_used for d in ds]), sig, off
 
 
 def _plain_key(key: Any, several: bool) -> Any:
@@ -584,6 +746,11 @@ def split_groups(
     several = len(by) > 1
     keys = [_plain_key(k, several) for k in grouped]
     labels = labels_of(keys)
+    if clean is not None and not constants:
+        return _split_whole(
+            by, keys, labels, grouped.values(), xa, ya, sa, nan_all, clean,
+            mask if exclude is not None else None, x, y, errors,
+        )  # fmt: skip
     datasets: list[Dataset | None] = []
     errs: list[DataError | None] = []
     consts: list[dict[str, float]] = []
@@ -608,31 +775,6 @@ def split_groups(
                 )
             cv[c] = float(col[0])
         ex_g = mask[pos] if exclude is not None else None
-        if clean is not None and clean[pos].all() and not nan_all[pos].all():
-            # The fast path: the Dataset make_dataset would build from these finite rows
-            # (tests/test_data.py checks they are the same), without its per-call checks.
-            nan = nan_all[pos]
-            keep = ~nan
-            row = np.flatnonzero(keep).astype(np.int64)
-            k = int(nan.sum())
-            datasets.append(
-                Dataset(
-                    x=_frozen(xa[pos][keep]),
-                    y=_frozen(ya[pos][keep]),
-                    include=_frozen(np.ones(row.size, dtype=bool) if ex_g is None else ~ex_g[row]),
-                    row=_frozen(row),
-                    sigma=None if sa is None else _frozen(sa[pos][keep]),
-                    n_dropped=k,
-                    n_input=len(pos),
-                    x_label=x,
-                    y_label=y,
-                    name=label,
-                    notes=(_nan_note(k),) if k else (),
-                )
-            )
-            errs.append(None)
-            consts.append(cv)
-            continue
         try:
             if whole:
                 ds = make_dataset(
@@ -669,6 +811,8 @@ def split_groups(
             datasets.append(ds)
             errs.append(None)
         consts.append(cv)
+    has_sigma = sig_col is not None or sig_arr is not None
+    ux, uy, us, uoff = _used_arrays(datasets, has_sigma)
     return Groups(
         by=tuple(by),
         keys=tuple(keys),
@@ -677,4 +821,93 @@ def split_groups(
         datasets=tuple(datasets),
         errors=tuple(errs),
         constants=tuple(consts),
+        n_used=np.diff(uoff).astype(np.int64),
+        n_dropped=np.array([0 if d is None else d.n_dropped for d in datasets], dtype=np.int64),
+        used_x=ux,
+        used_y=uy,
+        used_sigma=us,
+        used_offsets=uoff,
+    )
+
+
+def _split_whole(
+    by: Sequence[str],
+    keys: list[Any],
+    labels: tuple[str, ...],
+    positions: Any,
+    xa: FloatArray,
+    ya: FloatArray,
+    sa: FloatArray | None,
+    nan_all: BoolArray,
+    clean: BoolArray,
+    exclude: BoolArray | None,
+    x: str,
+    y: str,
+    errors: str,
+) -> Groups:
+    """:func:`split_groups` of numeric columns: array operations over the table sorted by group.
+
+    The rows are ordered by group once (each group's rows in table order); per-group counts
+    of NaN rows, of rows ``make_dataset`` refuses (infinite, sigma <= 0) and of used points
+    are sums over each group's run of rows (``np.add.reduceat``). A group with a refused row
+    or no finite row goes through :func:`make_dataset` (its message, its error); the Datasets
+    of the others are made only when asked for (:class:`GroupDatasets`).
+    """
+    pos = tuple(np.asarray(p, dtype=np.intp) for p in positions)
+    G = len(pos)
+    counts = np.fromiter((p.size for p in pos), dtype=np.intp, count=G)
+    off = np.zeros(G + 1, dtype=np.intp)
+    off[1:] = np.cumsum(counts)
+    order = np.concatenate(pos) if G else np.zeros(0, dtype=np.intp)
+    starts = off[:-1]
+    nan_s = nan_all[order]
+    n_nan = np.add.reduceat(nan_s.astype(np.int64), starts) if G else np.zeros(0, np.int64)
+    n_bad = np.add.reduceat((~clean[order]).astype(np.int64), starts) if G else n_nan
+    ok = (n_bad == 0) & (n_nan < counts)
+    gid = np.repeat(np.arange(G), counts)
+    used = ~nan_s & ok[gid]
+    if exclude is not None:
+        used &= ~exclude[order]
+    made: dict[int, Dataset | None] = {}
+    errs: list[DataError | None] = [None] * G
+    for g in np.flatnonzero(~ok).tolist():
+        p = pos[g]
+        try:
+            ds = make_dataset(
+                xa[p], ya[p], sigma=None if sa is None else sa[p],
+                exclude=None if exclude is None else exclude[p], name=labels[g],
+            )  # fmt: skip
+        except DataError as exc:
+            # The same error, saying which group (a DataError subclass stays itself).
+            if errors == "raise":
+                raise type(exc)(f"group {labels[g]!r}: {exc}") from exc
+            made[g], errs[g] = None, exc
+        else:  # pragma: no cover - make_dataset refuses every row that sent a group here
+            made[g] = replace(ds, x_label=x, y_label=y)
+    datasets = GroupDatasets(
+        G, order=order, offsets=off, x=xa, y=ya, sigma=sa, nan=nan_all, exclude=exclude,
+        x_label=x, y_label=y, labels=labels, made=made,
+    )  # fmt: skip
+    n_dropped = np.where(ok, n_nan, 0).astype(np.int64)
+    if any(d is not None for d in made.values()):  # pragma: no cover - as above
+        ux, uy, us, uoff = _used_arrays(list(datasets), sa is not None)
+    else:
+        uoff = np.zeros(G + 1, dtype=np.intp)
+        uoff[1:] = np.cumsum(np.add.reduceat(used.astype(np.intp), starts) if G else [])
+        sel = order[used]
+        ux, uy, us = xa[sel], ya[sel], None if sa is None else sa[sel]
+    return Groups(
+        by=tuple(by),
+        keys=tuple(keys),
+        labels=labels,
+        positions=pos,
+        datasets=datasets,
+        errors=tuple(errs),
+        constants=({},) * G,
+        n_used=np.diff(uoff).astype(np.int64),
+        n_dropped=n_dropped,
+        used_x=ux,
+        used_y=uy,
+        used_sigma=us,
+        used_offsets=uoff,
     )

@@ -37,7 +37,7 @@ from .problem import (
 )
 from .single import fit
 
-__all__ = ["check_frame", "failed_part", "run_groups", "run_table"]
+__all__ = ["check_frame", "failed_part", "run_groups", "run_table", "unfittable_reasons"]
 
 
 #: Groups the vectorised engine advances together: bounds the (groups, points, parameters)
@@ -211,27 +211,18 @@ def run_groups(
 
     # ---------------------------------------------------------- settle each group's start
     frame_rows = _frame_lookup(req.frame, groups)
-    ready: list[int] = []
-    for g in range(G):
-        ds, err = groups.datasets[g], groups.errors[g]
-        if ds is None:
-            out.fail(g, str(err))
-            continue
-        why = _unfittable(m, ds, len(free))
-        if why:
-            out.fail(g, why)
-            continue
-        ready.append(g)
-    batched = _batched_starts(m, recs, groups, [g for g in ready if not frame_rows[g]])
+    why = unfittable_reasons(m, groups, len(free))
+    for g in np.flatnonzero(why != "").tolist():
+        out.fail(g, str(why[g]))
+    ready = np.flatnonzero(why == "")
+    own = np.array([bool(r) for r in frame_rows], dtype=bool) if req.frame is not None else None
+    plain = ready if own is None else ready[~own[ready]]
     col = [names.index(n) for n in free]
-    for g in ready:
+    got = _batched_starts(m, recs, groups, plain, starts)
+    started[got] = True
+    for g in ready[~started[ready]].tolist():
         ds = groups.datasets[g]
         assert ds is not None
-        got = batched.get(g)
-        if got is not None:
-            starts[g, col] = [got[n] for n in free]
-            started[g] = True
-            continue
         halt = stop_reason()  # a per-curve guided start of a Python function can be slow
         if halt:
             out.fail(g, f"not run: {halt}")
@@ -315,51 +306,35 @@ def _frame_lookup(frame: pd.DataFrame | None, groups: Groups) -> list[dict[str, 
     return out
 
 
-def _pad(
-    xs: Sequence[FloatArray], ys: Sequence[FloatArray]
-) -> tuple[FloatArray, FloatArray, NDArray[np.bool_]]:
-    """Ragged groups as (groups, points) arrays and the mask of real points."""
-    lens = np.array([a.size for a in xs], dtype=int)
-    n = int(lens.max()) if lens.size else 0
-    mask = np.arange(n)[None, :] < lens[:, None]
-    x = np.full((len(xs), n), np.nan)
-    y = np.full((len(xs), n), np.nan)
-    x[mask] = np.concatenate(xs) if xs else []
-    y[mask] = np.concatenate(ys) if ys else []
-    return x, y, mask
-
-
 def _batched_starts(
-    m: Model, recs: Parameters, groups: Groups, idx: list[int]
-) -> dict[int, dict[str, float]]:
-    """Guided starts of many groups at once (:func:`start_batch.guided_starts`).
+    m: Model, recs: Parameters, groups: Groups, idx: NDArray[np.intp], starts: FloatArray
+) -> NDArray[np.intp]:
+    """Guided starts of many groups at once (:func:`start_batch.guided_starts`), into ``starts``.
 
-    Used when no free parameter has a start from the user; a group the batched rule does not
-    serve is left out, and gets the per-curve guided start.
+    Used when no free parameter has a start from the user; returns the groups served. A group
+    the batched rule does not serve is left out, and gets the per-curve guided start.
     """
     free = recs.free
-    if not idx or any(not math.isnan(recs[n].value) for n in free):
-        return {}
+    if not idx.size or any(not math.isnan(recs[n].value) for n in free):
+        return np.zeros(0, dtype=np.intp)
     names = m.param_names
+    col = np.array([names.index(n) for n in free], dtype=np.intp)
     lower = np.array([recs[n].lower for n in names])
     upper = np.array([recs[n].upper for n in names])
-    out: dict[int, dict[str, float]] = {}
-    for a in range(0, len(idx), CHUNK):
+    served: list[NDArray[np.intp]] = []
+    for a in range(0, idx.size, CHUNK):
         chunk = idx[a : a + CHUNK]
-        dss = [groups.datasets[g] for g in chunk]
-        x, y, mask = _pad(
-            [d.x_used for d in dss if d is not None], [d.y_used for d in dss if d is not None]
-        )
+        x, y, _, mask = groups.padded(chunk)
         try:
             st, ok = guided_starts(
                 m, x, y, mask, fixed=recs.fixed or None, lower=lower, upper=upper
             )
         except CurvewrightError:
             continue
-        for k, g in enumerate(chunk):
-            if ok[k]:
-                out[g] = {n: float(st[k, j]) for j, n in enumerate(names) if n in free}
-    return out
+        done = chunk[ok]
+        starts[np.ix_(done, col)] = st[ok][:, col]
+        served.append(done)
+    return np.concatenate(served) if served else np.zeros(0, dtype=np.intp)
 
 
 def _group_records(m: Model, recs: Parameters, ds: Dataset, own: Mapping[str, float]) -> Parameters:
@@ -380,8 +355,55 @@ def _group_records(m: Model, recs: Parameters, ds: Dataset, own: Mapping[str, fl
     return r
 
 
+def unfittable_reasons(m: Model, groups: Groups, nfree: int) -> NDArray[np.object_]:
+    """Why each group cannot be fitted at all, before any solver runs ("" when it can).
+
+    Array operations over the groups' used points (:class:`~curvewright.data.Groups`), with
+    the words of :func:`_unfittable` (one group's reason from its Dataset), which tests check
+    it against: unreadable data, too few points, a constant response, x outside the domain.
+    """
+    G = len(groups)
+    out = np.full(G, "", dtype=object)
+    bad = np.array([e is not None for e in groups.errors], dtype=bool)
+    for g in np.flatnonzero(bad).tolist():
+        out[g] = str(groups.errors[g])
+    n = groups.n_used
+    few = ~bad & (n <= nfree)
+    for g in np.flatnonzero(few).tolist():
+        out[g] = (
+            f"too few points: {n[g]} used for {nfree} free parameter(s); a fit needs more points "
+            "than free parameters"
+        )
+    live = ~bad & ~few
+    off = groups.used_offsets
+    has = np.flatnonzero(n > 0)  # reduceat over the non-empty runs (empty ones lie between)
+    if nfree >= 2 and has.size:
+        lo = np.full(G, np.nan)
+        hi = np.full(G, np.nan)
+        lo[has] = np.minimum.reduceat(groups.used_y, off[has])
+        hi[has] = np.maximum.reduceat(groups.used_y, off[has])
+        flat = live & (hi == lo)
+        for g in np.flatnonzero(flat).tolist():
+            out[g] = (
+                f"constant response: every y is {groups.used_y[off[g]]:g}, so the curve's shape "
+                "is not determined"
+            )
+        live &= ~flat
+    if m.domain != "all" and has.size:
+        xs = groups.used_x
+        outside = (xs <= 0) if m.domain == "x>0" else (xs < 0)
+        k = np.zeros(G, dtype=np.int64)
+        k[has] = np.add.reduceat(outside.astype(np.int64), off[has])
+        for g in np.flatnonzero(live & (k > 0)).tolist():
+            try:  # the model's own message, on this group's points
+                m.check_domain(xs[off[g] : off[g + 1]])
+            except DataError as exc:
+                out[g] = str(exc)
+    return out
+
+
 def _unfittable(m: Model, ds: Dataset, nfree: int) -> str:
-    """Why a group cannot be fitted at all, before any solver runs ("" when it can)."""
+    """Why one group cannot be fitted at all ("" when it can): the per-group definition."""
     n = ds.n
     if n <= nfree:
         return (
@@ -576,45 +598,27 @@ def _run_vectorised(
     recs = req.parameters
     free = np.array([n in recs.free for n in names])
     fixed = recs.fixed
-    ws: list[FloatArray | None] = []
-    sizes: list[int] = []
-    take: list[int] = []
-    weighting = req.options["weights"]
-    for g in chunk:
-        ds = groups.datasets[g]
-        assert ds is not None
-        try:
-            _, w = point_weights(weighting, (ds,))
-        except CurvewrightError as exc:
-            out.fail(g, str(exc))
-            continue
-        take.append(g)
-        ws.append(w)
-        sizes.append(ds.n)
-    if not take:
+    take, sw = _chunk_weights(req.options["weights"], groups, np.asarray(chunk), out)
+    if not take.size:
         return [], []
-    # Groups without sigma among weighted ones keep weight 1 (what fit() gives each of them).
-    sws = (
-        None
-        if all(w is None for w in ws)
-        else [np.ones(n) if w is None else w for n, w in zip(sizes, ws, strict=True)]
-    )
+    x, y, _, mask = groups.padded(take, fill="first")
     st = starts[take].copy()
     for j, n in enumerate(names):
         if n in fixed:
             st[:, j] = fixed[n]
-    lower = np.array([recs[n].lower for n in names])
-    upper = np.array([recs[n].upper for n in names])
-    dss = [groups.datasets[g] for g in take]
-    prob = BatchProblem.from_groups(
-        m,
-        [d.x_used for d in dss if d is not None],
-        [d.y_used for d in dss if d is not None],
-        sws,
-        start=st,
+    K, P = st.shape
+    lower = np.array([recs[n].lower for n in names], dtype=float)
+    upper = np.array([recs[n].upper for n in names], dtype=float)
+    prob = BatchProblem(
+        model=m,
+        x=x,
+        y=y,
+        mask=mask,
+        sw=sw,
         free=free,
-        lower=lower,
-        upper=upper,
+        start=st,
+        lower=np.array(np.broadcast_to(lower, (K, P))),
+        upper=np.array(np.broadcast_to(upper, (K, P))),
     )
     max_ev = req.options["max_evaluations"]
     sol = solve_batch(
@@ -628,12 +632,12 @@ def _run_vectorised(
     for d in np.unique(stats.dof):
         q[stats.dof == d] = quantile(req.level, float(d), known_sigma=req.options["absolute_sigma"])
     dq = list(derived.values())
-    tk = np.array(take)
-    cancelled = ~sol.settled & np.array([r == "cancelled" for r in sol.reason], dtype=bool)
-    # A group settled at a degenerate point (singular or near-singular covariance, a standard
-    # error over DEGENERATE_SE times its value) is suspect, as in the single fit: it goes to
-    # the per-group fit, whose global search keeps a clearly lower minimum or reports the
-    # degenerate stop, so the batch row and batch[group] tell the same story.
+    tk = take
+    cancelled = ~sol.settled & (np.asarray(sol.reason, dtype=object) == "cancelled")
+    # A group settled at a degenerate point (singular or near-singular covariance, a parameter
+    # run off or undetermined, by the single fit's rule) is suspect, as in the single fit: it
+    # goes to the per-group fit, whose global search keeps a clearly lower minimum or reports
+    # the degenerate stop, so the batch row and batch[group] tell the same story.
     suspect = sol.settled & (
         stats.singular | stats.near_singular | _runaway(prob, sol.values, stats.stderr, free)
     )
@@ -645,7 +649,6 @@ def _run_vectorised(
     out.values[gi], out.stderr[gi] = v, se
     out.lower[gi], out.upper[gi] = v - qq * se, v + qq * se
     out.ssr[gi] = sol.ssr[good]
-    K = len(take)
     outside = np.zeros((K, len(dq)), dtype=bool)
     if dq:
         four = np.stack([np.stack([c.value, c.stderr, c.lower, c.upper], axis=-1) for c in dq], 1)
@@ -662,31 +665,104 @@ def _run_vectorised(
     )
     out.status[gi] = np.where(flagged[good], "flagged", "ok")
     out.path[gi] = "vectorised"
-    qnames = list(derived)
-    # Words only for the flagged groups: the findings named, as for a per-group fit.
-    for k in np.flatnonzero(good & flagged).tolist():
-        found: list[tuple[str, tuple[str, ...]]] = []
-        for code, arr in (("at_bound", stats.at_bound), ("not_identified", stats.not_identified)):
-            ps = tuple(n for j, n in enumerate(names) if arr[k, j])
-            if ps:
-                found.append((code, ps))
-        if stats.near_singular[k]:
-            found.append(("near_singular", ()))
-        if stats.high_correlation[k]:
-            found.append(("high_correlation", ()))
-        ext = tuple(qnames[j] for j in np.flatnonzero(outside[k]).tolist())
-        if ext:
-            found.append(("extrapolation", ext))
-        out.reason[tk[k]] = _findings_text(found)
-        out.flags[tk[k]] = tuple(c for c, _ in found)
+    # Words only for the flagged groups, once per pattern of findings (few patterns occur).
+    sel = np.flatnonzero(good & flagged)
+    pattern = np.concatenate(
+        [
+            stats.at_bound[sel],
+            stats.not_identified[sel],
+            stats.near_singular[sel, None],
+            stats.high_correlation[sel, None],
+            outside[sel],
+        ],
+        axis=1,
+    )
+    kinds, which = np.unique(pattern, axis=0, return_inverse=True)
+    texts = [_pattern_findings(row, names, list(derived)) for row in kinds]
+    reason = np.empty(len(kinds), dtype=object)
+    reason[:] = [t for t, _ in texts]
+    out.reason[tk[sel]] = reason[np.ravel(which)]
+    for g, w in zip(tk[sel].tolist(), np.ravel(which).tolist(), strict=True):
+        out.flags[g] = texts[w][1]
     return back, unrun
+
+
+def _chunk_weights(
+    weighting: str | None, groups: Groups, chunk: NDArray[np.intp], out: _Out
+) -> tuple[NDArray[np.intp], FloatArray | None]:
+    """The groups of ``chunk`` that :func:`point_weights` accepts and their padded ``1/sigma``.
+
+    Every group of a table has sigma or none has, so the weighting resolves alike for all;
+    a group it refuses (``y == 0`` with weights by y) is failed with :func:`point_weights`'s
+    own message.
+    """
+    s = groups.used_sigma
+    w = weighting or ("sigma" if s is not None else "none")
+    if w == "none":
+        return chunk, None
+    if w == "sigma" and s is None:
+        ds = groups.datasets[int(chunk[0])]
+        try:
+            point_weights(weighting, () if ds is None else (ds,))
+        except CurvewrightError as exc:
+            for g in chunk.tolist():
+                out.fail(g, str(exc))
+        return chunk[:0], None
+    if w != "sigma":
+        zero = np.zeros(len(groups), dtype=bool)
+        has = np.flatnonzero(groups.n_used > 0)
+        if has.size:
+            z = np.add.reduceat((groups.used_y == 0).astype(np.int64), groups.used_offsets[has])
+            zero[has] = z > 0
+        for g in chunk[zero[chunk]].tolist():
+            ds = groups.datasets[g]
+            try:
+                point_weights(weighting, () if ds is None else (ds,))
+            except CurvewrightError as exc:
+                out.fail(g, str(exc))
+        chunk = chunk[~zero[chunk]]
+    if not chunk.size:
+        return chunk, None
+    _, y, sig, mask = groups.padded(chunk, fill="first")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if w == "sigma":
+            assert sig is not None
+            sw = 1.0 / sig
+        elif w == "relative":
+            sw = 1.0 / np.abs(y)
+        else:
+            sw = 1.0 / np.sqrt(np.abs(y))
+    return chunk, np.where(mask, sw, 1.0)
+
+
+def _pattern_findings(
+    row: NDArray[np.bool_], names: Sequence[str], qnames: Sequence[str]
+) -> tuple[str, tuple[str, ...]]:
+    """The reason and flag codes of one pattern of findings (the columns of ``_run_vectorised``).
+
+    ``row`` holds at_bound (P), not_identified (P), near_singular, high_correlation and the
+    extrapolated quantities (D), in the order a per-group fit names them.
+    """
+    P = len(names)
+    found: list[tuple[str, tuple[str, ...]]] = []
+    for code, part in (("at_bound", row[:P]), ("not_identified", row[P : 2 * P])):
+        ps = tuple(n for j, n in enumerate(names) if part[j])
+        if ps:
+            found.append((code, ps))
+    if row[2 * P]:
+        found.append(("near_singular", ()))
+    if row[2 * P + 1]:
+        found.append(("high_correlation", ()))
+    ext = tuple(qnames[j] for j in np.flatnonzero(row[2 * P + 2 :]).tolist())
+    if ext:
+        found.append(("extrapolation", ext))
+    return _findings_text(found), tuple(c for c, _ in found)
 
 
 def _assemble(req: _Request, groups: Groups, out: _Out, starts: FloatArray) -> BatchResult:
     m = req.model
     datasets = groups.datasets
-    n_used = np.array([0 if d is None else d.n for d in datasets], dtype=np.int64)
-    n_dropped = np.array([0 if d is None else d.n_dropped for d in datasets], dtype=np.int64)
+    n_used, n_dropped = groups.n_used, groups.n_dropped
     batch = BatchResult(
         model=m,
         by=groups.by,
