@@ -199,8 +199,9 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.handles",
         "curvewright.start",
         "curvewright.catalog",
+        "curvewright.start_batch",
     ),
-    "result": ("curvewright.result", "curvewright.global_result"),
+    "result": ("curvewright.result", "curvewright.global_result", "curvewright.batch_result"),
     "fit": (
         "curvewright.fitting",
         "curvewright.fitting.problem",
@@ -208,6 +209,11 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.fitting.assemble",
         "curvewright.fitting.single",
         "curvewright.fitting.global_fit",
+        "curvewright.fitting.batch_kernel",
+        "curvewright.fitting.batch_engine",
+        "curvewright.fitting.batch_run",
+        "curvewright.fitting.batch",
+        "curvewright.fitting.batch_dask",
     ),
     "statistics": (
         "curvewright.stats",

@@ -10,6 +10,7 @@ from __future__ import annotations
 from typing import Any
 
 from ._version import __version__
+from .batch_result import BatchResult
 from .catalog import catalog, polynomial
 from .data import Dataset, make_dataset
 from .errors import (
@@ -17,6 +18,7 @@ from .errors import (
     CurvewrightError,
     CurvewrightWarning,
     DataError,
+    DependencyError,
     DomainError,
     ExtrapolationWarning,
     FitError,
@@ -26,7 +28,7 @@ from .errors import (
     ParameterError,
     RankDeficiencyWarning,
 )
-from .fitting import fit, fit_global
+from .fitting import fit, fit_global, fit_groups
 from .global_result import GlobalResult, GroupFit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
@@ -48,6 +50,8 @@ from .stats.diagnostics import residual_diagnostics
 from .thresholds import CAUTION
 
 __all__ = [
+    "BatchResult",
+    "fit_groups",
     "GlobalResult",
     "GroupFit",
     "fit_global",
@@ -58,6 +62,7 @@ __all__ = [
     "CurvewrightError",
     "CurvewrightWarning",
     "DataError",
+    "DependencyError",
     "Dataset",
     "Derived",
     "DomainError",

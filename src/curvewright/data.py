@@ -2,13 +2,15 @@
 
 A :class:`Dataset` is what a fit consumes. The fitting core takes a tuple of them so global fits
 across several datasets can share parameters later; today's ``fit`` passes one.
+:func:`split_groups` checks a long table and splits it into one Dataset per group (the input of
+``fit_global`` and ``fit_groups``).
 """
 
 from __future__ import annotations
 
 import difflib
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -17,7 +19,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from .errors import DataError
 
-__all__ = ["Dataset", "make_dataset"]
+__all__ = ["Dataset", "Groups", "group_label", "labels_of", "make_dataset", "split_groups"]
 
 FloatArray = NDArray[np.float64]
 BoolArray = NDArray[np.bool_]
@@ -157,7 +159,7 @@ class Dataset:
         return s1 is None or s2 is None or np.array_equal(s1, s2)
 
 
-def _column(data: pd.DataFrame, name: object, role: str) -> tuple[NDArray[Any], str]:
+def _column_name(data: pd.DataFrame, name: object, role: str) -> str:
     if not isinstance(name, str):
         raise DataError(f"{role} must name a column of data (a string), got {type(name).__name__}.")
     if name not in data.columns:
@@ -165,6 +167,11 @@ def _column(data: pd.DataFrame, name: object, role: str) -> tuple[NDArray[Any], 
         hint = difflib.get_close_matches(name, cols, n=1)
         did = f" Did you mean {hint[0]!r}?" if hint else ""
         raise DataError(f"{role}={name!r} is not a column of data; columns are {cols}.{did}")
+    return name
+
+
+def _column(data: pd.DataFrame, name: object, role: str) -> tuple[NDArray[Any], str]:
+    name = _column_name(data, name, role)
     col = data[name]
     if not (pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col)):
         sample = [v for v in col.tolist() if not _is_number(v)][:3]
@@ -331,7 +338,7 @@ def make_dataset(
         )
     notes: tuple[str, ...] = ()
     if nan.any():
-        notes = (f"{int(nan.sum())} row(s) with a missing (NaN) value were dropped.",)
+        notes = (_nan_note(int(nan.sum())),)
     if xk.size == 0:
         raise DataError("No finite observations are left after dropping NaN rows.")
     return Dataset(
@@ -349,8 +356,325 @@ def make_dataset(
     )
 
 
+def _nan_note(k: int) -> str:
+    return f"{k} row(s) with a missing (NaN) value were dropped."
+
+
 def as_datasets(datasets: Dataset | Sequence[Dataset]) -> tuple[Dataset, ...]:
     """Normalise one dataset or several to a tuple (the fitting core's input)."""
     if isinstance(datasets, Dataset):
         return (datasets,)
     return tuple(datasets)
+
+
+# ============================================================================ groups
+def group_label(key: object) -> str:
+    """The display label of a group key: the value itself, or ``"a / b"`` for several columns.
+
+    Parameters
+    ----------
+    key : object
+        A value of the ``by`` column, or a tuple of values when ``by`` names several columns.
+
+    Returns
+    -------
+    str
+    """
+    if isinstance(key, tuple):
+        return " / ".join(str(k) for k in key)
+    return str(key)
+
+
+def labels_of(keys: Sequence[object]) -> tuple[str, ...]:
+    """Display labels of group keys; distinct keys with the same text get ``#2``, ``#3``."""
+    out: list[str] = []
+    seen: set[str] = set()
+    for k in keys:
+        lab = group_label(k)
+        base, i = lab, 1
+        while lab in seen:
+            i += 1
+            lab = f"{base} #{i}"
+        out.append(lab)
+        seen.add(lab)
+    return tuple(out)
+
+
+@dataclass(frozen=True, eq=False)
+class Groups:
+    """A long table checked and split by its group columns (:func:`split_groups`).
+
+    Attributes
+    ----------
+    by : tuple of str
+        The grouping columns.
+    keys : tuple
+        Each group's key (a value of ``by``, or a tuple of values for several columns), sorted.
+    labels : tuple of str
+        Their display labels (:func:`labels_of`).
+    positions : tuple of ndarray of int
+        Each group's row positions in the table.
+    datasets : tuple of Dataset or None
+        Each group's observations; None where the group's data could not be read (with
+        ``errors="keep"``), its error then in ``errors``.
+    errors : tuple of DataError or None
+        Why a group's data could not be read (``errors="keep"`` only; the message is about
+        that group's rows, numbered within the group).
+    constants : tuple of dict
+        Each group's values of the ``constants`` columns.
+    """
+
+    by: tuple[str, ...]
+    keys: tuple[Any, ...]
+    labels: tuple[str, ...]
+    positions: tuple[NDArray[np.intp], ...]
+    datasets: tuple[Dataset | None, ...]
+    errors: tuple[DataError | None, ...]
+    constants: tuple[dict[str, float], ...]
+
+    def __len__(self) -> int:
+        return len(self.keys)
+
+
+def _plain_key(key: Any, several: bool) -> Any:
+    k = key if several else (key[0] if isinstance(key, tuple) else key)
+    if isinstance(k, tuple):
+        return tuple(v.item() if isinstance(v, np.generic) else v for v in k)
+    return k.item() if isinstance(k, np.generic) else k
+
+
+def _numeric_column(col: pd.Series) -> bool:
+    return bool(pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col))
+
+
+def split_groups(
+    data: Any,
+    x: str,
+    y: str,
+    by: Sequence[str],
+    *,
+    sigma: ArrayLike | str | None = None,
+    exclude: ArrayLike | None = None,
+    constants: Sequence[str] = (),
+    errors: str = "raise",
+    caller: str = "fit_global",
+) -> Groups:
+    """Check a long table (one row per observation) and split it into one Dataset per group.
+
+    Parameters
+    ----------
+    data : DataFrame
+        The table, with the x, y and group columns.
+    x, y : str
+        Column names of the observations.
+    by : sequence of str
+        Grouping column(s); every row needs a value in each.
+    sigma : str or array_like, optional
+        Column name (or one value per table row) of the standard deviation of each y.
+    exclude : array_like, optional
+        Rows to leave out: positions (0-based) or a boolean mask over the rows.
+    constants : sequence of str
+        Columns that must hold one finite number per group (read into ``Groups.constants``).
+    errors : {"raise", "keep"}
+        What a group whose data cannot be read does: ``"raise"`` raises its
+        :class:`~curvewright.errors.DataError` (naming the group); ``"keep"`` records it in
+        ``Groups.errors`` (dataset None) and goes on, and reads a column of mixed Python
+        objects group by group, so only the groups holding a non-number fail.
+    caller : str
+        The function named in the error about a table that is not a DataFrame.
+
+    Returns
+    -------
+    Groups
+
+    Raises
+    ------
+    DataError
+        Not a DataFrame, a missing column, a group column with a missing value, bad
+        ``exclude`` or ``sigma``, a constant that varies within a group, and (with
+        ``errors="raise"``) whatever :func:`make_dataset` refuses in a group.
+    """
+    if errors not in ("raise", "keep"):
+        raise ValueError(f"errors must be 'raise' or 'keep', got {errors!r}.")
+    if not isinstance(data, pd.DataFrame):
+        raise DataError(
+            f"{caller} needs data= as a pandas DataFrame holding the x, y and group columns; "
+            f"got {type(data).__name__}."
+        )
+    for role, names in (("by", by), ("constants", constants)):
+        for c in names:
+            if c not in data.columns:
+                cols = [str(k) for k in data.columns]
+                hint = difflib.get_close_matches(str(c), cols, n=1)
+                did = f" Did you mean {hint[0]!r}?" if hint else ""
+                raise DataError(
+                    f"{role}= names column {c!r}, which the table does not have; its columns "
+                    f"are {cols}.{did}"
+                )
+    for c in by:
+        miss = data[c].isna().to_numpy()
+        if miss.any():
+            rows = np.flatnonzero(miss)[:5].tolist()
+            raise DataError(
+                f"the group column {c!r} is empty (NaN) in rows {rows}: every row needs a group. "
+                "Fill those cells or drop the rows before fitting."
+            )
+    for role, col in (("x", x), ("y", y)):
+        if not isinstance(col, str):
+            raise DataError(
+                f"{role}= must be a column name of data= in a grouped fit, got "
+                f"{type(col).__name__}; put the values in the table."
+            )
+    if errors == "keep":
+        # A missing column is a mistake in the call, not in one group: say it once.
+        named: list[tuple[str, object]] = [("x", x), ("y", y), ("sigma", sigma)]
+        for role, name in named:
+            if isinstance(name, str):
+                _column_name(data, name, role)
+    n_rows = len(data)
+    mask = np.zeros(n_rows, dtype=bool)
+    if exclude is not None:
+        ex = np.asarray(exclude)
+        if ex.dtype == bool:
+            if ex.shape != (n_rows,):
+                raise DataError(
+                    f"exclude as a mask needs one value per table row ({n_rows}), got {ex.size}."
+                )
+            mask = ex.copy()
+        else:
+            try:
+                idx = ex.astype(int).ravel()
+            except (TypeError, ValueError) as exc:
+                raise DataError(
+                    "exclude must be row positions (integers) or a boolean mask."
+                ) from exc
+            if idx.size and (idx.min() < -n_rows or idx.max() >= n_rows):
+                raise DataError(f"exclude has row positions outside 0..{n_rows - 1}.")
+            mask[idx] = True
+    sig_col: str | None = None
+    sig_arr: FloatArray | None = None
+    if isinstance(sigma, str):
+        sig_col = sigma
+    elif sigma is not None:
+        sig_arr = np.asarray(sigma, dtype=float).ravel()
+        if sig_arr.size != n_rows:
+            raise DataError(
+                f"sigma needs one value per table row ({n_rows}), got {sig_arr.size}; or give "
+                "a column name."
+            )
+    # Numeric columns are read once as arrays and sliced per group (the same values and
+    # messages as reading each group's sub-table, without building thousands of sub-tables).
+    cols = [c for c in (x, y, sig_col) if c is not None]
+    whole: dict[str, FloatArray] = {}
+    if all(c in data.columns for c in cols) and all(_numeric_column(data[c]) for c in cols):
+        whole = {c: data[c].to_numpy(dtype=float, na_value=np.nan) for c in cols}
+    clean: BoolArray | None = None
+    if whole:
+        xa, ya = whole[x], whole[y]
+        sa = whole[sig_col] if sig_col is not None else sig_arr
+        nan_all = np.isnan(xa) | np.isnan(ya)
+        bad_all = np.isinf(xa) | np.isinf(ya)
+        if sa is not None:
+            nan_all |= np.isnan(sa)
+            with np.errstate(invalid="ignore"):
+                bad_all |= np.isinf(sa) | (sa <= 0)
+        # Rows make_dataset accepts as they are; a group with any other row goes through it.
+        clean = ~bad_all
+    grouped = data.groupby(list(by), sort=True, dropna=False).indices
+    several = len(by) > 1
+    keys = [_plain_key(k, several) for k in grouped]
+    labels = labels_of(keys)
+    datasets: list[Dataset | None] = []
+    errs: list[DataError | None] = []
+    consts: list[dict[str, float]] = []
+    positions: list[NDArray[np.intp]] = []
+    for pos, label in zip(grouped.values(), labels, strict=True):
+        positions.append(np.asarray(pos, dtype=np.intp))
+        sub = None if whole and not constants else data.iloc[pos].reset_index(drop=True)
+        cv: dict[str, float] = {}
+        for c in constants:
+            assert sub is not None
+            col = pd.to_numeric(sub[c], errors="coerce").to_numpy(dtype=float)
+            if not np.all(np.isfinite(col)):
+                raise DataError(
+                    f"constant column {c!r} is missing or not a finite number in group {label!r}; "
+                    "each group needs one numeric value there."
+                )
+            if np.any(col != col[0]):
+                raise DataError(
+                    f"constant column {c!r} varies within group {label!r} (values "
+                    f"{sorted(set(col.tolist()))[:5]}); a constant must be the same on every row "
+                    f"of a group. Add {c!r} to by= to split the group, or correct the table."
+                )
+            cv[c] = float(col[0])
+        ex_g = mask[pos] if exclude is not None else None
+        if clean is not None and clean[pos].all() and not nan_all[pos].all():
+            # The fast path: the Dataset make_dataset would build from these finite rows
+            # (tests/test_data.py checks they are the same), without its per-call checks.
+            nan = nan_all[pos]
+            keep = ~nan
+            row = np.flatnonzero(keep).astype(np.int64)
+            k = int(nan.sum())
+            datasets.append(
+                Dataset(
+                    x=_frozen(xa[pos][keep]),
+                    y=_frozen(ya[pos][keep]),
+                    include=_frozen(np.ones(row.size, dtype=bool) if ex_g is None else ~ex_g[row]),
+                    row=_frozen(row),
+                    sigma=None if sa is None else _frozen(sa[pos][keep]),
+                    n_dropped=k,
+                    n_input=len(pos),
+                    x_label=x,
+                    y_label=y,
+                    name=label,
+                    notes=(_nan_note(k),) if k else (),
+                )
+            )
+            errs.append(None)
+            consts.append(cv)
+            continue
+        try:
+            if whole:
+                ds = make_dataset(
+                    whole[x][pos],
+                    whole[y][pos],
+                    sigma=whole[sig_col][pos]
+                    if sig_col is not None
+                    else (None if sig_arr is None else sig_arr[pos]),
+                    exclude=ex_g,
+                    name=label,
+                )
+                ds = replace(ds, x_label=x, y_label=y)
+            else:
+                assert sub is not None
+                if errors == "keep":
+                    sub = sub.infer_objects()
+                ds = make_dataset(
+                    x,
+                    y,
+                    data=sub,
+                    sigma=sig_col
+                    if sig_col is not None
+                    else (None if sig_arr is None else sig_arr[pos]),
+                    exclude=ex_g,
+                    name=label,
+                )
+        except DataError as exc:
+            # The same error, saying which group (a DataError subclass stays itself).
+            if errors == "raise":
+                raise type(exc)(f"group {label!r}: {exc}") from exc
+            datasets.append(None)
+            errs.append(exc)
+        else:
+            datasets.append(ds)
+            errs.append(None)
+        consts.append(cv)
+    return Groups(
+        by=tuple(by),
+        keys=tuple(keys),
+        labels=labels,
+        positions=tuple(positions),
+        datasets=tuple(datasets),
+        errors=tuple(errs),
+        constants=tuple(consts),
+    )

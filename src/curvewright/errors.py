@@ -9,6 +9,7 @@ from __future__ import annotations
 __all__ = [
     "CurvewrightError",
     "DataError",
+    "DependencyError",
     "DomainError",
     "FitError",
     "FormulaError",
@@ -56,6 +57,10 @@ class HandleError(CurvewrightError, ValueError):
 
 class ComparisonError(CurvewrightError, ValueError):
     """Fits cannot be compared, e.g. they were made on different data or weights."""
+
+
+class DependencyError(CurvewrightError, ImportError):
+    """An optional dependency a feature needs is not installed; the message says how to add it."""
 
 
 class CurvewrightWarning(UserWarning):

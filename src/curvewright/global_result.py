@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from .data import group_label
 from .errors import CurvewrightError, ModelError, ParameterError
 from .expr import Expr
 from .models import Model
@@ -57,23 +58,6 @@ __all__ = ["GlobalResult", "GroupFit", "expanded_name", "group_label"]
 FloatArray = Any
 _FORMAT = "curvewright.GlobalResult"
 _VERSION = 1
-
-
-def group_label(key: object) -> str:
-    """The display label of a group key: the value itself, or ``"a / b"`` for several columns.
-
-    Parameters
-    ----------
-    key : object
-        A value of the ``by`` column, or a tuple of values when ``by`` names several columns.
-
-    Returns
-    -------
-    str
-    """
-    if isinstance(key, tuple):
-        return " / ".join(str(k) for k in key)
-    return str(key)
 
 
 def expanded_name(param: str, label: str) -> str:
@@ -760,16 +744,3 @@ def _options_from_json(d: Mapping[str, Any]) -> dict[str, Any]:
         else:
             out[k] = v
     return out
-
-
-def labels_of(keys: Sequence[object]) -> tuple[str, ...]:
-    """Display labels of group keys; distinct keys with the same text get ``#2``, ``#3``."""
-    out: list[str] = []
-    for k in keys:
-        lab = group_label(k)
-        base, i = lab, 1
-        while lab in out:
-            i += 1
-            lab = f"{base} #{i}"
-        out.append(lab)
-    return tuple(out)

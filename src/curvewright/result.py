@@ -555,7 +555,10 @@ class FitResult:
             # the symmetric delta-method interval could cross zero.
             base, name = base_param
             v, s = self.values[name], self.stderr[name]
-            lower, upper = base ** (v - q * s), base ** (v + q * s)
+            # numpy's power: a huge standard error gives an infinite bound, not OverflowError
+            with np.errstate(over="ignore"):
+                lower = float(np.power(base, v - q * s))
+                upper = float(np.power(base, v + q * s))
         return {
             "name": d.name,
             "value": value,

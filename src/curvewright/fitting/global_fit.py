@@ -24,10 +24,10 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
-from ..data import Dataset, make_dataset
+from ..data import Dataset, split_groups
 from ..errors import CurvewrightError, DataError, FitError, ParameterError
 from ..expr import Expr
-from ..global_result import GlobalResult, GroupFit, expanded_name, labels_of
+from ..global_result import GlobalResult, GroupFit, expanded_name
 from ..inference import delta_method_variance
 from ..messages import outcome
 from ..models import Model, as_number, unknown_name_message
@@ -227,110 +227,9 @@ def _split(
     sigma: ArrayLike | str | None,
     exclude: ArrayLike | None,
 ) -> _Groups:
-    if not isinstance(data, pd.DataFrame):
-        raise DataError(
-            "fit_global needs data= as a pandas DataFrame holding the x, y and group columns; "
-            f"got {type(data).__name__}."
-        )
-    for role, names in (("by", by), ("constants", constants)):
-        for c in names:
-            if c not in data.columns:
-                raise DataError(
-                    f"{role}= names column {c!r}, which the table does not have; its columns "
-                    f"are {[str(k) for k in data.columns]}."
-                )
-    for c in by:
-        miss = data[c].isna().to_numpy()
-        if miss.any():
-            rows = np.flatnonzero(miss)[:5].tolist()
-            raise DataError(
-                f"the group column {c!r} is empty (NaN) in rows {rows}: every row needs a group. "
-                "Fill those cells or drop the rows before fitting."
-            )
-    for role, col in (("x", x), ("y", y)):
-        if not isinstance(col, str):
-            raise DataError(
-                f"{role}= must be a column name of data= in a global fit, got "
-                f"{type(col).__name__}; put the values in the table."
-            )
-    n_rows = len(data)
-    mask = np.zeros(n_rows, dtype=bool)
-    if exclude is not None:
-        ex = np.asarray(exclude)
-        if ex.dtype == bool:
-            if ex.shape != (n_rows,):
-                raise DataError(
-                    f"exclude as a mask needs one value per table row ({n_rows}), got {ex.size}."
-                )
-            mask = ex.copy()
-        else:
-            try:
-                idx = ex.astype(int).ravel()
-            except (TypeError, ValueError) as exc:
-                raise DataError(
-                    "exclude must be row positions (integers) or a boolean mask."
-                ) from exc
-            if idx.size and (idx.min() < -n_rows or idx.max() >= n_rows):
-                raise DataError(f"exclude has row positions outside 0..{n_rows - 1}.")
-            mask[idx] = True
-    sig_col: str | None = None
-    sig_arr: FloatArray | None = None
-    if isinstance(sigma, str):
-        sig_col = sigma
-    elif sigma is not None:
-        sig_arr = np.asarray(sigma, dtype=float).ravel()
-        if sig_arr.size != n_rows:
-            raise DataError(
-                f"sigma needs one value per table row ({n_rows}), got {sig_arr.size}; or give "
-                "a column name."
-            )
-    grouped = data.groupby(list(by), sort=True, dropna=False).indices
-    keys: list[Any] = []
-    datasets: list[Dataset] = []
-    consts: list[dict[str, float]] = []
-    labels = labels_of(
-        [k if len(by) > 1 else (k[0] if isinstance(k, tuple) else k) for k in grouped]
-    )
-    for (key, pos), label in zip(grouped.items(), labels, strict=True):
-        k = key if len(by) > 1 else (key[0] if isinstance(key, tuple) else key)
-        if isinstance(k, tuple):
-            k = tuple(v.item() if isinstance(v, np.generic) else v for v in k)
-        elif isinstance(k, np.generic):
-            k = k.item()
-        sub = data.iloc[pos].reset_index(drop=True)
-        cv: dict[str, float] = {}
-        for c in constants:
-            col = pd.to_numeric(sub[c], errors="coerce").to_numpy(dtype=float)
-            if not np.all(np.isfinite(col)):
-                raise DataError(
-                    f"constant column {c!r} is missing or not a finite number in group {label!r}; "
-                    "each group needs one numeric value there."
-                )
-            if np.any(col != col[0]):
-                raise DataError(
-                    f"constant column {c!r} varies within group {label!r} (values "
-                    f"{sorted(set(col.tolist()))[:5]}); a constant must be the same on every row "
-                    f"of a group. Add {c!r} to by= to split the group, or correct the table."
-                )
-            cv[c] = float(col[0])
-        try:
-            ds = make_dataset(
-                x,
-                y,
-                data=sub,
-                sigma=sig_col
-                if sig_col is not None
-                else (None if sig_arr is None else sig_arr[pos]),
-                exclude=mask[pos] if exclude is not None else None,
-                name=label,
-            )
-        except DataError as exc:
-            # The same error, saying which group (a DataError subclass stays itself).
-            raise type(exc)(f"group {label!r}: {exc}") from exc
-        keys.append(k)
-        datasets.append(ds)
-        consts.append(cv)
-    return _Groups(tuple(keys), labels, tuple(datasets), tuple(consts))
+    g = split_groups(data, x, y, by, sigma=sigma, exclude=exclude, constants=constants)
+    datasets = tuple(d for d in g.datasets if d is not None)  # every one, errors="raise"
+    return _Groups(g.keys, g.labels, datasets, g.constants)
 
 
 def _per_group_start(

@@ -1,0 +1,697 @@
+"""The batch's work: fit every group of a split table (the local backend and each Dask task).
+
+:func:`run_groups` settles each group's start (the user's, else the batched guided start of
+:mod:`curvewright.start_batch`, else the per-curve one), then routes: formula models with the
+squared loss and no links to the vectorised engine (:mod:`.batch_engine`, a chunk of groups at
+once, statistics included); Python callables, robust losses, links, and groups the engine did
+not settle to :func:`fit` one group at a time, which has the fallback ladder. Every group ends
+with a status, a reason and its path; :func:`run_table` is the same on a table of whole groups.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from ..batch_result import BatchResult, register_group_fit, start_records
+from ..data import Dataset, Groups, labels_of, split_groups
+from ..errors import CurvewrightError, DataError, ParameterError
+from ..inference import quantile
+from ..models import Model
+from ..parameters import Parameters
+from ..result import FitResult
+from ..start import guided_start
+from ..start_batch import guided_starts
+from .batch_engine import BatchProblem, batch_derived, batch_statistics, solve_batch
+from .problem import (
+    FloatArray,
+    point_weights,
+)
+from .single import fit
+
+__all__ = ["check_frame", "failed_part", "run_groups", "run_table"]
+
+
+#: Groups the vectorised engine advances together: bounds the (groups, points, parameters)
+#: arrays of one chunk and sets how often cancel, the time limit and the progress bar are seen.
+CHUNK = 2048
+
+#: Findings that make a fitted group "flagged" (a person should look), as FitResult codes.
+FLAG_CODES = ("not_identified", "near_singular", "high_correlation", "at_bound", "extrapolation")
+
+
+# ============================================================================ the request
+@dataclass(frozen=True)
+class _Request:
+    """A validated batch request: what every group's fit is called with (picklable)."""
+
+    model: Model
+    parameters: Parameters  # shared settings; values: the common start, NaN where unset
+    frame: pd.DataFrame | None  # per-group starts, columns = free parameters
+    options: dict[str, Any]  # weights, loss, loss_scale, absolute_sigma, method, max_evaluations
+    level: float
+    x: str
+    y: str
+    by: tuple[str, ...]
+    sigma: str | None
+
+
+def check_frame(frame: pd.DataFrame, keys: Sequence[Any], labels: Sequence[str]) -> None:
+    """Refuse a start table with rows for groups that are not in the data.
+
+    Raises
+    ------
+    ParameterError
+        Rows whose index is neither a group key nor a label.
+    """
+    known = set(keys) | set(labels)
+    extra = [k for k in frame.index.tolist() if _plain(k) not in known]
+    if extra:
+        shown = list(labels[:10]) + (["..."] if len(labels) > 10 else [])
+        raise ParameterError(
+            f"start= has rows for groups {[str(e) for e in extra[:5]]} that are not in the data; "
+            f"the groups are {shown} (index the start table by group key or label, or give it "
+            "the by columns)."
+        )
+
+
+def _plain(k: Any) -> Any:
+    if isinstance(k, tuple):
+        return tuple(v.item() if isinstance(v, np.generic) else v for v in k)
+    return k.item() if isinstance(k, np.generic) else k
+
+
+# ============================================================================ running
+@dataclass
+class _Row:
+    """One group's outcome, as it goes into the result."""
+
+    status: str = "failed"
+    reason: str = ""
+    path: str = "none"
+    flags: tuple[str, ...] = ()
+    values: FloatArray | None = None
+    stderr: FloatArray | None = None
+    lower: FloatArray | None = None
+    upper: FloatArray | None = None
+    ssr: float = math.nan
+    derived: FloatArray | None = None
+    fit: FitResult | None = None
+
+
+_SINGULAR = "singular fit: the data cannot tell the parameters apart"
+
+
+class _Out:
+    """Every group's outcome as arrays over groups (what the result is made of)."""
+
+    def __init__(self, G: int, P: int, D: int) -> None:
+        self.status: NDArray[np.object_] = np.full(G, "failed", dtype=object)
+        self.reason: NDArray[np.object_] = np.full(G, "", dtype=object)
+        self.path: NDArray[np.object_] = np.full(G, "none", dtype=object)
+        self.flags: list[tuple[str, ...]] = [()] * G
+        self.values = np.full((G, P), np.nan)
+        self.stderr = np.full((G, P), np.nan)
+        self.lower = np.full((G, P), np.nan)
+        self.upper = np.full((G, P), np.nan)
+        self.ssr = np.full(G, np.nan)
+        self.derived = np.full((G, D, 4), np.nan)
+        self.fits: dict[int, FitResult] = {}
+
+    def fail(
+        self,
+        g: int,
+        reason: str,
+        *,
+        path: str = "none",
+        flags: tuple[str, ...] = (),
+        fit: FitResult | None = None,
+    ) -> None:
+        """Group ``g`` is failed for ``reason`` (no numbers in its row)."""
+        self.status[g], self.reason[g], self.path[g], self.flags[g] = "failed", reason, path, flags
+        if fit is not None:
+            self.fits[g] = fit
+
+    def put(self, g: int, row: _Row) -> None:
+        """Group ``g``'s outcome from a per-group fit."""
+        if row.status == "failed":
+            self.fail(g, row.reason, path=row.path, flags=row.flags, fit=row.fit)
+            return
+        self.status[g], self.reason[g], self.path[g], self.flags[g] = (
+            row.status,
+            row.reason,
+            row.path,
+            row.flags,
+        )
+        for name in ("values", "stderr", "lower", "upper", "derived"):
+            v = getattr(row, name)
+            if v is not None:
+                getattr(self, name)[g] = v
+        self.ssr[g] = row.ssr
+        if row.fit is not None:
+            self.fits[g] = row.fit
+
+
+def run_table(
+    req: _Request,
+    table: pd.DataFrame,
+    *,
+    exclude_col: str | None = None,
+    sigma_col: str | None = None,
+    deadline: float | None = None,
+) -> BatchResult:
+    """Split a table of whole groups and fit them (one Dask task runs this on its partition)."""
+    ex = None if exclude_col is None else table[exclude_col].to_numpy(dtype=bool)
+    groups = split_groups(
+        table,
+        req.x,
+        req.y,
+        req.by,
+        sigma=sigma_col or req.sigma,
+        exclude=ex,
+        errors="keep",
+        caller="fit_groups",
+    )
+    return run_groups(req, groups, deadline=deadline, cancel=None, tick=None)
+
+
+def run_groups(
+    req: _Request,
+    groups: Groups,
+    *,
+    deadline: float | None,
+    cancel: Callable[[], bool] | None,
+    tick: Callable[[int], Any] | None,
+) -> BatchResult:
+    """Fit every group of ``groups`` (the local backend; also each Dask task's work)."""
+    m = req.model
+    names = m.param_names
+    P = len(names)
+    G = len(groups)
+    recs = req.parameters
+    free = recs.free
+    out = _Out(G, P, len(m.derived))
+    starts = np.full((G, P), np.nan)
+    started = np.zeros(G, dtype=bool)  # the group has its start and goes on to a fit
+
+    def stop_reason() -> str | None:
+        if cancel is not None and cancel():
+            return "cancelled"
+        if deadline is not None and time.time() >= deadline:
+            return "timed out"
+        return None
+
+    # ---------------------------------------------------------- settle each group's start
+    frame_rows = _frame_lookup(req.frame, groups)
+    ready: list[int] = []
+    for g in range(G):
+        ds, err = groups.datasets[g], groups.errors[g]
+        if ds is None:
+            out.fail(g, str(err))
+            continue
+        why = _unfittable(m, ds, len(free))
+        if why:
+            out.fail(g, why)
+            continue
+        ready.append(g)
+    batched = _batched_starts(m, recs, groups, [g for g in ready if not frame_rows[g]])
+    col = [names.index(n) for n in free]
+    for g in ready:
+        ds = groups.datasets[g]
+        assert ds is not None
+        got = batched.get(g)
+        if got is not None:
+            starts[g, col] = [got[n] for n in free]
+            started[g] = True
+            continue
+        halt = stop_reason()  # a per-curve guided start of a Python function can be slow
+        if halt:
+            out.fail(g, f"not run: {halt}")
+            continue
+        try:
+            r = _group_records(m, recs, ds, frame_rows[g])
+        except CurvewrightError as exc:
+            out.fail(g, str(exc))
+            continue
+        except Exception as exc:  # a model function raising in the guided start
+            out.fail(g, f"the model raised {type(exc).__name__}: {exc}")
+            continue
+        starts[g, col] = [r[n].value for n in free]
+        started[g] = True
+
+    # ---------------------------------------------------------- route
+    vector = (
+        m.expr is not None
+        and m._value_and_gradient is not None
+        and req.options["loss"] == "squared"
+        and not recs.links
+    )
+    todo = np.flatnonzero(started).tolist()
+    finished = set(range(G)) - set(todo)
+    if tick is not None:
+        tick(len(finished))
+    stopped: str | None = None
+    queue: list[int] = []  # groups for the per-group fit
+    if vector:
+        for a in range(0, len(todo), CHUNK):
+            stopped = stop_reason()
+            if stopped:
+                break
+            chunk = todo[a : a + CHUNK]
+            try:
+                back, unrun = _run_vectorised(req, groups, chunk, starts, out, stop_reason)
+            except Exception:  # pragma: no cover - an engine bug must not stop the batch
+                back, unrun = chunk, []
+            queue += back
+            fin = set(chunk) - set(back) - set(unrun)
+            finished |= fin
+            if tick is not None:
+                tick(len(fin))
+    else:
+        queue = todo
+    for g in queue:
+        stopped = stopped or stop_reason()
+        if stopped:
+            break
+        out.put(
+            g,
+            _run_one(
+                req, groups.datasets[g], start_records(recs, names, starts[g]), deadline, cancel
+            ),
+        )
+        finished.add(g)
+        if tick is not None:
+            tick(1)
+    for g in todo:
+        if g not in finished:
+            out.fail(g, f"not run: {stopped or stop_reason() or 'cancelled'}")
+    return _assemble(req, groups, out, starts)
+
+
+def _frame_lookup(frame: pd.DataFrame | None, groups: Groups) -> list[dict[str, float]]:
+    out: list[dict[str, float]] = [{} for _ in range(len(groups))]
+    if frame is None:
+        return out
+    where: dict[Any, int] = {}
+    for i, (k, lab) in enumerate(zip(groups.keys, groups.labels, strict=True)):
+        where[k] = i
+        where.setdefault(lab, i)
+    for idx, row in zip(frame.index.tolist(), frame.to_numpy(dtype=float), strict=True):
+        at = where.get(_plain(idx))
+        if at is not None:
+            out[at] = {
+                str(c): float(v)
+                for c, v in zip(frame.columns, row, strict=True)
+                if not math.isnan(v)
+            }
+    return out
+
+
+def _pad(
+    xs: Sequence[FloatArray], ys: Sequence[FloatArray]
+) -> tuple[FloatArray, FloatArray, NDArray[np.bool_]]:
+    """Ragged groups as (groups, points) arrays and the mask of real points."""
+    lens = np.array([a.size for a in xs], dtype=int)
+    n = int(lens.max()) if lens.size else 0
+    mask = np.arange(n)[None, :] < lens[:, None]
+    x = np.full((len(xs), n), np.nan)
+    y = np.full((len(xs), n), np.nan)
+    x[mask] = np.concatenate(xs) if xs else []
+    y[mask] = np.concatenate(ys) if ys else []
+    return x, y, mask
+
+
+def _batched_starts(
+    m: Model, recs: Parameters, groups: Groups, idx: list[int]
+) -> dict[int, dict[str, float]]:
+    """Guided starts of many groups at once (:func:`start_batch.guided_starts`).
+
+    Used when no free parameter has a start from the user; a group the batched rule does not
+    serve is left out, and gets the per-curve guided start.
+    """
+    free = recs.free
+    if not idx or any(not math.isnan(recs[n].value) for n in free):
+        return {}
+    names = m.param_names
+    lower = np.array([recs[n].lower for n in names])
+    upper = np.array([recs[n].upper for n in names])
+    out: dict[int, dict[str, float]] = {}
+    for a in range(0, len(idx), CHUNK):
+        chunk = idx[a : a + CHUNK]
+        dss = [groups.datasets[g] for g in chunk]
+        x, y, mask = _pad(
+            [d.x_used for d in dss if d is not None], [d.y_used for d in dss if d is not None]
+        )
+        try:
+            st, ok = guided_starts(
+                m, x, y, mask, fixed=recs.fixed or None, lower=lower, upper=upper
+            )
+        except CurvewrightError:
+            continue
+        for k, g in enumerate(chunk):
+            if ok[k]:
+                out[g] = {n: float(st[k, j]) for j, n in enumerate(names) if n in free}
+    return out
+
+
+def _group_records(m: Model, recs: Parameters, ds: Dataset, own: Mapping[str, float]) -> Parameters:
+    """A group's records with every free start settled: its own, the common one, else guided.
+
+    The guided start is :func:`fit`'s (``guided_start`` given the fixed values and the user's
+    starts, moved inside the bounds by the one rule), so the group's fit from these records is
+    the fit it would have had from its guided start, less the note of a move.
+    """
+    r = recs.with_values(own).validated(m, allow_unset=True)
+    unset = [n for n in r.free if math.isnan(r[n].value)]
+    if not unset:
+        return r
+    given = {n: r[n].value for n in r.free if n not in unset}
+    guess = guided_start(m, ds.x_used, ds.y_used, fixed={**r.fixed, **given})
+    r = r.with_values({n: guess[n] for n in unset})
+    r, _ = r.inside_bounds(only=unset)
+    return r
+
+
+def _unfittable(m: Model, ds: Dataset, nfree: int) -> str:
+    """Why a group cannot be fitted at all, before any solver runs ("" when it can)."""
+    n = ds.n
+    if n <= nfree:
+        return (
+            f"too few points: {n} used for {nfree} free parameter(s); a fit needs more points "
+            "than free parameters"
+        )
+    yu = ds.y_used
+    if nfree >= 2 and n and float(np.ptp(yu)) == 0.0:
+        return f"constant response: every y is {yu[0]:g}, so the curve's shape is not determined"
+    try:
+        m.check_domain(ds.x_used)
+    except DataError as exc:
+        return str(exc)
+    return ""
+
+
+def _run_one(
+    req: _Request,
+    ds: Dataset | None,
+    records: Parameters,
+    deadline: float | None,
+    cancel: Callable[[], bool] | None,
+) -> _Row:
+    """One group by :func:`fit` (the per-group path); any error becomes the group's reason."""
+    assert ds is not None
+    timeout = None if deadline is None else max(deadline - time.time(), 1e-3)
+    try:
+        r = _fit_group(req.model, ds, records, req.options, timeout=timeout, cancel=cancel)
+    except CurvewrightError as exc:
+        return _Row(reason=str(exc), path="per-group")
+    except Exception as exc:  # a model function that raises something of its own
+        return _Row(reason=f"the model raised {type(exc).__name__}: {exc}", path="per-group")
+    try:
+        return _row_of_fit(r, req.level)
+    except Exception as exc:  # pragma: no cover - a bug in the statistics, said plainly
+        return _Row(
+            reason=f"computing its statistics failed ({type(exc).__name__}: {exc})",
+            path="per-group",
+            fit=r,
+        )
+
+
+def _fit_group(
+    m: Model,
+    ds: Dataset,
+    records: Parameters,
+    options: Mapping[str, Any],
+    *,
+    timeout: float | None = None,
+    cancel: Callable[[], bool] | None = None,
+) -> FitResult:
+    return fit(
+        m,
+        dataset=ds,
+        params=records,
+        weights=options["weights"],
+        loss=options["loss"],
+        loss_scale=options["loss_scale"],
+        absolute_sigma=options["absolute_sigma"],
+        method=options["method"],
+        max_evaluations=options["max_evaluations"],
+        timeout=timeout,
+        cancel=cancel,
+    )
+
+
+def _findings_text(found: Sequence[tuple[str, tuple[str, ...]]]) -> str:
+    words = {
+        "not_identified": "not identified",
+        "near_singular": "nearly singular covariance",
+        "high_correlation": "highly correlated",
+        "at_bound": "at a bound",
+        "extrapolation": "extrapolated",
+        "singular": "singular covariance",
+    }
+    parts: dict[str, list[str]] = {}
+    for code, ps in found:
+        parts.setdefault(code, [])
+        parts[code] += [p for p in ps if p not in parts[code]]
+    return "; ".join(
+        words.get(c, c)
+        + (f": {', '.join(ps)}" if ps and c != "singular" and c != "near_singular" else "")
+        for c, ps in parts.items()
+    )
+
+
+def _row_of_fit(r: FitResult, level: float) -> _Row:
+    names = r.model.param_names
+    if r.code == "cancelled":
+        return _Row(reason="stopped: cancelled", path="per-group", fit=r)
+    if r.code == "stopped_time":
+        return _Row(reason="stopped: timed out", path="per-group", fit=r)
+    if not r.success:
+        return _Row(reason=f"did not converge: {r.message}", path="per-group", fit=r)
+    if any(d.code == "singular" for d in r.diagnostics):
+        return _Row(
+            reason=_SINGULAR,
+            path="per-group",
+            flags=("singular",),
+            fit=r,
+        )
+    found = [
+        (d.code, (str(d.extra["quantity"]),) if d.code == "extrapolation" else d.params)
+        for d in r.diagnostics
+        if d.code in FLAG_CODES
+    ]
+    ci = r.ci(level)
+    dv = r.derived(level)
+    return _Row(
+        status="flagged" if found else "ok",
+        reason=_findings_text(found),
+        path="per-group",
+        flags=tuple(dict.fromkeys(c for c, _ in found)),
+        values=np.array([r.values[n] for n in names]),
+        stderr=np.array([r.stderr[n] for n in names]),
+        lower=ci["lower"].to_numpy(dtype=float),
+        upper=ci["upper"].to_numpy(dtype=float),
+        ssr=r.ssr,
+        derived=dv[["value", "stderr", "lower", "upper"]].to_numpy(dtype=float)
+        if len(dv)
+        else np.zeros((0, 4)),
+        fit=r,
+    )
+
+
+def _run_vectorised(
+    req: _Request,
+    groups: Groups,
+    chunk: list[int],
+    starts: FloatArray,
+    out: _Out,
+    stop_reason: Callable[[], str | None],
+) -> tuple[list[int], list[int]]:
+    """Fit ``chunk`` with the batch engine.
+
+    Returns the groups it did not settle (for the per-group fit) and those it was stopped on.
+    """
+    m = req.model
+    names = m.param_names
+    recs = req.parameters
+    free = np.array([n in recs.free for n in names])
+    fixed = recs.fixed
+    ws: list[FloatArray | None] = []
+    sizes: list[int] = []
+    take: list[int] = []
+    weighting = req.options["weights"]
+    for g in chunk:
+        ds = groups.datasets[g]
+        assert ds is not None
+        try:
+            _, w = point_weights(weighting, (ds,))
+        except CurvewrightError as exc:
+            out.fail(g, str(exc))
+            continue
+        take.append(g)
+        ws.append(w)
+        sizes.append(ds.n)
+    if not take:
+        return [], []
+    # Groups without sigma among weighted ones keep weight 1 (what fit() gives each of them).
+    sws = (
+        None
+        if all(w is None for w in ws)
+        else [np.ones(n) if w is None else w for n, w in zip(sizes, ws, strict=True)]
+    )
+    st = starts[take].copy()
+    for j, n in enumerate(names):
+        if n in fixed:
+            st[:, j] = fixed[n]
+    lower = np.array([recs[n].lower for n in names])
+    upper = np.array([recs[n].upper for n in names])
+    dss = [groups.datasets[g] for g in take]
+    prob = BatchProblem.from_groups(
+        m,
+        [d.x_used for d in dss if d is not None],
+        [d.y_used for d in dss if d is not None],
+        sws,
+        start=st,
+        free=free,
+        lower=lower,
+        upper=upper,
+    )
+    max_ev = req.options["max_evaluations"]
+    sol = solve_batch(
+        prob,
+        max_iterations=200 if max_ev is None else max(1, min(200, int(max_ev) - 1)),
+        cancel=lambda: stop_reason() is not None,
+    )
+    stats = batch_statistics(prob, sol, absolute_sigma=req.options["absolute_sigma"])
+    derived = batch_derived(prob, sol, stats, req.level)
+    q = np.empty(len(take))
+    for d in np.unique(stats.dof):
+        q[stats.dof == d] = quantile(req.level, float(d), known_sigma=req.options["absolute_sigma"])
+    dq = list(derived.values())
+    tk = np.array(take)
+    cancelled = ~sol.settled & np.array([r == "cancelled" for r in sol.reason], dtype=bool)
+    back = tk[~sol.settled & ~cancelled].tolist()  # to the per-group fit, with its ladder
+    unrun = tk[cancelled].tolist()  # reported as not run by the caller
+    for g in tk[sol.settled & stats.singular].tolist():
+        out.fail(g, _SINGULAR, path="vectorised", flags=("singular",))
+    good = sol.settled & ~stats.singular
+    gi = tk[good]
+    v, se, qq = sol.values[good], stats.stderr[good], q[good][:, None]
+    out.values[gi], out.stderr[gi] = v, se
+    out.lower[gi], out.upper[gi] = v - qq * se, v + qq * se
+    out.ssr[gi] = sol.ssr[good]
+    K = len(take)
+    outside = np.zeros((K, len(dq)), dtype=bool)
+    if dq:
+        four = np.stack([np.stack([c.value, c.stderr, c.lower, c.upper], axis=-1) for c in dq], 1)
+        out.derived[gi] = four[good]
+        for j, c in enumerate(dq):
+            if c.in_data_range is not None:
+                outside[:, j] = ~c.in_data_range
+    flagged = (
+        stats.at_bound.any(axis=1)
+        | stats.not_identified.any(axis=1)
+        | stats.near_singular
+        | stats.high_correlation
+        | outside.any(axis=1)
+    )
+    out.status[gi] = np.where(flagged[good], "flagged", "ok")
+    out.path[gi] = "vectorised"
+    qnames = list(derived)
+    # Words only for the flagged groups: the findings named, as for a per-group fit.
+    for k in np.flatnonzero(good & flagged).tolist():
+        found: list[tuple[str, tuple[str, ...]]] = []
+        for code, arr in (("at_bound", stats.at_bound), ("not_identified", stats.not_identified)):
+            ps = tuple(n for j, n in enumerate(names) if arr[k, j])
+            if ps:
+                found.append((code, ps))
+        if stats.near_singular[k]:
+            found.append(("near_singular", ()))
+        if stats.high_correlation[k]:
+            found.append(("high_correlation", ()))
+        ext = tuple(qnames[j] for j in np.flatnonzero(outside[k]).tolist())
+        if ext:
+            found.append(("extrapolation", ext))
+        out.reason[tk[k]] = _findings_text(found)
+        out.flags[tk[k]] = tuple(c for c, _ in found)
+    return back, unrun
+
+
+def _assemble(req: _Request, groups: Groups, out: _Out, starts: FloatArray) -> BatchResult:
+    m = req.model
+    datasets = groups.datasets
+    n_used = np.array([0 if d is None else d.n for d in datasets], dtype=np.int64)
+    n_dropped = np.array([0 if d is None else d.n_dropped for d in datasets], dtype=np.int64)
+    batch = BatchResult(
+        model=m,
+        by=groups.by,
+        keys=groups.keys,
+        labels=groups.labels,
+        level=req.level,
+        value_array=out.values,
+        stderr_array=out.stderr,
+        lower_array=out.lower,
+        upper_array=out.upper,
+        ssr_array=out.ssr,
+        n_used=n_used,
+        n_dropped=n_dropped,
+        statuses=tuple(str(v) for v in out.status),
+        reasons=tuple(str(v) for v in out.reason),
+        paths=tuple(str(v) for v in out.path),
+        flags=tuple(out.flags),
+        derived_names=tuple(d.name for d in m.derived),
+        derived_array=out.derived,
+        starts=starts,
+        datasets=datasets,
+        parameters=req.parameters,
+        options=req.options,
+    )
+    batch._fits.update(out.fits)
+    return batch
+
+
+def _group_fit(batch: BatchResult, i: int) -> FitResult:
+    """``batch[group]``: :func:`fit` on the group's data from its start, with the options."""
+    ds = batch.datasets[i]
+    assert ds is not None
+    return _fit_group(batch.model, ds, batch.group_parameters(i), batch.options)
+
+
+register_group_fit(_group_fit)
+
+
+def failed_part(req: _Request, keys: Sequence[Any], reason: str) -> BatchResult:
+    """A batch part whose groups all failed with one reason (e.g. a Dask task that raised)."""
+    m = req.model
+    G, P, D = len(keys), len(m.param_names), len(m.derived)
+    return BatchResult(
+        model=m,
+        by=req.by,
+        keys=tuple(keys),
+        labels=labels_of(list(keys)),
+        level=req.level,
+        value_array=np.full((G, P), np.nan),
+        stderr_array=np.full((G, P), np.nan),
+        lower_array=np.full((G, P), np.nan),
+        upper_array=np.full((G, P), np.nan),
+        ssr_array=np.full(G, np.nan),
+        n_used=np.zeros(G, dtype=np.int64),
+        n_dropped=np.zeros(G, dtype=np.int64),
+        statuses=("failed",) * G,
+        reasons=(reason,) * G,
+        paths=("none",) * G,
+        flags=((),) * G,
+        derived_names=tuple(d.name for d in m.derived),
+        derived_array=np.full((G, D, 4), np.nan),
+        starts=np.full((G, P), np.nan),
+        datasets=(None,) * G,
+        parameters=req.parameters,
+        options=req.options,
+    )

@@ -1,0 +1,444 @@
+"""Tests of the batch engine (fitting/batch_engine.py, fitting/batch_kernel.py).
+
+Outside references: scipy.optimize.least_squares (MINPACK's Levenberg-Marquardt, ``method="lm"``,
+and the trust-region reflective method with bounds, ``method="trf"``) run group by group on the
+same data from the same start, and statsmodels WLS for the straight line and the polynomials
+(standard errors of a linear model). The single fit ``curvewright.fit`` is the other yardstick:
+the batch must reach its answer, since both claim to minimise the same sum of squares. Data are
+seeded synthetic groups of every catalog model (the designs of tests/test_catalog.py, each group
+with its own true values, noise, ragged subset of points and start). Iterative results are
+compared to the accuracy the solvers promise: the sum of squares to 1e-6 relative (never worse
+than the reference), values to 1e-6 relative plus 1e-4 standard errors where identified.
+Nothing here is timed.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+import zlib
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import pytest
+import scipy.optimize
+import statsmodels.api as sm
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import curvewright as cw
+from curvewright.catalog import catalog
+from curvewright.errors import ModelError
+from curvewright.fitting.batch_engine import (
+    BatchProblem,
+    BatchSolution,
+    batch_derived,
+    batch_statistics,
+    solve_batch,
+)
+from curvewright.fitting.batch_kernel import available
+from curvewright.models import Model
+from curvewright.thresholds import NOT_IDENTIFIED_RSE
+from test_catalog import CASES, EXTRA_CASES, Case
+
+FloatArray = np.ndarray[Any, np.dtype[np.float64]]
+ALL_CASES: dict[str, tuple[str, Case]] = {k: (k, c) for k, c in CASES.items()}
+ALL_CASES.update(EXTRA_CASES)
+KERNELS = ["numpy", "compiled"]
+# The compiled kernel costs numba a compile per model (seconds, cached on disk after the first
+# run); the families it is checked on cover bounds, zero-dose controls and peaks.
+COMPILED_FAMILIES = ("inhibition_4pl", "exponential_decay", "gaussian_peak", "michaelis_menten")
+
+
+def _kernel_ok(kernel: str) -> None:
+    if kernel == "compiled" and not available():  # pragma: no cover - numba is a dependency
+        pytest.fail("numba is a dependency of curvewright and must be importable")
+
+
+# ----------------------------------------------------------------------------- synthetic data
+def _groups(
+    label: str, g: int, *, weighted: bool, spread: float = 0.05, start_spread: float = 0.03
+) -> tuple[Model, list[FloatArray], list[FloatArray], list[FloatArray] | None, FloatArray]:
+    """``g`` seeded groups of one catalog case: ragged x, y, optional 1/sigma, and starts."""
+    name, case = ALL_CASES[label]
+    m = catalog()[name]
+    rng = np.random.default_rng(zlib.crc32(label.encode()) + (1 if weighted else 0))
+    names = m.param_names
+    lo = np.array([p.lower for p in m.params])
+    hi = np.array([p.upper for p in m.params])
+    truth = np.array([case.truth[n] for n in names])
+    tr = np.clip(truth * (1 + spread * rng.normal(size=(g, len(names)))), lo, hi)
+    xs, ys, sws = [], [], []
+    for t in tr:
+        k = int(rng.integers(max(len(names) + 3, case.x.size - 5), case.x.size + 1))
+        x = np.sort(rng.choice(case.x, size=k, replace=False))
+        f = np.asarray(m.func(x, *t))
+        sd = 0.03 * (np.ptp(np.asarray(m.func(case.x, *t))) + 1e-9)
+        sig = sd * rng.uniform(0.5, 2.0, k) if weighted else np.full(k, sd)
+        xs.append(x)
+        ys.append(f + rng.normal(0.0, 1.0, k) * sig)
+        sws.append(1.0 / sig)
+    start = np.clip(tr * (1 + start_spread * rng.normal(size=tr.shape)), lo, hi)
+    return m, xs, ys, (sws if weighted else None), start
+
+
+def _single(
+    m: Model,
+    x: FloatArray,
+    y: FloatArray,
+    sw: FloatArray | None,
+    start: FloatArray,
+    **kw: Any,
+) -> cw.FitResult:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return cw.fit(
+            m,
+            x,
+            y,
+            sigma=None if sw is None else 1.0 / sw,
+            start=dict(zip(m.param_names, start.tolist(), strict=True)),
+            **kw,
+        )
+
+
+def _identified(r: cw.FitResult) -> bool:
+    bad = {"not_identified", "singular", "near_singular", "at_bound", "not_converged"}
+    return r.success and not any(d.code in bad for d in r.diagnostics)
+
+
+def _check_against_single(
+    m: Model,
+    sol: BatchSolution,
+    i: int,
+    r: cw.FitResult,
+) -> None:
+    """The batch's group ``i`` reached the single fit's minimum (sum of squares, values)."""
+    assert sol.settled[i], sol.reason[i]
+    assert sol.ssr[i] <= r.ssr * (1 + 1e-6) + 1e-300, (i, sol.ssr[i], r.ssr)
+    if _identified(r):
+        ref = np.array([r.values[n] for n in m.param_names])
+        se = np.array([r.stderr[n] for n in m.param_names])
+        tol = 1e-6 * np.abs(ref) + 1e-4 * np.nan_to_num(se, nan=0.0)
+        assert np.all(np.abs(sol.values[i] - ref) <= tol), (i, sol.values[i], ref)
+
+
+# ----------------------------------------------------------------- the same answer as fit()
+@pytest.mark.slow
+@pytest.mark.parametrize("label", sorted(ALL_CASES))
+def test_every_catalog_family_reaches_the_single_fits_minimum(label: str) -> None:
+    # 80 groups per case x 25 cases = 2000 groups; half the cases weighted by 1/sigma.
+    weighted = zlib.crc32(label.encode()) % 2 == 1
+    m, xs, ys, sws, start = _groups(label, 80, weighted=weighted)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob, kernel="numpy")
+    for i in range(prob.groups):
+        r = _single(m, xs[i], ys[i], None if sws is None else sws[i], start[i])
+        _check_against_single(m, sol, i, r)
+
+
+@pytest.mark.parametrize("kernel", KERNELS)
+@pytest.mark.parametrize("label", COMPILED_FAMILIES)
+def test_both_kernels_reach_the_single_fits_minimum(label: str, kernel: str) -> None:
+    _kernel_ok(kernel)
+    m, xs, ys, sws, start = _groups(label, 60, weighted=True)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob, kernel=kernel)  # type: ignore[arg-type]
+    for i in range(prob.groups):
+        _check_against_single(
+            m, sol, i, _single(m, xs[i], ys[i], sws[i] if sws else None, start[i])
+        )
+
+
+@pytest.mark.parametrize("label", COMPILED_FAMILIES)
+def test_the_compiled_kernel_runs_the_numpy_algorithm(label: str) -> None:
+    # The same steps in two implementations: the same minimum to far below the tolerances
+    # (rounding differs: scalar code against numpy's vectorised functions).
+    _kernel_ok("compiled")
+    m, xs, ys, sws, start = _groups(label, 200, weighted=False)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    a = solve_batch(prob, kernel="numpy")
+    b = solve_batch(prob, kernel="compiled")
+    assert np.array_equal(a.settled, b.settled)
+    np.testing.assert_allclose(b.ssr, a.ssr, rtol=1e-9)
+    st_ = batch_statistics(prob, a)
+    se = np.nan_to_num(st_.stderr, nan=0.0)
+    assert np.all(np.abs(b.values - a.values) <= 1e-7 * np.abs(a.values) + 1e-4 * se)
+
+
+@pytest.mark.parametrize("label", ["inhibition_4pl", "exponential_rise", "boltzmann", "hill"])
+def test_sum_of_squares_never_worse_than_scipy_minpack(label: str) -> None:
+    # Reference: scipy.optimize.least_squares(method="lm") (MINPACK lmdif, its own differences)
+    # from the same start; these cases' minima lie inside the bounds, so the unbounded
+    # reference applies.
+    m, xs, ys, sws, start = _groups(label, 60, weighted=False)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob)
+    for i in range(prob.groups):
+        x, y = xs[i], ys[i]
+
+        def resid(p: FloatArray, x: FloatArray = x, y: FloatArray = y) -> FloatArray:
+            return np.asarray(m.func(x, *p)) - y
+
+        with np.errstate(all="ignore"):
+            ref = scipy.optimize.least_squares(resid, start[i], method="lm", xtol=1e-15, ftol=1e-15)
+        ssr_ref = float(ref.fun @ ref.fun)
+        assert sol.settled[i]
+        assert sol.ssr[i] <= ssr_ref * (1 + 1e-6), (i, sol.ssr[i], ssr_ref)
+
+
+# ------------------------------------------------------------------- bounds, fixed, weights
+@pytest.mark.parametrize("kernel", KERNELS)
+def test_a_minimum_on_a_bound_is_reached_on_the_bound(kernel: str) -> None:
+    # Exponential decay whose baseline is held above its true value: the constrained minimum
+    # lies on that bound. References: scipy least_squares(method="trf") with the same bounds,
+    # and the single fit (whose polish for this case is that bounded method).
+    _kernel_ok(kernel)
+    m, xs, ys, _, start = _groups("exponential_decay", 40, weighted=False)
+    names = m.param_names
+    ib = names.index("baseline")
+    lower = np.array([p.lower for p in m.params])[None, :].repeat(40, axis=0)
+    upper = np.array([p.upper for p in m.params])[None, :].repeat(40, axis=0)
+    # three units above the start (itself within 3% of the true baseline): the data want it lower
+    lower[:, ib] = start[:, ib] + 3.0
+    start = start.copy()
+    start[:, ib] = lower[:, ib] + 1.0
+    prob = BatchProblem.from_groups(m, xs, ys, None, start=start, lower=lower, upper=upper)
+    sol = solve_batch(prob, kernel=kernel)  # type: ignore[arg-type]
+    stats = batch_statistics(prob, sol)
+    for i in range(40):
+        x, y = xs[i], ys[i]
+
+        def resid(p: FloatArray, x: FloatArray = x, y: FloatArray = y) -> FloatArray:
+            return np.asarray(m.func(x, *p)) - y
+
+        ref = scipy.optimize.least_squares(
+            resid, start[i], bounds=(lower[i], upper[i]), method="trf", xtol=1e-15, ftol=1e-15
+        )
+        assert sol.settled[i], sol.reason[i]
+        assert sol.values[i, ib] == lower[i, ib]  # exactly on it
+        assert stats.at_lower[i, ib] and stats.at_bound[i, ib]
+        assert sol.ssr[i] <= float(ref.fun @ ref.fun) * (1 + 1e-6)
+        bounds = {n: (float(lower[i, j]), float(upper[i, j])) for j, n in enumerate(names)}
+        r = _single(m, x, y, None, start[i], bounds=bounds)
+        assert sol.ssr[i] <= r.ssr * (1 + 1e-6)
+        assert any(d.code == "at_bound" for d in r.diagnostics)
+
+
+@pytest.mark.parametrize("kernel", KERNELS)
+def test_fixed_parameters_are_held_and_match_the_single_fit(kernel: str) -> None:
+    _kernel_ok(kernel)
+    m, xs, ys, sws, start = _groups("inhibition_4pl", 50, weighted=True)
+    names = m.param_names
+    free = np.array([n != "n_h" for n in names])
+    start = start.copy()
+    start[:, names.index("n_h")] = 1.0
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start, free=free)
+    sol = solve_batch(prob, kernel=kernel)  # type: ignore[arg-type]
+    stats = batch_statistics(prob, sol)
+    assert np.all(sol.values[:, names.index("n_h")] == 1.0)
+    assert np.all(np.isnan(stats.stderr[:, names.index("n_h")]))
+    assert np.all(np.isnan(stats.covariance[:, names.index("n_h"), :]))
+    assert np.all(stats.dof == prob.n - 3)
+    for i in range(50):
+        assert sws is not None
+        r = _single(m, xs[i], ys[i], sws[i], start[i], fixed=["n_h"])
+        _check_against_single(m, sol, i, r)
+
+
+# ------------------------------------------------------------------------------- statistics
+@pytest.mark.parametrize("absolute_sigma", [False, True])
+@pytest.mark.parametrize("label", ["inhibition_4pl", "exponential_decay", "michaelis_menten"])
+def test_statistics_and_derived_match_the_single_fit(label: str, absolute_sigma: bool) -> None:
+    m, xs, ys, sws, start = _groups(label, 30, weighted=True)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob)
+    stats = batch_statistics(prob, sol, absolute_sigma=absolute_sigma)
+    der = batch_derived(prob, sol, stats, level=0.9)
+    names = m.param_names
+    for i in range(prob.groups):
+        assert sws is not None
+        r = _single(m, xs[i], ys[i], sws[i], start[i], absolute_sigma=absolute_sigma)
+        if not _identified(r):
+            continue
+        se = np.array([r.stderr[n] for n in names])
+        np.testing.assert_allclose(stats.stderr[i], se, rtol=1e-6)
+        np.testing.assert_allclose(
+            stats.covariance[i], r.covariance, rtol=1e-6, atol=1e-12 * se.max() ** 2
+        )
+        assert stats.dof[i] == r.dof
+        assert stats.condition[i] == pytest.approx(r.condition, rel=1e-5)
+        ref = r.derived(0.9)
+        for q, cols in der.items():
+            for col in ("value", "stderr", "lower", "upper"):
+                assert getattr(cols, col)[i] == pytest.approx(float(ref.loc[q, col]), rel=1e-6), (
+                    q,
+                    col,
+                )
+            if ref.loc[q, "in_data_range"] is not None:
+                assert cols.in_data_range is not None
+                assert bool(cols.in_data_range[i]) == bool(ref.loc[q, "in_data_range"])
+        flagged = {d.params[0] for d in r.diagnostics if d.code == "not_identified"}
+        assert {n for j, n in enumerate(names) if stats.not_identified[i, j]} == flagged
+
+
+@pytest.mark.parametrize("label", ["straight_line", "polynomial_2", "polynomial_3"])
+def test_linear_models_match_statsmodels_wls(label: str) -> None:
+    # Reference: statsmodels WLS on the design [1, x, x**2, ...] with weights 1/sigma**2.
+    m, xs, ys, sws, start = _groups(label, 40, weighted=True)
+    assert sws is not None
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob)
+    stats = batch_statistics(prob, sol)
+    for i in range(prob.groups):
+        k = len(m.param_names)
+        design = np.vander(xs[i], k, increasing=True)
+        ref = sm.WLS(ys[i], design, weights=sws[i] ** 2).fit()
+        np.testing.assert_allclose(
+            sol.values[i], ref.params, rtol=1e-6, atol=1e-9 * np.abs(ref.params).max()
+        )
+        np.testing.assert_allclose(stats.stderr[i], ref.bse, rtol=1e-6)
+        assert sol.ssr[i] == pytest.approx(float(ref.ssr), rel=1e-9)
+
+
+def test_flags_follow_the_thresholds() -> None:
+    m, xs, ys, sws, start = _groups("inhibition_4pl", 40, weighted=False)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob)
+    stats = batch_statistics(prob, sol)
+    rse = stats.stderr / np.abs(sol.values)
+    assert np.array_equal(stats.not_identified, rse > NOT_IDENTIFIED_RSE)
+    for i in range(prob.groups):
+        c = stats.covariance[i]
+        d = np.sqrt(np.diag(c))
+        corr = c / np.outer(d, d)
+        off = np.abs(corr[~np.eye(len(d), dtype=bool)])
+        assert stats.max_correlation[i] == pytest.approx(off.max(), rel=1e-12)
+
+
+# --------------------------------------------------------------------- groups that fail alone
+def test_a_bad_group_gets_a_reason_and_the_others_are_fitted() -> None:
+    m = catalog()["power_law"]  # a * x**b: NaN at negative x for a fractional b
+    rng = np.random.default_rng(5)
+    x = np.geomspace(0.1, 100, 12)
+    ys = [3.0 * x**0.7 + rng.normal(0, 0.1, x.size) for _ in range(4)]
+    xs = [x, -x, x, x[:2]]
+    ys[3] = ys[3][:2]
+    start = np.array([[3.0, 0.7], [3.0, 0.7], [3.0, -0.5], [3.0, 0.7]])
+    lower = np.array([[-np.inf, -np.inf]] * 3 + [[-np.inf, -np.inf]])
+    upper = np.array([[np.inf, np.inf], [np.inf, np.inf], [np.inf, -1.0], [np.inf, np.inf]])
+    prob = BatchProblem.from_groups(m, xs, ys, None, start=start, lower=lower, upper=upper)
+    for kernel in KERNELS:
+        sol = solve_batch(prob, kernel=kernel)  # type: ignore[arg-type]
+        assert sol.settled.tolist() == [True, False, False, False]
+        assert sol.reason[0] == ""
+        assert sol.reason[1] == "non-finite model values at the start"
+        assert sol.reason[2] == "start outside the bounds or not finite"
+        assert sol.reason[3] == "no more points than free parameters"
+        assert sol.values[0] == pytest.approx([3.0, 0.7], rel=0.05)
+
+
+@pytest.mark.parametrize("kernel", KERNELS)
+def test_iteration_limit_and_cancel_are_reasons(kernel: str) -> None:
+    _kernel_ok(kernel)
+    m, xs, ys, sws, start = _groups("inhibition_4pl", 20, weighted=False, start_spread=0.2)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob, max_iterations=1, kernel=kernel)  # type: ignore[arg-type]
+    assert not sol.settled.any()
+    assert set(sol.reason) == {"iteration limit"}
+    assert np.all(sol.iterations == 1)
+    stopped = solve_batch(prob, cancel=lambda: True, kernel=kernel)  # type: ignore[arg-type]
+    assert set(stopped.reason) == {"cancelled"} and not stopped.settled.any()
+
+
+def test_a_callable_model_is_refused_with_our_error() -> None:
+    m = Model.from_callable(lambda x, a, b: a * x + b)
+    with pytest.raises(ModelError, match="formula model"):
+        BatchProblem.from_groups(m, [np.arange(5.0)], [np.arange(5.0)])
+
+
+# ---------------------------------------------------------------- padding and bookkeeping
+_M4 = catalog()["inhibition_4pl"]
+_XS, _YS, _SWS, _S = _groups("inhibition_4pl", 12, weighted=True)[1:]
+
+
+def _solve_all(prob: BatchProblem, kernel: str) -> BatchSolution:
+    return solve_batch(prob, kernel=kernel)  # type: ignore[arg-type]
+
+
+@settings(max_examples=25)
+@given(
+    fill=st.sampled_from([np.nan, np.inf, -np.inf, 0.0, -1e300, 1e300, 7.0]),
+    seed=st.integers(0, 2**32 - 1),
+    kernel=st.sampled_from(KERNELS),
+)
+def test_padding_values_never_change_the_answer(fill: float, seed: int, kernel: str) -> None:
+    # Whatever the padded cells hold (even NaN or inf), every group's answer is identical.
+    base = BatchProblem.from_groups(_M4, _XS, _YS, _SWS, start=_S)
+    rng = np.random.default_rng(seed)
+    pad = ~base.mask
+    noise = rng.normal(size=base.x.shape) * 1e3
+    x = np.where(pad, fill if seed % 2 else noise, base.x)
+    y = np.where(pad, noise if seed % 2 else fill, base.y)
+    assert base.sw is not None
+    sw = np.where(pad, fill, base.sw)
+    other = BatchProblem(
+        model=_M4, x=x, y=y, mask=base.mask, sw=sw, free=base.free,
+        start=base.start, lower=base.lower, upper=base.upper,
+    )  # fmt: skip
+    a, b = _solve_all(base, kernel), _solve_all(other, kernel)
+    assert np.array_equal(a.values, b.values)
+    assert np.array_equal(a.ssr, b.ssr)
+    assert a.reason == b.reason
+
+
+@settings(max_examples=20)
+@given(
+    order=st.permutations(list(range(12))),
+    extra=st.integers(0, 9),
+    kernel=st.sampled_from(KERNELS),
+)
+def test_group_order_and_padding_width_do_not_matter(
+    order: list[int], extra: int, kernel: str
+) -> None:
+    # Groups are independent: reordering them, or padding all to a wider array, gives each
+    # the same answer, to the solver's accuracy (a reduction over a longer row may round
+    # differently, and the run then stops at another point within its tolerances).
+    base = _solve_all(BatchProblem.from_groups(_M4, _XS, _YS, _SWS, start=_S), kernel)
+    xs = [_XS[i] for i in order]
+    ys = [_YS[i] for i in order]
+    sws = [_SWS[i] for i in order] if _SWS is not None else None
+    prob = BatchProblem.from_groups(_M4, xs, ys, sws, start=_S[order])
+    if extra:
+        n = prob.x.shape[1] + extra
+        grow: Callable[[FloatArray, float], FloatArray] = lambda a, v: np.pad(  # noqa: E731
+            a, ((0, 0), (0, extra)), constant_values=v
+        )
+        assert prob.sw is not None
+        prob = BatchProblem(
+            model=_M4, x=grow(prob.x, 1.0), y=grow(prob.y, 0.0),
+            mask=np.pad(prob.mask, ((0, 0), (0, extra))), sw=grow(prob.sw, 1.0),
+            free=prob.free, start=prob.start, lower=prob.lower, upper=prob.upper,
+        )  # fmt: skip
+        assert prob.x.shape[1] == n
+    sol = _solve_all(prob, kernel)
+    np.testing.assert_allclose(sol.values, base.values[order], rtol=1e-6)
+    np.testing.assert_allclose(sol.ssr, base.ssr[order], rtol=1e-10)
+    assert list(sol.settled) == list(base.settled[order])
+
+
+@settings(max_examples=30)
+@given(sizes=st.lists(st.integers(0, 9), min_size=1, max_size=6))
+def test_from_groups_pads_ragged_groups(sizes: list[int]) -> None:
+    m = catalog()["straight_line"]
+    xs = [np.arange(float(k)) + 1.0 for k in sizes]
+    ys = [2.0 * x for x in xs]
+    prob = BatchProblem.from_groups(m, xs, ys, [np.ones(k) for k in sizes])
+    assert prob.x.shape == (len(sizes), max(sizes))
+    assert prob.n.tolist() == sizes
+    for i, k in enumerate(sizes):
+        assert np.array_equal(prob.x[i, :k], xs[i]) and np.array_equal(prob.y[i, :k], ys[i])
+        assert not prob.mask[i, k:].any()
+    assert prob.start.shape == prob.lower.shape == (len(sizes), 2)
+    assert np.all(np.isinf(prob.lower)) and math.isinf(float(prob.upper.max()))
