@@ -211,7 +211,16 @@ class BatchResult:
         put(self, "options", MappingProxyType(dict(self.options)))
         put(self, "edited", tuple(bool(e) for e in self.edited) or (False,) * g)
         put(self, "notes", tuple(str(t) for t in self.notes) or ("",) * g)
-        for name in ("labels", "statuses", "reasons", "paths", "flags", "datasets", "edited", "notes"):
+        for name in (
+            "labels",
+            "statuses",
+            "reasons",
+            "paths",
+            "flags",
+            "datasets",
+            "edited",
+            "notes",
+        ):
             if len(getattr(self, name)) != g:
                 raise ValueError(
                     f"BatchResult: {name} has {len(getattr(self, name))} entries, not {g}."
