@@ -103,6 +103,8 @@ import { atFitted, type GroupsJson, groupStyle, legendEntries, otherCurves, poin
 import { GroupLegend } from "./legend";
 import { bandViews, bandsDrawn, DEGREE_COLUMNS, degreeCaption, degreeLabel, degreeRows, degreeSuggestion } from "./judge";
 import { ParamPanel } from "./panel";
+import { readReview, readReviewState } from "./review";
+import { ReviewPanel } from "./review-panel";
 import { ParamsError, byName, readParams, toList } from "./params";
 import { type CurveSource, type GroupCurveView, Plot } from "./plot";
 import {
@@ -260,6 +262,39 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   });
   root.insertBefore(groupLegend.el, legend);
   let groups: GroupsJson | null = null;
+
+  // Review of a batch (CurveBench(batch)): overview, filter, table and Accept at the top; each
+  // control asks Python (review_open, review_filter, review_accept) and the panel is redrawn
+  // from review_json / review_state.
+  const reviewPanel = new ReviewPanel({
+    onOpen: (label) => send(model, { type: "review_open", label }),
+    onFilter: (filter) => send(model, { type: "review_filter", filter }),
+    onAccept: () => send(model, { type: "review_accept" }),
+  });
+  root.insertBefore(reviewPanel.el, toolbar);
+  (root as unknown as { _cwReview: ReviewPanel })._cwReview = reviewPanel;
+  let reviewOpen: string | null = null;
+  function drawReview(): void {
+    const st = readReviewState(model.get("review_state"));
+    reviewPanel.show(readReview(model.get("review_json")), st);
+    root.dataset["cwReviewOpen"] = st.open ?? "";
+    if (st.open !== reviewOpen) {
+      // Another group in the main plot: its own view, not the last group's zoom.
+      const first = reviewOpen === null;
+      reviewOpen = st.open;
+      if (!first) loadData(true);
+    }
+  }
+  let reviewWidth = 0;
+  const reviewResize = new ResizeObserver(() => {
+    const w = reviewPanel.el.clientWidth;
+    if (w !== reviewWidth && !reviewPanel.el.hidden) {
+      reviewWidth = w;
+      reviewPanel.drawOverview();
+    }
+  });
+  reviewResize.observe(root);
+  cleanups.push(() => reviewResize.disconnect());
   // The selected group is hidden: its points, curves and handles are not drawn.
   let selectedHidden = false;
   let otherKey = "";
@@ -999,6 +1034,8 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     drawCurrent();
   });
   listen("change:groups_json", drawGroups);
+  listen("change:review_json", drawReview);
+  listen("change:review_state", drawReview);
   listen("change:excluded", () => {
     loadData(false);
   });
@@ -1055,6 +1092,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   loadModel(false);
   showStatus();
   showError();
+  drawReview();
 
   return () => {
     for (const c of cleanups.reverse()) c();

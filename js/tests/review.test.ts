@@ -21,6 +21,7 @@ const grp = (label: string, status: ReviewGroup["status"], values: Record<string
   status,
   reason: status === "ok" ? "" : "why",
   edited: false,
+  note: "",
   x: [1, 10, 100],
   y: [90, 50, 10],
   cx: [1, 10, 100],
