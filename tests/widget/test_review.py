@@ -167,7 +167,10 @@ def test_accept_writes_the_refit_into_the_batch_as_the_batch_would(batch: BatchR
     res = w.fit()
     assert res is not None and res.success
     assert w.review_state["can_accept"] is True
+    seen: list[str] = []
+    w.observe(lambda c: seen.append(c["new"]["groups"][5]["status"]), "review_json")
     out = w.review_accept()
+    assert seen == [batch.statuses[5]]  # the page is told (a trait change, not a mutation)
     assert out is batch
     i = batch.index_of("W5")
     # The batch's own rule for the same group from the same start: fit_groups on it alone.

@@ -94,8 +94,9 @@ def review_json(
     batch: BatchResult, x_scale: _state.Scale, entries: list[dict[str, Any]] | None = None
 ) -> dict[str, Any]:
     """The ``review_json`` trait; ``entries`` (the groups, if already built) are reused."""
+    # A new list each time: a trait sees a change only when the new value differs from the old.
     groups = (
-        entries
+        list(entries)
         if entries is not None
         else [group_entry(batch, i, x_scale) for i in range(len(batch))]
     )
