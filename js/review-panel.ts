@@ -49,6 +49,8 @@ export class ReviewPanel {
   private sort: { key: SortKey; ascending: boolean } = { key: "label", ascending: true };
   private shown: number[] = [];
   private layout: GridLayout | null = null;
+  private tableOf: ReviewJson | null = null;
+  private tableKey = "";
   /** Milliseconds the last overview draw took (read by the frame benchmark). */
   lastDrawMs = 0;
 
@@ -159,7 +161,18 @@ export class ReviewPanel {
     this.el.dataset["cwReviewOpen"] = state.open ?? "";
     this.el.dataset["cwReviewShown"] = String(this.shown.length);
     this.drawOverview();
-    this.drawTable();
+    // The table is rebuilt when its rows change; opening another group only moves the marker.
+    const key = `${state.filter}`;
+    if (review !== this.tableOf || key !== this.tableKey) {
+      this.tableOf = review;
+      this.tableKey = key;
+      this.drawTable();
+    } else {
+      for (const tr of this.table.querySelectorAll<HTMLTableRowElement>("tr[data-group]")) {
+        if (tr.dataset["group"] === state.open) tr.setAttribute("aria-current", "true");
+        else tr.removeAttribute("aria-current");
+      }
+    }
   }
 
   /** Redraw the small multiples at the panel's width (also on resize). */

@@ -179,9 +179,15 @@ class CurveBench(anywidget.AnyWidget):
 
     Parameters
     ----------
-    data : DataFrame or mapping, optional
+    data : DataFrame, mapping or BatchResult, optional
         A table holding the columns named by ``x`` and ``y``. Arrays may be given instead as
-        ``CurveBench(x_values, y_values, model=...)`` or with ``x=``/``y=``.
+        ``CurveBench(x_values, y_values, model=...)`` or with ``x=``/``y=``. A
+        :class:`~curvewright.BatchResult` (``CurveBench(batch)``, as ``batch.review()``)
+        opens the review of the batch: an overview of every group coloured by status, a
+        filter, a sortable table, and one group at a time in the main plot to guide, refit
+        and accept into the batch (:meth:`review_open`, :meth:`review_filter`,
+        :meth:`review_accept`, :attr:`batch`). Then only ``models``, ``x_scale``,
+        ``y_scale`` and ``fit_options`` may be given.
     x, y : str or array_like
         Column names of ``data``, or the observations themselves.
     model : Model, str or callable
@@ -294,7 +300,7 @@ class CurveBench(anywidget.AnyWidget):
 
     def __init__(
         self,
-        data: pd.DataFrame | Mapping[str, Any] | ArrayLike | None = None,
+        data: pd.DataFrame | Mapping[str, Any] | BatchResult | ArrayLike | None = None,
         x: str | ArrayLike | None = None,
         y: str | ArrayLike | None = None,
         *,
@@ -333,8 +339,8 @@ class CurveBench(anywidget.AnyWidget):
                     "fit_options=)."
                 )
             batch = data
-            first = _first_to_open(batch)
-            if first is None:
+            opened = _first_to_open(batch)
+            if opened is None:
                 raise DataError(
                     "this batch has no group with readable data to open; see batch.reason."
                 )
@@ -343,9 +349,9 @@ class CurveBench(anywidget.AnyWidget):
                 batch=batch,
                 x_scale=xs_batch,
                 entries=[_review.group_entry(batch, i, xs_batch) for i in range(len(batch))],
-                opened=first,
+                opened=opened,
             )
-            ds0 = batch.datasets[first]
+            ds0 = batch.datasets[opened]
             assert ds0 is not None
             model = batch.model
             fit_options = {**dict(batch.options), **dict(fit_options or {})}
@@ -1239,7 +1245,7 @@ class CurveBench(anywidget.AnyWidget):
                 note = content.get("note")
                 self.review_accept(None if note is None else str(note))
             elif kind == "review_filter":
-                self.review_filter(content.get("filter"))  # type: ignore[arg-type]
+                self.review_filter(content.get("filter"))
             elif kind == "dismiss":
                 self.error = ""
             elif kind == "use_degree":
