@@ -805,7 +805,7 @@ def combine(parts: Sequence[BatchResult]) -> BatchResult:
     def join(name: str) -> tuple[Any, ...]:
         return tuple(v for p in parts for v in getattr(p, name))
 
-    return BatchResult(
+    out = BatchResult(
         model=first.model,
         by=first.by,
         keys=keys,
@@ -831,3 +831,10 @@ def combine(parts: Sequence[BatchResult]) -> BatchResult:
         edited=join("edited"),
         notes=join("notes"),
     )
+    # The parts' fits come along (a replaced group's refit is not made again from its start).
+    offset = 0
+    for p in parts:
+        for i, f in p._fits.items():
+            out._fits[offset + i] = f
+        offset += len(p)
+    return out

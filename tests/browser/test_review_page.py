@@ -189,3 +189,5 @@ def test_filter_open_drag_refit_accept_reach_the_batch(
     _wait_review(page, root, "data-cw-review-filter", "all")
     assert row5.get_attribute("data-edited") == "true"
     assert "edited: refitted in review" in row5.inner_text()
+    harness.ARTIFACTS.mkdir(exist_ok=True)
+    root.screenshot(path=str(harness.ARTIFACTS / f"review-{server.app}.png"))

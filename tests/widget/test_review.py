@@ -285,3 +285,19 @@ def test_the_widget_refuses_what_a_review_cannot_take(batch: BatchResult) -> Non
     with pytest.raises(cw.FitError, match="did not converge"):
         w.review_accept()
     assert not any(batch.edited)
+
+
+def test_take_and_combine_keep_the_edits_and_the_refits(batch: BatchResult) -> None:
+    from curvewright.batch_result import combine
+
+    w = batch.review()
+    for name, v in GOOD_START.items():
+        w.set_param(name, value=v)
+    res = w.fit()
+    w.review_accept(note="new start by hand")
+    i = batch.index_of("W5")
+    part = batch.take([i, 0])
+    assert part.edited == (True, False) and part.notes == ("new start by hand", "")
+    assert part["W5"] is res
+    joined = combine([batch.take([0]), batch.take([i])])
+    assert joined.edited == (False, True) and joined["W5"] is res
