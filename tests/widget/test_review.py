@@ -301,3 +301,17 @@ def test_take_and_combine_keep_the_edits_and_the_refits(batch: BatchResult) -> N
     assert part["W5"] is res
     joined = combine([batch.take([0]), batch.take([i])])
     assert joined.edited == (False, True) and joined["W5"] is res
+
+
+def test_a_snapshot_belongs_to_its_group(batch: BatchResult) -> None:
+    w = batch.review()
+    w.set_param("n_h", value=2.0)
+    snap = w.snapshot()
+    assert snap["review_group"] == "W5"
+    w.review_open("W2")
+    with pytest.raises(cw.DataError, match="review_open\\('W5'\\)"):
+        w.restore(snap)
+    assert w.values["n_h"] == pytest.approx(batch.values.loc["W2", "n_h"])
+    w.review_open("W5")
+    w.restore(snap)
+    assert w.values["n_h"] == 2.0

@@ -1005,6 +1005,8 @@ class CurveBench(anywidget.AnyWidget):
             "show_residuals": bool(self.show_residuals),
             "n_input": int(self._ds.n_input),
             "groups": self._groups_snapshot(),
+            # Made on a batch: the group the state belongs to (restore needs that group open).
+            "review_group": self.review_group,
         }
 
     def _groups_snapshot(self) -> dict[str, Any] | None:
@@ -1091,6 +1093,12 @@ class CurveBench(anywidget.AnyWidget):
             raise DataError(
                 f"The snapshot was taken on data with {n_input} rows; this widget holds "
                 f"{self._ds.n_input}. Restore it on the same data."
+            )
+        kept = snapshot.get("review_group")
+        if self._review is not None and kept is not None and kept != self.review_group:
+            raise DataError(
+                f"The snapshot is of group {kept!r} of the batch; this widget shows group "
+                f"{self.review_group!r}. Open that group first: widget.review_open({kept!r})."
             )
         name = snapshot.get("model")
         if not isinstance(name, str):
