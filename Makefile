@@ -128,6 +128,8 @@ demo: $(PY_STAMP) $(BUNDLE)
 
 bench: $(PY_STAMP) $(BUNDLE)
 	$(PY) benchmarks/run.py
+	$(PY) benchmarks/batch_engine.py
+	$(PY) benchmarks/fit_groups.py
 	node js/bench/expr-speed.mjs
 	node js/bench/drag-frame.mjs
 	$(PY) benchmarks/browser_frames.py

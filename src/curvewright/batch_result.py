@@ -252,8 +252,9 @@ class BatchResult:
         if isinstance(group, str) and group in self.labels:
             return self.labels.index(group)
         shown = list(self.labels[:10]) + (["..."] if len(self.labels) > 10 else [])
+        what = repr(group) if isinstance(group, (str, int, float, tuple)) else type(group).__name__
         raise ParameterError(
-            f"no group {group!r} in this batch; the groups are {shown} (by key or label)."
+            f"no group {what} in this batch; the groups are {shown} (by key or label)."
         )
 
     def __getitem__(self, group: object) -> FitResult:

@@ -156,10 +156,14 @@ def _prepare(
 ) -> _Block:
     g, n = x.shape
     # padding sorts last and never reaches a value: every sum below is weighted by the mask
-    order = np.argsort(np.where(m, x, np.inf), axis=1, kind="stable")
-    xs = np.take_along_axis(x, order, axis=1)
-    ys = np.take_along_axis(y, order, axis=1)
-    ms = np.take_along_axis(m, order, axis=1)
+    key = np.where(m, x, np.inf)
+    if np.all(key[:, 1:] >= key[:, :-1]):
+        xs, ys, ms = x, y, m  # already in order (a plate layout usually is): no sort needed
+    else:
+        order = np.argsort(key, axis=1, kind="stable")
+        xs = np.take_along_axis(x, order, axis=1)
+        ys = np.take_along_axis(y, order, axis=1)
+        ms = np.take_along_axis(m, order, axis=1)
     xmax = np.max(np.where(ms, xs, -np.inf), axis=1)
     xs = np.where(ms, xs, xmax[:, None])
     ys = np.where(ms, ys, 0.0)
@@ -283,12 +287,13 @@ def _half_crossing(b: _Block, lo: FloatArray, hi: FloatArray) -> FloatArray:
     t0, t1 = t[rows, i], t[rows, i + 1]
     d0, d1 = d[rows, i], d[rows, i + 1]
     with np.errstate(all="ignore"):
-        cross = np.where(d1 == d0, t0, t0 + (t1 - t0) * d0 / (d0 - d1))
+        cross: FloatArray = np.where(d1 == d0, t0, t0 + (t1 - t0) * d0 / (d0 - d1))
+    if np.all(has):
+        return cross
     k = np.maximum(np.sum(use, axis=1), 1)
     med = np.where(use, t, np.inf)
     med.sort(axis=1)
-    rk = np.arange(b.g)
-    median = 0.5 * (med[rk, (k - 1) // 2] + med[rk, k // 2])
+    median = 0.5 * (med[rows, (k - 1) // 2] + med[rows, k // 2])
     out: FloatArray = np.where(has, cross, np.where(np.any(use, axis=1), median, 0.0))
     return out
 
@@ -806,7 +811,7 @@ def _families() -> dict[str, _Family]:
                 split=_dose_split,
                 affine=_dose_ac,
                 # the 5PL's asymmetry trades off against the steepness along a long valley
-                rounds=20 if asym else 2,
+                rounds=20 if asym else 1,
                 max_scale=16.0 if asym else 4.0,
             )
     fams["stimulation_3pl"] = _Family(
@@ -1280,7 +1285,7 @@ def _checked_bounds(model: Model, bound: ArrayLike | None, g: int, which: str) -
         ) from None
 
 
-def _checked_fixed(model: Model, fixed: Mapping[str, ArrayLike] | None, g: int) -> Values:
+def _checked_fixed(model: Model, fixed: Mapping[str, float | FloatArray] | None, g: int) -> Values:
     out: Values = {}
     for name, value in (fixed or {}).items():
         if name not in model.param_names:
@@ -1318,7 +1323,7 @@ def guided_starts(
     x: FloatArray,
     y: FloatArray,
     mask: NDArray[np.bool_],
-    fixed: Mapping[str, float] | None = None,
+    fixed: Mapping[str, float | FloatArray] | None = None,
     lower: FloatArray | None = None,
     upper: FloatArray | None = None,
 ) -> tuple[FloatArray, NDArray[np.bool_]]:
@@ -1348,8 +1353,10 @@ def guided_starts(
         False the row holds the model's defaults (moved inside the bounds).
     ok : ndarray of bool, shape (G,)
         False where the batched rule gives no start: too few or non-finite points, fewer than
-        two distinct x, x outside the model's domain, a degenerate solve, or a model without a
-        batched rule. Use :func:`curvewright.start.guided_start` for those groups.
+        two distinct x, x outside the model's domain, a degenerate solve, a level or amplitude
+        over a million times the data's size (a feature far outside the data), a growth model
+        with fixed parameters, or a model without a batched rule. Use
+        :func:`curvewright.start.guided_start` for those groups.
 
     Raises
     ------
@@ -1386,6 +1393,12 @@ def guided_starts(
             blk = _prepare(model, xa[rows], ya[rows], ma[rows], lo[rows], hi[rows], bh)
             vals, ssr = _run_family(fam, blk)
             good = np.isfinite(ssr)
+            # a level or amplitude a million times the data's size: the best trial put the
+            # curve's feature far outside the data; better the per-curve rule than that start
+            size = 1e6 * (np.max(np.abs(blk.y), axis=1) + np.sqrt(blk.syyc / blk.n) + 1e-300)
+            for n in fam.linear:
+                if n in vals:
+                    good &= np.abs(vals[n]) <= size
             for j, n in enumerate(names):
                 v = vals.get(n)
                 if v is not None:

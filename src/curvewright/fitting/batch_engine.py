@@ -12,37 +12,54 @@ Interface
     ``model`` (a formula model), padded ``x``, ``y``, ``mask`` (True = a real point) and
     ``sw`` (1/sigma, or None) of shape ``(G, N)``; ``free`` ``(P,)`` in ``model.param_names``
     order; ``start``, ``lower``, ``upper`` ``(G, P)``. :meth:`BatchProblem.from_groups` pads
-    ragged groups and broadcasts per-parameter settings.
-:func:`solve_batch` -> :class:`BatchSolution`
+    ragged groups and broadcasts per-parameter settings (``(P,)`` or ``(G, P)``; defaults: the
+    model's values and bounds, every parameter free). ``groups`` and ``n`` (real points per
+    group) are properties.
+:func:`solve_batch(problem, *, max_iterations=200, cancel=None, kernel="auto")
+<solve_batch>` -> :class:`BatchSolution`
     ``values (G, P)``, ``ssr (G,)``, ``evaluations (G,)``, ``iterations (G,)``,
-    ``settled (G,)`` and ``reason`` (``""`` when settled, else a short plain reason).
-:func:`batch_statistics` -> :class:`BatchStatistics`
-    ``n``, ``dof``, ``covariance (G, P, P)`` (NaN rows and columns for fixed parameters),
-    ``stderr (G, P)``, ``condition``, ``singular``, ``near_singular``, ``max_correlation``,
-    ``high_correlation``, ``at_lower``/``at_upper``/``at_bound`` and ``not_identified`` ``(G, P)``.
-:func:`batch_derived` -> ``{name: DerivedColumns(value, stderr, lower, upper, in_data_range)}``
-    each of shape ``(G,)``.
+    ``settled (G,)`` and ``reason`` (``""`` when settled, else one of "iteration limit",
+    "non-finite model values at the start", "non-finite model values", "singular system",
+    "start outside the bounds or not finite", "no more points than free parameters",
+    "cancelled").
+:func:`batch_statistics(problem, solution, *, absolute_sigma=False) <batch_statistics>`
+    -> :class:`BatchStatistics`: ``n``, ``dof``, ``covariance (G, P, P)`` (NaN rows and
+    columns for fixed parameters), ``stderr (G, P)``, ``condition``, ``singular``,
+    ``near_singular``, ``max_correlation``, ``high_correlation``, ``at_lower``/``at_upper``/
+    ``at_bound`` and ``not_identified`` ``(G, P)``, ``absolute_sigma``.
+:func:`batch_derived(problem, solution, stats, level=0.95) <batch_derived>`
+    -> ``{name: DerivedColumns(value, stderr, lower, upper, in_data_range)}``, each ``(G,)``
+    (``in_data_range`` None for a quantity not on the x axis).
 
 Method
 ------
 Levenberg-Marquardt with Marquardt's diagonal scaling (the running maximum of ``diag(J'J)``,
 as MINPACK), Nielsen's damping update, one damping factor per group. The model's value and
 analytic Jacobian come from one call of its compiled code (``Model._value_and_gradient``) on
-``(g, N)`` arrays with parameter columns ``(g, 1)``. Bounds are kept by projection: a parameter
-on a bound whose gradient points outwards is held for the step, the trial point is clipped into
-the box, so the model is never evaluated outside the bounds and a minimum on a bound is reached
-exactly (where the single fit's polish, a bounded trust-region run, also ends). A minimum inside
-the bounds is the unconstrained one, which is what the single fit's first run and polish reach.
+``(g, N)`` arrays with parameter columns ``(g, 1)``; a derivative that is not finite where the
+value is (the 4PL's slope at a zero-dose control) is replaced by central differences, as the
+single fit does. Two implementations run the same steps: numpy over the group axis (settled
+groups leave the working set), and a compiled per-group loop (:mod:`.batch_kernel`, numba),
+2-4 times faster; ``kernel="auto"`` takes the compiled one when it is available.
 
-A group settles when (MINPACK's three tests, tighter than its defaults because the single fit
-polishes to machine precision): the scaled gradient cosine ``max |J_j' r| / (|J_j| |r|)`` is
-below ``GTOL``; or an accepted step has actual and predicted relative reductions of the sum of
-squares below ``FTOL``; or the scaled step is below ``XTOL`` times the scaled parameters (also
-after a rejected step: no representable step reduces the sum any more). Points outside
-``mask`` take no part: their residuals and Jacobian rows are set to zero with ``np.where``, so
-whatever padding values they hold (even NaN) never change an answer. A non-finite model value
-at a trial point rejects the step (the damping grows), as the single fit's penalty does; at the
-start it ends the group with a reason. Settled groups leave the working set.
+Bounds: the model is never evaluated outside them. A step that would cross a bound goes half
+the way to it, so one long step cannot land on a bound where the model degenerates (a Hill
+slope of 0); a parameter already within a millionth of its step from the bound is put on it,
+and a parameter on a bound whose descent direction points outward is held for the step. A
+minimum on a bound is thus reached exactly (where the single fit's bounded polish also ends);
+one inside is the unconstrained minimum, which the single fit's MINPACK runs reach.
+
+A group settles by MINPACK's three tests, tighter than its defaults because the single fit
+polishes to machine precision: the scaled gradient cosine ``max |J_j' r| / (|J_j| |r|)`` below
+``GTOL``; an accepted step with actual and predicted relative reductions below ``FTOL``; or a
+scaled step below ``XTOL`` times the scaled parameters (also after a rejected step: no
+representable step reduces the sum any more). A group that settles while its scaling is stale
+(a running maximum over a thousand times the current curvature) starts again from there with
+fresh scaling, as the single fit's polish restarts MINPACK. Points outside ``mask`` take no
+part: their residuals and Jacobian rows are set to zero with ``np.where``, so whatever padding
+values they hold (even NaN) never change an answer. A non-finite model value at a trial point
+rejects the step (the damping grows), as the single fit's penalty does; at the start it ends
+the group with a reason.
 """
 
 from __future__ import annotations
@@ -97,6 +114,10 @@ _LAMBDA_MAX = 1e16
 # its step from the bound is put on it.
 _BACK = 0.5
 _SNAP = 1e-6
+# A group that settles while some scaling exceeds its current curvature this many times starts
+# again with fresh scaling, at most _RESTARTS times.
+_STALE = 1e3
+_RESTARTS = 10
 _TINY = np.finfo(float).tiny
 _EPS = float(np.finfo(float).eps)
 
@@ -375,8 +396,8 @@ def _solve_systems(m: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArra
 
 
 # ============================================================================ solver
-# Groups per call of the compiled kernel: cancel is polled between calls.
-_CHUNK = 4096
+# Groups per call of the compiled kernel (cancel is polled between calls) and per numpy run.
+_CHUNK = 8192
 
 
 def _run_compiled(
@@ -427,6 +448,8 @@ def _run_compiled(
                 _LAMBDA_MAX,
                 _BACK,
                 _SNAP,
+                _STALE,
+                _RESTARTS,
                 ssr,
                 ev,
                 it,
@@ -466,6 +489,140 @@ def _bounded_step(
     return out
 
 
+def _run_numpy(
+    prob: BatchProblem,
+    idx: IntArray,
+    values: FloatArray,
+    ssr_out: FloatArray,
+    evals: IntArray,
+    iters: IntArray,
+    settled: BoolArray,
+    reason: list[str],
+    max_iterations: int,
+    cancel: Callable[[], bool] | None,
+) -> bool:
+    """Solve the groups ``idx`` together in numpy, filling the outputs; True if cancelled."""
+    model = prob.model
+    grad = model._value_and_gradient
+    assert grad is not None  # BatchProblem refuses callables
+    P = prob.start.shape[1]
+    free = np.asarray(prob.free, dtype=bool)
+    cancelled = False
+    x = prob.x[idx]
+    y = prob.y[idx]
+    real = prob.mask[idx]
+    wt = np.ones_like(x) if prob.sw is None else prob.sw[idx]
+    lo = prob.lower[idx]
+    hi = prob.upper[idx]
+    theta = values[idx]
+    with np.errstate(all="ignore"):
+        f, jac = _evaluate(grad, x, theta, P)
+        _patch_jacobian(model, x, theta, f, jac, lo, hi, real)
+        r, jw, ssr, ok = _residuals(f, jac, y, wt, real)
+    evals[idx] = 1
+    ssr_out[idx] = ssr
+    for i in idx[~ok]:
+        reason[i] = "non-finite model values at the start"
+    keep = ok
+    held = ~free  # fixed parameters: never stepped
+    lam = np.full(idx.size, _LAMBDA0)
+    nu = np.full(idx.size, 2.0)
+    scale = np.zeros((idx.size, P))
+    restarts = np.zeros(idx.size, dtype=int)
+
+    def compact(k: BoolArray) -> None:
+        nonlocal idx, x, y, real, wt, lo, hi, theta, r, jw, ssr, lam, nu, scale, restarts
+        idx, x, y, real, wt, lo, hi = idx[k], x[k], y[k], real[k], wt[k], lo[k], hi[k]
+        theta, r, jw, ssr, lam, nu, scale = theta[k], r[k], jw[k], ssr[k], lam[k], nu[k], scale[k]
+        restarts = restarts[k]
+
+    compact(keep)
+    eye = np.eye(P)
+    for _ in range(max_iterations):
+        if idx.size == 0:
+            break
+        if cancel is not None and cancel():
+            for i in idx:
+                reason[i] = "cancelled"
+            cancelled = True
+            break
+        iters[idx] += 1
+        with np.errstate(all="ignore"):
+            a = jw @ jw.transpose(0, 2, 1)  # J'J, (g, P, P)
+            g = np.einsum("gpn,gn->gp", jw, r)  # J'r: the step direction's right-hand side
+            diag = np.einsum("gpp->gp", a)
+            scale = np.maximum(scale, diag)
+            # A parameter on a bound whose descent direction points outward is held this step.
+            frozen = held[None, :] | ((theta <= lo) & (g <= 0.0)) | ((theta >= hi) & (g >= 0.0))
+            cos = np.abs(g) / np.sqrt(diag * ssr[:, None])
+            cos = np.where(frozen | (diag == 0.0), 0.0, cos)
+            done_g = (np.max(cos, axis=1, initial=0.0) <= GTOL) | (ssr == 0.0)
+            d = np.where(frozen, 1.0, np.maximum(scale, _TINY))
+            m = np.where(frozen[:, :, None] | frozen[:, None, :], 0.0, a)
+            m = m + eye * (np.where(frozen, 1.0, lam[:, None] * d))[:, None, :]
+            rhs = np.where(frozen, 0.0, g)
+            delta, solved = _solve_systems(m, rhs)
+            delta = np.where(solved[:, None], delta, 0.0)
+            trial = _bounded_step(theta, delta, lo, hi)
+            trial = np.where(held[None, :], theta, trial)
+            s = trial - theta
+            pred = 2.0 * np.einsum("gp,gp->g", s, g) - np.einsum("gp,gpq,gq->g", s, a, s)
+            f_t, jac_t = _evaluate(grad, x, trial, P)
+            _patch_jacobian(model, x, trial, f_t, jac_t, lo, hi, real)
+            r_t, jw_t, ssr_t, ok_t = _residuals(f_t, jac_t, y, wt, real)
+            evals[idx] += ~done_g
+            act = ssr - ssr_t
+            rho = np.where(pred > 0, act / pred, -1.0)
+            accept = ok_t & solved & ~done_g & (rho > _ACCEPT)
+            sd = np.sqrt(d)
+            xnorm = np.linalg.norm(sd * theta, axis=1)
+            snorm = np.linalg.norm(sd * s, axis=1)
+            small_step = snorm <= XTOL * xnorm
+            done_f = accept & (lam <= 1.0) & (np.abs(act) <= FTOL * ssr) & (pred <= FTOL * ssr)
+        # Nielsen's update of the damping
+        t = 2.0 * rho - 1.0
+        lam = np.where(accept, lam * np.maximum(1.0 / 3.0, 1.0 - t * t * t), lam * nu)
+        nu = np.where(accept, 2.0, nu * 2.0)
+        theta = np.where(accept[:, None], trial, theta)
+        r = np.where(accept[:, None], r_t, r)
+        jw = np.where(accept[:, None, None], jw_t, jw)
+        ssr = np.where(accept, ssr_t, ssr)
+        # A step too small to matter ends the group when the point it tried was computable.
+        done_x = small_step & (accept | (ok_t & solved))
+        stuck = lam > _LAMBDA_MAX
+        done = done_g | done_f | done_x | stuck
+        # A scaling frozen from early iterations (a running maximum far above the curvature
+        # now) can stall a run along a long valley, e.g. a 5PL asymmetry drifting to infinity;
+        # such a group starts again from where it stopped with fresh scaling and damping, as
+        # the single fit's polish restarts MINPACK.
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(frozen | (diag <= 0), 1.0, scale / diag)
+        again = (done_f | done_x) & (np.max(ratio, axis=1) > _STALE) & (restarts < _RESTARTS)
+        if again.any():
+            restarts += again
+            scale = np.where(again[:, None], 0.0, scale)
+            lam = np.where(again, _LAMBDA0, lam)
+            nu = np.where(again, 2.0, nu)
+            done &= ~again
+        if done.any():
+            fin = idx[done]
+            values[fin] = theta[done]
+            ssr_out[fin] = ssr[done]
+            settled[fin] = True
+            bad = stuck & ~(done_g | done_f | done_x) & ~(ok_t & solved)
+            for i, why in zip(idx[bad], np.where(~ok_t[bad], 1, 0), strict=True):
+                settled[i] = False
+                reason[i] = "non-finite model values" if why else "singular system"
+            compact(~done)
+    # Whatever is left stopped on the iteration limit (or cancel).
+    values[idx] = theta
+    ssr_out[idx] = ssr
+    for i in idx:
+        if not reason[i]:
+            reason[i] = "iteration limit"
+    return cancelled
+
+
 def solve_batch(
     problem: BatchProblem,
     *,
@@ -496,10 +653,7 @@ def solve_batch(
     """
     prob = problem
     model = prob.model
-    grad = model._value_and_gradient
-    if grad is None:  # pragma: no cover - BatchProblem refuses callables
-        raise ModelError("The batch engine needs a formula model.")
-    G, P = prob.start.shape
+    G = prob.start.shape[0]
     values = np.array(prob.start, dtype=float)
     ssr_out = np.full(G, np.nan)
     evals = np.zeros(G, dtype=int)
@@ -554,102 +708,16 @@ def solve_batch(
         else:
             values[:, ~free] = prob.start[:, ~free]
             return BatchSolution(values, ssr_out, evals, iters, settled, tuple(reason))
-    x = prob.x[idx]
-    y = prob.y[idx]
-    real = prob.mask[idx]
-    wt = np.ones_like(x) if prob.sw is None else prob.sw[idx]
-    lo = prob.lower[idx]
-    hi = prob.upper[idx]
-    theta = values[idx]
-    with np.errstate(all="ignore"):
-        f, jac = _evaluate(grad, x, theta, P)
-        _patch_jacobian(model, x, theta, f, jac, lo, hi, real)
-        r, jw, ssr, ok = _residuals(f, jac, y, wt, real)
-    evals[idx] = 1
-    ssr_out[idx] = ssr
-    for i in idx[~ok]:
-        reason[i] = "non-finite model values at the start"
-    keep = ok
-    held = ~free  # fixed parameters: never stepped
-    lam = np.full(idx.size, _LAMBDA0)
-    nu = np.full(idx.size, 2.0)
-    scale = np.zeros((idx.size, P))
-
-    def compact(k: BoolArray) -> None:
-        nonlocal idx, x, y, real, wt, lo, hi, theta, r, jw, ssr, lam, nu, scale
-        idx, x, y, real, wt, lo, hi = idx[k], x[k], y[k], real[k], wt[k], lo[k], hi[k]
-        theta, r, jw, ssr, lam, nu, scale = theta[k], r[k], jw[k], ssr[k], lam[k], nu[k], scale[k]
-
-    compact(keep)
-    eye = np.eye(P)
-    for _ in range(max_iterations):
-        if idx.size == 0:
-            break
-        if cancel is not None and cancel():
-            for i in idx:
+    # The numpy path in chunks: bounded memory (arrays of shape (chunk, P, N)), and each
+    # chunk's working set shrinks as its groups settle.
+    for c0 in range(0, idx.size, _CHUNK):
+        if _run_numpy(
+            prob, idx[c0 : c0 + _CHUNK], values, ssr_out, evals, iters, settled, reason,
+            max_iterations, cancel,
+        ):  # fmt: skip
+            for i in idx[c0 + _CHUNK :]:
                 reason[i] = "cancelled"
             break
-        iters[idx] += 1
-        with np.errstate(all="ignore"):
-            a = jw @ jw.transpose(0, 2, 1)  # J'J, (g, P, P)
-            g = np.einsum("gpn,gn->gp", jw, r)  # J'r: the step direction's right-hand side
-            diag = np.einsum("gpp->gp", a)
-            scale = np.maximum(scale, diag)
-            # A parameter on a bound whose descent direction points outward is held this step.
-            frozen = held[None, :] | ((theta <= lo) & (g <= 0.0)) | ((theta >= hi) & (g >= 0.0))
-            cos = np.abs(g) / np.sqrt(diag * ssr[:, None])
-            cos = np.where(frozen | (diag == 0.0), 0.0, cos)
-            done_g = (np.max(cos, axis=1, initial=0.0) <= GTOL) | (ssr == 0.0)
-            d = np.where(frozen, 1.0, np.maximum(scale, _TINY))
-            m = np.where(frozen[:, :, None] | frozen[:, None, :], 0.0, a)
-            m = m + eye * (np.where(frozen, 1.0, lam[:, None] * d))[:, None, :]
-            rhs = np.where(frozen, 0.0, g)
-            delta, solved = _solve_systems(m, rhs)
-            delta = np.where(solved[:, None], delta, 0.0)
-            trial = _bounded_step(theta, delta, lo, hi)
-            trial = np.where(held[None, :], theta, trial)
-            s = trial - theta
-            pred = 2.0 * np.einsum("gp,gp->g", s, g) - np.einsum("gp,gpq,gq->g", s, a, s)
-            f_t, jac_t = _evaluate(grad, x, trial, P)
-            _patch_jacobian(model, x, trial, f_t, jac_t, lo, hi, real)
-            r_t, jw_t, ssr_t, ok_t = _residuals(f_t, jac_t, y, wt, real)
-            evals[idx] += ~done_g
-            act = ssr - ssr_t
-            rho = np.where(pred > 0, act / pred, -1.0)
-            accept = ok_t & solved & ~done_g & (rho > _ACCEPT)
-            sd = np.sqrt(d)
-            xnorm = np.linalg.norm(sd * theta, axis=1)
-            snorm = np.linalg.norm(sd * s, axis=1)
-            small_step = snorm <= XTOL * xnorm
-            done_f = accept & (lam <= 1.0) & (np.abs(act) <= FTOL * ssr) & (pred <= FTOL * ssr)
-        # Nielsen's update of the damping
-        t = 2.0 * rho - 1.0
-        lam = np.where(accept, lam * np.maximum(1.0 / 3.0, 1.0 - t * t * t), lam * nu)
-        nu = np.where(accept, 2.0, nu * 2.0)
-        theta = np.where(accept[:, None], trial, theta)
-        r = np.where(accept[:, None], r_t, r)
-        jw = np.where(accept[:, None, None], jw_t, jw)
-        ssr = np.where(accept, ssr_t, ssr)
-        # A step too small to matter ends the group when the point it tried was computable.
-        done_x = small_step & (accept | (ok_t & solved))
-        stuck = lam > _LAMBDA_MAX
-        done = done_g | done_f | done_x | stuck
-        if done.any():
-            fin = idx[done]
-            values[fin] = theta[done]
-            ssr_out[fin] = ssr[done]
-            settled[fin] = True
-            bad = stuck & ~(done_g | done_f | done_x) & ~(ok_t & solved)
-            for i, why in zip(idx[bad], np.where(~ok_t[bad], 1, 0), strict=True):
-                settled[i] = False
-                reason[i] = "non-finite model values" if why else "singular system"
-            compact(~done)
-    # Whatever is left stopped on the iteration limit (or cancel).
-    values[idx] = theta
-    ssr_out[idx] = ssr
-    for i in idx:
-        if not reason[i]:
-            reason[i] = "iteration limit"
     values[:, ~free] = prob.start[:, ~free]
     return BatchSolution(values, ssr_out, evals, iters, settled, tuple(reason))
 

@@ -2,12 +2,15 @@
 
 Its one job is to run, for one formula model, the same algorithm as the numpy path of
 :func:`curvewright.fitting.batch_engine.solve_batch` one group at a time in code compiled by
-numba: the model's value and analytic derivatives at one point are generated as scalar code
-from the expression tree (the same straight-line statements :mod:`curvewright.expr` generates
-for numpy, run on floats), and the solver loop (normal equations, Cholesky solve, bounded step,
-convergence tests) is a plain compiled function specialised to that point function. numba is
-optional: :func:`kernel_for` returns None when it is missing or cannot compile a model, and the
-caller keeps the numpy path.
+numba. The model's value and analytic derivatives are generated as scalar code from the
+expression tree (the straight-line statements :mod:`curvewright.expr` generates for numpy, run
+on floats, with the statements that do not depend on x hoisted out of the loop over points);
+the solver loop (normal equations, Cholesky solve, bounded step, convergence tests, restart on
+stale scaling) is a fixed template. Both are written as one small module per model into
+:func:`cache_dir` and imported from there, so numba's on-disk cache serves later processes
+(compiling takes seconds; loading, a fraction of one). numba is optional at run time:
+:func:`kernel_for` returns None when it is missing or refuses the model, and the caller keeps
+the numpy path.
 """
 
 from __future__ import annotations
@@ -48,6 +51,8 @@ def available() -> bool:
 
 _TOKEN = re.compile(r"\b(_t\d+|x)\b")
 _SQUARE = re.compile(r"^_pow\((\w+), 2\.0\)$")
+_MINUS_ONE = re.compile(r"^_sub\((\w+), 1\.0\)$")
+_POWER = re.compile(r"^_pow\((\w+), (\w+)\)$")
 
 
 def _sources(model: Model) -> str:
@@ -67,11 +72,26 @@ def _sources(model: Model) -> str:
     varying: set[str] = {"x"}
     fixed_lines: list[str] = []
     point_lines: list[str] = []
+    minus_one: dict[str, str] = {}  # temp -> b, for temp = b - 1
+    powers: dict[tuple[str, str], str] = {}  # (a, b) -> temp, for temp = a**b
     for b in body:
         temp, code = b.split(" = ", 1)
         sq = _SQUARE.match(code)
         if sq:
             code = f"_mul({sq.group(1)}, {sq.group(1)})"
+        sub = _MINUS_ONE.match(code)
+        if sub:
+            minus_one[temp] = sub.group(1)
+        pw = _POWER.match(code)
+        if pw:
+            base, expo = pw.group(1), pw.group(2)
+            known = powers.get((base, minus_one.get(expo, "")))
+            if known is not None:
+                # a**(b - 1) as a**b / a when a**b is already known (a power's derivative):
+                # one transcendental call fewer per point; at a = 0 the power itself.
+                code = f"(_div({known}, {base}) if {base} != 0.0 else {code})"
+            else:
+                powers[(base, expo)] = temp
         line = f"{temp} = {code}"
         lines.append((temp, line))
         if any(tok in varying for tok in _TOKEN.findall(code)):
@@ -163,7 +183,8 @@ def kernel_for(model: Model) -> Callable[..., None] | None:
     """The compiled solver for ``model``, or None when numba is missing or refuses the model.
 
     The returned function is called as ``run(X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol,
-    gtol, lambda0, accept, lambda_max, back, snap, SSR, EVALS, ITERS, STATUS)`` on C-contiguous
+    gtol, lambda0, accept, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS,
+    STATUS)`` on C-contiguous
     arrays; it updates ``TH`` in place and fills the last four (see :data:`STATUS`). Compiling
     happens at the first call (numba is lazy), so a model it cannot compile fails there: the
     caller then falls back to numpy.
@@ -269,7 +290,7 @@ def cholesky_solve(mat, rhs, out, low):
 @_jit
 def loop(
     X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
-    lambda0, accept_ratio, lambda_max, back, snap, SSR, EVALS, ITERS, STATUS,
+    lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
 ):
     G, N = X.shape
     P = TH.shape[1]
@@ -305,6 +326,7 @@ def loop(
             continue
         lam = lambda0
         nu = 2.0
+        restarts = 0
         for j in range(P):
             scale[j] = 0.0
         for _ in range(maxit):
@@ -409,6 +431,19 @@ def loop(
                 lam *= nu
                 nu *= 2.0
             done_x = small and (accepted or (ok_t and solved))
+            if (done_f or done_x) and restarts < max_restarts:
+                # stale scaling (batch_engine's _STALE): start again from here, fresh
+                worst = 1.0
+                for j in range(P):
+                    if not frozen[j] and a[j, j] > 0 and scale[j] / a[j, j] > worst:
+                        worst = scale[j] / a[j, j]
+                if worst > stale:
+                    restarts += 1
+                    lam = lambda0
+                    nu = 2.0
+                    for j in range(P):
+                        scale[j] = 0.0
+                    continue
             if done_f or done_x:
                 status = 0
                 break
