@@ -328,9 +328,13 @@ export function drawOverview(
       }
       ctx.stroke();
     }
+    // The label on a light plate, so it stays readable where the curve passes under it.
+    const text = g.edited ? `${g.label} ✎` : g.label;
+    ctx.fillStyle = "rgba(255, 255, 255, 0.8)";
+    ctx.fillRect(ox + 2, oy + 2, Math.min(w - 4, text.length * 6 + 3), 11);
     ctx.fillStyle = "#222222";
     ctx.font = "10px sans-serif";
-    ctx.fillText(g.edited ? `${g.label} ✎` : g.label, ox + 3, oy + 11);
+    ctx.fillText(text, ox + 3, oy + 11);
     ctx.restore();
   });
   return shown.length;

@@ -186,7 +186,9 @@ describe("drawing the overview", () => {
     expect(drawOverview(ctx, review, [1, 2], l)).toBe(2);
     const rects = ctx.calls.filter((c) => c.op === "rect");
     expect(rects.map((c) => c.stroke)).toEqual([STATUS_STYLE.failed.colour, STATUS_STYLE.flagged.colour]);
-    expect(ctx.calls.filter((c) => c.op === "fillRect")).toHaveLength(6); // 3 points × 2 groups
+    expect(ctx.calls.filter((c) => c.op === "fillRect" && c.fill === "#555555")).toHaveLength(6); // 3 points × 2 groups
+    // One light plate under each label, drawn before its text.
+    expect(ctx.calls.filter((c) => c.op === "fillRect" && c.fill !== "#555555")).toHaveLength(2);
     const texts = ctx.calls.filter((c) => c.op === "fillText").map((c) => c.args[0]);
     expect(texts).toEqual(["B", "C"]);
     const dashes = ctx.calls.filter((c) => c.op === "dash").map((c) => c.args[0] as number[]);
