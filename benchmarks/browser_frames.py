@@ -22,6 +22,11 @@ What is measured, in JupyterLab 4 with Debian's chromium (headless, software ren
   trips here are spaced wider so the throttle adds nothing). Run on a stock server and on one
   with Nagle's algorithm off on the kernel websocket (see ../shared/browser-testing.md): the
   difference is the server's transport, not the widget.
+* Review of a batch at 384 groups (a 384-well plate, ``batch.review()``): the overview's draw
+  (every small plot on its one canvas) timed in the page, called directly; a filter click until
+  the overview and table are redrawn (a kernel round trip: the page asks ``review_filter``) and
+  the next frame; opening a group from the table until the main plot shows it; and the
+  main-thread frame time while the overview is scrolled (``--review-only`` runs just these).
 """
 
 from __future__ import annotations
@@ -66,6 +71,72 @@ v = rate(s, 12.0, 5.0) + rng.normal(0, 0.3, s.size)
 w = cw.CurveBench(s, v, model=rate)
 w
 """
+
+REVIEW_CELL = """
+import numpy as np, pandas as pd, curvewright as cw
+rng = np.random.default_rng(11)
+conc = np.repeat(np.logspace(-9, -4, 8), 3)
+rows = []
+for r in "ABCDEFGHIJKLMNOP":
+    for c in range(1, 25):
+        well = f"{r}{c}"
+        y = 5 + 95 / (1 + (conc / 10 ** rng.uniform(-7.5, -5.5)) ** rng.uniform(0.8, 1.6))
+        y = y + rng.normal(0, 3, conc.size)
+        if rng.random() < 0.03:
+            y[:] = 50.0  # a few broken wells: a constant reading
+        rows += [(well, x, v) for x, v in zip(conc, y)]
+df = pd.DataFrame(rows, columns=["well", "conc", "resp"])
+batch = cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="well", progress=False)
+w = cw.CurveBench(batch)  # what batch.review() opens
+w
+"""
+
+REVIEW_DRAW_JS = """(root, n) => {
+  const p = root._cwReview, out = [];
+  for (let i = 0; i < n; i++) { p.drawOverview(); out.push(p.lastDrawMs); }
+  return out;
+}"""
+
+# A filter button clicked until the panel shows that filter (Python answered and the panel
+# redrew), then the next frame (painted); each round trip's time.
+REVIEW_FILTER_JS = """async (root, n) => {
+  const sec = root.querySelector('.cw-review'), out = [];
+  const order = ['failed', 'all', 'flagged', 'all'];
+  for (let i = 0; i < n; i++) {
+    const f = order[i % order.length];
+    const t0 = performance.now();
+    await new Promise((res) => {
+      const mo = new MutationObserver(() => {
+        if (sec.dataset.cwReviewFilter === f) { mo.disconnect(); res(); } });
+      mo.observe(sec, { attributes: true });
+      sec.querySelector(`button[data-filter="${f}"]`).click();
+    });
+    await new Promise((res) => requestAnimationFrame(() => res()));
+    out.push(performance.now() - t0);
+  }
+  return out;
+}"""
+
+# A table row clicked until the main plot's model root says that group is open, then a frame.
+REVIEW_OPEN_JS = """async (root, n) => {
+  const out = [];
+  const rows = [...root.querySelectorAll('.cw-review tr[data-group]')];
+  for (let i = 0; i < n; i++) {
+    const tr = rows[(i * 37 + 5) % rows.length];
+    const g = tr.dataset.group;
+    if (root.dataset.cwReviewOpen === g) continue;
+    const t0 = performance.now();
+    await new Promise((res) => {
+      const mo = new MutationObserver(() => {
+        if (root.dataset.cwReviewOpen === g) { mo.disconnect(); res(); } });
+      mo.observe(root, { attributes: true });
+      root.querySelector(`.cw-review tr[data-group="${g}"]`).click();
+    });
+    await new Promise((res) => requestAnimationFrame(() => res()));
+    out.push(performance.now() - t0);
+  }
+  return out;
+}"""
 
 RECORDER_JS = """(root) => {
   const rec = { frames: [], work: [], moves: [], paths: [], on: true };
@@ -292,12 +363,34 @@ def typed_round_trips(page: Any, root: Any, n: int) -> dict[str, list[float]]:
     return out
 
 
+def review_figures(page: Any, root: Any, n: int) -> dict[str, list[float]]:
+    """Overview draw, filter round trip, open a group, and frames while scrolling (384 groups)."""
+    root.locator(".cw-review").scroll_into_view_if_needed()
+    root.evaluate(REVIEW_DRAW_JS, 5)  # warm-up
+    out: dict[str, list[float]] = {"overview_draw": root.evaluate(REVIEW_DRAW_JS, n)}
+    root.evaluate(REVIEW_FILTER_JS, 4)
+    out["filter_to_redraw"] = root.evaluate(REVIEW_FILTER_JS, max(8, n // 5))
+    out["open_to_shown"] = root.evaluate(REVIEW_OPEN_JS, max(6, n // 10))
+    # Scroll the overview through its rows (wheel events over the canvas) while recording.
+    box = root.locator(".cw-review-overview-wrap").bounding_box()
+    assert box is not None
+    page.mouse.move(box["x"] + box["width"] / 2, box["y"] + box["height"] / 2)
+    root.evaluate(RECORDER_JS)
+    for i in range(n):
+        page.mouse.wheel(0, 60 if (i // 40) % 2 == 0 else -60)
+        page.wait_for_timeout(8)
+    rec = root.evaluate(STOP_JS)
+    out["scroll_frame_main_thread"] = [w for _, w in rec["work"]]
+    return out
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--moves", type=int, default=400, help="mouse moves per drag")
     ap.add_argument("--trips", type=int, default=40, help="kernel round trips per server")
     ap.add_argument("--json", type=Path, help="also write the raw figures here")
     ap.add_argument("--bundle", type=Path, help="measure this widget.js instead of the package's")
+    ap.add_argument("--review-only", action="store_true", help="only the 384-group review")
     args = ap.parse_args()
 
     from playwright.sync_api import sync_playwright
@@ -315,6 +408,15 @@ def main() -> None:
                 ctx = browser.new_context(viewport={"width": 1280, "height": 1000})
                 page = ctx.new_page()
                 page.set_default_timeout(60_000)
+                if not nodelay:
+                    root = open_widget(
+                        page, srv, "review384.ipynb", with_bundle(REVIEW_CELL, args.bundle)
+                    )
+                    results["review of a batch, 384 groups"] = review_figures(page, root, 100)
+                    srv.shutdown_kernels()
+                if args.review_only:
+                    ctx.close()
+                    break
                 if not nodelay:
                     for n in (1_000, 100_000):
                         root = open_widget(
@@ -398,7 +500,7 @@ def print_readme_table(results: dict[str, Any]) -> None:
     print("\n| callable-model preview | round trip (median / p95 ms) |")
     print("| --- | --- |")
     for name, figs in results.items():
-        if "work_redraw" in figs:
+        if "work_redraw" in figs or name.startswith("review"):
             continue
         for key, vals in figs.items():
             if key in ("to_send", "to_redraw"):
@@ -411,6 +513,17 @@ def print_readme_table(results: dict[str, Any]) -> None:
             }[key]
             server = name.split(",")[-1].strip()
             print(f"| {server}: {label} | {mp(vals)} |")
+    review = results.get("review of a batch, 384 groups")
+    if review:
+        print("\n| review of a batch, 384 groups | median / p95 ms |")
+        print("| --- | --- |")
+        for key, label in (
+            ("overview_draw", "overview drawn (384 small plots, one canvas)"),
+            ("filter_to_redraw", "filter click to redrawn overview and table (kernel trip)"),
+            ("open_to_shown", "table row to the group in the main plot (kernel trip)"),
+            ("scroll_frame_main_thread", "main-thread frame time while scrolling the overview"),
+        ):
+            print(f"| {label} | {mp(review[key])} |")
 
 
 if __name__ == "__main__":

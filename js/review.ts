@@ -17,6 +17,8 @@ export interface ReviewGroup {
   reason: string;
   /** Edited by a person during review (an accepted refit). */
   edited: boolean;
+  /** The note left with that edit ("" when not edited). */
+  note: string;
   /** The group's points (decimated by Python for large groups). */
   x: number[];
   y: number[];
@@ -77,6 +79,7 @@ export function readReview(raw: unknown): ReviewJson | null {
       status: g.status,
       reason: typeof g.reason === "string" ? g.reason : "",
       edited: g.edited === true,
+      note: typeof g.note === "string" ? g.note : "",
       x: numbers(g.x),
       y: numbers(g.y),
       cx: numbers(g.cx),
@@ -86,6 +89,37 @@ export function readReview(raw: unknown): ReviewJson | null {
   }
   const columns = Array.isArray(r.columns) ? r.columns.filter((c): c is string => typeof c === "string") : [];
   return { columns, groups, log_x: r.log_x === true };
+}
+
+/** The `review_state` trait: the filter, the group open in the main plot, the accept button's state. */
+export interface ReviewState {
+  filter: Filter;
+  open: string | null;
+  canAccept: boolean;
+  accepted: boolean;
+}
+
+/** The state trait read loosely; defaults when absent. */
+export function readReviewState(raw: unknown): ReviewState {
+  const r = (raw !== null && typeof raw === "object" ? raw : {}) as Record<string, unknown>;
+  const f = r["filter"];
+  return {
+    filter: f === "failed" || f === "flagged" ? f : "all",
+    open: typeof r["open"] === "string" ? r["open"] : null,
+    canAccept: r["can_accept"] === true,
+    accepted: r["accepted"] === true,
+  };
+}
+
+/** A filter button's text: its name and how many groups it keeps. */
+export function filterText(filter: Filter, counts: Record<Status, number>): string {
+  if (filter === "all") return `All (${counts.ok + counts.flagged + counts.failed})`;
+  return filter === "failed" ? `Failed (${counts.failed})` : `Flagged (${counts.flagged})`;
+}
+
+/** The table's order after a click on a column header: the same column flips, another starts ascending. */
+export function nextSort(cur: { key: SortKey; ascending: boolean }, key: SortKey): { key: SortKey; ascending: boolean } {
+  return cur.key === key ? { key, ascending: !cur.ascending } : { key, ascending: true };
 }
 
 /** Indices of the groups a filter keeps, in their order. */
@@ -294,9 +328,13 @@ export function drawOverview(
       }
       ctx.stroke();
     }
+    // The label on a light plate, so it stays readable where the curve passes under it.
+    const text = g.edited ? `${g.label} ✎` : g.label;
+    ctx.fillStyle = "rgba(255, 255, 255, 0.8)";
+    ctx.fillRect(ox + 2, oy + 2, Math.min(w - 4, text.length * 6 + 3), 11);
     ctx.fillStyle = "#222222";
     ctx.font = "10px sans-serif";
-    ctx.fillText(g.edited ? `${g.label} ✎` : g.label, ox + 3, oy + 11);
+    ctx.fillText(text, ox + 3, oy + 11);
     ctx.restore();
   });
   return shown.length;

@@ -268,6 +268,10 @@ export interface WidgetModel {
   sync_pong: number;
   /** With by=: the groups as the page draws them (js/groups.ts GroupsJson), else null. */
   groups_json: unknown;
+  /** Made on a batch: every group for the review (js/review.ts ReviewJson), else null. */
+  review_json: unknown;
+  /** Made on a batch: the review's filter, open group and whether its refit can be accepted. */
+  review_state: unknown;
 }
 
 /** Messages the front end sends with model.send(). */
@@ -286,6 +290,10 @@ export type FrontMessage =
   | { type: "hide_group"; label: string; hidden: boolean }
   | { type: "exclude_group"; label: string; excluded: boolean }
   | { type: "set_scope"; name: string; scope: "shared" | "per_group" }
+  /** Review of a batch: each calls the Python method of the same name. */
+  | { type: "review_open"; label: string }
+  | { type: "review_filter"; filter: "all" | "failed" | "flagged" }
+  | { type: "review_accept" }
   /** A row of the degree table picked: show the polynomial of this degree. */
   | { type: "use_degree"; degree: number }
   /** Large data: compute the degree table now. */

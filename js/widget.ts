@@ -72,6 +72,18 @@
 //                         checkbox aria-label "Share <name> across groups" (calls set_scope);
 //                         ul.cw-group-list > li[data-group][data-value] per group (per-group
 //                         parameters only; li[aria-current] is the selected group).
+//   review (on a batch)   section .cw-review (aria-label "Batch review"; hidden unless reviewing)
+//                         with data-cw-review-filter (all|failed|flagged), data-cw-review-open
+//                         (label), data-cw-review-shown (count); root data-cw-review-open.
+//                         Filter buttons .cw-review-filter[data-filter] named "All (n)",
+//                         "Failed (n)", "Flagged (n)" (aria-pressed = current). Overview
+//                         canvas.cw-review-overview; root._cwReview.cellCentre(label) gives a
+//                         cell's viewport centre. Button "Accept the refit of group <label> into
+//                         the batch" (.cw-review-accept, disabled unless it can be accepted).
+//                         Table table.cw-review-table: sort buttons .cw-review-sort[data-sort]
+//                         ("Sort by <column>"), rows tr[data-group][data-status] (tabindex 0;
+//                         click/Enter/Space opens; data-edited="true"; aria-current = open).
+//                         Filter/open/accept call review_filter/review_open/review_accept.
 //   test hook             root._cwModel is the anywidget model (get/set/save_changes/on/off);
 //                         flush: set sync_ping to n, save_changes, wait for sync_pong === n
 // ------------------------------------------------------------------------------------------
@@ -103,6 +115,8 @@ import { atFitted, type GroupsJson, groupStyle, legendEntries, otherCurves, poin
 import { GroupLegend } from "./legend";
 import { bandViews, bandsDrawn, DEGREE_COLUMNS, degreeCaption, degreeLabel, degreeRows, degreeSuggestion } from "./judge";
 import { ParamPanel } from "./panel";
+import { readReview, readReviewState } from "./review";
+import { ReviewPanel } from "./review-panel";
 import { ParamsError, byName, readParams, toList } from "./params";
 import { type CurveSource, type GroupCurveView, Plot } from "./plot";
 import {
@@ -260,6 +274,47 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   });
   root.insertBefore(groupLegend.el, legend);
   let groups: GroupsJson | null = null;
+
+  // Review of a batch (CurveBench(batch)): overview, filter, table and Accept at the top; each
+  // control asks Python (review_open, review_filter, review_accept) and the panel is redrawn
+  // from review_json / review_state.
+  const reviewPanel = new ReviewPanel({
+    onOpen: (label) => send(model, { type: "review_open", label }),
+    onFilter: (filter) => send(model, { type: "review_filter", filter }),
+    onAccept: () => send(model, { type: "review_accept" }),
+  });
+  root.insertBefore(reviewPanel.el, toolbar);
+  (root as unknown as { _cwReview: ReviewPanel })._cwReview = reviewPanel;
+  let reviewOpen: string | null = null;
+  let reviewRaw: unknown = undefined;
+  let reviewParsed: ReturnType<typeof readReview> = null;
+  function drawReview(): void {
+    const st = readReviewState(model.get("review_state"));
+    // The groups are read again only when Python sent new ones (not on every state change).
+    const raw = model.get("review_json");
+    if (raw !== reviewRaw) {
+      reviewRaw = raw;
+      reviewParsed = readReview(raw);
+    }
+    reviewPanel.show(reviewParsed, st);
+    root.dataset["cwReviewOpen"] = st.open ?? "";
+    if (st.open !== reviewOpen) {
+      // Another group in the main plot: its own view, not the last group's zoom.
+      const first = reviewOpen === null;
+      reviewOpen = st.open;
+      if (!first) loadData(true);
+    }
+  }
+  let reviewWidth = 0;
+  const reviewResize = new ResizeObserver(() => {
+    const w = reviewPanel.el.clientWidth;
+    if (w !== reviewWidth && !reviewPanel.el.hidden) {
+      reviewWidth = w;
+      reviewPanel.drawOverview();
+    }
+  });
+  reviewResize.observe(root);
+  cleanups.push(() => reviewResize.disconnect());
   // The selected group is hidden: its points, curves and handles are not drawn.
   let selectedHidden = false;
   let otherKey = "";
@@ -999,6 +1054,8 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
     drawCurrent();
   });
   listen("change:groups_json", drawGroups);
+  listen("change:review_json", drawReview);
+  listen("change:review_state", drawReview);
   listen("change:excluded", () => {
     loadData(false);
   });
@@ -1055,6 +1112,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   loadModel(false);
   showStatus();
   showError();
+  drawReview();
 
   return () => {
     for (const c of cleanups.reverse()) c();

@@ -227,6 +227,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
     "view": (
         "curvewright.widget",
         "curvewright.widget._errors",
+        "curvewright.widget._review",
         "curvewright.widget._state",
         "curvewright.widget._widget",
     ),

@@ -10,6 +10,9 @@ import {
   cellScale,
   drawOverview,
   filterGroups,
+  filterText,
+  nextSort,
+  readReviewState,
   gridLayout,
   readReview,
   sortRows,
@@ -21,6 +24,7 @@ const grp = (label: string, status: ReviewGroup["status"], values: Record<string
   status,
   reason: status === "ok" ? "" : "why",
   edited: false,
+  note: "",
   x: [1, 10, 100],
   y: [90, 50, 10],
   cx: [1, 10, 100],
@@ -182,7 +186,9 @@ describe("drawing the overview", () => {
     expect(drawOverview(ctx, review, [1, 2], l)).toBe(2);
     const rects = ctx.calls.filter((c) => c.op === "rect");
     expect(rects.map((c) => c.stroke)).toEqual([STATUS_STYLE.failed.colour, STATUS_STYLE.flagged.colour]);
-    expect(ctx.calls.filter((c) => c.op === "fillRect")).toHaveLength(6); // 3 points × 2 groups
+    expect(ctx.calls.filter((c) => c.op === "fillRect" && c.fill === "#555555")).toHaveLength(6); // 3 points × 2 groups
+    // One light plate under each label, drawn before its text.
+    expect(ctx.calls.filter((c) => c.op === "fillRect" && c.fill !== "#555555")).toHaveLength(2);
     const texts = ctx.calls.filter((c) => c.op === "fillText").map((c) => c.args[0]);
     expect(texts).toEqual(["B", "C"]);
     const dashes = ctx.calls.filter((c) => c.op === "dash").map((c) => c.args[0] as number[]);
@@ -207,5 +213,44 @@ describe("status colours", () => {
         expect((a + 0.05) / (b + 0.05)).toBeGreaterThanOrEqual(1.5);
       }
     }
+  });
+});
+
+describe("review state, filter labels and sort toggling", () => {
+  it("reads the state trait loosely, with defaults for anything missing or unknown", () => {
+    expect(readReviewState({ filter: "failed", open: "W5", can_accept: true, accepted: false })).toEqual({
+      filter: "failed",
+      open: "W5",
+      canAccept: true,
+      accepted: false,
+    });
+    expect(readReviewState(null)).toEqual({ filter: "all", open: null, canAccept: false, accepted: false });
+    expect(readReviewState({ filter: "everything", open: 3, can_accept: "yes" })).toEqual({
+      filter: "all",
+      open: null,
+      canAccept: false,
+      accepted: false,
+    });
+  });
+  it("keeps an edited group's note and marks it", () => {
+    const r = readReview({ columns: [], log_x: false, groups: [{ ...grp("W5", "ok"), edited: true, note: "refitted in review" }] });
+    expect(r?.groups[0]?.edited).toBe(true);
+    expect(r?.groups[0]?.note).toBe("refitted in review");
+    expect(readReview({ groups: [{ ...grp("W1", "ok"), note: 4 }] })?.groups[0]?.note).toBe("");
+  });
+  it("labels each filter with the number of groups it keeps", () => {
+    const gs = [grp("a", "ok"), grp("b", "failed"), grp("c", "failed"), grp("d", "flagged")];
+    const n = statusCounts(gs);
+    expect(filterText("all", n)).toBe("All (4)");
+    expect(filterText("failed", n)).toBe("Failed (2)");
+    expect(filterText("flagged", n)).toBe("Flagged (1)");
+    // The count on a button is the number of groups its filter shows.
+    expect(filterGroups(gs, "failed").length).toBe(2);
+  });
+  it("flips the direction on the same column and starts ascending on another", () => {
+    const a = nextSort({ key: "label", ascending: true }, "label");
+    expect(a).toEqual({ key: "label", ascending: false });
+    expect(nextSort(a, "label")).toEqual({ key: "label", ascending: true });
+    expect(nextSort(a, "ic50")).toEqual({ key: "ic50", ascending: true });
   });
 });

@@ -10,7 +10,7 @@ from __future__ import annotations
 from typing import Any
 
 from ._version import __version__
-from .batch_result import BatchResult
+from .batch_result import BatchResult, register_review
 from .catalog import catalog, polynomial
 from .data import Dataset, make_dataset
 from .errors import (
@@ -98,6 +98,16 @@ __all__ = [
     "residual_diagnostics",
     "select_degree",
 ]
+
+
+def _open_review(batch: BatchResult, **kwargs: Any) -> Any:
+    # BatchResult.review(): the widget is loaded on first use, as for CurveBench.
+    from .widget import CurveBench
+
+    return CurveBench(batch, **kwargs)
+
+
+register_review(_open_review)
 
 
 def __getattr__(name: str) -> Any:

@@ -9,7 +9,13 @@ dropped. ``batch[group]`` is that group's full :class:`FitResult`, made by :func
 group from the start the batch used, with the batch's options, on first use (and cached): the
 record keeps each group's data and start for that, so a batch read back from JSON gives the
 same results. The fitting layer registers the function that makes them
-(:func:`register_group_fit`); this module imports nothing from it.
+(:func:`register_group_fit`) and the one that turns a fit into a row and a status
+(:func:`register_fit_row`); this module imports nothing from it.
+
+A person reviewing the batch may replace one group's fit by a refit of their own
+(:meth:`BatchResult.replace_fit`): the only change a batch allows after it is made. The group's
+row and status are recomputed from the new fit as the batch does, the group is marked
+``edited`` with a note, and the refit itself is kept (and saved in the JSON form).
 """
 
 from __future__ import annotations
@@ -43,7 +49,15 @@ from .result import (
 )
 from .thresholds import CAUTION
 
-__all__ = ["STATUSES", "PATHS", "BatchResult", "register_group_fit", "start_records"]
+__all__ = [
+    "STATUSES",
+    "PATHS",
+    "BatchResult",
+    "register_fit_row",
+    "register_group_fit",
+    "register_review",
+    "start_records",
+]
 
 _FORMAT = "curvewright.BatchResult"
 _VERSION = 1
@@ -68,6 +82,25 @@ _GROUP_FIT: list[Callable[[BatchResult, int], FitResult]] = []
 def register_group_fit(fn: Callable[[BatchResult, int], FitResult]) -> None:
     """Tell :class:`BatchResult` how to fit one of its groups (called by the fitting layer)."""
     _GROUP_FIT[:] = [fn]
+
+
+_FIT_ROW: list[Callable[[FitResult, float], Any]] = []
+_REVIEW: list[Callable[..., Any]] = []
+
+
+def register_fit_row(fn: Callable[[FitResult, float], Any]) -> None:
+    """Tell :class:`BatchResult` how the batch turns one group's fit into its row.
+
+    ``fn(fit, level)`` returns an object with ``status``, ``reason``, ``flags``, ``values``,
+    ``stderr``, ``lower``, ``upper``, ``ssr`` and ``derived`` (the fitting layer's own rule, so a
+    replaced fit gets its status exactly as a fitted group does).
+    """
+    _FIT_ROW[:] = [fn]
+
+
+def register_review(fn: Callable[..., Any]) -> None:
+    """Tell :class:`BatchResult` how to open the review widget (called by the package)."""
+    _REVIEW[:] = [fn]
 
 
 def start_records(parameters: Parameters, names: Sequence[str], start: Any) -> Parameters:
@@ -131,6 +164,10 @@ class BatchResult:
     options : mapping
         The fit options every group's fit used (weights, loss, loss_scale, absolute_sigma,
         method, max_evaluations).
+    edited : tuple of bool
+        Per group: its fit was replaced by a person's refit (:meth:`replace_fit`).
+    notes : tuple of str
+        Per group: the note left with that change (``""`` for a group not edited).
     """
 
     model: Model
@@ -155,6 +192,8 @@ class BatchResult:
     datasets: Sequence[Dataset | None]
     parameters: Parameters
     options: Mapping[str, Any] = field(default_factory=dict)
+    edited: tuple[bool, ...] = ()
+    notes: tuple[str, ...] = ()
     _fits: dict[int, FitResult] = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -173,7 +212,18 @@ class BatchResult:
         put(self, "flags", tuple(tuple(f) for f in self.flags))
         put(self, "derived_names", tuple(self.derived_names))
         put(self, "options", MappingProxyType(dict(self.options)))
-        for name in ("labels", "statuses", "reasons", "paths", "flags", "datasets"):
+        put(self, "edited", tuple(bool(e) for e in self.edited) or (False,) * g)
+        put(self, "notes", tuple(str(t) for t in self.notes) or ("",) * g)
+        for name in (
+            "labels",
+            "statuses",
+            "reasons",
+            "paths",
+            "flags",
+            "datasets",
+            "edited",
+            "notes",
+        ):
             if len(getattr(self, name)) != g:
                 raise ValueError(
                     f"BatchResult: {name} has {len(getattr(self, name))} entries, not {g}."
@@ -271,11 +321,138 @@ class BatchResult:
             datasets=tuple(self.datasets[i] for i in ix),
             parameters=self.parameters,
             options=self.options,
+            edited=tuple(self.edited[i] for i in ix),
+            notes=tuple(self.notes[i] for i in ix),
         )
         for new, old in enumerate(ix):
             if old in self._fits:
                 out._fits[new] = self._fits[old]
         return out
+
+    # ------------------------------------------------------------------ review
+    def replace_fit(self, group: object, fit: FitResult, *, note: str) -> None:
+        """Put a person's refit of one group in place of the batch's fit (review).
+
+        The group's row (values, standard errors, intervals, SSR, derived quantities), status,
+        reason and flags are recomputed from ``fit`` by the batch's own rule; its data become
+        the refit's (with its exclusions), its start the refit's start, its path
+        ``per-group``; it is marked :attr:`edited` with ``note``, and ``batch[group]`` is
+        ``fit`` from now on (also after a JSON round trip). Everything is checked and computed
+        first, so on bad input the batch is left exactly as it was.
+
+        Parameters
+        ----------
+        group : key or label
+        fit : FitResult
+            A fit of this batch's model to this group's data (e.g. from the review widget).
+        note : str
+            What the person did, in a few words (kept with the group; not empty).
+
+        Raises
+        ------
+        ParameterError
+            No such group, or an empty note.
+        FitError
+            ``fit`` is not a single-curve FitResult.
+        ModelError
+            ``fit`` is of another model than the batch's.
+        """
+        i = self.index_of(group)
+        if not isinstance(fit, FitResult):
+            raise FitError(
+                f"replace_fit needs the FitResult of a refit of group {self.labels[i]!r}, got "
+                f"{type(fit).__name__}."
+            )
+        m = self.model
+        if fit.model.name != m.name or tuple(fit.model.param_names) != tuple(m.param_names):
+            raise ModelError(
+                f"the refit is of model {fit.model.name!r} ({', '.join(fit.model.param_names)}) "
+                f"but the batch fits {m.name!r} ({', '.join(m.param_names)}); refit the group "
+                "with the batch's model."
+            )
+        if len(fit.datasets) != 1:
+            raise FitError("replace_fit needs a fit of one curve (one dataset), not a global fit.")
+        if not isinstance(note, str) or not note.strip():
+            raise ParameterError(
+                "replace_fit needs a note saying what was changed, e.g. note='refitted from a "
+                "new start'."
+            )
+        if not _FIT_ROW:
+            raise CurvewrightError(
+                "BatchResult needs curvewright.fitting to recompute a group; import curvewright."
+            )
+        row = _FIT_ROW[0](fit, self.level)
+        P, D = len(m.param_names), len(self.derived_names)
+        failed = row.status == "failed"
+
+        def vec(v: Any, shape: tuple[int, ...]) -> FloatArray:
+            if failed or v is None:
+                return np.full(shape, np.nan)
+            return np.reshape(np.asarray(v, dtype=float), shape)
+
+        def at(a: Any, v: Any) -> Any:
+            out = np.array(a, copy=True)
+            out[i] = v
+            return out
+
+        def put_in(t: tuple[Any, ...], v: Any) -> tuple[Any, ...]:
+            return (*t[:i], v, *t[i + 1 :])
+
+        ds = fit.dataset
+        start = np.array([float(fit.start.get(n, math.nan)) for n in m.param_names])
+        new = {
+            "value_array": at(self.value_array, vec(row.values, (P,))),
+            "stderr_array": at(self.stderr_array, vec(row.stderr, (P,))),
+            "lower_array": at(self.lower_array, vec(row.lower, (P,))),
+            "upper_array": at(self.upper_array, vec(row.upper, (P,))),
+            "ssr_array": at(self.ssr_array, math.nan if failed else float(row.ssr)),
+            "derived_array": at(self.derived_array, vec(row.derived, (D, 4))),
+            "starts": at(self.starts, start),
+            "n_used": at(self.n_used, int(fit.n)),
+            "statuses": put_in(self.statuses, str(row.status)),
+            "reasons": put_in(self.reasons, str(row.reason)),
+            "paths": put_in(self.paths, "per-group"),
+            "flags": put_in(self.flags, tuple(str(c) for c in row.flags)),
+            "datasets": put_in(self.datasets, ds),
+            "edited": put_in(self.edited, True),
+            "notes": put_in(self.notes, note.strip()),
+        }
+        # Every new field is ready: now change them all (nothing above touched the batch).
+        for name, v in new.items():
+            if isinstance(v, np.ndarray):
+                v = _frozen(v, np.int64 if name == "n_used" else float)
+            object.__setattr__(self, name, v)
+        self._fits[i] = fit
+
+    @property
+    def note(self) -> pd.Series:
+        """The note of each group a person edited in review (only those groups)."""
+        keep = [i for i, e in enumerate(self.edited) if e]
+        return pd.Series(
+            [self.notes[i] for i in keep],
+            index=pd.Index([self.labels[i] for i in keep], name="group"),
+            name="note",
+            dtype=object,
+        )
+
+    def review(self, **kwargs: Any) -> Any:
+        """Open the review widget on this batch (``CurveBench(batch, **kwargs)``).
+
+        The page shows every group as a small plot coloured by status, a filter (all, failed,
+        flagged) and a sortable table; a group opened there can be guided, refitted and
+        accepted, which calls :meth:`replace_fit` on this batch.
+
+        Raises
+        ------
+        CurvewrightError
+            The widget is not available (install curvewright with its widget extra).
+        """
+        if not _REVIEW:
+            raise CurvewrightError(
+                "the review widget is not available; import curvewright (with the widget "
+                "extra installed) and use curvewright.CurveBench(batch)."
+            )
+        return _REVIEW[0](self, **kwargs)
 
     # ------------------------------------------------------------------ tables
     def _index(self) -> pd.Index:
@@ -362,7 +539,7 @@ class BatchResult:
 
         Columns: status, reason, path, n (points used), n_dropped, ssr; then for each
         parameter ``p``: ``p``, ``p stderr``, ``p lower``, ``p upper``; then the same four for
-        each derived quantity.
+        each derived quantity; last ``edited`` and ``note`` (review, :meth:`replace_fit`).
         """
         cols: dict[str, Any] = {
             "status": list(self.statuses),
@@ -381,6 +558,8 @@ class BatchResult:
             cols[q] = self.derived_array[:, k, 0]
             for s in range(1, 4):
                 cols[f"{q} {_STATS[s]}"] = self.derived_array[:, k, s]
+        cols["edited"] = list(self.edited)
+        cols["note"] = list(self.notes)
         out: pd.DataFrame = pd.DataFrame(cols, index=self._index())
         return out
 
@@ -509,6 +688,14 @@ class BatchResult:
             "datasets": [None if d is None else d.to_dict() for d in self.datasets],
             "parameters": self.parameters.to_json(),
             "options": {k: _enc(v) if isinstance(v, float) else v for k, v in self.options.items()},
+            "edited": list(self.edited),
+            "notes": list(self.notes),
+            # A replaced group's refit itself: its exclusions and fixed parameters are its own.
+            "edited_fits": {
+                str(i): self._fits[i].to_dict()
+                for i, e in enumerate(self.edited)
+                if e and i in self._fits
+            },
         }
 
     def to_json(self, **kwargs: Any) -> str:
@@ -550,7 +737,7 @@ class BatchResult:
                 k: _need(_dec_array(d[k]))
                 for k in ("values", "stderr", "lower", "upper", "ssr", "derived", "starts")
             }
-            return cls(
+            out = cls(
                 model=m,
                 by=tuple(str(b) for b in d["by"]),
                 keys=tuple(_key_from_json(k) for k in d["keys"]),
@@ -576,7 +763,13 @@ class BatchResult:
                     str(k): _dec(v) if isinstance(v, str) and v in ("NaN", "Infinity") else v
                     for k, v in d["options"].items()
                 },
+                # A batch saved before review had no edits.
+                edited=tuple(bool(e) for e in d.get("edited", ())),
+                notes=tuple(str(t) for t in d.get("notes", ())),
             )
+            for k, fd in dict(d.get("edited_fits", {})).items():
+                out._fits[int(k)] = FitResult.from_dict(fd, model=m)
+            return out
         except (KeyError, TypeError, ValueError, AttributeError) as exc:
             if isinstance(exc, CurvewrightError):
                 raise
@@ -616,7 +809,7 @@ def combine(parts: Sequence[BatchResult]) -> BatchResult:
     def join(name: str) -> tuple[Any, ...]:
         return tuple(v for p in parts for v in getattr(p, name))
 
-    return BatchResult(
+    out = BatchResult(
         model=first.model,
         by=first.by,
         keys=keys,
@@ -639,4 +832,13 @@ def combine(parts: Sequence[BatchResult]) -> BatchResult:
         datasets=join("datasets"),
         parameters=first.parameters,
         options=first.options,
+        edited=join("edited"),
+        notes=join("notes"),
     )
+    # The parts' fits come along (a replaced group's refit is not made again from its start).
+    offset = 0
+    for p in parts:
+        for i, f in p._fits.items():
+            out._fits[offset + i] = f
+        offset += len(p)
+    return out

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..batch_result import BatchResult, register_group_fit, start_records
+from ..batch_result import BatchResult, register_fit_row, register_group_fit, start_records
 from ..data import Dataset, Groups, labels_of, split_groups
 from ..errors import CurvewrightError, DataError, ParameterError
 from ..inference import quantile
@@ -799,6 +799,8 @@ def _group_fit(batch: BatchResult, i: int) -> FitResult:
 
 
 register_group_fit(_group_fit)
+# A group refitted in review gets its row and status by the rule every per-group fit uses.
+register_fit_row(_row_of_fit)
 
 
 def failed_part(req: _Request, keys: Sequence[Any], reason: str) -> BatchResult:

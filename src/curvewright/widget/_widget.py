@@ -29,6 +29,7 @@ import traitlets
 from numpy.typing import ArrayLike
 from scipy.optimize import least_squares
 
+from ..batch_result import BatchResult
 from ..catalog import MAX_DEGREE, polynomial
 from ..data import Dataset, make_dataset
 from ..errors import (
@@ -48,7 +49,7 @@ from ..result import FitResult
 from ..start import guided_start
 from ..stats.compare import Comparison, compare
 from ..stats.polynomial import DegreeSelection, select_degree
-from . import _state
+from . import _review, _state
 from ._errors import describe
 
 __all__ = ["CurveBench"]
@@ -130,6 +131,19 @@ class _GroupSetup:
     excluded: set[str] = field(default_factory=set)
 
 
+@dataclass
+class _ReviewSetup:
+    """A widget made on a batch (``CurveBench(batch)``): the batch and what the review shows."""
+
+    batch: BatchResult
+    x_scale: _state.Scale
+    entries: list[dict[str, Any]]
+    filter: str = "all"
+    opened: int = 0
+    # Fits in the widget's history from this index on are refits of the opened group.
+    since: int = 0
+
+
 @dataclass(frozen=True)
 class _FitRequest:
     """What a Fit hands to fit(): the records as they are (converted once, never taken apart)."""
@@ -165,9 +179,15 @@ class CurveBench(anywidget.AnyWidget):
 
     Parameters
     ----------
-    data : DataFrame or mapping, optional
+    data : DataFrame, mapping or BatchResult, optional
         A table holding the columns named by ``x`` and ``y``. Arrays may be given instead as
-        ``CurveBench(x_values, y_values, model=...)`` or with ``x=``/``y=``.
+        ``CurveBench(x_values, y_values, model=...)`` or with ``x=``/``y=``. A
+        :class:`~curvewright.BatchResult` (``CurveBench(batch)``, as ``batch.review()``)
+        opens the review of the batch: an overview of every group coloured by status, a
+        filter, a sortable table, and one group at a time in the main plot to guide, refit
+        and accept into the batch (:meth:`review_open`, :meth:`review_filter`,
+        :meth:`review_accept`, :attr:`batch`). Then only ``models``, ``x_scale``,
+        ``y_scale`` and ``fit_options`` may be given.
     x, y : str or array_like
         Column names of ``data``, or the observations themselves.
     model : Model, str or callable
@@ -265,6 +285,10 @@ class CurveBench(anywidget.AnyWidget):
     sync_pong = traitlets.Int(0).tag(sync=True)
     # With by=: the groups as the page draws them (_state.groups_json), None for one curve.
     groups_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
+    # Made on a batch: every group for the overview and the table (_review.review_json), and
+    # {"filter", "open" (label), "can_accept", "accepted"}; both None otherwise.
+    review_json = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
+    review_state = traitlets.Any(default_value=None, allow_none=True).tag(sync=True)
 
     # ---- Python only
     # A FitResult, or with by= the GlobalResult of fit_global.
@@ -276,7 +300,7 @@ class CurveBench(anywidget.AnyWidget):
 
     def __init__(
         self,
-        data: pd.DataFrame | Mapping[str, Any] | ArrayLike | None = None,
+        data: pd.DataFrame | Mapping[str, Any] | BatchResult | ArrayLike | None = None,
         x: str | ArrayLike | None = None,
         y: str | ArrayLike | None = None,
         *,
@@ -305,6 +329,37 @@ class CurveBench(anywidget.AnyWidget):
         self._comparison_key: tuple[int, ...] = ()
         self._degree_cache: tuple[tuple[Any, ...], dict[str, Any]] | None = None
 
+        self._review: _ReviewSetup | None = None
+        if isinstance(data, BatchResult):
+            # CurveBench(batch): review the batch; the main plot shows one group at a time.
+            if any(v is not None for v in (x, y, by, sigma, model, exclude, start, fixed, bounds)):
+                raise DataError(
+                    "CurveBench(batch) reviews a batch with its own data, model, start and "
+                    "bounds; give only the batch (and optionally models=, x_scale=, y_scale=, "
+                    "fit_options=)."
+                )
+            batch = data
+            opened = _first_to_open(batch)
+            if opened is None:
+                raise DataError(
+                    "this batch has no group with readable data to open; see batch.reason."
+                )
+            xs_batch = _review.batch_x_scale(batch)
+            self._review = _ReviewSetup(
+                batch=batch,
+                x_scale=xs_batch,
+                entries=[_review.group_entry(batch, i, xs_batch) for i in range(len(batch))],
+                opened=opened,
+            )
+            ds0 = batch.datasets[opened]
+            assert ds0 is not None
+            model = batch.model
+            fit_options = {**dict(batch.options), **dict(fit_options or {})}
+            x_scale = xs_batch if x_scale is None else x_scale
+            exclude = ds0.row[~ds0.include] if not np.all(ds0.include) else None
+            data, x, y = None, ds0.x, ds0.y
+            sigma = ds0.sigma
+
         if data is not None and not _is_table(data):
             # CurveBench(x_values, y_values, model=...): arrays given positionally.
             if y is not None:
@@ -319,6 +374,10 @@ class CurveBench(anywidget.AnyWidget):
         if by is not None:
             self._groups = _group_setup(table, x, y, by, sigma)
         self._ds = make_dataset(x, y, data=table, sigma=sigma)
+        if self._review is not None:
+            ds_open = self._review.batch.datasets[self._review.opened]
+            assert ds_open is not None
+            self._ds = ds_open  # the group's own rows and labels
         self._excluded: list[int] = _state.check_rows(self._ds, exclude, "exclude")
         self._fit_options = self._check_fit_options(fit_options)
 
@@ -345,6 +404,9 @@ class CurveBench(anywidget.AnyWidget):
 
         settings, note = self._guided_settings(first)
         settings, moved = self._overlay(first, settings, start, fixed, bounds)
+        if self._review is not None:
+            settings = self._review_settings(self._review.opened, settings)
+            note = self._review_note()
         note = " ".join(t for t in (note, *moved) if t)
         self._memory[first.name] = self._new_memory(first, settings, keep=set(start or ()))
 
@@ -355,6 +417,8 @@ class CurveBench(anywidget.AnyWidget):
             self.excluded = list(self._excluded)
             self._show_model(first.name)
             self.status = {"state": "idle", "message": note}
+            if self._review is not None:
+                self._review_show(json_too=True)
         self.on_msg(self._on_custom_msg)
 
     # =================================================================== public: reading
@@ -483,6 +547,138 @@ class CurveBench(anywidget.AnyWidget):
         with self.hold_sync(), self._internal():
             self._apply_settings(settings)
             self.status = {"state": "idle", "message": note or "guided start applied"}
+
+    # =================================================================== public: review
+    @property
+    def batch(self) -> BatchResult | None:
+        """The batch under review (``CurveBench(batch)``; accepted refits are in it), or None."""
+        return None if self._review is None else self._review.batch
+
+    @property
+    def review_group(self) -> str | None:
+        """The label of the batch's group shown in the main plot (None when not reviewing)."""
+        rv = self._review
+        return None if rv is None else rv.batch.labels[rv.opened]
+
+    @property
+    def review_shown(self) -> tuple[str, ...]:
+        """The labels of the groups the review filter keeps, in the batch's order."""
+        rv = self._need_review("review_shown")
+        b = rv.batch
+        return tuple(
+            lab for lab, s in zip(b.labels, b.statuses, strict=True) if rv.filter in ("all", s)
+        )
+
+    def review_filter(self, which: str) -> None:
+        """Show ``"all"`` groups, only the ``"failed"`` ones or only the ``"flagged"`` ones.
+
+        Raises
+        ------
+        ParameterError
+            Another filter name.
+        DataError
+            The widget was not made on a batch.
+        """
+        rv = self._need_review("review_filter")
+        rv.filter = _review.check_filter(which)
+        with self.hold_sync(), self._internal():
+            self._review_show()
+
+    def review_open(self, group: object) -> None:
+        """Show one group of the batch in the main plot, at its batch fit's values.
+
+        Its points (with the exclusions of an accepted refit), the batch's model, bounds and
+        fixed parameters and fit options; a failed group starts from the start the batch used.
+        Guide it, :meth:`fit`, then :meth:`review_accept`.
+
+        Raises
+        ------
+        ParameterError
+            No such group (by key or label).
+        DataError
+            The group's data could not be read (its reason says why), or no batch.
+        FitError
+            A fit is running.
+        """
+        rv = self._need_review("review_open")
+        if self.fitting:
+            raise FitError(
+                "A fit is running; wait for it (widget.wait()) or stop it (widget.cancel()) "
+                "before opening another group."
+            )
+        b = rv.batch
+        i = b.index_of(group)
+        ds = b.datasets[i]
+        if ds is None:
+            raise DataError(f"group {b.labels[i]!r} has no data to open: {b.reasons[i]}")
+        model = b.model
+        with self.hold_sync(), self._internal():
+            self._ds = ds
+            self._excluded = [int(r) for r in ds.row[~ds.include]]
+            self._memory = {model.name: _Memory(settings=Parameters(()))}
+            self.model_name = model.name
+            guided, _ = self._guided_settings(model)
+            self._memory[model.name] = _Memory(settings=self._review_settings(i, guided))
+            self._comparison_key = ()
+            self._degree_cache = None
+            rv.opened, rv.since = i, len(self._history)
+            self.excluded = list(self._excluded)
+            self.x_scale = rv.x_scale
+            self.result = None
+            self.error = ""
+            self._show_model(model.name)
+            self.status = {"state": "idle", "message": self._review_note()}
+            self._review_show()
+
+    def review_accept(self, note: str | None = None) -> BatchResult:
+        """Write the opened group's latest refit into the batch (:meth:`BatchResult.replace_fit`).
+
+        The group's row and status are recomputed from the refit as the batch does, and it is
+        marked edited with ``note`` (by default a note of what changed: fixed parameters and
+        excluded points). Returns the batch (the same object, changed).
+
+        Raises
+        ------
+        FitError
+            No converged refit of the opened group since it was opened (press Fit first), that
+            refit is already in the batch, or a fit is running.
+        ModelError
+            The refit is of another model than the batch's (switch back to it).
+        ParameterError
+            An empty note.
+        """
+        rv = self._need_review("review_accept")
+        b = rv.batch
+        label = b.labels[rv.opened]
+        if self.fitting:
+            raise FitError("A fit is running; wait for it (widget.wait()) before accepting.")
+        res = self._review_candidate()
+        if res is None:
+            other = self.model_name != b.model.name
+            raise (ModelError if other else FitError)(
+                f"there is no refit of group {label!r} with the batch's model {b.model.name!r} "
+                "to accept"
+                + (f" (the plot shows {self.model_name!r}; switch back to it)" if other else "")
+                + ": guide the curve, press Fit (widget.fit()), then accept."
+            )
+        if b._fits.get(rv.opened) is res and b.edited[rv.opened]:
+            raise FitError(f"this refit of group {label!r} is already in the batch.")
+        if not res.success:
+            raise FitError(
+                f"the refit of group {label!r} did not converge ({res.message}); guide the "
+                "curve closer to the points and fit again before accepting."
+            )
+        text = _edit_note(res, b, rv.opened) if note is None else note
+        b.replace_fit(label, res, note=text)
+        rv.entries[rv.opened] = _review.group_entry(b, rv.opened, rv.x_scale)
+        with self.hold_sync(), self._internal():
+            self.review_json = _review.review_json(b, rv.x_scale, rv.entries)
+            self._review_show()
+            self.status = {
+                "state": "done",
+                "message": f"group {label} accepted into the batch: now {b.statuses[rv.opened]}",
+            }
+        return b
 
     # =================================================================== public: groups
     @property
@@ -809,6 +1005,8 @@ class CurveBench(anywidget.AnyWidget):
             "show_residuals": bool(self.show_residuals),
             "n_input": int(self._ds.n_input),
             "groups": self._groups_snapshot(),
+            # Made on a batch: the group the state belongs to (restore needs that group open).
+            "review_group": self.review_group,
         }
 
     def _groups_snapshot(self) -> dict[str, Any] | None:
@@ -895,6 +1093,12 @@ class CurveBench(anywidget.AnyWidget):
             raise DataError(
                 f"The snapshot was taken on data with {n_input} rows; this widget holds "
                 f"{self._ds.n_input}. Restore it on the same data."
+            )
+        kept = snapshot.get("review_group")
+        if self._review is not None and kept is not None and kept != self.review_group:
+            raise DataError(
+                f"The snapshot is of group {kept!r} of the batch; this widget shows group "
+                f"{self.review_group!r}. Open that group first: widget.review_open({kept!r})."
             )
         name = snapshot.get("model")
         if not isinstance(name, str):
@@ -1043,6 +1247,13 @@ class CurveBench(anywidget.AnyWidget):
                 self.hide_group(content.get("label"), bool(content.get("hidden", True)))
             elif kind == "exclude_group":
                 self.exclude_group(content.get("label"), bool(content.get("excluded", True)))
+            elif kind == "review_open":
+                self.review_open(content.get("label"))
+            elif kind == "review_accept":
+                note = content.get("note")
+                self.review_accept(None if note is None else str(note))
+            elif kind == "review_filter":
+                self.review_filter(content.get("filter"))
             elif kind == "dismiss":
                 self.error = ""
             elif kind == "use_degree":
@@ -1175,6 +1386,71 @@ class CurveBench(anywidget.AnyWidget):
         return records.validated(model), tuple(m.text for m in moved)
 
     # ---- groups (by=)
+    def _need_review(self, what: str) -> _ReviewSetup:
+        if self._review is None:
+            raise DataError(
+                f"{what} needs a widget made on a batch: CurveBench(batch) or batch.review()."
+            )
+        return self._review
+
+    def _review_settings(self, i: int, guided: Parameters) -> Parameters:
+        """Group ``i``'s records: the batch's settings at its fitted values (else its start)."""
+        rv = self._need_review("review")
+        b = rv.batch
+        fit = b._fits.get(i)
+        if b.edited[i] and fit is not None and len(fit.parameters):
+            # An accepted refit opens as it was made (its own fixed parameters and bounds).
+            rec = fit.parameters.with_values({n: fit.values[n] for n in fit.parameters.free})
+        else:
+            rec = b.group_parameters(i)
+            vals: dict[str, float] = {}
+            for j, n in enumerate(b.model.param_names):
+                if n not in rec.free:
+                    continue
+                v = float(b.value_array[i, j])
+                if not math.isfinite(v):
+                    v = float(rec[n].value)
+                if not math.isfinite(v) and n in guided.names:
+                    v = float(guided[n].value)
+                vals[n] = v
+            rec = rec.with_values(vals)
+        out, _moved = rec.inside_bounds()
+        return out
+
+    def _review_note(self) -> str:
+        rv = self._need_review("review")
+        b, i = rv.batch, rv.opened
+        head = f"group {b.labels[i]} of the batch: {b.statuses[i]}"
+        tail = [t for t in (b.reasons[i], b.notes[i] and f"edited: {b.notes[i]}") if t]
+        return head + (f" ({'; '.join(tail)})" if tail else "")
+
+    def _review_candidate(self) -> FitResult | None:
+        """The latest refit of the opened group with the batch's model, if any."""
+        rv = self._review
+        if rv is None:
+            return None
+        mem = self._memory.get(rv.batch.model.name)
+        res = None if mem is None else mem.result
+        if res is None or not any(r is res for r in self._history[rv.since :]):
+            return None
+        return res
+
+    def _review_show(self, *, json_too: bool = False) -> None:
+        rv = self._review
+        if rv is None:
+            return
+        b = rv.batch
+        if json_too:
+            self.review_json = _review.review_json(b, rv.x_scale, rv.entries)
+        res = self._review_candidate()
+        done = res is not None and b._fits.get(rv.opened) is res and b.edited[rv.opened]
+        self.review_state = {
+            "filter": rv.filter,
+            "open": b.labels[rv.opened],
+            "can_accept": bool(res is not None and res.success and not done),
+            "accepted": bool(done),
+        }
+
     def _need_groups(self, what: str) -> _GroupSetup:
         if self._groups is None:
             raise DataError(
@@ -1722,6 +1998,7 @@ class CurveBench(anywidget.AnyWidget):
                 self.compare = self._compare_json()
                 self._update_comparison()
             self.status = {"state": state, "message": message}
+            self._review_show()
         self._announce(res)
 
 
@@ -1817,6 +2094,28 @@ def _group_setup(
         row_group=row_group,
         selected=groups.labels[0],
     )
+
+
+def _first_to_open(batch: BatchResult) -> int | None:
+    """The group a review opens with: the first failed one with data, else flagged, else any."""
+    for want in ("failed", "flagged", None):
+        for i, (s, d) in enumerate(zip(batch.statuses, batch.datasets, strict=True)):
+            if d is not None and want in (None, s):
+                return i
+    return None
+
+
+def _edit_note(res: FitResult, batch: BatchResult, i: int) -> str:
+    """The default note of an accepted refit: what the person changed, in plain words."""
+    parts = ["refitted in review"]
+    fixed = [n for n in res.fixed if n not in batch.parameters.fixed]
+    if fixed:
+        parts.append(f"fixed {', '.join(fixed)}")
+    ds = res.dataset
+    out = [int(r) for r in ds.row[~ds.include]]
+    if out:
+        parts.append(f"{len(out)} point(s) excluded (rows {', '.join(map(str, out[:8]))})")
+    return "; ".join(parts)
 
 
 def _catalog() -> Mapping[str, Model]:
