@@ -12,7 +12,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from curvewright.data import Dataset, make_dataset
@@ -149,6 +149,8 @@ def test_split_groups_gives_each_group_what_make_dataset_gives_its_rows(
     with_exclude=st.booleans(),
     object_column=st.booleans(),
 )
+# Found by hypothesis: a sigma of 0 on a row whose y is NaN (a dropped row, not a refused one).
+@example(seed=19, with_sigma=True, with_exclude=False, object_column=False)
 def test_split_groups_arrays_equal_the_datasets_made_one_by_one(
     seed: int, with_sigma: bool, with_exclude: bool, object_column: bool
 ) -> None:

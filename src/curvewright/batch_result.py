@@ -413,7 +413,10 @@ class BatchResult:
             "reasons": put_in(self.reasons, str(row.reason)),
             "paths": put_in(self.paths, "per-group"),
             "flags": put_in(self.flags, tuple(str(c) for c in row.flags)),
-            "datasets": put_in(self.datasets, ds),
+            # A lazy table of datasets stays lazy: only this group's entry changes.
+            "datasets": self.datasets.replaced(i, ds)
+            if isinstance(self.datasets, GroupDatasets)
+            else put_in(tuple(self.datasets), ds),
             "edited": put_in(self.edited, True),
             "notes": put_in(self.notes, note.strip()),
         }

@@ -8,6 +8,7 @@ across several datasets can share parameters later; today's ``fit`` passes one.
 
 from __future__ import annotations
 
+import copy
 import difflib
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -454,6 +455,12 @@ class GroupDatasets(Sequence["Dataset | None"]):
             raise IndexError(f"group {i} out of range (there are {self._n}).")
         return self._get(j)
 
+    def replaced(self, g: int, dataset: Dataset | None) -> GroupDatasets:
+        """A copy with group ``g``'s Dataset replaced (the arrays are shared, nothing is built)."""
+        out = copy.copy(self)
+        out._made = {**self._made, g: dataset}
+        return out
+
     def _get(self, g: int) -> Dataset | None:
         if g not in self._made:
             self._made[g] = self._build(g)
@@ -862,7 +869,10 @@ def _split_whole(
     starts = off[:-1]
     nan_s = nan_all[order]
     n_nan = np.add.reduceat(nan_s.astype(np.int64), starts) if G else np.zeros(0, np.int64)
-    n_bad = np.add.reduceat((~clean[order]).astype(np.int64), starts) if G else n_nan
+    # A refused value on a row already dropped for a NaN does not count (make_dataset drops
+    # NaN rows first: an sigma of 0 beside a missing y is just a missing row).
+    refused = ~clean[order] & ~nan_s
+    n_bad = np.add.reduceat(refused.astype(np.int64), starts) if G else n_nan
     ok = (n_bad == 0) & (n_nan < counts)
     gid = np.repeat(np.arange(G), counts)
     used = ~nan_s & ok[gid]
@@ -889,6 +899,9 @@ def _split_whole(
         x_label=x, y_label=y, labels=labels, made=made,
     )  # fmt: skip
     n_dropped = np.where(ok, n_nan, 0).astype(np.int64)
+    for g, d in made.items():
+        if d is not None:
+            n_dropped[g] = d.n_dropped
     if any(d is not None for d in made.values()):  # pragma: no cover - as above
         ux, uy, us, uoff = _used_arrays(list(datasets), sa is not None)
     else:

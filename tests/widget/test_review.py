@@ -41,7 +41,11 @@ def _plate() -> pd.DataFrame:
     rows: list[dict[str, Any]] = []
     for k in range(6):
         rng = np.random.default_rng(k)
-        y = logistic4(CONC, 100.0, 5.0, -6.5 + 0.1 * k, 1.2) + rng.normal(0, 2.0, CONC.size)
+        # W5's doses stop before its curve reaches the bottom plateau (IC50 above the top
+        # dose): the data cannot place full_effect, so no start makes the fit identifiable
+        # until a person fixes the plateau at the assay's known bottom.
+        mid = -3.5 if k == 5 else -6.5 + 0.1 * k
+        y = logistic4(CONC, 100.0, 5.0, mid, 1.2) + rng.normal(0, 2.0, CONC.size)
         rows += [{"well": f"W{k}", "conc": c, "resp": v} for c, v in zip(CONC, y, strict=True)]
     rows += [{"well": "W6", "conc": c, "resp": 50.0} for c in CONC]  # a constant response
     bad = [{"well": "W7", "conc": c, "resp": 40.0 + i} for i, c in enumerate(CONC)]
@@ -57,7 +61,7 @@ def _batch() -> BatchResult:
         {
             "zero_dose": 100.0,
             "full_effect": 5.0,
-            # W5 starts far off (a steep step at the left edge): the batch cannot fit it.
+            # W5 also starts far off (a steep step at the left edge).
             "log_ic50": [-8.8 if g == "W5" else -6.5 for g in labels],
             "n_h": [40.0 if g == "W5" else 1.2 for g in labels],
         },
@@ -75,7 +79,7 @@ def batch() -> BatchResult:
 
 def test_the_plate_has_the_failures_the_review_is_for(batch: BatchResult) -> None:
     st = batch.status
-    assert st["W5"] == "failed" and "singular" in batch.reasons[batch.index_of("W5")]
+    assert st["W5"] == "failed" and "degenerate" in batch.reasons[batch.index_of("W5")]
     assert st["W6"] == "failed" and st["W7"] == "failed"
     assert batch.datasets[batch.index_of("W7")] is None
     assert all(st[f"W{k}"] in ("ok", "flagged") for k in range(5))
@@ -164,6 +168,7 @@ def test_accept_writes_the_refit_into_the_batch_as_the_batch_would(batch: BatchR
         w.review_accept()
     for name, v in GOOD_START.items():
         w.set_param(name, value=v)
+    w.set_param("full_effect", value=5.0, fixed=True)  # the assay's known bottom plateau
     res = w.fit()
     assert res is not None and res.success
     assert w.review_state["can_accept"] is True
@@ -181,7 +186,10 @@ def test_accept_writes_the_refit_into_the_batch_as_the_batch_would(batch: BatchR
         x="conc",
         y="resp",
         by="well",
-        start=pd.DataFrame([GOOD_START], index=["W5"]),
+        start=pd.DataFrame(
+            [{k: v for k, v in GOOD_START.items() if k != "full_effect"}], index=["W5"]
+        ),
+        fixed={"full_effect": 5.0},
         progress=False,
     )
     assert batch.statuses[i] == alone.statuses[0] and batch.statuses[i] != "failed"
@@ -191,16 +199,24 @@ def test_accept_writes_the_refit_into_the_batch_as_the_batch_would(batch: BatchR
     # Outside reference: curve_fit (MINPACK) on the group's points from the same start.
     ds = batch.datasets[i]
     assert ds is not None
-    popt, _ = scipy.optimize.curve_fit(
-        logistic4, ds.x, ds.y, p0=list(GOOD_START.values()), xtol=1e-14, ftol=1e-14, maxfev=20000
+    free = [GOOD_START["zero_dose"], GOOD_START["log_ic50"], GOOD_START["n_h"]]
+    p3, _ = scipy.optimize.curve_fit(
+        lambda x, z, m, h: logistic4(x, z, 5.0, m, h),
+        ds.x,
+        ds.y,
+        p0=free,
+        xtol=1e-14,
+        ftol=1e-14,
+        maxfev=20000,
     )
-    assert np.all(np.abs(batch.value_array[i] - popt) <= 1e-3 * batch.stderr_array[i])
+    popt = np.array([p3[0], 5.0, p3[1], p3[2]])
+    se = np.nan_to_num(batch.stderr_array[i], nan=0.0)  # the fixed plateau has none
+    assert np.all(np.abs(batch.value_array[i] - popt) <= 1e-3 * se + 1e-12)
     # Every table agrees; the group is marked edited with a note; the other groups are untouched.
     t = batch.table
     assert t.loc["W5", "status"] == batch.status["W5"] and t.loc["W5", "edited"]
-    assert t.loc["W5", "note"] == "refitted in review" and batch.note.to_dict() == {
-        "W5": "refitted in review"
-    }
+    note = "refitted in review; fixed full_effect"
+    assert t.loc["W5", "note"] == note and batch.note.to_dict() == {"W5": note}
     assert batch.values.loc["W5", "log_ic50"] == res.values["log_ic50"]
     assert batch.path["W5"] == "per-group" and batch["W5"] is res
     assert [bool(e) for e in t["edited"]] == [lab == "W5" for lab in batch.labels]
@@ -293,6 +309,7 @@ def test_take_and_combine_keep_the_edits_and_the_refits(batch: BatchResult) -> N
     w = batch.review()
     for name, v in GOOD_START.items():
         w.set_param(name, value=v)
+    w.set_param("full_effect", value=5.0, fixed=True)
     res = w.fit()
     w.review_accept(note="new start by hand")
     i = batch.index_of("W5")
@@ -315,3 +332,21 @@ def test_a_snapshot_belongs_to_its_group(batch: BatchResult) -> None:
     w.review_open("W5")
     w.restore(snap)
     assert w.values["n_h"] == 2.0
+
+
+def test_replace_fit_changes_only_that_groups_dataset(batch: BatchResult) -> None:
+    # The batch's datasets are built on demand; accepting one group's refit must not build (or
+    # change) the others'.
+    from curvewright.data import GroupDatasets
+
+    i = batch.index_of("W1")
+    ds = batch.datasets[i]
+    assert ds is not None
+    refit = cw.fit("inhibition_4pl", dataset=ds.with_exclusions([0]), start=GOOD_START)
+    others = {g: batch.datasets[batch.index_of(g)] for g in ("W0", "W2")}
+    batch.replace_fit("W1", refit, note="first dose left out")
+    if isinstance(batch.datasets, GroupDatasets):
+        assert isinstance(batch.datasets, GroupDatasets)  # still lazy after the accept
+    assert batch.datasets[i] is refit.dataset
+    for g, before in others.items():
+        assert batch.datasets[batch.index_of(g)] is before
