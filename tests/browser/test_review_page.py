@@ -37,14 +37,16 @@ def logistic4(x, zero, full, log_ic50, h):
 rows = []
 for k in range(6):
     rng = np.random.default_rng(k)
-    y = logistic4(conc, 100, 5, -6.5 + 0.1 * k, 1.2) + rng.normal(0, 2, conc.size)
+    mid = -3.5 if k == 5 else -6.5 + 0.1 * k  # W5 never reaches its bottom plateau
+    y = logistic4(conc, 100, 5, mid, 1.2) + rng.normal(0, 2, conc.size)
     rows += [{"well": f"W{k}", "conc": c, "resp": v} for c, v in zip(conc, y)]
 rows += [{"well": "W6", "conc": c, "resp": 50.0} for c in conc]
 bad = [{"well": "W7", "conc": c, "resp": 40.0 + i} for i, c in enumerate(conc)]
 bad[3]["resp"] = "overflow"
 df = pd.DataFrame(rows + bad)
 labels = sorted(df["well"].unique())
-start = pd.DataFrame({"zero_dose": 100.0, "full_effect": 5.0,
+start = pd.DataFrame({"zero_dose": 100.0,
+                      "full_effect": [70.0 if g == "W5" else 5.0 for g in labels],
                       "log_ic50": [-8.8 if g == "W5" else -6.5 for g in labels],
                       "n_h": [40.0 if g == "W5" else 1.2 for g in labels]}, index=labels)
 batch = cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="well", start=start,
@@ -55,8 +57,11 @@ w
 STATE = """
 i = batch.index_of("W5")
 r = batch["W5"]
+held = {n: r.values[n] for n in r.fixed}
 alone = cw.fit_groups("inhibition_4pl", data=df[df["well"] == "W5"], x="conc", y="resp",
-                      by="well", start=pd.DataFrame([r.start], index=["W5"]), progress=False)
+                      by="well", fixed=held or None, progress=False,
+                      start=pd.DataFrame([{n: v for n, v in r.start.items() if n not in held}],
+                                         index=["W5"]))
 print("STATE", json.dumps({
     "status": dict(batch.status), "edited": list(batch.edited), "notes": list(batch.notes),
     "review": w.review_state, "open": w.review_group, "filter_shown": list(w.review_shown),
@@ -151,21 +156,27 @@ def test_filter_open_drag_refit_accept_reach_the_batch(
     accept = panel.get_by_role("button", name="Accept the refit of group W5 into the batch")
     assert accept.is_disabled()
 
-    # --- fix it: drag the IC50 handle to the middle of the doses, type a gentler slope.
+    # --- fix it: its doses stop before the bottom plateau, so no start helps; drag the IC50
+    # handle towards the top doses, type a gentler slope, and hold the bottom plateau at the
+    # assay's known level (5) with its Fix box.
     cwpage.show_plot(root)
     ax = cwpage.axes(root)
     mid = cwpage.handle_named(root, r"^IC50")
     v0 = mid.get_attribute("aria-valuenow")
-    dx = ax.x(10**-6.3) - ax.x(10**-8.8)
+    dx = ax.x(10**-4.5) - ax.x(10**-8.8)
     cwpage.drag(page, mid, dx, 0, steps=20)
     cwpage.wait_attr_change(page, mid, "aria-valuenow", v0)
     cwpage.wait_root_attr(page, root, "data-cw-dragging", "")
     n_h = root.get_by_role("textbox", name="n_h", exact=True)
     n_h.fill("1")
     n_h.press("Enter")
+    full = root.get_by_role("textbox", name="full_effect", exact=True)
+    full.fill("5")
+    full.press("Enter")
+    root.get_by_role("checkbox", name="Fix full_effect").check()
     s3 = _state(page, root)
-    assert -7.0 < s3["values"]["log_ic50"] < -5.6, s3["values"]  # the drag moved it
-    assert s3["values"]["n_h"] == 1.0
+    assert -5.5 < s3["values"]["log_ic50"] < -3.5, s3["values"]  # the drag moved it
+    assert s3["values"]["n_h"] == 1.0 and s3["values"]["full_effect"] == 5.0
 
     # --- refit, accept; the batch in the kernel holds the new fit.
     root.get_by_role("button", name=re.compile("Fit")).click()
@@ -181,8 +192,8 @@ def test_filter_open_drag_refit_accept_reach_the_batch(
     assert s4["status"]["W5"] == s4["alone"]["status"]  # the batch's own rule
     assert s4["row"] == pytest.approx(s4["alone"]["values"], rel=1e-6)
     assert s4["edited"] == [lab == "W5" for lab in sorted(s4["status"])]
-    assert s4["notes"][sorted(s4["status"]).index("W5")] == "refitted in review"
-    assert s4["json_edits"] == "refitted in review"
+    assert s4["notes"][sorted(s4["status"]).index("W5")] == "refitted in review; fixed full_effect"
+    assert s4["json_edits"] == "refitted in review; fixed full_effect"
     assert s4["review"]["accepted"] is True
     # Shown again with all groups, its row says it was edited.
     panel.get_by_role("button", name="All (8)").click()
