@@ -1425,13 +1425,15 @@ def _locations(model: Model) -> set[str]:
 
 
 def location_parameters(model: Model) -> dict[str, str]:
-    """The parameters that are positions on the x axis, and on which scale.
+    """The parameters that are positions or levels, and the axis that measures them.
 
     ``"log"`` for a log10 midpoint (unit ``"log10(x)"``, e.g. a dose-response ``log_ic50``),
-    ``"lin"`` for a position added to or subtracted from x (a peak centre, a half-activation
-    voltage). Such a parameter's value can sit at or near zero where nothing is wrong (an IC50
-    of 1 in the data's unit has ``log_ic50 = 0``), so its standard error is judged against the
-    span of the data along x, not against its own size. Cached per model.
+    ``"lin"`` for a position subtracted from x (a peak centre, a half-activation voltage),
+    ``"y"`` for a level or amplitude in y's unit that may take either sign (a plateau, a
+    baseline, an intercept). Such a parameter's value can sit at or near zero where nothing is
+    wrong (an IC50 of 1 in the data's unit has ``log_ic50 = 0``; full inhibition has
+    ``full_effect = 0``), so its standard error is judged against the data's span on that axis,
+    not against its own size. Cached per model.
     """
     key = id(model)
     hit = _LOCATION_CACHE.get(key)
@@ -1440,6 +1442,11 @@ def location_parameters(model: Model) -> dict[str, str]:
     out = {p.name: "log" for p in model.params if p.unit == "log10(x)"}
     for n in sorted(_x_offsets(model)):
         out.setdefault(n, "lin")
+    # Levels and amplitudes in y's unit that may take any sign (a plateau, a baseline, an
+    # intercept): zero is an ordinary value for them, so they are judged against y's span.
+    for p in model.params:
+        if p.unit == "y" and not p.positive:
+            out.setdefault(p.name, "y")
     if len(_LOCATION_CACHE) > 256:
         _LOCATION_CACHE.clear()
     _LOCATION_CACHE[key] = (model, out)

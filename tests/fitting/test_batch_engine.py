@@ -41,7 +41,7 @@ from curvewright.fitting.batch_engine import (
 from curvewright.fitting.batch_kernel import available
 from curvewright.fitting.batch_run import _runaway
 from curvewright.models import Model
-from curvewright.start import x_span
+from curvewright.start import location_parameters, x_span
 from curvewright.thresholds import NOT_IDENTIFIED_RSE
 from test_catalog import CASES, EXTRA_CASES, Case
 
@@ -353,11 +353,20 @@ def test_flags_follow_the_thresholds() -> None:
     # Not identified: a standard error above its value, except for positions on the x axis
     # (here log_ic50), whose standard error is held against the group's span along x in
     # decades (start.location_parameters; the single fit's rule in assemble._diagnostics).
+    # Levels in y's unit that may take either sign (the two plateaus) against the group's span
+    # of y.
     expected = stats.stderr / np.abs(sol.values) > NOT_IDENTIFIED_RSE
-    j = m.param_names.index("log_ic50")
-    for i in range(prob.groups):
-        span = x_span(xs[i], "log")
-        expected[i, j] = stats.stderr[i, j] > NOT_IDENTIFIED_RSE * span
+    where = location_parameters(m)
+    assert where == {"log_ic50": "log", "zero_dose": "y", "full_effect": "y"}
+    for j, name in enumerate(m.param_names):
+        for i in range(prob.groups):
+            if where.get(name) == "log":
+                span = x_span(xs[i], "log")
+            elif where.get(name) == "y":
+                span = float(np.ptp(ys[i]))
+            else:
+                continue
+            expected[i, j] = stats.stderr[i, j] > NOT_IDENTIFIED_RSE * span
     assert np.array_equal(stats.not_identified, expected)
     for i in range(prob.groups):
         c = stats.covariance[i]

@@ -15,6 +15,7 @@ import json
 import math
 import pickle
 import threading
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -30,6 +31,14 @@ from curvewright.batch_result import BatchResult
 from curvewright.catalog import catalog
 
 DATA = Path(__file__).resolve().parents[1] / "data" / "r_datasets"
+
+
+def _same_values(got: np.ndarray, one: cw.FitResult, names: Sequence[str]) -> None:
+    """The batch's values equal the single fit's: 1e-6 relative, or 1e-4 of a standard error
+    for a value near zero (a plateau at 0), where relative agreement means nothing."""
+    ref = np.array([one.values[n] for n in names])
+    se = np.nan_to_num(np.array([one.stderr[n] for n in names]), nan=0.0)
+    assert np.all(np.abs(got - ref) <= 1e-6 * np.abs(ref) + 1e-4 * se), (got, ref, se)
 
 
 def _dnase() -> pd.DataFrame:
@@ -513,9 +522,7 @@ def test_batch_is_never_worse_than_fit_from_the_same_start(seed: int) -> None:
         )
         assert batch.ssr_array[i] <= one.ssr * (1 + 1e-6)
         if "not_identified" not in batch.flags[i] and "near_singular" not in batch.flags[i]:
-            np.testing.assert_allclose(
-                batch.value_array[i], [one.values[n] for n in names], rtol=1e-6
-            )
+            _same_values(batch.value_array[i], one, names)
         assert math.isfinite(batch.ssr_array[i])
 
 
@@ -588,6 +595,4 @@ def test_every_catalog_family_is_never_worse_than_fit(name: str) -> None:
         one = cw.fit(m, data=df[df["g"] == key], x="x", y="y", start=start)
         assert batch.ssr_array[i] <= one.ssr * (1 + 1e-6) + 1e-300
         if not {"not_identified", "near_singular"} & set(batch.flags[i]):
-            np.testing.assert_allclose(
-                batch.value_array[i], [one.values[n] for n in m.param_names], rtol=1e-6
-            )
+            _same_values(batch.value_array[i], one, m.param_names)

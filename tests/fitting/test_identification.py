@@ -82,7 +82,33 @@ def test_which_parameters_are_positions() -> None:
     # Common practice: a dose-response midpoint (log10 units) and a peak centre are positions
     # on the x axis; a baseline, an amplitude and Km are sizes.
     cat = cw.catalog()
-    assert location_parameters(cat["inhibition_4pl"]) == {"log_ic50": "log"}
-    assert location_parameters(cat["gaussian_peak"]) == {"center": "lin"}
-    assert location_parameters(cat["michaelis_menten"]) == {}
+    # Levels in y's unit that may take either sign (plateaus, baselines) are measured on y.
+    assert location_parameters(cat["inhibition_4pl"]) == {
+        "log_ic50": "log",
+        "zero_dose": "y",
+        "full_effect": "y",
+    }
+    assert location_parameters(cat["gaussian_peak"]) == {
+        "center": "lin",
+        "baseline": "y",
+        "amplitude": "y",
+    }
+    assert location_parameters(cat["michaelis_menten"]) == {}  # Vmax, Km: positive sizes
     assert location_parameters(cw.Model.from_formula("base + a*exp(-k*x)")) == {}
+
+
+def test_a_plateau_at_zero_is_not_flagged_when_the_data_pin_it() -> None:
+    # Complete inhibition to 0: full_effect near 0 with a small standard error against the
+    # response's span is a good estimate (reference: scipy least_squares' standard error).
+    rng = np.random.default_rng(21)
+    x = np.repeat(10.0 ** np.linspace(-3, 3, 13), 2)
+    y = _four_pl(x, 0.0, 100.0, 0.5, 1.0) + rng.normal(0, 2, x.size)
+    r = cw.fit("inhibition_4pl", x, y)
+    ls = scipy.optimize.least_squares(
+        lambda p: _four_pl(x, *p) - y, [0.0, 100.0, 0.5, 1.0], method="lm", xtol=1e-15
+    )
+    s2 = float(ls.fun @ ls.fun) / (x.size - 4)
+    se = float(np.sqrt((s2 * np.linalg.inv(ls.jac.T @ ls.jac))[0, 0]))
+    assert abs(r.stderr["full_effect"] - se) < 1e-4 * se
+    assert abs(r.values["full_effect"]) < se  # the relative rule would have flagged it
+    assert "full_effect" not in _flagged(r)

@@ -138,15 +138,19 @@ def _diagnostics(
         # or far from zero with an interval wider than the data. A global fit's per-group
         # name is "name[group]".
         where = locations.get(n.split("[", 1)[0])
-        span = x_span(prob.x, where) if where is not None else math.nan
+        if where == "y":
+            span = float(np.ptp(prob.y)) if prob.y.size >= 2 else math.nan
+        else:
+            span = x_span(prob.x, where) if where is not None else math.nan
         if math.isfinite(span) and span > 0:
             if se <= NOT_IDENTIFIED_RSE * span:
                 continue
             unit = " decades" if where == "log" else ""
+            axis = "y" if where == "y" else "x"
             text = (
                 f"'{n}' is not identified by the data: its standard error ({se:.3g}) is wider "
-                f"than the data's whole span along x ({span:.3g}{unit}). Collect data around "
-                "it, or fix it."
+                f"than the data's whole span along {axis} ({span:.3g}{unit}). Collect data "
+                "where it matters, or fix it."
             )
         else:
             if v == 0 or se / abs(v) <= NOT_IDENTIFIED_RSE:

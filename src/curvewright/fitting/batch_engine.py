@@ -770,7 +770,16 @@ class BatchStatistics:
 
 
 def _x_spans(prob: BatchProblem, where: str) -> FloatArray:
-    """Each group's extent along x (log10 decades for ``"log"``; NaN when under two points)."""
+    """Each group's extent along x (log10 decades for ``"log"``), or along y for ``"y"``.
+
+    NaN for a group with fewer than two points.
+    """
+    if where == "y":
+        ok = prob.mask & np.isfinite(prob.y)
+        hi = np.where(ok, prob.y, -np.inf).max(axis=1)
+        lo = np.where(ok, prob.y, np.inf).min(axis=1)
+        yspan: FloatArray = np.where(ok.sum(axis=1) >= 2, hi - lo, np.nan)
+        return yspan
     ok = prob.mask & np.isfinite(prob.x)
     if where == "log":
         ok &= prob.x > 0
