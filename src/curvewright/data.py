@@ -869,10 +869,7 @@ def _split_whole(
     starts = off[:-1]
     nan_s = nan_all[order]
     n_nan = np.add.reduceat(nan_s.astype(np.int64), starts) if G else np.zeros(0, np.int64)
-    # A refused value on a row already dropped for a NaN does not count (make_dataset drops
-    # NaN rows first: an sigma of 0 beside a missing y is just a missing row).
-    refused = ~clean[order] & ~nan_s
-    n_bad = np.add.reduceat(refused.astype(np.int64), starts) if G else n_nan
+    n_bad = np.add.reduceat((~clean[order]).astype(np.int64), starts) if G else n_nan
     ok = (n_bad == 0) & (n_nan < counts)
     gid = np.repeat(np.arange(G), counts)
     used = ~nan_s & ok[gid]
@@ -892,7 +889,7 @@ def _split_whole(
             if errors == "raise":
                 raise type(exc)(f"group {labels[g]!r}: {exc}") from exc
             made[g], errs[g] = None, exc
-        else:  # pragma: no cover - make_dataset refuses every row that sent a group here
+        else:  # a refused value on a row make_dataset drops anyway (sigma 0 beside a NaN y)
             made[g] = replace(ds, x_label=x, y_label=y)
     datasets = GroupDatasets(
         G, order=order, offsets=off, x=xa, y=ya, sigma=sa, nan=nan_all, exclude=exclude,
@@ -902,7 +899,7 @@ def _split_whole(
     for g, d in made.items():
         if d is not None:
             n_dropped[g] = d.n_dropped
-    if any(d is not None for d in made.values()):  # pragma: no cover - as above
+    if any(d is not None for d in made.values()):
         ux, uy, us, uoff = _used_arrays(list(datasets), sa is not None)
     else:
         uoff = np.zeros(G + 1, dtype=np.intp)
