@@ -1399,6 +1399,23 @@ def _locations(model: Model) -> set[str]:
     Those are positions on the x axis (a centre, a midpoint, a lag), sampled across the data;
     other x-sized parameters (a width, a time constant) are scales, sampled in log space.
     """
+    return _names_beside_x(model, ("+", "-"), direct=False)
+
+
+def _x_offsets(model: Model) -> set[str]:
+    """Names in ``x - name`` or ``name - x`` themselves: positions such as a centre.
+
+    Not a baseline added to a curve in x (which :func:`_locations` also counts, for its
+    sampling), nor a scale such as ``Km + x``.
+    """
+    return _names_beside_x(model, ("-",), direct=True)
+
+
+def _names_beside_x(model: Model, ops: tuple[str, ...], *, direct: bool) -> set[str]:
+    """Names that are one operand of a sum or difference (``ops``) beside x.
+
+    The other operand is x itself when ``direct``, else any expression in x.
+    """
     if model.expr is None:
         return set()
     found: set[str] = set()
@@ -1406,11 +1423,13 @@ def _locations(model: Model) -> set[str]:
     def has_x(n: Mapping[str, Any]) -> bool:
         if n.get("type") == "name":
             return bool(n.get("id") == "x")
+        if direct:
+            return False
         kids = [n[k] for k in ("arg", "left", "right") if k in n] + list(n.get("args", []))
         return any(has_x(k) for k in kids)
 
     def walk(n: Mapping[str, Any]) -> None:
-        if n.get("type") == "bin" and n.get("op") in ("+", "-"):
+        if n.get("type") == "bin" and n.get("op") in ops:
             for a, b in ((n["left"], n["right"]), (n["right"], n["left"])):
                 if a.get("type") == "name" and a.get("id") != "x" and has_x(b):
                     found.add(str(a["id"]))
@@ -1451,34 +1470,6 @@ def location_parameters(model: Model) -> dict[str, str]:
         _LOCATION_CACHE.clear()
     _LOCATION_CACHE[key] = (model, out)
     return out
-
-
-def _x_offsets(model: Model) -> set[str]:
-    """Names in ``x - name`` or ``name - x`` themselves: positions such as a centre.
-
-    Not a baseline added to a curve in x (which :func:`_locations` also counts, for its
-    sampling), nor a scale such as ``Km + x``.
-    """
-    if model.expr is None:
-        return set()
-    found: set[str] = set()
-
-    def is_x(n: Mapping[str, Any]) -> bool:
-        return n.get("type") == "name" and n.get("id") == "x"
-
-    def walk(n: Mapping[str, Any]) -> None:
-        if n.get("type") == "bin" and n.get("op") == "-":
-            for a, b in ((n["left"], n["right"]), (n["right"], n["left"])):
-                if a.get("type") == "name" and a.get("id") != "x" and is_x(b):
-                    found.add(str(a["id"]))
-        for k in ("arg", "left", "right"):
-            if k in n:
-                walk(n[k])
-        for a in n.get("args", []):
-            walk(a)
-
-    walk(model.expr.to_json())
-    return found
 
 
 # id(model) -> (model, locations); the model is kept so an id is never reused while cached.
