@@ -605,7 +605,11 @@ def _used_arrays(
     return cat([d.x_used for d in ds]), cat([d.y_used for d in ds]), sig, off
 
 
-def _plain_key(key: Any, several: bool) -> Any:
+def plain_key(key: Any, several: bool = True) -> Any:
+    """A group key as plain Python values (numpy scalars unwrapped).
+
+    With one group column (not ``several``) pandas' 1-tuple key is unboxed.
+    """
     k = key if several else (key[0] if isinstance(key, tuple) else key)
     if isinstance(k, tuple):
         return tuple(v.item() if isinstance(v, np.generic) else v for v in k)
@@ -614,6 +618,37 @@ def _plain_key(key: Any, several: bool) -> Any:
 
 def _numeric_column(col: pd.Series) -> bool:
     return bool(pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col))
+
+
+def check_group_columns(
+    data: pd.DataFrame, by: Sequence[str], constants: Sequence[str] = ()
+) -> None:
+    """Check a table's group (and per-group constant) columns: present, and no group missing.
+
+    Raises
+    ------
+    DataError
+        A column the table does not have (with the closest name), or a group column with a
+        missing value (naming the first rows).
+    """
+    for role, names in (("by", by), ("constants", constants)):
+        for c in names:
+            if c not in data.columns:
+                cols = [str(k) for k in data.columns]
+                hint = difflib.get_close_matches(str(c), cols, n=1)
+                did = f" Did you mean {hint[0]!r}?" if hint else ""
+                raise DataError(
+                    f"{role}= names column {c!r}, which the table does not have; its columns "
+                    f"are {cols}.{did}"
+                )
+    for c in by:
+        miss = data[c].isna().to_numpy()
+        if miss.any():
+            rows = np.flatnonzero(miss)[:5].tolist()
+            raise DataError(
+                f"the group column {c!r} is empty (NaN) in rows {rows}: every row needs a group. "
+                "Fill those cells or drop the rows before fitting."
+            )
 
 
 def split_groups(
@@ -670,24 +705,7 @@ def split_groups(
             f"{caller} needs data= as a pandas DataFrame holding the x, y and group columns; "
             f"got {type(data).__name__}."
         )
-    for role, names in (("by", by), ("constants", constants)):
-        for c in names:
-            if c not in data.columns:
-                cols = [str(k) for k in data.columns]
-                hint = difflib.get_close_matches(str(c), cols, n=1)
-                did = f" Did you mean {hint[0]!r}?" if hint else ""
-                raise DataError(
-                    f"{role}= names column {c!r}, which the table does not have; its columns "
-                    f"are {cols}.{did}"
-                )
-    for c in by:
-        miss = data[c].isna().to_numpy()
-        if miss.any():
-            rows = np.flatnonzero(miss)[:5].tolist()
-            raise DataError(
-                f"the group column {c!r} is empty (NaN) in rows {rows}: every row needs a group. "
-                "Fill those cells or drop the rows before fitting."
-            )
+    check_group_columns(data, by, constants)
     for role, col in (("x", x), ("y", y)):
         if not isinstance(col, str):
             raise DataError(
@@ -751,7 +769,7 @@ def split_groups(
         clean = ~bad_all
     grouped = data.groupby(list(by), sort=True, dropna=False).indices
     several = len(by) > 1
-    keys = [_plain_key(k, several) for k in grouped]
+    keys = [plain_key(k, several) for k in grouped]
     labels = labels_of(keys)
     if clean is not None and not constants:
         return _split_whole(

@@ -20,9 +20,9 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from ..batch_result import BatchResult, combine
-from ..data import labels_of
+from ..data import check_group_columns, labels_of, plain_key
 from ..errors import DataError, DependencyError, ParameterError
-from .batch_run import _plain, _Request, check_frame, failed_part, run_table
+from .batch_run import _Request, check_frame, failed_part, run_table
 
 __all__ = ["run_dask"]
 
@@ -217,15 +217,11 @@ def _run_pandas(
 ) -> BatchResult:
     if len(data) == 0:
         raise DataError("data= is an empty table: there are no rows to fit.")
+    check_group_columns(data, req.by)
     work, sig_col, ex_col = _work_table(req, data, sigma, exclude)
-    for c in req.by:
-        if work[c].isna().any():
-            raise DataError(
-                f"the group column {c!r} is empty (NaN) in some rows: every row needs a group."
-            )
     grouped = work.groupby(list(req.by), sort=True, dropna=False).indices
     several = len(req.by) > 1
-    keys = [_plain(k if several else (k[0] if isinstance(k, tuple) else k)) for k in grouped]
+    keys = [plain_key(k, several) for k in grouped]
     if req.frame is not None:
         check_frame(req.frame, keys, labels_of(keys))
     positions = list(grouped.values())
@@ -277,7 +273,7 @@ def _run_dask_frame(
         raise DataError("a group column is empty (NaN) in some rows: every row needs a group.")
     key_table = key_table.sort_values(by).reset_index(drop=True)
     several = len(by) > 1
-    keys = [_plain(tuple(r) if several else r[0]) for r in key_table.itertuples(index=False)]
+    keys = [plain_key(tuple(r), several) for r in key_table.itertuples(index=False)]
     if req.frame is not None:
         check_frame(req.frame, keys, labels_of(keys))
     nparts = max(1, math.ceil(len(keys) / groups_per_task))

@@ -21,7 +21,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..batch_result import BatchResult, register_fit_row, register_group_fit, start_records
-from ..data import Dataset, Groups, labels_of, split_groups
+from ..data import Dataset, Groups, labels_of, plain_key, split_groups
 from ..errors import CurvewrightError, DataError, ParameterError
 from ..inference import quantile
 from ..models import Model
@@ -73,7 +73,7 @@ def check_frame(frame: pd.DataFrame, keys: Sequence[Any], labels: Sequence[str])
         Rows whose index is neither a group key nor a label.
     """
     known = set(keys) | set(labels)
-    extra = [k for k in frame.index.tolist() if _plain(k) not in known]
+    extra = [k for k in frame.index.tolist() if plain_key(k) not in known]
     if extra:
         shown = list(labels[:10]) + (["..."] if len(labels) > 10 else [])
         raise ParameterError(
@@ -81,12 +81,6 @@ def check_frame(frame: pd.DataFrame, keys: Sequence[Any], labels: Sequence[str])
             f"the groups are {shown} (index the start table by group key or label, or give it "
             "the by columns)."
         )
-
-
-def _plain(k: Any) -> Any:
-    if isinstance(k, tuple):
-        return tuple(v.item() if isinstance(v, np.generic) else v for v in k)
-    return k.item() if isinstance(k, np.generic) else k
 
 
 # ============================================================================ running
@@ -296,7 +290,7 @@ def _frame_lookup(frame: pd.DataFrame | None, groups: Groups) -> list[dict[str, 
         where[k] = i
         where.setdefault(lab, i)
     for idx, row in zip(frame.index.tolist(), frame.to_numpy(dtype=float), strict=True):
-        at = where.get(_plain(idx))
+        at = where.get(plain_key(idx))
         if at is not None:
             out[at] = {
                 str(c): float(v)
