@@ -460,6 +460,11 @@ def _first_run(prob: _Problem, watch: _Watch, theta0: FloatArray, method: str, b
     return _solve(prob, watch, theta0, method, "first run", budget)
 
 
+def _first_method(prob: _Problem, method: str) -> str:
+    """The first run's solver: trust-region when asked or for a robust loss, else LM."""
+    return _TR if (method == _TR or prob.loss != "squared") else _LM
+
+
 def _ladder(
     prob: _Problem,
     watch: _Watch,
@@ -468,7 +473,7 @@ def _ladder(
 ) -> list[_Run]:
     """Run solvers until one converges and a restart from its point cannot improve it."""
     theta0 = np.array([prob.values0[n] for n in prob.free], dtype=float)
-    first = _TR if (method == _TR or prob.loss != "squared") else _LM
+    first = _first_method(prob, method)
     other = _TR if first == _LM else _LM
     runs = [_first_run(prob, watch, theta0, first, budget)]
     stop_codes = _STOP

@@ -24,7 +24,7 @@ from ..parameters import Parameter, Parameters
 from ..result import FitResult
 from ..thresholds import CLEARLY_LOWER
 from .assemble import _Degeneracy, _degeneracy, _finish, _Search, _Solution, _solution
-from .engine import _LM, _TR, _global_search, _ladder, _linear_run, _polish, _Run, _Watch
+from .engine import _first_method, _global_search, _ladder, _linear_run, _polish, _Run, _Watch
 from .problem import (
     Loss,
     Method,
@@ -58,7 +58,7 @@ def _search_globally(
     """
     user, deg0 = sol.kept, deg
     assert user is not None  # a suspect point is a solver run's
-    first = _TR if (method == _TR or prob.loss != "squared") else _LM
+    first = _first_method(prob, method)
     found = _global_search(prob, watch, first, budget)
     if not found:
         return sol, deg, None
