@@ -482,6 +482,8 @@ def test_progress_bar_is_drawn_when_asked(capsys: pytest.CaptureFixture[str]) ->
     assert "fitting groups" not in capsys.readouterr().err  # not interactive: off by default
     cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="compound", progress=True)
     assert "fitting groups" in capsys.readouterr().err
+    with pytest.raises(cw.ParameterError, match="progress must be True, False or None"):
+        cw.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="compound", progress="y")  # type: ignore[arg-type]
 
 
 def test_progress_is_on_by_default_at_a_prompt(

@@ -188,6 +188,10 @@ def fit_groups(
         },
     )
     deadline = None if timeout is None else t0 + timeout
+    if progress is not None and not isinstance(progress, (bool, np.bool_)):
+        raise ParameterError(
+            f"progress must be True, False or None (on in a notebook), got {progress!r}."
+        )
     show = _interactive() if progress is None else bool(progress)
     if backend == "dask":
         from .batch_dask import run_dask
