@@ -122,15 +122,15 @@ def test_flagged_reasons_equal_the_per_group_fits_words() -> None:
     names = m.param_names
     bounds = {names[1]: (4.0, None)}
     batch = cw.fit_groups(m, data=df, x="x", y="y", by="g", bounds=bounds, progress=False)
-    seen = 0
+    seen = correlated = 0
     for i, (s, p) in enumerate(zip(batch.statuses, batch.paths, strict=True)):
         if s != "flagged" or p != "vectorised":
             continue
         want = _row_of_fit(batch[i], batch.level)
         assert batch.flags[i] == want.flags
-        # The engine's statistics do not say which pair is highly correlated (the per-group
-        # fit names it), so the words are compared where that finding is absent.
-        if "high_correlation" not in want.flags:
-            seen += 1
-            assert batch.reasons[i] == want.reason
+        # Correlated parameters are named alike too (the engine knows which are in a pair).
+        assert batch.reasons[i] == want.reason
+        seen += 1
+        correlated += "high_correlation" in want.flags
     assert seen >= 3
+    assert correlated >= 1

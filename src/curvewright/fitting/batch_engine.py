@@ -746,6 +746,9 @@ class BatchStatistics:
         Largest ``|r|`` between two free parameters (NaN with fewer than two or singular).
     high_correlation : ndarray of bool, shape (G,)
         ``max_correlation > thresholds.HIGH_CORRELATION``.
+    correlated : ndarray of bool, shape (G, P)
+        The free parameters in a pair with ``|r| > thresholds.HIGH_CORRELATION`` (the names a
+        reason gives, as the single fit names each pair).
     at_lower, at_upper, at_bound : ndarray of bool, shape (G, P)
         A free parameter at (within ``1e-8`` relative of) a finite bound.
     not_identified : ndarray of bool, shape (G, P)
@@ -762,6 +765,7 @@ class BatchStatistics:
     near_singular: BoolArray
     max_correlation: FloatArray
     high_correlation: BoolArray
+    correlated: BoolArray
     at_lower: BoolArray
     at_upper: BoolArray
     at_bound: BoolArray
@@ -874,8 +878,13 @@ def batch_statistics(
         rabs = np.where(np.isfinite(corr) & off[None], np.abs(np.clip(corr, -1.0, 1.0)), -1.0)
         maxr = rabs.reshape(G, -1).max(axis=1)
         maxr = np.where(maxr < 0, np.nan, maxr)
+        pairs = (rabs > HIGH_CORRELATION).any(axis=2)
     else:
         maxr = np.full(G, np.nan)
+        pairs = np.zeros((G, p), dtype=bool)
+    high = ~singular & (np.nan_to_num(maxr, nan=0.0) > HIGH_CORRELATION)
+    correlated = np.zeros((G, P), dtype=bool)
+    correlated[:, fi] = pairs & high[:, None]
     tol = 1e-8 * np.maximum(np.abs(vals), 1e-12) + 1e-300
     at_lower = free[None, :] & np.isfinite(prob.lower) & (np.abs(vals - prob.lower) <= tol)
     at_upper = free[None, :] & np.isfinite(prob.upper) & (np.abs(vals - prob.upper) <= tol)
@@ -907,7 +916,8 @@ def batch_statistics(
         singular=singular,
         near_singular=~singular & (cond > NEAR_SINGULAR),
         max_correlation=maxr,
-        high_correlation=~singular & (np.nan_to_num(maxr, nan=0.0) > HIGH_CORRELATION),
+        high_correlation=high,
+        correlated=correlated,
         at_lower=at_lower,
         at_upper=at_upper,
         at_bound=at_lower | at_upper,

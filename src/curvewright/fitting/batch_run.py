@@ -497,7 +497,12 @@ def _runaway(
     return out
 
 
-def _findings_text(found: Sequence[tuple[str, tuple[str, ...]]]) -> str:
+def _findings_text(found: Sequence[tuple[str, tuple[str, ...]]], order: Sequence[str] = ()) -> str:
+    """A group's findings in the batch's words; names in ``order`` (the model's) come in it.
+
+    One order for both paths: the single fit names correlated pairs as it finds them, the
+    engine's statistics know only which parameters are in a pair.
+    """
     words = {
         "not_identified": "not identified",
         "near_singular": "nearly singular covariance",
@@ -510,6 +515,9 @@ def _findings_text(found: Sequence[tuple[str, tuple[str, ...]]]) -> str:
     for code, ps in found:
         parts.setdefault(code, [])
         parts[code] += [p for p in ps if p not in parts[code]]
+    rank = {n: i for i, n in enumerate(order)}
+    for ps in parts.values():
+        ps.sort(key=lambda p: rank.get(p, len(rank)))
     return "; ".join(
         words.get(c, c)
         + (f": {', '.join(ps)}" if ps and c != "singular" and c != "near_singular" else "")
@@ -560,7 +568,7 @@ def _row_of_fit(r: FitResult, level: float) -> _Row:
     dv = r.derived(level)
     return _Row(
         status="flagged" if found else "ok",
-        reason=_findings_text(found),
+        reason=_findings_text(found, names),
         path="per-group",
         flags=tuple(dict.fromkeys(c for c, _ in found)),
         values=np.array([r.values[n] for n in names]),
@@ -666,7 +674,7 @@ def _run_vectorised(
             stats.at_bound[sel],
             stats.not_identified[sel],
             stats.near_singular[sel, None],
-            stats.high_correlation[sel, None],
+            stats.correlated[sel],
             outside[sel],
         ],
         axis=1,
@@ -734,8 +742,8 @@ def _pattern_findings(
 ) -> tuple[str, tuple[str, ...]]:
     """The reason and flag codes of one pattern of findings (the columns of ``_run_vectorised``).
 
-    ``row`` holds at_bound (P), not_identified (P), near_singular, high_correlation and the
-    extrapolated quantities (D), in the order a per-group fit names them.
+    ``row`` holds at_bound (P), not_identified (P), near_singular, the correlated parameters
+    (P) and the extrapolated quantities (D), in the order a per-group fit names them.
     """
     P = len(names)
     found: list[tuple[str, tuple[str, ...]]] = []
@@ -745,12 +753,13 @@ def _pattern_findings(
             found.append((code, ps))
     if row[2 * P]:
         found.append(("near_singular", ()))
-    if row[2 * P + 1]:
-        found.append(("high_correlation", ()))
-    ext = tuple(qnames[j] for j in np.flatnonzero(row[2 * P + 2 :]).tolist())
+    corr = tuple(n for j, n in enumerate(names) if row[2 * P + 1 + j])
+    if corr:
+        found.append(("high_correlation", corr))
+    ext = tuple(qnames[j] for j in np.flatnonzero(row[3 * P + 1 :]).tolist())
     if ext:
         found.append(("extrapolation", ext))
-    return _findings_text(found), tuple(c for c, _ in found)
+    return _findings_text(found, names), tuple(c for c, _ in found)
 
 
 def _assemble(req: _Request, groups: Groups, out: _Out, starts: FloatArray) -> BatchResult:
