@@ -516,8 +516,8 @@ def _findings_text(found: Sequence[tuple[str, tuple[str, ...]]], order: Sequence
         parts.setdefault(code, [])
         parts[code] += [p for p in ps if p not in parts[code]]
     rank = {n: i for i, n in enumerate(order)}
-    for ps in parts.values():
-        ps.sort(key=lambda p: rank.get(p, len(rank)))
+    for listed in parts.values():
+        listed.sort(key=lambda p: rank.get(p, len(rank)))
     return "; ".join(
         words.get(c, c)
         + (f": {', '.join(ps)}" if ps and c != "singular" and c != "near_singular" else "")
