@@ -1,9 +1,9 @@
 // The review panel (a widget made on a batch): the filter buttons with their counts, the
 // overview of the shown groups as small multiples on one canvas (js/review.ts draws it), the
 // group open in the main plot with its Accept button, and the sortable table of groups. UI only:
-// the filter, opening a group and accepting ask Python (the methods of the same name) and the
-// panel is redrawn from the `review_json` / `review_state` traits; only the table's sort order
-// lives here (a view choice, like the zoom).
+// the filter, opening a group, sorting the table and accepting ask Python (review_filter,
+// review_open, review_sort, review_accept) and the panel is redrawn from the `review_json` /
+// `review_state` traits.
 
 import { el } from "./dom";
 import {
@@ -20,8 +20,7 @@ import {
   filterGroups,
   filterText,
   gridLayout,
-  nextSort,
-  sortRows,
+  tableRows,
   statusCounts,
 } from "./review";
 import { formatNumber } from "./validate";
@@ -29,6 +28,7 @@ import { formatNumber } from "./validate";
 export interface ReviewCallbacks {
   onOpen(label: string): void;
   onFilter(filter: Filter): void;
+  onSort(key: SortKey): void;
   onAccept(): void;
 }
 
@@ -45,12 +45,20 @@ export class ReviewPanel {
   private readonly acceptBtn: HTMLButtonElement;
   private readonly table: HTMLTableElement;
   private review: ReviewJson | null = null;
-  private state: ReviewState = { filter: "all", open: null, canAccept: false, accepted: false };
-  private sort: { key: SortKey; ascending: boolean } = { key: "label", ascending: true };
+  private state: ReviewState = {
+    filter: "all",
+    open: null,
+    canAccept: false,
+    accepted: false,
+    sort: { key: "label", ascending: true },
+    order: null,
+  };
   private shown: number[] = [];
   private layout: GridLayout | null = null;
   private tableOf: ReviewJson | null = null;
   private tableKey = "";
+  /** The sort button clicked last: focused again once Python's new order redraws the table. */
+  private refocusSort: string | null = null;
   /** Milliseconds the last overview draw took (read by the frame benchmark). */
   lastDrawMs = 0;
 
@@ -162,11 +170,16 @@ export class ReviewPanel {
     this.el.dataset["cwReviewShown"] = String(this.shown.length);
     this.drawOverview();
     // The table is rebuilt when its rows change; opening another group only moves the marker.
-    const key = `${state.filter}`;
+    const key = `${state.filter}|${state.sort.key}|${state.sort.ascending}|${(state.order ?? []).join(",")}`;
     if (review !== this.tableOf || key !== this.tableKey) {
       this.tableOf = review;
       this.tableKey = key;
       this.drawTable();
+      if (this.refocusSort !== null) {
+        const b = this.table.querySelector(`button[data-sort="${CSS.escape(this.refocusSort)}"]`) as HTMLElement | null;
+        b?.focus();
+        this.refocusSort = null;
+      }
     } else {
       for (const tr of this.table.querySelectorAll<HTMLTableRowElement>("tr[data-group]")) {
         if (tr.dataset["group"] === state.open) tr.setAttribute("aria-current", "true");
@@ -210,17 +223,17 @@ export class ReviewPanel {
     ];
     for (const c of cols) {
       const th = el("th", { scope: "col" });
-      const on = this.sort.key === c.key;
-      th.setAttribute("aria-sort", on ? (this.sort.ascending ? "ascending" : "descending") : "none");
+      const sort = this.state.sort;
+      const on = sort.key === c.key;
+      th.setAttribute("aria-sort", on ? (sort.ascending ? "ascending" : "descending") : "none");
       const b = el(
         "button",
         { type: "button", class: "cw-review-sort", "data-sort": c.key, "aria-label": `Sort by ${c.text}` },
-        c.text + (on ? (this.sort.ascending ? " ▲" : " ▼") : ""),
+        c.text + (on ? (sort.ascending ? " ▲" : " ▼") : ""),
       );
       b.addEventListener("click", () => {
-        this.sort = nextSort(this.sort, c.key);
-        this.drawTable();
-        (this.table.querySelector(`button[data-sort="${CSS.escape(c.key)}"]`) as HTMLElement | null)?.focus();
+        this.refocusSort = c.key;
+        this.cb.onSort(c.key);
       });
       th.append(b);
       head.append(th);
@@ -230,7 +243,7 @@ export class ReviewPanel {
     thead.append(head);
     t.append(thead);
     const body = el("tbody");
-    for (const gi of sortRows(review.groups, this.shown, this.sort.key, this.sort.ascending)) {
+    for (const gi of tableRows(this.shown, this.state.order)) {
       const g = review.groups[gi]!;
       const tr = el("tr", { "data-group": g.label, "data-status": g.status, tabindex: "0", class: `cw-review-row cw-review-${g.status}` });
       if (g.edited) tr.dataset["edited"] = "true";

@@ -91,24 +91,45 @@ export function readReview(raw: unknown): ReviewJson | null {
   return { columns, groups, log_x: r.log_x === true };
 }
 
-/** The `review_state` trait: the filter, the group open in the main plot, the accept button's state. */
+/**
+ * The `review_state` trait: the filter, the group open in the main plot, the accept button's
+ * state, and the table's sort with the order Python worked out for it (`review_sort`).
+ */
 export interface ReviewState {
   filter: Filter;
   open: string | null;
   canAccept: boolean;
   accepted: boolean;
+  sort: { key: SortKey; ascending: boolean };
+  /** Every group's index in the table's order; null until Python sends one. */
+  order: number[] | null;
 }
 
 /** The state trait read loosely; defaults when absent. */
 export function readReviewState(raw: unknown): ReviewState {
   const r = (raw !== null && typeof raw === "object" ? raw : {}) as Record<string, unknown>;
   const f = r["filter"];
+  const s = (r["sort"] !== null && typeof r["sort"] === "object" ? r["sort"] : {}) as Record<string, unknown>;
+  const o = r["order"];
   return {
     filter: f === "failed" || f === "flagged" ? f : "all",
     open: typeof r["open"] === "string" ? r["open"] : null,
     canAccept: r["can_accept"] === true,
     accepted: r["accepted"] === true,
+    sort: { key: typeof s["key"] === "string" ? s["key"] : "label", ascending: s["ascending"] !== false },
+    order: Array.isArray(o) && o.every((v) => Number.isInteger(v)) ? (o as number[]) : null,
   };
+}
+
+/**
+ * The rows of the table: the shown groups (`shown`, indices into the groups) in the order
+ * Python sent; without one (or one of other groups), the shown order as it is.
+ */
+export function tableRows(shown: readonly number[], order: readonly number[] | null): number[] {
+  if (order === null) return [...shown];
+  const keep = new Set(shown);
+  const out = order.filter((i) => keep.has(i));
+  return out.length === shown.length ? out : [...shown];
 }
 
 /** A filter button's text: its name and how many groups it keeps. */
@@ -117,10 +138,6 @@ export function filterText(filter: Filter, counts: Record<Status, number>): stri
   return filter === "failed" ? `Failed (${counts.failed})` : `Flagged (${counts.flagged})`;
 }
 
-/** The table's order after a click on a column header: the same column flips, another starts ascending. */
-export function nextSort(cur: { key: SortKey; ascending: boolean }, key: SortKey): { key: SortKey; ascending: boolean } {
-  return cur.key === key ? { key, ascending: !cur.ascending } : { key, ascending: true };
-}
 
 /** Indices of the groups a filter keeps, in their order. */
 export function filterGroups(groups: readonly ReviewGroup[], filter: Filter): number[] {
@@ -139,39 +156,6 @@ export function statusCounts(groups: readonly ReviewGroup[]): Record<Status, num
 }
 
 export type SortKey = "label" | "status" | string;
-
-// Failed first, then flagged: sorting by status puts the work at the top.
-const STATUS_RANK: Readonly<Record<Status, number>> = { failed: 0, flagged: 1, ok: 2 };
-
-/**
- * The order of `rows` (indices into `groups`) sorted by a column; stable, missing values (null,
- * NaN) always last whatever the direction, labels compared with numeric awareness (well B2
- * before B10).
- */
-export function sortRows(groups: readonly ReviewGroup[], rows: readonly number[], key: SortKey, ascending: boolean): number[] {
-  const sign = ascending ? 1 : -1;
-  const collator = new Intl.Collator(undefined, { numeric: true, sensitivity: "base" });
-  const value = (i: number): number | string | null => {
-    const g = groups[i]!;
-    if (key === "label") return g.label;
-    if (key === "status") return STATUS_RANK[g.status];
-    const v = g.values[key];
-    return v === null || v === undefined || Number.isNaN(v) ? null : v;
-  };
-  return rows
-    .map((i, pos) => ({ i, pos, v: value(i) }))
-    .sort((a, b) => {
-      if (a.v === null || b.v === null) {
-        if (a.v === b.v) return a.pos - b.pos;
-        return a.v === null ? 1 : -1;
-      }
-      let c: number;
-      if (typeof a.v === "string" || typeof b.v === "string") c = collator.compare(String(a.v), String(b.v));
-      else c = a.v - b.v;
-      return c !== 0 ? sign * c : a.pos - b.pos;
-    })
-    .map((e) => e.i);
-}
 
 /** The grid of small multiples: columns, rows and each cell's size in CSS pixels. */
 export interface GridLayout {

@@ -293,6 +293,7 @@ export type FrontMessage =
   /** Review of a batch: each calls the Python method of the same name. */
   | { type: "review_open"; label: string }
   | { type: "review_filter"; filter: "all" | "failed" | "flagged" }
+  | { type: "review_sort"; key: string }
   | { type: "review_accept" }
   /** A row of the degree table picked: show the polynomial of this degree. */
   | { type: "use_degree"; degree: number }

@@ -83,7 +83,8 @@
 //                         Table table.cw-review-table: sort buttons .cw-review-sort[data-sort]
 //                         ("Sort by <column>"), rows tr[data-group][data-status] (tabindex 0;
 //                         click/Enter/Space opens; data-edited="true"; aria-current = open).
-//                         Filter/open/accept call review_filter/review_open/review_accept.
+//                         Filter/open/sort/accept call review_filter/review_open/review_sort/
+//                         review_accept; the table shows review_state.order.
 //   test hook             root._cwModel is the anywidget model (get/set/save_changes/on/off);
 //                         flush: set sync_ping to n, save_changes, wait for sync_pong === n
 // ------------------------------------------------------------------------------------------
@@ -281,6 +282,7 @@ function render({ model, el }: RenderProps<WidgetModel>): () => void {
   const reviewPanel = new ReviewPanel({
     onOpen: (label) => send(model, { type: "review_open", label }),
     onFilter: (filter) => send(model, { type: "review_filter", filter }),
+    onSort: (key) => send(model, { type: "review_sort", key }),
     onAccept: () => send(model, { type: "review_accept" }),
   });
   root.insertBefore(reviewPanel.el, toolbar);

@@ -11,11 +11,10 @@ import {
   drawOverview,
   filterGroups,
   filterText,
-  nextSort,
   readReviewState,
   gridLayout,
   readReview,
-  sortRows,
+  tableRows,
   statusCounts,
 } from "../review";
 
@@ -113,28 +112,14 @@ describe("filter and counts", () => {
   });
 });
 
-describe("table sort", () => {
-  const gs = [
-    grp("B10", "ok", { ic50: 3 }),
-    grp("B2", "failed", { ic50: null }),
-    grp("A1", "flagged", { ic50: 1 }),
-    grp("C3", "ok", { ic50: Number.NaN }),
-    grp("A2", "ok", { ic50: 2 }),
-  ];
-  const all = [0, 1, 2, 3, 4];
-  it("sorts labels with numeric awareness", () => {
-    expect(sortRows(gs, all, "label", true).map((i) => gs[i]!.label)).toEqual(["A1", "A2", "B2", "B10", "C3"]);
+describe("table rows", () => {
+  // The order is Python's (CurveBench.review_sort); the page keeps the shown groups in it.
+  it("keeps the shown groups in the order sent", () => {
+    expect(tableRows([0, 2, 3], [3, 1, 0, 2])).toEqual([3, 0, 2]);
   });
-  it("puts missing values last in both directions", () => {
-    expect(sortRows(gs, all, "ic50", true)).toEqual([2, 4, 0, 1, 3]);
-    expect(sortRows(gs, all, "ic50", false)).toEqual([0, 4, 2, 1, 3]);
-  });
-  it("by status puts failed, then flagged first", () => {
-    expect(sortRows(gs, all, "status", true).map((i) => gs[i]!.status)).toEqual(["failed", "flagged", "ok", "ok", "ok"]);
-  });
-  it("is stable for ties", () => {
-    const ties = [grp("x", "ok", { v: 1 }), grp("y", "ok", { v: 1 }), grp("z", "ok", { v: 1 })];
-    expect(sortRows(ties, [2, 0, 1], "v", false)).toEqual([2, 0, 1]);
+  it("keeps the shown order without an order, or with one of other groups", () => {
+    expect(tableRows([0, 2, 3], null)).toEqual([0, 2, 3]);
+    expect(tableRows([0, 2, 3], [1, 0])).toEqual([0, 2, 3]);
   });
 });
 
@@ -223,13 +208,24 @@ describe("review state, filter labels and sort toggling", () => {
       open: "W5",
       canAccept: true,
       accepted: false,
+      sort: { key: "label", ascending: true },
+      order: null,
     });
-    expect(readReviewState(null)).toEqual({ filter: "all", open: null, canAccept: false, accepted: false });
+    expect(readReviewState(null)).toEqual({
+      filter: "all",
+      open: null,
+      canAccept: false,
+      accepted: false,
+      sort: { key: "label", ascending: true },
+      order: null,
+    });
     expect(readReviewState({ filter: "everything", open: 3, can_accept: "yes" })).toEqual({
       filter: "all",
       open: null,
       canAccept: false,
       accepted: false,
+      sort: { key: "label", ascending: true },
+      order: null,
     });
   });
   it("keeps an edited group's note and marks it", () => {
@@ -247,10 +243,12 @@ describe("review state, filter labels and sort toggling", () => {
     // The count on a button is the number of groups its filter shows.
     expect(filterGroups(gs, "failed").length).toBe(2);
   });
-  it("flips the direction on the same column and starts ascending on another", () => {
-    const a = nextSort({ key: "label", ascending: true }, "label");
-    expect(a).toEqual({ key: "label", ascending: false });
-    expect(nextSort(a, "label")).toEqual({ key: "label", ascending: true });
-    expect(nextSort(a, "ic50")).toEqual({ key: "ic50", ascending: true });
+  it("reads the sort and the order, with defaults", () => {
+    const st = readReviewState({ filter: "failed", sort: { key: "ic50", ascending: false }, order: [2, 0, 1] });
+    expect(st.sort).toEqual({ key: "ic50", ascending: false });
+    expect(st.order).toEqual([2, 0, 1]);
+    const d = readReviewState({ order: [0, "x"] });
+    expect(d.sort).toEqual({ key: "label", ascending: true });
+    expect(d.order).toBeNull();
   });
 });

@@ -65,6 +65,7 @@ alone = cw.fit_groups("inhibition_4pl", data=df[df["well"] == "W5"], x="conc", y
 print("STATE", json.dumps({
     "status": dict(batch.status), "edited": list(batch.edited), "notes": list(batch.notes),
     "review": w.review_state, "open": w.review_group, "filter_shown": list(w.review_shown),
+    "order": list(w.review_order),
     "values": w.values,
     "alone": {"status": alone.statuses[0], "values": alone.value_array[0].tolist()},
     "row": batch.value_array[i].tolist(),
@@ -137,6 +138,22 @@ def test_filter_open_drag_refit_accept_reach_the_batch(
     assert panel.get_attribute("data-cw-review-shown") == "3"
     s1 = _state(page, root)
     assert s1["filter_shown"] == ["W5", "W6", "W7"]
+
+    # --- sort the table by status, twice: the page asks Python (review_sort), which flips the
+    # direction on the second click; the rows follow Python's order.
+    by_status = panel.get_by_role("button", name="Sort by Status")
+    for want in ("ascending", "descending"):
+        by_status.click()
+        page.wait_for_function(
+            "([el, want]) => el.querySelector('button[data-sort=\"status\"]')"
+            "?.closest('th')?.getAttribute('aria-sort') === want",
+            arg=[root.element_handle(), want],
+            timeout=30_000,
+        )
+        st = _state(page, root)
+        assert st["review"]["sort"] == {"key": "status", "ascending": want == "ascending"}
+        shown = rows.evaluate_all("(rs) => rs.map((r) => r.dataset.group)")
+        assert shown == st["order"]
 
     # --- open W6 by clicking its small plot, then W5 from the table with the keyboard.
     panel.locator("canvas.cw-review-overview").scroll_into_view_if_needed()

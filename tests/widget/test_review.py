@@ -227,7 +227,14 @@ def test_accept_writes_the_refit_into_the_batch_as_the_batch_would(batch: BatchR
     # The page sees it: the overview's entry and the state.
     g = w.review_json["groups"][i]
     assert g["status"] == batch.statuses[i] and g["edited"] and g["cx"]
-    assert w.review_state == {"filter": "all", "open": "W5", "can_accept": False, "accepted": True}
+    assert w.review_state == {
+        "filter": "all",
+        "open": "W5",
+        "can_accept": False,
+        "accepted": True,
+        "sort": {"key": "label", "ascending": True},
+        "order": list(range(len(batch))),
+    }
     with pytest.raises(cw.FitError, match="already in the batch"):
         w.review_accept()
 
@@ -350,3 +357,62 @@ def test_replace_fit_changes_only_that_groups_dataset(batch: BatchResult) -> Non
     assert batch.datasets[i] is refit.dataset
     for g, before in others.items():
         assert batch.datasets[batch.index_of(g)] is before
+
+
+# ------------------------------------------------------------------------------ table sort
+def test_the_table_sorts_numbers_as_pandas_does_with_missing_values_last(
+    batch: BatchResult,
+) -> None:
+    # Reference: pandas' stable sort_values with na_position="last", on the same column.
+    w = CurveBench(batch)
+    col = _review.columns(batch)[0]
+    frame = pd.DataFrame({"label": batch.labels, col: batch.values[col].to_numpy()})
+    for ascending in (True, False):
+        w.review_sort(col, ascending)
+        want = frame.sort_values(col, ascending=ascending, kind="stable", na_position="last")
+        assert list(w.review_order) == list(want["label"])
+        st = w.review_state
+        assert st["sort"] == {"key": col, "ascending": ascending}
+        assert [batch.labels[i] for i in st["order"]] == list(want["label"])
+
+
+def test_the_table_sorts_labels_with_numbers_read_as_numbers() -> None:
+    # Well B2 before B10, letters without case (common practice for plate wells).
+    entries = [
+        {"label": lab, "status": "ok", "values": {}} for lab in ["B10", "b2", "A1", "C3", "A10"]
+    ]
+    order = _review.table_order(entries, "label", True)
+    assert [entries[i]["label"] for i in order] == ["A1", "A10", "b2", "B10", "C3"]
+    assert _review.table_order(entries, "label", False) == order[::-1]
+
+
+def test_sorting_by_status_puts_failed_then_flagged_first_and_a_click_flips(
+    batch: BatchResult,
+) -> None:
+    w = CurveBench(batch)
+    w.review_sort("status")
+    ranks = [_review.STATUS_RANK[batch.status[lab]] for lab in w.review_order]
+    assert ranks == sorted(ranks) and ranks[0] == 0
+    # The page's header click: the same column flips, another starts ascending.
+    w._on_custom_msg(w, {"type": "review_sort", "key": "status"}, [])
+    assert w.review_state["sort"] == {"key": "status", "ascending": False}
+    w._on_custom_msg(w, {"type": "review_sort", "key": "label"}, [])
+    assert w.review_state["sort"] == {"key": "label", "ascending": True}
+    # The filter keeps the sorted order of the groups it shows.
+    w.review_sort("status", False)
+    w.review_filter("failed")
+    assert set(w.review_order) == {lab for lab in batch.labels if batch.status[lab] == "failed"}
+
+
+def test_an_unknown_sort_column_is_our_error_and_changes_nothing(batch: BatchResult) -> None:
+    w = CurveBench(batch)
+    before = dict(w.review_state)
+    with pytest.raises(cw.ParameterError, match="can be sorted by one of"):
+        w.review_sort("no_such_column")
+    with pytest.raises(cw.ParameterError, match="ascending must be"):
+        w.review_sort("label", "yes")  # type: ignore[arg-type]
+    assert w.review_state == before
+    with pytest.raises(cw.DataError):
+        CurveBench(
+            pd.DataFrame({"x": [1.0, 2, 3], "y": [1.0, 2, 3]}), x="x", y="y", model="straight_line"
+        ).review_sort("label")

@@ -9,6 +9,8 @@ whole batch, by the rule the main plot uses, so every small plot reads the same 
 from __future__ import annotations
 
 import math
+import re
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -30,6 +32,49 @@ def check_filter(value: object) -> str:
     if isinstance(value, str) and value in FILTERS:
         return value
     raise ParameterError(f"the review filter must be one of {list(FILTERS)}, got {value!r}.")
+
+
+#: Sorting by status puts the work at the top: failed, then flagged, then ok.
+STATUS_RANK = {"failed": 0, "flagged": 1, "ok": 2}
+
+
+def check_sort(batch: BatchResult, key: object) -> str:
+    """Validate a table column to sort by: ``"label"``, ``"status"`` or a number column."""
+    allowed = ["label", "status", *columns(batch)]
+    if isinstance(key, str) and key in allowed:
+        return key
+    raise ParameterError(f"the review table can be sorted by one of {allowed}, got {key!r}.")
+
+
+def _label_key(label: str) -> tuple[tuple[int, int, str], ...]:
+    # Runs of digits compare as numbers (well B2 before B10), letters without case.
+    return tuple(
+        (0, int(part), "") if part.isdigit() else (1, 0, part.casefold())
+        for part in re.findall(r"\d+|\D+", label)
+    )
+
+
+def table_order(entries: Sequence[Mapping[str, Any]], key: str, ascending: bool) -> list[int]:
+    """The groups' indices in the table's order, sorted by ``key``.
+
+    Stable; a missing number (None: NaN or not fitted) comes last in both directions.
+    """
+    present: list[tuple[Any, int]] = []
+    missing: list[int] = []
+    for i, e in enumerate(entries):
+        if key == "label":
+            present.append((_label_key(str(e["label"])), i))
+        elif key == "status":
+            present.append((STATUS_RANK.get(str(e["status"]), len(STATUS_RANK)), i))
+        else:
+            v = e["values"].get(key)
+            if v is None:
+                missing.append(i)
+            else:
+                present.append((float(v), i))
+    # Two stable passes keep ties in the batch's order whatever the direction.
+    present.sort(key=lambda t: t[0], reverse=not ascending)
+    return [i for _, i in present] + missing
 
 
 def batch_x_scale(batch: BatchResult) -> _state.Scale:

@@ -139,6 +139,10 @@ class _ReviewSetup:
     x_scale: _state.Scale
     entries: list[dict[str, Any]]
     filter: str = "all"
+    # The table's sort: a column ("label", "status" or a number column) and its direction.
+    sort: tuple[str, bool] = ("label", True)
+    # The table's order for ``sort`` (None: to be worked out again, after a sort or an accept).
+    order: list[int] | None = None
     opened: int = 0
     # Fits in the widget's history from this index on are refits of the opened group.
     since: int = 0
@@ -584,6 +588,46 @@ class CurveBench(anywidget.AnyWidget):
         with self.hold_sync(), self._internal():
             self._review_show()
 
+    @property
+    def review_order(self) -> tuple[str, ...]:
+        """The labels of the shown groups in the review table's order (:meth:`review_sort`)."""
+        rv = self._need_review("review_order")
+        b = rv.batch
+        return tuple(
+            b.labels[i] for i in self._review_table_order() if rv.filter in ("all", b.statuses[i])
+        )
+
+    def _review_table_order(self) -> list[int]:
+        rv = self._need_review("the review table")
+        if rv.order is None:
+            rv.order = _review.table_order(rv.entries, *rv.sort)
+        return rv.order
+
+    def review_sort(self, column: str, ascending: bool | None = None) -> None:
+        """Sort the review table by ``column``: ``"label"``, ``"status"`` or a number column.
+
+        Labels sort with their numbers read as numbers (well B2 before B10); by status,
+        failed groups come first, then flagged ones; a missing number comes last either way.
+        With ``ascending=None`` (a click on a column header) the same column flips its
+        direction and another starts ascending.
+
+        Raises
+        ------
+        ParameterError
+            A column the table does not have (the message lists them).
+        DataError
+            The widget was not made on a batch.
+        """
+        rv = self._need_review("review_sort")
+        key = _review.check_sort(rv.batch, column)
+        if ascending is None:
+            ascending = not rv.sort[1] if key == rv.sort[0] else True
+        elif not isinstance(ascending, bool):
+            raise ParameterError(f"ascending must be True, False or None, got {ascending!r}.")
+        rv.sort, rv.order = (key, ascending), None
+        with self.hold_sync(), self._internal():
+            self._review_show()
+
     def review_open(self, group: object) -> None:
         """Show one group of the batch in the main plot, at its batch fit's values.
 
@@ -671,6 +715,7 @@ class CurveBench(anywidget.AnyWidget):
         text = _edit_note(res, b, rv.opened) if note is None else note
         b.replace_fit(label, res, note=text)
         rv.entries[rv.opened] = _review.group_entry(b, rv.opened, rv.x_scale)
+        rv.order = None
         with self.hold_sync(), self._internal():
             self.review_json = _review.review_json(b, rv.x_scale, rv.entries)
             self._review_show()
@@ -1254,6 +1299,8 @@ class CurveBench(anywidget.AnyWidget):
                 self.review_accept(None if note is None else str(note))
             elif kind == "review_filter":
                 self.review_filter(content.get("filter"))
+            elif kind == "review_sort":
+                self.review_sort(str(content.get("key")))
             elif kind == "dismiss":
                 self.error = ""
             elif kind == "use_degree":
@@ -1449,6 +1496,9 @@ class CurveBench(anywidget.AnyWidget):
             "open": b.labels[rv.opened],
             "can_accept": bool(res is not None and res.success and not done),
             "accepted": bool(done),
+            "sort": {"key": rv.sort[0], "ascending": rv.sort[1]},
+            # The table's order is decided here (review_sort), the page only shows it.
+            "order": self._review_table_order(),
         }
 
     def _need_groups(self, what: str) -> _GroupSetup:
