@@ -27,6 +27,7 @@ from .errors import (
     ModelError,
     ParameterError,
     RankDeficiencyWarning,
+    SessionError,
 )
 from .fitting import fit, fit_global, fit_groups
 from .global_result import GlobalResult, GroupFit
@@ -78,6 +79,8 @@ __all__ = [
     "Param",
     "Parameter",
     "ParameterError",
+    "SessionError",
+    "load_session",
     "Parameters",
     "RankDeficiencyWarning",
     "__version__",
@@ -116,4 +119,8 @@ def __getattr__(name: str) -> Any:
         from .widget import CurveBench
 
         return CurveBench
+    if name == "load_session":
+        from .widget import load_session
+
+        return load_session
     raise AttributeError(f"module 'curvewright' has no attribute {name!r}")

@@ -16,6 +16,7 @@ __all__ = [
     "HandleError",
     "ModelError",
     "ParameterError",
+    "SessionError",
     "ComparisonError",
     "CurvewrightWarning",
     "ExtrapolationWarning",
@@ -57,6 +58,10 @@ class HandleError(CurvewrightError, ValueError):
 
 class ComparisonError(CurvewrightError, ValueError):
     """Fits cannot be compared, e.g. they were made on different data or weights."""
+
+
+class SessionError(DataError):
+    """A saved session cannot be loaded: damaged, its data altered, a newer schema, no model."""
 
 
 class DependencyError(CurvewrightError, ImportError):

@@ -2,6 +2,6 @@
 
 from __future__ import annotations
 
-from ._widget import CurveBench
+from ._widget import CurveBench, load_session
 
-__all__ = ["CurveBench"]
+__all__ = ["CurveBench", "load_session"]

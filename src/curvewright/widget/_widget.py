@@ -20,7 +20,7 @@ from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Literal
+from typing import Any, ClassVar, Literal
 
 import anywidget
 import numpy as np
@@ -49,10 +49,10 @@ from ..result import FitResult
 from ..start import guided_start
 from ..stats.compare import Comparison, compare
 from ..stats.polynomial import DegreeSelection, select_degree
-from . import _review, _state
+from . import _review, _session, _state
 from ._errors import describe
 
-__all__ = ["CurveBench"]
+__all__ = ["CurveBench", "load_session"]
 
 # The saved-state format; bump the number when its meaning changes, and say in
 # _OLD_STATE_FORMATS why an older one is refused. Version 3 keeps the parameters as the
@@ -76,6 +76,21 @@ FIT_OPTIONS = (
     "max_evaluations",
     "timeout",
     "links",
+)
+
+# What a widget's analysis consists of besides its synced traits: CurveBench.load puts a newly
+# read analysis in place by taking these over from the widget the session was read into.
+_ANALYSIS_ATTRS = (
+    "_ds",
+    "_groups",
+    "_review",
+    "_models",
+    "_memory",
+    "_history",
+    "_excluded",
+    "_fit_options",
+    "_comparison_key",
+    "_degree_cache",
 )
 
 # Samples of a curve computed in Python (callable models, earlier fits drawn for comparison).
@@ -252,6 +267,8 @@ class CurveBench(anywidget.AnyWidget):
     """
 
     _esm = _BUNDLE if _BUNDLE.is_file() else _NO_BUNDLE_ESM
+    # The per-model memory record, for the session reader (which cannot import this module).
+    _memory_type: ClassVar[type[_Memory]] = _Memory
 
     # ---- synced with the front end (types in js/state.ts)
     model_json = traitlets.Dict().tag(sync=True)
@@ -1201,16 +1218,67 @@ class CurveBench(anywidget.AnyWidget):
             self._show_model(model.name)
 
     def save(self, path: str | Path) -> None:
-        """Write :meth:`snapshot` to a JSON file."""
-        Path(path).write_text(json.dumps(self.snapshot(), indent=2), encoding="utf-8")
+        """Write the whole analysis to a session file (e.g. ``"analysis.cwsession.json"``).
 
-    def load(self, path: str | Path) -> None:
-        """Read a JSON file written by :meth:`save` and :meth:`restore` it."""
-        try:
-            snap = json.loads(Path(path).read_text(encoding="utf-8"))
-        except (OSError, json.JSONDecodeError) as exc:
-            raise DataError(f"Cannot read a widget snapshot from {str(path)!r}: {exc}") from exc
-        self.restore(snap)
+        The file holds the data with their fingerprint, every model of the chooser (formulas
+        as text and expression tree), the parameter records, exclusions, every fit made, the
+        groups or the batch under review (with its accepted refits), the axes and the display
+        toggles; its schema is versioned (DEVELOPERS.md, ``widget/session_spec.json``).
+        :func:`curvewright.load_session` or :meth:`load` read it back.
+
+        Raises
+        ------
+        SessionError
+            A fit is running, a fit option cannot be written (a Python function), or the file
+            cannot be written.
+        """
+        _session.write_file(self, path)
+
+    def load(
+        self,
+        path: str | Path,
+        *,
+        models: Mapping[str, Model | Callable[..., Any]] | None = None,
+    ) -> None:
+        """Replace the analysis shown with the one in a session file written by :meth:`save`.
+
+        Everything is read and checked into a new widget first; only then is it put in place,
+        in one step, so a file that fails leaves this widget as it was. The Python-function
+        models of this widget are offered by name; pass others with ``models={"name": f}``.
+        A file of :meth:`snapshot` (an older ``save``) is :meth:`restore`\ d instead.
+
+        Raises
+        ------
+        SessionError
+            The file is missing, damaged or truncated, its data do not match its fingerprint,
+            its schema is newer than this curvewright, or a Python-function model is missing.
+        FitError
+            A fit is running (wait for it or cancel it first).
+        """
+        if self.fitting:
+            raise FitError(
+                "A fit is running; wait for it (widget.wait()) or stop it (widget.cancel()) "
+                "before loading a session."
+            )
+        doc = _session.load_document(path)
+        if isinstance(doc, Mapping) and "format" in doc and "schema" not in doc:
+            self.restore(doc)  # a snapshot file, as save() wrote before sessions
+            return
+        mine = {n: m for n, m in self._models.items() if m.expr is None}
+        new = _session.read(doc, type(self), {**mine, **dict(models or {})})
+        self._adopt(new)
+
+    def _adopt(self, new: CurveBench) -> None:
+        """Take over a freshly built widget's whole analysis (it is closed afterwards)."""
+        with self._lock:
+            for attr in _ANALYSIS_ATTRS:
+                setattr(self, attr, getattr(new, attr))
+            self._pending = None
+        with self.hold_sync(), self._internal():
+            for name in CurveBench.class_own_traits(sync=True):
+                setattr(self, name, getattr(new, name))
+            self.result = new.result
+        new.close()
 
     def close(self) -> None:
         """Stop any running fit and close the widget."""
@@ -2050,6 +2118,36 @@ class CurveBench(anywidget.AnyWidget):
             self.status = {"state": state, "message": message}
             self._review_show()
         self._announce(res)
+
+
+def load_session(
+    path: str | Path, models: Mapping[str, Model | Callable[..., Any]] | None = None
+) -> CurveBench:
+    """A widget holding the analysis saved in a session file by :meth:`CurveBench.save`.
+
+    Loading never runs code from the file: formulas are parsed by curvewright's whitelist
+    parser, and a model that was a Python function must be passed again by name.
+
+    Parameters
+    ----------
+    path : str or Path
+        The session file (e.g. ``"analysis.cwsession.json"``).
+    models : mapping, optional
+        ``{"model name": function_or_Model}`` for the session's Python-function models.
+
+    Raises
+    ------
+    SessionError
+        The file is missing, damaged or truncated, its data do not match its fingerprint, its
+        schema is newer than this curvewright (upgrade it), or a Python-function model was not
+        passed in ``models``.
+
+    Examples
+    --------
+    >>> bench.save("analysis.cwsession.json")                        # doctest: +SKIP
+    >>> again = curvewright.load_session("analysis.cwsession.json")  # doctest: +SKIP
+    """
+    return _session.read(_session.load_document(path), CurveBench, models)
 
 
 # ------------------------------------------------------------------------------ helpers
