@@ -11,6 +11,7 @@ into new objects; a file that fails any check raises :class:`~curvewright.errors
 from __future__ import annotations
 
 import hashlib
+import importlib.resources
 import json
 import math
 from collections.abc import Callable, Mapping
@@ -37,10 +38,15 @@ if TYPE_CHECKING:
 __all__ = ["SCHEMA", "SCHEMA_VERSION", "SPEC_FILE", "load_document", "read", "write", "write_file"]
 
 SCHEMA: Final = "curvewright.session"
-#: Bump when a field is added, removed or changes meaning; say why in DEVELOPERS.md.
-SCHEMA_VERSION: Final = 1
-#: The JSON Schema of the document, shipped beside this module.
-SPEC_FILE: Final = Path(__file__).with_name("session_spec.json")
+#: The JSON Schema of the document, shipped beside this module (the one description of it).
+SPEC_FILE: Final = "session_spec.json"
+SPEC: Final[Mapping[str, Any]] = json.loads(
+    importlib.resources.files("curvewright.widget").joinpath(SPEC_FILE).read_text("utf-8")
+)
+#: The schema version written, from the spec. Bump it (in session_spec.json) when a field is
+#: added, removed or changes meaning, and say in DEVELOPERS.md what changed.
+SCHEMA_VERSION: Final[int] = int(SPEC["properties"]["schema_version"]["const"])
+_FIELDS: Final[tuple[str, ...]] = tuple(SPEC["required"])
 
 ModelsArg = Mapping[str, "Model | Callable[..., Any]"] | None
 
@@ -58,8 +64,14 @@ def _column(name: str, values: pd.Series | np.ndarray) -> dict[str, Any]:
     return {
         "name": name,
         "kind": "text",
-        "values": [None if v is None or (isinstance(v, float) and math.isnan(v)) else str(v) for v in s],
+        "values": [
+            None if v is None or (isinstance(v, float) and math.isnan(v)) else str(v) for v in s
+        ],
     }
+
+
+def _missing(v: object) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v))
 
 
 def _decode_column(col: Mapping[str, Any]) -> tuple[str, np.ndarray | pd.Series]:
@@ -300,6 +312,12 @@ def check_header(doc: object) -> Mapping[str, Any]:
             f"{SCHEMA_VERSION} and older. Upgrade curvewright to load it: "
             "pip install --upgrade curvewright."
         )
+    missing = [k for k in _FIELDS if k not in doc]
+    if missing:
+        raise SessionError(
+            f"the session file lacks the fields {missing}; it is truncated or damaged. Load an "
+            "unmodified file written by CurveBench.save()."
+        )
     return doc
 
 
@@ -368,7 +386,7 @@ def _result(entry: object, registry: Mapping[str, Model]) -> FitResult | GlobalR
     raise SessionError(f"a fit in the history has an unknown type {entry.get('type')!r}.")
 
 
-def _pick(history: list[Any], i: object, cls: type, what: str) -> Any:
+def _pick(history: list[Any], i: object, cls: type | tuple[type, ...], what: str) -> Any:
     if i is None:
         return None
     if not isinstance(i, int) or isinstance(i, bool) or not 0 <= i < len(history):
@@ -378,9 +396,7 @@ def _pick(history: list[Any], i: object, cls: type, what: str) -> Any:
     return history[i]
 
 
-def read(
-    doc: object, bench_cls: type[CurveBench], models: ModelsArg = None
-) -> CurveBench:
+def read(doc: object, bench_cls: type[CurveBench], models: ModelsArg = None) -> CurveBench:
     """A new widget built from a session document (nothing else is touched).
 
     Raises
@@ -410,9 +426,7 @@ def _build(doc: Mapping[str, Any], bench_cls: type[CurveBench], models: ModelsAr
     shown = _need(state, "model", str, "state ")
     if shown not in registry:
         raise SessionError(f"the session shows model {shown!r}, which it does not list.")
-    options = {
-        str(k): _option_from(v) for k, v in _need(doc, "fit_options", Mapping, "").items()
-    }
+    options = {str(k): _option_from(v) for k, v in _need(doc, "fit_options", Mapping, "").items()}
     history = [_result(h, registry) for h in _need(doc, "history", list, "")]
     ui_x, ui_y = state.get("x_scale", "linear"), state.get("y_scale", "linear")
 
@@ -474,6 +488,14 @@ def _fill(
             raise SessionError(f"the review opens group {opened!r}, which the batch lacks.")
         if rv.batch.labels[rv.opened] != opened:
             bench.review_open(opened)
+        # The accepted refit is one object in the batch and the history (the review tells
+        # "accepted" by identity); the file holds it twice, so join the equal copies again.
+        accepted = rv.batch._fits.get(rv.opened) if rv.batch.edited[rv.opened] else None
+        if accepted is not None:
+            same = accepted.to_dict()
+            history[:] = [
+                accepted if isinstance(h, FitResult) and h.to_dict() == same else h for h in history
+            ]
     bench._models = dict(registry)
     memory: dict[str, Any] = {}
     for name, m in _need(doc, "memory", Mapping, "").items():
@@ -504,7 +526,7 @@ def _fill(
         sort = review.get("sort")
         if not isinstance(sort, list) or len(sort) != 2 or not isinstance(sort[1], bool):
             raise SessionError("the review's sort must be [column, ascending].")
-        from ._review import check_filter, check_sort  # noqa: PLC0415
+        from ._review import check_filter, check_sort
 
         rv.filter = check_filter(rv.filter)
         rv.sort, rv.order = (check_sort(rv.batch, sort[0]), sort[1]), None

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-import json
 import math
 import threading
 import warnings
@@ -1245,7 +1244,7 @@ class CurveBench(anywidget.AnyWidget):
         Everything is read and checked into a new widget first; only then is it put in place,
         in one step, so a file that fails leaves this widget as it was. The Python-function
         models of this widget are offered by name; pass others with ``models={"name": f}``.
-        A file of :meth:`snapshot` (an older ``save``) is :meth:`restore`\ d instead.
+        A file of :meth:`snapshot` (an older ``save``) is applied with :meth:`restore`.
 
         Raises
         ------
