@@ -228,6 +228,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.widget",
         "curvewright.widget._errors",
         "curvewright.widget._review",
+        "curvewright.widget._session",
         "curvewright.widget._state",
         "curvewright.widget._widget",
     ),
