@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import copy
 import json
+import threading
 from pathlib import Path
 from typing import Any
 
@@ -457,3 +458,20 @@ def test_damage_is_caught_by_load_session_too(small: tuple[bytes, CurveBench, Pa
     path = _write(d / "cov.json", doc)
     with pytest.raises(cw.CurvewrightError, match=r"damaged|corrupted"):
         cw.load_session(path)
+
+
+def test_no_save_or_load_while_a_fit_runs(saved: Path, treated: pd.DataFrame) -> None:
+    bench = CurveBench(treated, x="conc", y="rate", model="michaelis_menten")
+    gate = threading.Event()
+    worker = threading.Thread(target=gate.wait)  # stands in for the fit's worker thread
+    worker.start()
+    bench._thread = worker
+    try:
+        with pytest.raises(cw.SessionError, match="a fit is running"):
+            bench.save(saved.parent / "running.json")
+        with pytest.raises(cw.FitError, match="A fit is running"):
+            bench.load(saved)
+    finally:
+        gate.set()
+        worker.join()
+    assert not (saved.parent / "running.json").exists()
