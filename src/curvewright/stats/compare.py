@@ -20,6 +20,8 @@ catalog models (a straight line inside any polynomial, polynomials of increasing
 3PL inside the 4PL with zero_dose = 0, the 4PL inside the 5PL with g = 1, Michaelis-Menten inside
 the Hill equation with n_h = 1), each confirmed numerically: the larger model with those
 values fixed must reproduce the simpler model's curve. Any other nesting can be declared.
+Global fits of the same model nest when one shares or holds fixed more parameters than the
+other (:func:`compare_global`).
 """
 
 from __future__ import annotations
@@ -438,8 +440,7 @@ def compare(
     *results : FitResult or GlobalResult
         Two or more least-squares fits to the same points with the same weights. Global fits
         (:func:`curvewright.fit_global`) are compared with each other: nested when one shares
-        a strict superset of the other's shared parameters (see
-        :func:`curvewright.stats.groups.compare_global`).
+        or holds fixed more parameters than the other (see :func:`compare_global`).
     names : sequence of str, optional
         Labels for the fits (default: the model names, with fixed values).
     nested : None, bool or sequence of (simpler, larger)
