@@ -421,3 +421,53 @@ def test_batch_report_lists_failed_groups_with_reasons(tmp_path: Path) -> None:
         assert diag.loc[group, "reason"] == reason
     assert "fitted separately to each of 4 groups" in b.methods()
     assert cw.CAUTION in html.unescape(rep)
+
+
+def test_every_report_method_of_the_results_finds_its_function() -> None:
+    # The results reach the reports through a registry (they sit below them); every name they
+    # ask for must be registered once curvewright is imported.
+    import ast
+
+    from curvewright import result
+
+    src = Path(cw.__file__).parent
+    asked = {
+        node.args[0].value
+        for name in ("result.py", "global_result.py", "batch_result.py")
+        for node in ast.walk(ast.parse((src / name).read_text(encoding="utf-8")))
+        if isinstance(node, ast.Call)
+        and isinstance(node.func, ast.Name)
+        and node.func.id == "report_function"
+        and isinstance(node.args[0], ast.Constant)
+    }
+    assert asked == {"report", "methods", "to_excel"}
+    assert asked <= set(result._REPORTS)
+
+
+def test_a_group_of_a_global_fit_says_so_in_its_methods() -> None:
+    g = cw.fit_global("michaelis_menten", data=_long(), x="x", y="y", by="state", shared=["Km"])
+    text = g["treated"].methods()
+    assert "one group (treated) of a joint fit" in text
+    assert f"Student t quantile on {g.dof} degrees" in text
+    assert "group (treated)" not in cw.fit("michaelis_menten", *_puromycin()).methods()
+
+
+def test_a_python_function_and_an_unfinished_fit_are_reported_as_they_are() -> None:
+    # The Michaelis-Menten curve as a Python callable on Puromycin (treated): no formula, so
+    # the report says so and the methods name finite differences.
+    def rate(x: np.ndarray, Vmax: float, Km: float) -> np.ndarray:
+        return Vmax * x / (Km + x)
+
+    x, y = _puromycin()
+    r = cw.fit(rate, x, y, start={"Vmax": 200.0, "Km": 0.1})
+    page = _page(r.report(figure=False))
+    assert "A Python function" in "".join(page.sections["model"]["text"])
+    assert "finite differences" in r.methods()
+    _same(_rows(page, "parameters")["Vmax"][0], r.values["Vmax"])
+    # Stopped after a few evaluations: the report says it did not converge.
+    cut = cw.fit("michaelis_menten", x, y, start={"Vmax": 1.0, "Km": 5.0}, max_evaluations=3)
+    assert not cut.success
+    text = "".join(_page(cut.report(figure=False)).sections["parameters"]["text"])
+    assert "not converged" in text
+    with pytest.raises(ParameterError, match="level"):
+        cut.methods(level=95)

@@ -11,7 +11,7 @@ from typing import Any
 
 from ..batch_result import BatchResult
 from ..errors import ParameterError
-from ..global_result import GlobalResult
+from ..global_result import GlobalResult, GroupFit
 from ..result import FitResult, _power_of
 from .versions import software_versions
 
@@ -154,7 +154,17 @@ def _fit_methods(r: FitResult, level: float) -> str:
         f"{_solver(r.method, r.model.formula is not None, v)}{_runs(r.attempts)}. "
         f"{_intervals(level, r.dof, r.absolute_sigma)}{_derived(r)}"
         " Goodness of fit is reported as R^2 (descriptive for a nonlinear model), AICc and BIC."
-        f"{_software(v)}"
+        f"{_group_note(r)}{_software(v)}"
+    )
+
+
+def _group_note(r: FitResult) -> str:
+    if not isinstance(r, GroupFit):
+        return ""
+    return (
+        f" These are the estimates of one group ({r.group}) of a joint fit of several groups: "
+        "its standard errors and intervals use the joint covariance and the joint degrees of "
+        "freedom."
     )
 
 
@@ -181,11 +191,11 @@ def _batch_methods(b: BatchResult, level: float) -> str:
     v = software_versions()
     opts = dict(b.options)
     weights = opts.get("weights")
-    weighting = (
-        "with every point weighted equally"
-        if weights in (None, "none")
-        else f"with the weighting {weights!r}"
-    )
+    if weights is None:
+        # As fit() resolves it: the given sigma when there is one, else equal weights.
+        given = any(d is not None and d.sigma is not None for d in b.datasets)
+        weights = "sigma" if given else "none"
+    weighting = _weighting(str(weights), bool(opts.get("absolute_sigma", False)))
     loss = str(opts.get("loss", "squared"))
     paths = {p: sum(1 for t in b.paths if t == p) for p in ("vectorised", "per-group", "none")}
     c = b.counts
@@ -223,6 +233,8 @@ def methods_text(obj: Any, *, level: float = 0.95) -> str:
     str
         One paragraph, plain text.
     """
+    if not (isinstance(level, (int, float)) and 0 < float(level) < 1):
+        raise ParameterError(f"level must be a number between 0 and 1 (e.g. 0.95), got {level!r}.")
     if isinstance(obj, FitResult):
         return _fit_methods(obj, level)
     if isinstance(obj, GlobalResult):
