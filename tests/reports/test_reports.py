@@ -197,6 +197,12 @@ def test_nist_certified_values_shown_to_six_digits() -> None:
     caution = "".join(page.sections["caution"]["text"])
     assert "half_life" in caution and "extrapolated" in caution
     assert "within the data" not in derived["half_life"][-1][0]
+    # ... and the fit's own extrapolation finding is listed with the diagnostics.
+    codes = [d.code for d in r.diagnostics]
+    assert "extrapolation" in codes
+    found = [d.text for d in r.diagnostics if d.code == "extrapolation"]
+    listed = "".join(page.sections["diagnostics"]["text"])
+    assert all(t in listed for t in found)
 
 
 def test_markdown_report_tables_hold_the_same_numbers(mm: cw.FitResult) -> None:
@@ -239,6 +245,7 @@ def test_methods_follow_the_fit_options() -> None:
     assert r.method == "trust_region"
     text = r.methods(level=0.9)
     assert "1/y^2" in text and "Huber loss" in text and "trust-region reflective" in text
+    assert "approximate" in text  # standard errors under a robust loss
     assert "90% confidence intervals" in text
     assert "Levenberg-Marquardt" not in text
 
@@ -314,6 +321,15 @@ def test_without_figures_the_report_says_so(
     monkeypatch.setitem(sys.modules, "curvewright.figures", None)  # import fails
     text = "".join(_page(mm.report()).sections["figure"]["text"])
     assert "No figure is available" in text
+
+    def refuses(obj: Any, **kwargs: Any) -> Figure:
+        raise cw.DataError("nothing to draw")
+
+    monkeypatch.setitem(
+        sys.modules, "curvewright.figures", types.SimpleNamespace(figure_for=refuses)
+    )
+    text = "".join(_page(mm.report()).sections["figure"]["text"])
+    assert "No figure could be drawn: nothing to draw" in text
 
 
 # ------------------------------------------------------------------------- files

@@ -306,7 +306,11 @@ def _cell(v: Any) -> Cell:
 def _figure_section(obj: Any, level: float, figure: bool) -> Section:
     if not figure:
         return Section("figure", "Figure", paragraphs=("Figure left out (figure=False).",))
-    svg = figure_svg(obj, level=level)
+    try:
+        svg = figure_svg(obj, level=level)
+    except CurvewrightError as exc:
+        # A result the figure cannot be drawn for still gets its report, saying why.
+        return Section("figure", "Figure", paragraphs=(f"No figure could be drawn: {exc}",))
     if svg is None:
         return Section(
             "figure",

@@ -44,7 +44,8 @@ def _loss(loss: str, scale: float | None) -> str:
     scaled = f" with residual scale {scale:.4g}" if scale is not None else ""
     return (
         f"a robust criterion, {_LOSS.get(loss, loss)}{scaled}, was minimised, so that points "
-        "far from the curve pull on it less than under squared residuals"
+        "far from the curve pull on it less than under squared residuals (the standard errors "
+        "then use the least-squares formula at the solution and are approximate)"
     )
 
 
