@@ -45,6 +45,20 @@ TEST_MEANING = {
     ),
 }
 
+#: Headers of the comparison's columns, in words.
+_COMPARISON_HEADERS = {
+    "free_params": "free parameters",
+    "ssr": "SSR",
+    "r2": "R²",
+    "aicc": "AICc",
+    "delta_aicc": "ΔAICc",
+    "akaike_weight": "Akaike weight",
+    "bic": "BIC",
+    "df_num": "df (numerator)",
+    "df_den": "df (denominator)",
+    "p": "p value",
+}
+
 #: Largest number of group rows a batch report lists in its per-group table.
 MAX_GROUP_ROWS = 500
 
@@ -269,7 +283,7 @@ def _comparison_section(c: Any) -> Section:
             f"{type(c).__name__}."
         )
     t = c.table
-    cols = ("fit", *[str(k) for k in t.columns])
+    cols = ("fit", *[_COMPARISON_HEADERS.get(str(k), str(k)) for k in t.columns])
     rows = tuple(
         (str(i), *(_cell(v) for v in row)) for i, row in zip(t.index, t.to_numpy(), strict=True)
     )
@@ -279,7 +293,7 @@ def _comparison_section(c: Any) -> Section:
         frows = tuple(tuple(_cell(v) for v in row) for row in f.to_numpy())
         tables.append(
             Table(
-                tuple(str(k) for k in f.columns),
+                tuple(_COMPARISON_HEADERS.get(str(k), str(k)) for k in f.columns),
                 frows,
                 caption=f"Extra-sum-of-squares F tests (alpha = {c.alpha:g})",
             )
@@ -287,7 +301,7 @@ def _comparison_section(c: Any) -> Section:
     return Section(
         "comparison",
         "Model comparison",
-        paragraphs=(f"Preferred: {c.preferred} (by {c.criterion}). {c.recommendation}",),
+        paragraphs=(c.recommendation,),
         tables=tuple(tables),
         items=tuple(c.reasoning),
     )
@@ -334,10 +348,12 @@ def _tail(obj: Any, level: float, extra_cautions: Sequence[str]) -> list[Section
 
 
 def _outcome(success: bool, code: str, message: str) -> str:
-    verdict = (
-        "converged" if success else ("degenerate" if code == "degenerate_stop" else "not converged")
+    if success:
+        return f"Outcome: {message}."
+    verdict = "degenerate" if code == "degenerate_stop" else "not converged"
+    return (
+        f"Outcome: {verdict}. {message[:1].upper()}{message[1:]}; the numbers are where it stopped."
     )
-    return f"Outcome: {verdict} ({message})."
 
 
 # ---------------------------------------------------------------------------- reports

@@ -15,6 +15,7 @@ _STYLE = """
   max-width: 60em; color: #1d2327; }
 .cw-report h1 { font-size: 1.5em; margin: 0.4em 0; }
 .cw-report h2 { font-size: 1.15em; margin: 1.2em 0 0.4em; border-bottom: 1px solid #c9d1d6; }
+.cw-report .cw-table { overflow-x: auto; }
 .cw-report table { border-collapse: collapse; margin: 0.4em 0 0.8em; }
 .cw-report caption { text-align: left; font-style: italic; padding-bottom: 0.2em; }
 .cw-report th, .cw-report td { padding: 0.15em 0.7em; border-bottom: 1px solid #e3e8eb;
@@ -39,7 +40,10 @@ def _table(t: Table) -> str:
                 cells.append(f"<td>{e(cell_text(v))}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
     caption = f"<caption>{e(t.caption)}</caption>" if t.caption else ""
-    return f"<table>{caption}<thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+    return (
+        f'<div class="cw-table"><table>{caption}<thead><tr>{head}</tr></thead>'
+        f"<tbody>{''.join(body)}</tbody></table></div>"
+    )
 
 
 def _section(s: Section) -> str:
