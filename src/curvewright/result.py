@@ -642,21 +642,28 @@ class FitResult:
         figure: bool = True,
         path: str | Any = None,
         comparison: Any = None,
+        intervals: Literal["wald", "profile"] = "wald",
     ) -> Any:
         """A self-contained report of the fit (HTML or Markdown), ready to save or show.
 
         See :func:`curvewright.reports.report`.
         """
         return report_function("report")(
-            self, format, level=level, figure=figure, path=path, comparison=comparison
+            self,
+            format,
+            level=level,
+            figure=figure,
+            path=path,
+            comparison=comparison,
+            intervals=intervals,
         )
 
-    def methods(self, level: float = 0.95) -> str:
+    def methods(self, level: float = 0.95, intervals: Literal["wald", "profile"] = "wald") -> str:
         """A methods paragraph saying what was done, to paste into a paper.
 
         See :func:`curvewright.reports.methods`.
         """
-        out: str = report_function("methods")(self, level=level)
+        out: str = report_function("methods")(self, level=level, intervals=intervals)
         return out
 
     def to_excel(self, path: str | Any, *, level: float = 0.95) -> Any:

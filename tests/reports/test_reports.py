@@ -10,6 +10,7 @@ value to six significant digits).
 from __future__ import annotations
 
 import html
+import math
 import sys
 import types
 from html.parser import HTMLParser
@@ -487,3 +488,26 @@ def test_a_python_function_and_an_unfinished_fit_are_reported_as_they_are() -> N
     assert "not converged" in text
     with pytest.raises(ParameterError, match="level"):
         cut.methods(level=95)
+
+
+def test_profile_intervals_when_asked(mm: cw.FitResult) -> None:
+    # Profile-likelihood intervals (stats.uncertainty.profile_intervals, checked there against
+    # lmfit's conf_interval) in place of the Wald ones; the methods say which.
+    page = _page(mm.report(intervals="profile", figure=False))
+    prof = mm.profile_ci(level=0.95)
+    params = _rows(page, "parameters")
+    for name in ("Vmax", "Km"):
+        _same(params[name][2], float(prof.loc[name, "lower"]))
+        _same(params[name][3], float(prof.loc[name, "upper"]))
+        _same(params[name][1], mm.stderr[name])
+    # Km's profile interval is asymmetric about the estimate (the curvature Wald ignores).
+    lo, hi = float(prof.loc["Km", "lower"]), float(prof.loc["Km", "upper"])
+    assert not math.isclose(mm.values["Km"] - lo, hi - mm.values["Km"], rel_tol=1e-3)
+    text = "".join(page.sections["methods"]["text"])
+    assert "profile-likelihood intervals" in text and "Wald" not in text
+    assert "profile-likelihood" in mm.methods(intervals="profile")
+    g = cw.fit_global("michaelis_menten", data=_long(), x="x", y="y", by="state", shared=["Km"])
+    with pytest.raises(ParameterError, match="single fits"):
+        cw.reports.report(g, intervals="profile")
+    with pytest.raises(ParameterError, match="intervals"):
+        mm.report(intervals="bootstrap")  # type: ignore[arg-type]

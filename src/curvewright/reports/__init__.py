@@ -37,6 +37,7 @@ def report(
     figure: bool = True,
     path: Any = None,
     comparison: Any = None,
+    intervals: str = "wald",
 ) -> Report:
     """A self-contained report of a FitResult, GlobalResult or BatchResult.
 
@@ -59,6 +60,10 @@ def report(
         Also write the report there (the folder must exist).
     comparison : Comparison, optional
         The outcome of :func:`curvewright.compare` to include.
+    intervals : {"wald", "profile"}
+        The parameters' intervals: Wald (estimate plus or minus t times SE, as ``ci()``)
+        or, for a single least-squares fit, profile likelihood (as ``profile_ci()``, which
+        refits).
 
     Returns
     -------
@@ -78,7 +83,9 @@ def report(
         from .output import output_path
 
         output_path(path)  # a bad path fails before the work, not after
-    content = content_for(obj, level=level, figure=figure, comparison=comparison)
+    content = content_for(
+        obj, level=level, figure=figure, comparison=comparison, intervals=intervals
+    )
     if format == "html":
         out = Report(render_html(content), "html", render_html_fragment(content))
     else:
@@ -88,9 +95,9 @@ def report(
     return out
 
 
-def methods(obj: Any, *, level: float = 0.95) -> str:
+def methods(obj: Any, *, level: float = 0.95, intervals: str = "wald") -> str:
     """The methods paragraph of a result (see :func:`curvewright.reports.methods.methods_text`)."""
-    return methods_text(obj, level=level)
+    return methods_text(obj, level=level, intervals=intervals)
 
 
 register_reports(report=report, methods=methods, to_excel=to_excel)

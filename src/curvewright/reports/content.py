@@ -150,8 +150,12 @@ def _data_rows(datasets: Sequence[Any]) -> list[tuple[Cell, ...]]:
     return rows
 
 
-def _param_rows(r: FitResult, level: float) -> tuple[tuple[Cell, ...], ...]:
+def _param_rows(r: FitResult, level: float, intervals: str) -> tuple[tuple[Cell, ...], ...]:
     frame = r.to_frame(level)
+    # Profile intervals replace the Wald ones of the free parameters (linked ones keep Wald).
+    profile: dict[str, dict[Any, Any]] | None = None
+    if intervals == "profile" and r.free:
+        profile = {str(k): v for k, v in r.profile_ci(level=level).to_dict("index").items()}
     rows = []
     for name, row in frame.iterrows():
         notes = []
@@ -166,13 +170,21 @@ def _param_rows(r: FitResult, level: float) -> tuple[tuple[Cell, ...], ...]:
         if row["not_identified"]:
             notes.append("not identified by the data")
         fixed = row["status"] == "fixed"
+        lo, hi = float(row["ci_low"]), float(row["ci_high"])
+        key = str(name)
+        if profile is not None and key in profile:
+            lo, hi = float(profile[key]["lower"]), float(profile[key]["upper"])
+            if profile[key]["note"]:
+                notes.append(str(profile[key]["note"]))
+        elif profile is not None and row["status"] == "linked":
+            notes.append("Wald interval (linked)")
         rows.append(
             (
                 str(name),
                 float(row["value"]),
                 None if fixed else float(row["stderr"]),
-                None if fixed else float(row["ci_low"]),
-                None if fixed else float(row["ci_high"]),
+                None if fixed else lo,
+                None if fixed else hi,
                 str(row["unit"]),
                 "; ".join(notes),
             )
@@ -334,10 +346,14 @@ def _figure_section(obj: Any, level: float, figure: bool) -> Section:
     return Section("figure", "Figure", svg=svg)
 
 
-def _tail(obj: Any, level: float, extra_cautions: Sequence[str]) -> list[Section]:
+def _tail(
+    obj: Any, level: float, extra_cautions: Sequence[str], intervals: str = "wald"
+) -> list[Section]:
     versions = software_versions()
     return [
-        Section("methods", "Methods", paragraphs=(methods_text(obj, level=level),)),
+        Section(
+            "methods", "Methods", paragraphs=(methods_text(obj, level=level, intervals=intervals),)
+        ),
         Section(
             "software",
             "Software",
@@ -358,10 +374,17 @@ def _outcome(success: bool, code: str, message: str) -> str:
 
 # ---------------------------------------------------------------------------- reports
 def fit_content(
-    r: FitResult, *, level: float = 0.95, figure: bool = True, comparison: Any = None
+    r: FitResult,
+    *,
+    level: float = 0.95,
+    figure: bool = True,
+    comparison: Any = None,
+    intervals: str = "wald",
 ) -> Content:
-    """The facts of a single fit's report."""
+    """The facts of a single fit's report (``intervals``: "wald" or "profile")."""
     level = _check_level(level)
+    if intervals not in ("wald", "profile"):
+        raise ParameterError(f"intervals must be 'wald' or 'profile', got {intervals!r}.")
     pct = _pct(level)
     sections = [
         _model_section(r.model),
@@ -385,7 +408,7 @@ def fit_content(
                         "unit",
                         "note",
                     ),
-                    _param_rows(r, level),
+                    _param_rows(r, level, intervals),
                 ),
             ),
         ),
@@ -416,7 +439,7 @@ def fit_content(
     if comparison is not None:
         sections.append(_comparison_section(comparison))
     sections.append(_figure_section(r, level, figure))
-    sections += _tail(r, level, _extrapolated(r, level))
+    sections += _tail(r, level, _extrapolated(r, level), intervals)
     return Content(f"Fit report: {r.model.name}", tuple(sections))
 
 
@@ -626,11 +649,23 @@ def _finite(v: Any) -> float | None:
 
 
 def content_for(
-    obj: Any, *, level: float = 0.95, figure: bool = True, comparison: Any = None
+    obj: Any,
+    *,
+    level: float = 0.95,
+    figure: bool = True,
+    comparison: Any = None,
+    intervals: str = "wald",
 ) -> Content:
     """The facts of the report of a FitResult, GlobalResult or BatchResult."""
     if isinstance(obj, FitResult):
-        return fit_content(obj, level=level, figure=figure, comparison=comparison)
+        return fit_content(
+            obj, level=level, figure=figure, comparison=comparison, intervals=intervals
+        )
+    if intervals != "wald":
+        raise ParameterError(
+            "profile intervals are reported for single fits only; use intervals='wald' here, "
+            "or report a group's fit (result[group].report(intervals='profile'))."
+        )
     if isinstance(obj, GlobalResult):
         return global_content(obj, level=level, figure=figure, comparison=comparison)
     if isinstance(obj, BatchResult):

@@ -90,7 +90,7 @@ def _runs(attempts: Any) -> str:
     return text
 
 
-def _intervals(level: float, dof: int | None, absolute_sigma: bool) -> str:
+def _intervals(level: float, dof: int | None, absolute_sigma: bool, intervals: str = "wald") -> str:
     # dof None: a batch, where every group has its own degrees of freedom.
     dofs = (
         "each group's residual degrees of freedom" if dof is None else f"{dof} degrees of freedom"
@@ -109,13 +109,21 @@ def _intervals(level: float, dof: int | None, absolute_sigma: bool) -> str:
         if absolute_sigma
         else f"the Student t quantile on {dofs}"
     )
+    if intervals == "profile":
+        return (
+            f"{se}. The {_pct(level)} confidence intervals of the free parameters are "
+            "profile-likelihood intervals: every value at which the sum of squares, with the "
+            "other parameters re-fitted, stays below its minimum times 1 + F/(n - p), F being "
+            f"the {_pct(level)} quantile of the F distribution on 1 and {dof} degrees of freedom "
+            "(an end the data do not bound is reported as unbounded)."
+        )
     return (
         f"{se}. The {_pct(level)} confidence intervals of the parameters are Wald intervals, "
         f"estimate plus or minus {q} times the standard error."
     )
 
 
-def _derived(r: FitResult) -> str:
+def _derived(r: FitResult, intervals: str = "wald") -> str:
     if not r.model.derived:
         return ""
     names = [d.name for d in r.model.derived]
@@ -123,7 +131,9 @@ def _derived(r: FitResult) -> str:
     text = (
         f" Derived quantities ({', '.join(names)}) were computed from the estimates; their "
         "standard errors come from the first-order delta method, and their intervals are the "
-        "estimate plus or minus the same quantile times that standard error"
+        "estimate plus or minus "
+        + ("the Student t quantile" if intervals == "profile" else "the same quantile")
+        + " times that standard error"
     )
     if power:
         text += (
@@ -144,7 +154,7 @@ def _model(model: Any) -> str:
     return f"The model {model.name} (a Python function)"
 
 
-def _fit_methods(r: FitResult, level: float) -> str:
+def _fit_methods(r: FitResult, level: float, intervals: str = "wald") -> str:
     v = software_versions()
     excluded = sum(int((~d.include).sum()) for d in r.datasets)
     points = f"{r.n} data points" + (f" ({excluded} excluded by the analyst)" if excluded else "")
@@ -153,7 +163,7 @@ def _fit_methods(r: FitResult, level: float) -> str:
         f"{_model(r.model)} was fitted to {points} by {kind} least squares "
         f"{_weighting(r.weighting, r.absolute_sigma)}; {_loss(r.loss, r.loss_scale)}. "
         f"{_solver(r.method, r.model.formula is not None, v)}{_runs(r.attempts)}. "
-        f"{_intervals(level, r.dof, r.absolute_sigma)}{_derived(r)}"
+        f"{_intervals(level, r.dof, r.absolute_sigma, intervals)}{_derived(r, intervals)}"
         " Goodness of fit is reported as R^2 (descriptive for a nonlinear model), AICc and BIC."
         f"{_group_note(r)}{_software(v)}"
     )
@@ -220,7 +230,7 @@ def _batch_methods(b: BatchResult, level: float) -> str:
     )
 
 
-def methods_text(obj: Any, *, level: float = 0.95) -> str:
+def methods_text(obj: Any, *, level: float = 0.95, intervals: str = "wald") -> str:
     """The methods paragraph of a FitResult, GlobalResult or BatchResult.
 
     Parameters
@@ -228,6 +238,8 @@ def methods_text(obj: Any, *, level: float = 0.95) -> str:
     obj : FitResult, GlobalResult or BatchResult
     level : float
         Coverage of the intervals the paragraph describes.
+    intervals : {"wald", "profile"}
+        How the report computed the parameters' intervals (profile: single fits only).
 
     Returns
     -------
@@ -236,8 +248,12 @@ def methods_text(obj: Any, *, level: float = 0.95) -> str:
     """
     if not (isinstance(level, (int, float)) and 0 < float(level) < 1):
         raise ParameterError(f"level must be a number between 0 and 1 (e.g. 0.95), got {level!r}.")
+    if intervals not in ("wald", "profile"):
+        raise ParameterError(f"intervals must be 'wald' or 'profile', got {intervals!r}.")
     if isinstance(obj, FitResult):
-        return _fit_methods(obj, level)
+        return _fit_methods(obj, level, intervals)
+    if intervals != "wald":
+        raise ParameterError("profile intervals are described for single fits only.")
     if isinstance(obj, GlobalResult):
         return _global_methods(obj, level)
     if isinstance(obj, BatchResult):
