@@ -353,6 +353,9 @@ def test_excel_round_trip(mm: cw.FitResult, tmp_path: Path) -> None:
     tests = sheets["diagnostics"]
     assert set(tests["kind"]) == {"test"}
     assert len(tests) == 3
+    import openpyxl
+
+    assert openpyxl.load_workbook(path).properties.description == cw.CAUTION
 
 
 def test_missing_openpyxl_is_our_error(

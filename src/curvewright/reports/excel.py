@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import DependencyError
+from ..thresholds import CAUTION
 from .output import output_path, write_bytes
 from .tables import SHEETS, tables_for
 
@@ -57,4 +58,6 @@ def to_excel(obj: Any, path: Any, *, level: float = 0.95) -> Path:
     with pd.ExcelWriter(buf, engine="openpyxl") as writer:
         for name in SHEETS:
             tables[name].to_excel(writer, sheet_name=name, index=False)
+        # The caution travels with the numbers, in the file's own description.
+        writer.book.properties.description = CAUTION
     return write_bytes(p, buf.getvalue())
