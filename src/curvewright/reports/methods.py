@@ -210,15 +210,21 @@ def _batch_methods(b: BatchResult, level: float) -> str:
     loss = str(opts.get("loss", "squared"))
     paths = {p: sum(1 for t in b.paths if t == p) for p in ("vectorised", "per-group", "none")}
     c = b.counts
-    route = (
-        f"{paths['vectorised']} groups were fitted by curvewright's vectorised "
-        "Levenberg-Marquardt routine, which fits many groups at once"
-    )
-    if paths["per-group"]:
-        route += (
-            f", and {paths['per-group']} by the single-fit procedure (the Levenberg-Marquardt "
-            f"algorithm of MINPACK through SciPy {v.get('scipy', '')}, with fallbacks)"
+    parts = []
+    if paths["vectorised"]:
+        parts.append(
+            f"{paths['vectorised']} group(s) were fitted by curvewright's vectorised "
+            "Levenberg-Marquardt routine, which fits many groups at once"
         )
+    if paths["per-group"]:
+        parts.append(
+            f"{paths['per-group']} group(s) by the single-fit procedure (the Levenberg-Marquardt "
+            f"algorithm of MINPACK through SciPy {v.get('scipy', '')}, with its fallbacks)"
+        )
+    if paths["none"]:
+        parts.append(f"{paths['none']} group(s) were not fitted")
+    route = "; ".join(parts)
+    route = route[:1].upper() + route[1:]
     return (
         f"{_model(b.model)} was fitted separately to each of {len(b)} groups (by "
         f"{', '.join(b.by)}) by nonlinear least squares {weighting}; "
