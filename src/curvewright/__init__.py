@@ -25,6 +25,7 @@ from .errors import (
     FormulaError,
     HandleError,
     ModelError,
+    OutputError,
     ParameterError,
     RankDeficiencyWarning,
 )
@@ -33,6 +34,7 @@ from .global_result import GlobalResult, GroupFit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
 from .parameters import Parameter, Parameters
+from .reports import Report
 from .result import FitResult
 from .start import generic_start, guided_start
 from .stats import (
@@ -75,11 +77,13 @@ __all__ = [
     "LinearizedFit",
     "Model",
     "ModelError",
+    "OutputError",
     "Param",
     "Parameter",
     "ParameterError",
     "Parameters",
     "RankDeficiencyWarning",
+    "Report",
     "__version__",
     "catalog",
     "compare",

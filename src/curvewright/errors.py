@@ -17,6 +17,7 @@ __all__ = [
     "ModelError",
     "ParameterError",
     "ComparisonError",
+    "OutputError",
     "CurvewrightWarning",
     "ExtrapolationWarning",
     "RankDeficiencyWarning",
@@ -57,6 +58,10 @@ class HandleError(CurvewrightError, ValueError):
 
 class ComparisonError(CurvewrightError, ValueError):
     """Fits cannot be compared, e.g. they were made on different data or weights."""
+
+
+class OutputError(CurvewrightError, OSError):
+    """A report or table cannot be written where asked: a missing folder, no permission."""
 
 
 class DependencyError(CurvewrightError, ImportError):
