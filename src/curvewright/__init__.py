@@ -25,6 +25,7 @@ from .errors import (
     FormulaError,
     HandleError,
     ModelError,
+    OutputError,
     ParameterError,
     RankDeficiencyWarning,
     SessionError,
@@ -34,6 +35,7 @@ from .global_result import GlobalResult, GroupFit
 from .handles import move_handle, pin_through
 from .models import Derived, Handle, Model, Param
 from .parameters import Parameter, Parameters
+from .reports import Report
 from .result import FitResult
 from .start import generic_start, guided_start
 from .stats import (
@@ -76,6 +78,7 @@ __all__ = [
     "LinearizedFit",
     "Model",
     "ModelError",
+    "OutputError",
     "Param",
     "Parameter",
     "ParameterError",
@@ -83,6 +86,7 @@ __all__ = [
     "load_session",
     "Parameters",
     "RankDeficiencyWarning",
+    "Report",
     "__version__",
     "catalog",
     "compare",

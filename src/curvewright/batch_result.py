@@ -26,7 +26,7 @@ import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -46,6 +46,7 @@ from .result import (
     _need,
     _num,
     _restore_model,
+    report_function,
 )
 from .thresholds import CAUTION
 
@@ -565,6 +566,35 @@ class BatchResult:
         cols["note"] = list(self.notes)
         out: pd.DataFrame = pd.DataFrame(cols, index=self._index())
         return out
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per group: the same table as :attr:`table`."""
+        return self.table
+
+    def report(
+        self,
+        format: Literal["html", "markdown"] = "html",
+        *,
+        figure: bool = True,
+        path: str | Any = None,
+    ) -> Any:
+        """A self-contained report of the batch, listing failed and flagged groups with reasons.
+
+        Intervals are at the batch's :attr:`level`. See :func:`curvewright.reports.report`.
+        """
+        return report_function("report")(self, format, level=self.level, figure=figure, path=path)
+
+    def methods(self) -> str:
+        """A methods paragraph saying what was done (see :func:`curvewright.reports.methods`)."""
+        out: str = report_function("methods")(self, level=self.level)
+        return out
+
+    def to_excel(self, path: str | Any) -> Any:
+        """Write parameters, derived quantities, diagnostics (status, reasons) and data to .xlsx.
+
+        See :func:`curvewright.reports.to_excel` (needs ``pip install "curvewright[excel]"``).
+        """
+        return report_function("to_excel")(self, path, level=self.level)
 
     # ------------------------------------------------------------------ text
     def summary(self, max_listed: int = 20) -> str:

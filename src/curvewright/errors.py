@@ -18,6 +18,7 @@ __all__ = [
     "ParameterError",
     "SessionError",
     "ComparisonError",
+    "OutputError",
     "CurvewrightWarning",
     "ExtrapolationWarning",
     "RankDeficiencyWarning",
@@ -62,6 +63,10 @@ class ComparisonError(CurvewrightError, ValueError):
 
 class SessionError(DataError):
     """A saved session cannot be loaded: damaged, its data altered, a newer schema, no model."""
+
+
+class OutputError(CurvewrightError, OSError):
+    """A report or table cannot be written where asked: a missing folder, no permission."""
 
 
 class DependencyError(CurvewrightError, ImportError):

@@ -20,7 +20,7 @@ import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -46,6 +46,7 @@ from .result import (
     _ro,
     _statistic,
     fit_quality_lines,
+    report_function,
 )
 from .thresholds import CAUTION
 
@@ -482,6 +483,35 @@ class GlobalResult:
                 )
         out: pd.DataFrame = pd.DataFrame(rows)
         return out
+
+    def report(
+        self,
+        format: Literal["html", "markdown"] = "html",
+        *,
+        level: float = 0.95,
+        figure: bool = True,
+        path: str | Any = None,
+        comparison: Any = None,
+    ) -> Any:
+        """A self-contained report of the global fit (HTML or Markdown).
+
+        See :func:`curvewright.reports.report`.
+        """
+        return report_function("report")(
+            self, format, level=level, figure=figure, path=path, comparison=comparison
+        )
+
+    def methods(self, level: float = 0.95) -> str:
+        """A methods paragraph saying what was done (see :func:`curvewright.reports.methods`)."""
+        out: str = report_function("methods")(self, level=level)
+        return out
+
+    def to_excel(self, path: str | Any, *, level: float = 0.95) -> Any:
+        """Write parameters, derived quantities, diagnostics and data to an .xlsx file.
+
+        See :func:`curvewright.reports.to_excel` (needs ``pip install "curvewright[excel]"``).
+        """
+        return report_function("to_excel")(self, path, level=level)
 
     # ------------------------------------------------------------------ questions
     def test_shared(self, name: str, alpha: float = 0.05) -> SharedTest:

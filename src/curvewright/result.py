@@ -35,6 +35,7 @@ __all__ = [
     "Attempt",
     "Diagnostic",
     "FitResult",
+    "register_reports",
     "register_statistics",
 ]
 
@@ -632,6 +633,46 @@ class FitResult:
         out: pd.DataFrame = pd.DataFrame(rows).set_index("parameter")
         return out
 
+    # ------------------------------------------------------ reports (curvewright.reports)
+    def report(
+        self,
+        format: Literal["html", "markdown"] = "html",
+        *,
+        level: float = 0.95,
+        figure: bool = True,
+        path: str | Any = None,
+        comparison: Any = None,
+        intervals: Literal["wald", "profile"] = "wald",
+    ) -> Any:
+        """A self-contained report of the fit (HTML or Markdown), ready to save or show.
+
+        See :func:`curvewright.reports.report`.
+        """
+        return report_function("report")(
+            self,
+            format,
+            level=level,
+            figure=figure,
+            path=path,
+            comparison=comparison,
+            intervals=intervals,
+        )
+
+    def methods(self, level: float = 0.95, intervals: Literal["wald", "profile"] = "wald") -> str:
+        """A methods paragraph saying what was done, to paste into a paper.
+
+        See :func:`curvewright.reports.methods`.
+        """
+        out: str = report_function("methods")(self, level=level, intervals=intervals)
+        return out
+
+    def to_excel(self, path: str | Any, *, level: float = 0.95) -> Any:
+        """Write the parameters, derived quantities, diagnostics and data to an .xlsx file.
+
+        See :func:`curvewright.reports.to_excel` (needs ``pip install "curvewright[excel]"``).
+        """
+        return report_function("to_excel")(self, path, level=level)
+
     # ------------------------------------------------------ uncertainty (curvewright.stats)
     # Thin delegates to the statistics layer, which sits above this record and imports it, so
     # the record cannot import it back (not even late): curvewright.stats registers the
@@ -1155,6 +1196,29 @@ def _statistic(name: str) -> Callable[..., Any]:
         raise CurvewrightError(
             f"FitResult needs curvewright.stats for {name}, and it has not been imported; "
             "import curvewright (or curvewright.stats) first."
+        ) from None
+
+
+# ------------------------------------------------------------------ reports registry
+# The reports (curvewright.reports, the view layer) are built on the results, so the results
+# cannot import them; the reports package registers its entry points when imported (the
+# package __init__ imports it), as the statistics do above.
+_REPORTS: dict[str, Callable[..., Any]] = {}
+
+
+def register_reports(**functions: Callable[..., Any]) -> None:
+    """Tell the results' ``report``, ``methods`` and ``to_excel`` where they live."""
+    _REPORTS.update(functions)
+
+
+def report_function(name: str) -> Callable[..., Any]:
+    """The registered reports function ``name`` (``report``, ``methods``, ``to_excel``)."""
+    try:
+        return _REPORTS[name]
+    except KeyError:
+        raise CurvewrightError(
+            f"the results need curvewright.reports for {name}, and it has not been imported; "
+            "import curvewright (or curvewright.reports) first."
         ) from None
 
 

@@ -273,3 +273,81 @@ def test_compare_refuses_different_data_weights_and_bad_fits() -> None:
         compare(a, hill, prefer="bic")
     with pytest.raises(ParameterError, match="unknown fit 'Hill'"):
         compare(a, hill, nested=[("michaelis_menten", "Hill")])
+
+
+# ---------------------------------------------------------------------------------------------
+# global fits nested by a fixed parameter
+
+
+def test_global_fit_with_a_parameter_fixed_is_nested_in_the_free_one() -> None:
+    # Source: R's Puromycin, both states (tests/data/stats/SOURCES.md), with an indicator
+    # column for the treated cells used as a per-group constant. Michaelis-Menten with the
+    # treated cells' Vmax and Km shifted by dV and dK; with dK fixed at 0 (one Km for both
+    # states) the model is nested in the one with dK free. Reference: both fits redone with
+    # scipy.optimize.least_squares on the stacked data, and the extra-sum-of-squares F test
+    # (common practice) computed from their SSR with scipy.stats.f.
+    from scipy.optimize import least_squares
+
+    df = pd.read_csv(DATA / "stats" / "Puromycin.csv")
+    df["treated"] = (df["state"] == "treated").astype(float)
+    formula = "(Vmax + dV*treated)*x/(Km + dK*treated + x)"
+    start = {"Vmax": 160.0, "dV": 50.0, "Km": 0.05}
+
+    def fit(shared: list[str], fixed: dict[str, float]) -> cw.GlobalResult:
+        return cw.fit_global(
+            formula,
+            data=df,
+            x="conc",
+            y="rate",
+            by="state",
+            shared=shared,
+            constants=["treated"],
+            start={k: v for k, v in start.items() if k not in fixed},
+            fixed=fixed,
+        )
+
+    one_km = fit(["Vmax", "dV", "Km"], {"dK": 0.0})
+    two_km = fit(["Vmax", "dV", "Km", "dK"], {})
+
+    x, y, t = (df[c].to_numpy(dtype=float) for c in ("conc", "rate", "treated"))
+
+    def ssr(free_dk: bool) -> float:
+        def resid(p: np.ndarray) -> np.ndarray:
+            vmax, dv, km = p[:3]
+            dk = p[3] if free_dk else 0.0
+            return y - (vmax + dv * t) * x / (km + dk * t + x)
+
+        x0 = [160.0, 50.0, 0.05] + ([0.0] if free_dk else [])
+        sol = least_squares(resid, x0, method="lm", xtol=1e-15, ftol=1e-15, gtol=1e-15)
+        return float(sol.fun @ sol.fun)
+
+    ssr_s, ssr_l = ssr(False), ssr(True)
+    assert one_km.ssr == pytest.approx(ssr_s, rel=1e-7)
+    assert two_km.ssr == pytest.approx(ssr_l, rel=1e-7)
+    n = len(df)
+    df_s, df_l = n - 3, n - 4
+    F = ((ssr_s - ssr_l) / (df_s - df_l)) / (ssr_l / df_l)
+    p = float(scipy.stats.f.sf(F, df_s - df_l, df_l))
+
+    c = compare(two_km, one_km)  # order does not matter: the nesting is detected
+    assert len(c.f_tests) == 1
+    got = c.f_tests.iloc[0]
+    assert got["simpler"] == "custom (shared: Vmax, dV, Km; fixed: dK=0)"
+    assert got["larger"] == "custom (shared: Vmax, dV, Km, dK)"
+    assert (int(got["df_num"]), int(got["df_den"])) == (1, df_l)
+    assert float(got["F"]) == pytest.approx(F, rel=1e-5)
+    assert float(got["p"]) == pytest.approx(p, rel=1e-4)
+    assert bool(got["significant"]) == (p < 0.05)
+
+    # Fixed at different values in each: neither is the other with more held; nested=True
+    # then says so instead of testing a pair that is not nested.
+    dv_held = fit(["Vmax", "Km", "dK"], {"dV": 50.0})
+    assert len(compare(one_km, dv_held).f_tests) == 0
+    with pytest.raises(ComparisonError, match="are not nested"):
+        compare(one_km, dv_held, nested=True)
+    # ... but both are nested in the fit that estimates everything
+    both = compare(one_km, dv_held, two_km)
+    assert sorted(zip(both.f_tests["simpler"], both.f_tests["larger"], strict=True)) == [
+        ("custom (shared: Vmax, Km, dK; fixed: dV=50)", "custom (shared: Vmax, dV, Km, dK)"),
+        ("custom (shared: Vmax, dV, Km; fixed: dK=0)", "custom (shared: Vmax, dV, Km, dK)"),
+    ]

@@ -20,6 +20,8 @@ catalog models (a straight line inside any polynomial, polynomials of increasing
 3PL inside the 4PL with zero_dose = 0, the 4PL inside the 5PL with g = 1, Michaelis-Menten inside
 the Hill equation with n_h = 1), each confirmed numerically: the larger model with those
 values fixed must reproduce the simpler model's curve. Any other nesting can be declared.
+Global fits of the same model nest when one shares or holds fixed more parameters than the
+other (:func:`compare_global`).
 """
 
 from __future__ import annotations
@@ -438,8 +440,7 @@ def compare(
     *results : FitResult or GlobalResult
         Two or more least-squares fits to the same points with the same weights. Global fits
         (:func:`curvewright.fit_global`) are compared with each other: nested when one shares
-        a strict superset of the other's shared parameters (see
-        :func:`curvewright.stats.groups.compare_global`).
+        or holds fixed more parameters than the other (see :func:`compare_global`).
     names : sequence of str, optional
         Labels for the fits (default: the model names, with fixed values).
     nested : None, bool or sequence of (simpler, larger)
@@ -681,19 +682,33 @@ def _same_global_data(fits: Sequence[GlobalResult], labels: Sequence[str]) -> No
 
 
 def _nested_global(simple: GlobalResult, large: GlobalResult) -> bool:
-    """``simple`` is ``large`` with more parameters shared (same model, constants, holds)."""
-    return (
+    """``simple`` is ``large`` with more parameters shared or held fixed.
+
+    Same model, constants and links; everything ``large`` holds fixed, ``simple`` holds at the
+    same value; a parameter ``simple`` estimates per group is per group in ``large`` too (a
+    shared one may be shared or per group there); and ``simple`` estimates fewer.
+    """
+    if not (
         simple.model.same_form(large.model)
         and simple.constants == large.constants
-        and simple.fixed == large.fixed
         and dict(simple.linked) == dict(large.linked)
-        and set(simple.shared) | set(simple.per_group) == set(large.shared) | set(large.per_group)
-        and set(simple.shared) > set(large.shared)
-        and all(
-            simple.options.get("fixed", {}).get(k) == v
-            for k, v in large.options.get("fixed", {}).items()
-        )
+    ):
+        return False
+    fs, fl = simple.options.get("fixed", {}), large.options.get("fixed", {})
+    if any(k not in fs or fs[k] != v for k, v in fl.items()):
+        return False
+    large_free = set(large.shared) | set(large.per_group)
+    return (
+        set(simple.per_group) <= set(large.per_group)
+        and set(simple.shared) <= large_free
+        and simple.nfree < large.nfree
     )
+
+
+def _global_label(r: GlobalResult) -> str:
+    fixed = dict(r.options.get("fixed", {}))
+    held = "; fixed: " + ", ".join(f"{k}={v:g}" for k, v in fixed.items()) if fixed else ""
+    return f"{r.model.name} (shared: {', '.join(r.shared) or 'none'}{held})"
 
 
 def compare_global(
@@ -706,18 +721,19 @@ def compare_global(
 ) -> Comparison:
     """Compare global fits of the same data (what :func:`curvewright.compare` does for them).
 
-    Two fits are nested when they use the same model, constants and fixed values and one
-    shares a strict superset of the other's shared parameters; nested pairs get the
+    Two fits are nested when they use the same model, constants and links and the simpler one
+    shares more parameters or holds more fixed (e.g. a mixed-inhibition model with its
+    uncompetitive term fixed at 0 inside the free one); nested pairs get the
     extra-sum-of-squares F test. AICc is always reported.
 
     Parameters
     ----------
     results : sequence of GlobalResult
     names : sequence of str, optional
-        Labels (default: "shared: ..." of each).
+        Labels (default: the model, its shared parameters and its fixed values).
     nested : None or bool
         None: detect nested pairs; False: no F tests; True: require every pair that differs in
-        its shared set to be nested (a ComparisonError otherwise).
+        its shared or fixed parameters to be nested (a ComparisonError otherwise).
     alpha, prefer
         As for :func:`curvewright.compare`.
 
@@ -742,7 +758,7 @@ def compare_global(
         if len(labels) != len(fits) or len(set(labels)) != len(labels):
             raise ParameterError(f"names must give one distinct label per fit, got {labels}.")
     else:
-        labels = [f"{r.model.name} (shared: {', '.join(r.shared) or 'none'})" for r in fits]
+        labels = [_global_label(r) for r in fits]
         labels = [
             lab if labels.count(lab) == 1 else f"{lab} #{i + 1}" for i, lab in enumerate(labels)
         ]
@@ -758,7 +774,7 @@ def compare_global(
                     {
                         "simpler": labels[i],
                         "larger": labels[j],
-                        "how": "detected (more parameters shared)",
+                        "how": "detected (more parameters shared or fixed)",
                         "df_num": dn,
                         "df_den": dd,
                         "F": F,
@@ -769,12 +785,17 @@ def compare_global(
             elif (
                 nested is True
                 and i < j
-                and set(fits[i].shared) != set(fits[j].shared)
+                and (
+                    set(fits[i].shared) != set(fits[j].shared)
+                    or dict(fits[i].options.get("fixed", {}))
+                    != dict(fits[j].options.get("fixed", {}))
+                )
                 and not _nested_global(fits[j], fits[i])
             ):
                 raise ComparisonError(
-                    f"{labels[i]!r} and {labels[j]!r} are not nested: one must share every "
-                    "parameter the other shares and more, with the same model and holds."
+                    f"{labels[i]!r} and {labels[j]!r} are not nested: one must share or fix "
+                    "every parameter the other shares or fixes, and more, with the same model, "
+                    "constants and fixed values."
                 )
     f_tests = pd.DataFrame(
         rows, columns=["simpler", "larger", "how", "df_num", "df_den", "F", "p", "significant"]
