@@ -77,7 +77,7 @@ from ..models import Model
 from ..result import _power_of
 from ..start import location_parameters
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
-from .batch_kernel import STATUS, kernel_for
+from .batch_kernel import STATUS, kernel_for, parallel_kernel_for, threads
 from .problem import FloatArray
 
 __all__ = [
@@ -402,6 +402,9 @@ def _solve_systems(m: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArra
 # ============================================================================ solver
 # Groups per call of the compiled kernel (cancel is polled between calls) and per numpy run.
 _CHUNK = 8192
+# From this many groups in a call, the compiled kernel runs on all of numba's threads (same
+# answers; below it, starting the threads costs more than it saves).
+_PARALLEL_FROM = 512
 
 
 def _run_compiled(
@@ -419,6 +422,7 @@ def _run_compiled(
 ) -> None:
     """Solve the groups ``idx`` with the compiled kernel, in chunks, filling the outputs."""
     free = np.ascontiguousarray(prob.free, dtype=np.bool_)
+    par = parallel_kernel_for(prob.model) if threads() > 1 else None
     for c0 in range(0, idx.size, _CHUNK):
         part = idx[c0 : c0 + _CHUNK]
         if cancel is not None and cancel():
@@ -433,32 +437,40 @@ def _run_compiled(
         ev = np.zeros(k, dtype=np.int64)
         it = np.zeros(k, dtype=np.int64)
         st = np.zeros(k, dtype=np.int64)
+        args = (
+            x,
+            np.ascontiguousarray(prob.y[part], dtype=float),
+            wt,
+            np.ascontiguousarray(prob.mask[part], dtype=np.bool_),
+            free,
+            th,
+            np.ascontiguousarray(prob.lower[part], dtype=float),
+            np.ascontiguousarray(prob.upper[part], dtype=float),
+            int(max_iterations),
+            FTOL,
+            XTOL,
+            GTOL,
+            _LAMBDA0,
+            _ACCEPT,
+            _LAMBDA_MAX,
+            _BACK,
+            _SNAP,
+            _STALE,
+            _RESTARTS,
+            ssr,
+            ev,
+            it,
+            st,
+        )
         with np.errstate(all="ignore"):
-            run(
-                x,
-                np.ascontiguousarray(prob.y[part], dtype=float),
-                wt,
-                np.ascontiguousarray(prob.mask[part], dtype=np.bool_),
-                free,
-                th,
-                np.ascontiguousarray(prob.lower[part], dtype=float),
-                np.ascontiguousarray(prob.upper[part], dtype=float),
-                int(max_iterations),
-                FTOL,
-                XTOL,
-                GTOL,
-                _LAMBDA0,
-                _ACCEPT,
-                _LAMBDA_MAX,
-                _BACK,
-                _SNAP,
-                _STALE,
-                _RESTARTS,
-                ssr,
-                ev,
-                it,
-                st,
-            )
+            if par is not None and k >= _PARALLEL_FROM:
+                try:
+                    par(*args)
+                except Exception:  # no threading layer, or numba refused: stay serial
+                    par = None
+                    th[:] = values[part]
+            if par is None or k < _PARALLEL_FROM:
+                run(*args)
         values[part] = th
         ssr_out[part] = ssr
         evals[part] = ev

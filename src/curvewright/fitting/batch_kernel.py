@@ -29,7 +29,7 @@ from typing import Any
 from ..expr import _codegen_many
 from ..models import Model
 
-__all__ = ["STATUS", "available", "kernel_for"]
+__all__ = ["STATUS", "available", "kernel_for", "parallel_kernel_for", "threads"]
 
 #: The kernel's outcome codes per group, as the reasons the numpy path gives.
 STATUS = ("", "iteration limit", "non-finite model values", "singular system")
@@ -123,12 +123,13 @@ _HEADER = """\
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 _add, _sub, _mul, _div = np.add, np.subtract, np.multiply, np.true_divide
 _pow, _neg = np.power, np.negative
 {functions}
 _jit = njit(cache=True, error_model="numpy")
+BLOCK = 128
 """
 
 
@@ -176,7 +177,7 @@ def _load(source: str) -> Any:
     # numba's cache finds a function's globals through its module's entry in sys.modules
     sys.modules[name] = module
     spec.loader.exec_module(module)
-    return module.loop
+    return module
 
 
 def kernel_for(model: Model) -> Callable[..., None] | None:
@@ -189,10 +190,32 @@ def kernel_for(model: Model) -> Callable[..., None] | None:
     happens at the first call (numba is lazy), so a model it cannot compile fails there: the
     caller then falls back to numpy.
     """
+    return _kernel(model, "loop")
+
+
+def parallel_kernel_for(model: Model) -> Callable[..., None] | None:
+    """The same solver spread over numba's threads, or None as :func:`kernel_for`.
+
+    Called as :func:`kernel_for`'s function. The groups go in fixed blocks to the threads, and
+    each is solved by the serial code: the answers are the serial kernel's, bit for bit, for
+    any number of threads (``NUMBA_NUM_THREADS`` sets it). Worth it only for many groups:
+    the caller decides (:func:`threads`). Compiling can fail where numba has no threading
+    layer; the caller then keeps the serial kernel.
+    """
+    return _kernel(model, "loop_parallel")
+
+
+def threads() -> int:
+    """How many threads numba would use for :func:`parallel_kernel_for` (1 without numba)."""
+    nb = _numba()
+    return 1 if nb is None else int(nb.get_num_threads())
+
+
+def _kernel(model: Model, name: str) -> Callable[..., None] | None:
     if _numba() is None or model.expr is None:
         return None
     try:
-        loop: Callable[..., None] = _load(_module_source(model))
+        loop: Callable[..., None] = getattr(_load(_module_source(model)), name)
     except Exception:  # numba and the import system raise many types
         return None
     return loop
@@ -292,7 +315,33 @@ def loop(
     X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
     lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
 ):
-    G, N = X.shape
+    groups(
+        0, X.shape[0], X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol, lambda0,
+        accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
+    )
+
+@njit(cache=True, error_model="numpy", parallel=True)
+def loop_parallel(
+    X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
+    lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
+):
+    # Fixed blocks of groups over numba's threads: every group is solved by the same serial
+    # code with its own workspace, so the answers are those of loop, whatever the threads.
+    G = X.shape[0]
+    nb = (G + BLOCK - 1) // BLOCK
+    for b in prange(nb):
+        groups(
+            b * BLOCK, min(G, (b + 1) * BLOCK), X, Y, W, M, FREE, TH, LO, HI, maxit, ftol,
+            xtol, gtol, lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR,
+            EVALS, ITERS, STATUS,
+        )
+
+@_jit
+def groups(
+    g0, g1, X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
+    lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
+):
+    N = X.shape[1]
     P = TH.shape[1]
     jac = np.zeros((N, P))
     jac_t = np.zeros((N, P))
@@ -310,7 +359,7 @@ def loop(
     trial = np.zeros(P)
     scale = np.zeros(P)
     frozen = np.zeros(P, dtype=np.bool_)
-    for g in range(G):
+    for g in range(g0, g1):
         th = TH[g]
         lo = LO[g]
         hi = HI[g]
