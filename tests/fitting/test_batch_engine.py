@@ -246,6 +246,33 @@ def test_the_threaded_kernel_gives_the_serial_kernels_answers_bit_for_bit(
         ), field
 
 
+def test_statistics_from_the_compiled_jacobian_equal_the_numpy_ones(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # The statistics evaluate the Jacobian in compiled code when numba serves the model; the
+    # numpy evaluation (checked against the single fit above through either) must agree,
+    # zero-dose controls included (a derivative patched by central differences there).
+    _kernel_ok("compiled")
+    from curvewright.fitting import batch_engine
+
+    m, xs, ys, sws, start = _groups("inhibition_4pl", 300, weighted=True)
+    xs = [np.concatenate([[0.0], x]) for x in xs]
+    ys = [np.concatenate([[y[0]], y]) for y in ys]
+    assert sws is not None
+    sws = [np.concatenate([[s[0]], s]) for s in sws]
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob)
+    assert batch_engine.jacobian_kernel_for(m) is not None
+    compiled = batch_statistics(prob, sol)
+    monkeypatch.setattr(batch_engine, "jacobian_kernel_for", lambda model: None)
+    plain = batch_statistics(prob, sol)
+    assert np.isfinite(plain.stderr).sum() > 0.9 * plain.stderr.size
+    np.testing.assert_allclose(compiled.stderr, plain.stderr, rtol=1e-9)
+    np.testing.assert_allclose(compiled.condition, plain.condition, rtol=1e-9)
+    for flag in ("singular", "near_singular", "high_correlation", "not_identified"):
+        assert np.array_equal(getattr(compiled, flag), getattr(plain, flag)), flag
+
+
 @pytest.mark.parametrize("label", ["inhibition_4pl", "exponential_rise", "boltzmann", "hill"])
 def test_sum_of_squares_never_worse_than_scipy_minpack(label: str) -> None:
     # Reference: scipy.optimize.least_squares(method="lm") (MINPACK lmdif, its own differences)

@@ -77,7 +77,7 @@ from ..models import Model
 from ..result import _power_of
 from ..start import location_parameters
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
-from .batch_kernel import STATUS, kernel_for, parallel_kernel_for, threads
+from .batch_kernel import STATUS, jacobian_kernel_for, kernel_for, parallel_kernel_for, threads
 from .problem import FloatArray
 
 __all__ = [
@@ -812,6 +812,47 @@ def _x_spans(prob: BatchProblem, where: str) -> FloatArray:
     return span
 
 
+def _weighted_jacobian(prob: BatchProblem, vals: FloatArray) -> FloatArray:
+    """``w * df/dp`` at ``vals``, shape (G, N, P), 0 outside the mask (non-finite kept).
+
+    The compiled evaluation when numba serves the model (several times faster), else numpy;
+    both patch a non-finite derivative by the same rule (:func:`_patch_jacobian`).
+    """
+    G, N = prob.x.shape
+    P = vals.shape[1]
+    wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
+    run = jacobian_kernel_for(prob.model) if G else None
+    if run is not None:
+        jw = np.empty((G, N, P))
+        try:
+            with np.errstate(all="ignore"):
+                run(
+                    np.ascontiguousarray(prob.x, dtype=float),
+                    np.ascontiguousarray(prob.y, dtype=float),
+                    np.ascontiguousarray(wt, dtype=float),
+                    np.ascontiguousarray(prob.mask, dtype=np.bool_),
+                    np.ascontiguousarray(vals, dtype=float),
+                    np.ascontiguousarray(prob.lower, dtype=float),
+                    np.ascontiguousarray(prob.upper, dtype=float),
+                    jw,
+                    np.empty((G, N)),
+                    np.empty(G),
+                )
+        except Exception:  # numba refused the model at its first call: numpy below
+            pass
+        else:
+            return jw
+    grad = prob.model._value_and_gradient
+    assert grad is not None  # BatchProblem refuses callables
+    with np.errstate(all="ignore"):
+        f, jac = _evaluate(grad, prob.x, vals, P)
+        _patch_jacobian(prob.model, prob.x, vals, f, jac, prob.lower, prob.upper, prob.mask)
+        out: FloatArray = np.where(
+            prob.mask[:, :, None], (jac * wt[:, None, :]).transpose(0, 2, 1), 0.0
+        )
+    return out
+
+
 def _scaled_inverse(a: FloatArray, n: IntArray) -> tuple[FloatArray, FloatArray, BoolArray]:
     """``(A'A)^-1``, the condition number of ``A`` and the singular test, per group.
 
@@ -873,12 +914,7 @@ def batch_statistics(
     n = prob.n
     dof = n - p
     vals = solution.values
-    with np.errstate(all="ignore"):
-        f, jac = _evaluate(grad, prob.x, vals, P)
-        _patch_jacobian(prob.model, prob.x, vals, f, jac, prob.lower, prob.upper, prob.mask)
-        wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
-        jw = np.where(prob.mask[:, :, None], (jac * wt[:, None, :]).transpose(0, 2, 1), 0.0)
-    jw = jw[:, :, fi]  # (G, N, p)
+    jw = _weighted_jacobian(prob, vals)[:, :, fi]  # (G, N, p)
     cov_f = np.full((G, p, p), np.nan)
     cond = np.full(G, np.inf)
     singular = np.ones(G, dtype=bool)
@@ -939,11 +975,14 @@ def batch_statistics(
         )
         # Positions on the x axis are judged against each group's span along x, as in the
         # single fit (assemble._diagnostics, start.location_parameters).
+        spans: dict[str, FloatArray] = {}
         for j, name in enumerate(prob.model.param_names):
             where = location_parameters(prob.model).get(name)
             if where is None or not free[j]:
                 continue
-            span = _x_spans(prob, where)
+            if where not in spans:
+                spans[where] = _x_spans(prob, where)
+            span = spans[where]
             usable = np.isfinite(span) & (span > 0)
             by_span = (
                 free[j] & np.isfinite(stderr[:, j]) & (stderr[:, j] > NOT_IDENTIFIED_RSE * span)

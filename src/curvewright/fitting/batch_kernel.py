@@ -22,6 +22,7 @@ import os
 import re
 import sys
 import tempfile
+import weakref
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -29,7 +30,14 @@ from typing import Any
 from ..expr import _codegen_many
 from ..models import Model
 
-__all__ = ["STATUS", "available", "kernel_for", "parallel_kernel_for", "threads"]
+__all__ = [
+    "STATUS",
+    "available",
+    "jacobian_kernel_for",
+    "kernel_for",
+    "parallel_kernel_for",
+    "threads",
+]
 
 #: The kernel's outcome codes per group, as the reasons the numpy path gives.
 STATUS = ("", "iteration limit", "non-finite model values", "singular system")
@@ -205,17 +213,37 @@ def parallel_kernel_for(model: Model) -> Callable[..., None] | None:
     return _kernel(model, "loop_parallel")
 
 
+def jacobian_kernel_for(model: Model) -> Callable[..., None] | None:
+    """The compiled weighted Jacobian of every group, or None as :func:`kernel_for`.
+
+    Called as ``run(X, Y, W, M, TH, LO, HI, JAC, R, SSR)`` on C-contiguous arrays (``JAC`` of
+    shape ``(G, N, P)``): fills ``JAC`` with ``w * df/dp`` at the real points (0 elsewhere),
+    patched where a derivative is not finite by the rule of the solver's evaluations, ``R``
+    with the weighted residuals and ``SSR`` (inf where something is not finite).
+    """
+    return _kernel(model, "jacobians")
+
+
 def threads() -> int:
     """How many threads numba would use for :func:`parallel_kernel_for` (1 without numba)."""
     nb = _numba()
     return 1 if nb is None else int(nb.get_num_threads())
 
 
+# Each model's loaded kernel module, so that a batch's chunks do not generate its source again
+# (milliseconds a call); kept only while the model lives.
+_MODULES: weakref.WeakKeyDictionary[Model, Any] = weakref.WeakKeyDictionary()
+
+
 def _kernel(model: Model, name: str) -> Callable[..., None] | None:
     if _numba() is None or model.expr is None:
         return None
     try:
-        loop: Callable[..., None] = getattr(_load(_module_source(model)), name)
+        module = _MODULES.get(model)
+        if module is None:
+            module = _load(_module_source(model))
+            _MODULES[model] = module
+        loop: Callable[..., None] = getattr(module, name)
     except Exception:  # numba and the import system raise many types
         return None
     return loop
@@ -280,6 +308,17 @@ def evaluate(x, y, w, m, th, lo, hi, jac, r, vals, up, dn):
     if not math.isfinite(ssr) or not ok:
         return math.inf
     return ssr
+
+@_jit
+def jacobians(X, Y, W, M, TH, LO, HI, JAC, R, SSR):
+    # Every group's weighted Jacobian, residuals and ssr at TH (the statistics' evaluation).
+    N = X.shape[1]
+    P = TH.shape[1]
+    vals = np.zeros((N, P + 1))
+    up = np.zeros(2 * P + 1)
+    dn = np.zeros(2 * P + 1)
+    for g in range(X.shape[0]):
+        SSR[g] = evaluate(X[g], Y[g], W[g], M[g], TH[g], LO[g], HI[g], JAC[g], R[g], vals, up, dn)
 
 @_jit
 def cholesky_solve(mat, rhs, out, low):
