@@ -15,6 +15,7 @@ the numpy path.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
 import importlib.util
@@ -23,7 +24,7 @@ import re
 import sys
 import tempfile
 import weakref
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
@@ -36,6 +37,7 @@ __all__ = [
     "jacobian_kernel_for",
     "kernel_for",
     "parallel_kernel_for",
+    "serial",
     "threads",
 ]
 
@@ -233,6 +235,29 @@ def threads() -> int:
 # Each model's loaded kernel module, so that a batch's chunks do not generate its source again
 # (milliseconds a call); kept only while the model lives.
 _MODULES: weakref.WeakKeyDictionary[Model, Any] = weakref.WeakKeyDictionary()
+
+
+@contextlib.contextmanager
+def serial() -> Iterator[None]:
+    """Within this block, in this thread, :func:`threads` is 1 (the kernel runs serially).
+
+    For the Dask backend's tasks: the workers, sized to the cores, are the parallelism, and
+    threads inside each would compete with the others. numba's thread count is per thread,
+    so other threads keep theirs.
+    """
+    nb = _numba()
+    old = None
+    if nb is not None:
+        try:
+            old = nb.get_num_threads()
+            nb.set_num_threads(1)
+        except Exception:  # no threading layer: the kernel is serial anyway
+            old = None
+    try:
+        yield
+    finally:
+        if old is not None:
+            nb.set_num_threads(old)
 
 
 def _kernel(model: Model, name: str) -> Callable[..., None] | None:
