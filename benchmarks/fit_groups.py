@@ -7,10 +7,11 @@ derived quantities and statuses included. The reference is a scipy ``curve_fit``
 ``--loop`` of the curves, started near each truth (an easier job than a guided start), scaled
 to the batch's size; both are measured in this run, and the ratio is printed. ``--repeat``
 times the batch that many times (the loop once before and once after) and prints the median
-and the range. ``--dask`` also times ``backend="dask"`` on a one-worker and on a two-worker
-LocalCluster (processes, one thread each) started beforehand. The 1-minute load average is
-printed with every figure: the machine may be shared. Nothing here is a test: timings are
-never asserted.
+and the range, and the same in process CPU time (less sensitive to other work on a shared
+machine; it adds up the engine's threads). ``--dask`` also times ``backend="dask"`` on a
+one-worker and on a two-worker LocalCluster (processes, one thread each) started
+beforehand. The 1-minute load average is printed with every figure: the machine may be
+shared. Nothing here is a test: timings are never asserted.
 """
 
 from __future__ import annotations
@@ -49,16 +50,16 @@ def _table(g: int, seed: int) -> tuple[pd.DataFrame, np.ndarray]:
     return df, truth
 
 
-def _loop(df: pd.DataFrame, truth: np.ndarray, n: int) -> float:
-    """Seconds per curve of a curve_fit loop started at the truth."""
+def _loop(df: pd.DataFrame, truth: np.ndarray, n: int) -> tuple[float, float]:
+    """Seconds per curve of a curve_fit loop started at the truth: wall and process CPU."""
     y = df["resp"].to_numpy().reshape(-1, DOSES.size)
     f = MODEL.func
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for i in range(n):
             curve_fit(lambda x, *p: f(x, *p), DOSES, y[i], p0=truth[i], maxfev=4000)
-    return (time.perf_counter() - t0) / n
+    return (time.perf_counter() - t0) / n, (time.process_time() - c0) / n
 
 
 def _cluster(workers: int) -> Any:
@@ -100,14 +101,17 @@ def main() -> None:
     for g in sizes:
         df, truth = _table(g, 1)
         loops = [_loop(df, truth, min(args.loop, g))]
-        times = []
+        times, cpus = [], []
         for _ in range(args.repeat):
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             batch = cw.fit_groups(MODEL, data=df, x="conc", y="resp", by="well", progress=False)
             times.append(time.perf_counter() - t0)
+            cpus.append(time.process_time() - c0)
         loops.append(_loop(df, truth, min(args.loop, g)))
-        per_curve = float(np.mean(loops))
+        per_curve = float(np.mean([w for w, _ in loops]))
+        cpu_curve = float(np.mean([c for _, c in loops]))
         dt = float(np.median(times))
+        dc = float(np.median(cpus))
         # memory in a second call: tracing slows Python down, so it is not timed
         tracemalloc.start()
         cw.fit_groups(MODEL, data=df, x="conc", y="resp", by="well", progress=False)
@@ -120,7 +124,9 @@ def main() -> None:
             f"loop {per_curve * g:7.2f} s ({1 / per_curve:6.0f} fits/s): "
             f"{per_curve * g / dt:5.1f}x; "
             f"peak traced memory {peak / 2**20:6.1f} MiB; {c['ok']} ok, {c['flagged']} "
-            f"flagged, {c['failed']} failed; load {os.getloadavg()[0]:.2f}"
+            f"flagged, {c['failed']} failed; load {os.getloadavg()[0]:.2f}\n"
+            f"{'':>15}process CPU: fit_groups {dc:7.2f} s, curve_fit loop "
+            f"{cpu_curve * g:7.2f} s: {cpu_curve * g / dc:5.1f}x (all threads' CPU counts)"
         )
     if args.dask:
         for workers in (1, 2):
