@@ -227,9 +227,18 @@ def jacobian_kernel_for(model: Model) -> Callable[..., None] | None:
 
 
 def threads() -> int:
-    """How many threads numba would use for :func:`parallel_kernel_for` (1 without numba)."""
+    """How many threads numba would use for :func:`parallel_kernel_for` (1 without numba).
+
+    1 in a process forked from another (``multiprocessing`` with fork): numba's OpenMP
+    threading layer is not fork-safe, and a forked child that starts its threads aborts.
+    """
     nb = _numba()
-    return 1 if nb is None else int(nb.get_num_threads())
+    return 1 if nb is None or _FORKED[0] else int(nb.get_num_threads())
+
+
+_FORKED = [False]
+if hasattr(os, "register_at_fork"):  # not on Windows, which does not fork
+    os.register_at_fork(after_in_child=lambda: _FORKED.__setitem__(0, True))
 
 
 # Each model's loaded kernel module, so that a batch's chunks do not generate its source again
