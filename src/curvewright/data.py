@@ -396,6 +396,10 @@ def group_label(key: object) -> str:
 
 def labels_of(keys: Sequence[object]) -> tuple[str, ...]:
     """Display labels of group keys; distinct keys with the same text get ``#2``, ``#3``."""
+    if not any(isinstance(k, tuple) for k in keys):
+        plain = tuple(str(k) for k in keys)
+        if len(set(plain)) == len(plain):
+            return plain  # the usual case, thousands of groups: no text shared
     out: list[str] = []
     seen: set[str] = set()
     for k in keys:
@@ -769,7 +773,11 @@ def split_groups(
         clean = ~bad_all
     grouped = data.groupby(list(by), sort=True, dropna=False).indices
     several = len(by) > 1
-    keys = [plain_key(k, several) for k in grouped]
+    if several:
+        keys = [plain_key(k) for k in grouped]
+    else:  # plain_key(k, False), inline: one call less per group
+        raw = [c[0] if isinstance(c, tuple) else c for c in grouped]
+        keys = [k.item() if isinstance(k, np.generic) else k for k in raw]
     labels = labels_of(keys)
     if clean is not None and not constants:
         return _split_whole(

@@ -210,6 +210,69 @@ def test_the_compiled_kernel_runs_the_numpy_algorithm(label: str) -> None:
     assert np.all(np.abs(b.values - a.values) <= 1e-7 * np.abs(a.values) + 1e-4 * se)
 
 
+def test_the_threaded_kernel_gives_the_serial_kernels_answers_bit_for_bit(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # The groups are independent; spreading them over threads must not change one bit of any
+    # answer (reference: the serial compiled kernel, itself checked against numpy above).
+    _kernel_ok("compiled")
+    from curvewright.fitting import batch_engine
+
+    m, xs, ys, sws, start = _groups("inhibition_4pl", 700, weighted=True)
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    monkeypatch.setattr(batch_engine, "_PARALLEL_FROM", 10**9)
+    serial = solve_batch(prob, kernel="compiled")
+    ran: list[int] = []
+    real = batch_engine.parallel_kernel_for
+
+    def spy(model: Model) -> Callable[..., None] | None:
+        run = real(model)
+        assert run is not None, "numba has no threading layer here"
+
+        def counted(*args: Any) -> None:
+            run(*args)
+            ran.append(args[0].shape[0])
+
+        return counted
+
+    monkeypatch.setattr(batch_engine, "parallel_kernel_for", spy)
+    monkeypatch.setattr(batch_engine, "threads", lambda: 2)
+    monkeypatch.setattr(batch_engine, "_PARALLEL_FROM", 1)
+    threaded = solve_batch(prob, kernel="compiled")
+    assert ran == [700]
+    for field in ("values", "ssr", "evaluations", "iterations", "settled", "reason"):
+        assert np.array_equal(
+            np.asarray(getattr(serial, field)), np.asarray(getattr(threaded, field))
+        ), field
+
+
+def test_statistics_from_the_compiled_jacobian_equal_the_numpy_ones(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # The statistics evaluate the Jacobian in compiled code when numba serves the model; the
+    # numpy evaluation (checked against the single fit above through either) must agree,
+    # zero-dose controls included (a derivative patched by central differences there).
+    _kernel_ok("compiled")
+    from curvewright.fitting import batch_engine
+
+    m, xs, ys, sws, start = _groups("inhibition_4pl", 300, weighted=True)
+    xs = [np.concatenate([[0.0], x]) for x in xs]
+    ys = [np.concatenate([[y[0]], y]) for y in ys]
+    assert sws is not None
+    sws = [np.concatenate([[s[0]], s]) for s in sws]
+    prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
+    sol = solve_batch(prob)
+    assert batch_engine.jacobian_kernel_for(m) is not None
+    compiled = batch_statistics(prob, sol)
+    monkeypatch.setattr(batch_engine, "jacobian_kernel_for", lambda model: None)
+    plain = batch_statistics(prob, sol)
+    assert np.isfinite(plain.stderr).sum() > 0.9 * plain.stderr.size
+    np.testing.assert_allclose(compiled.stderr, plain.stderr, rtol=1e-9)
+    np.testing.assert_allclose(compiled.condition, plain.condition, rtol=1e-9)
+    for flag in ("singular", "near_singular", "high_correlation", "not_identified"):
+        assert np.array_equal(getattr(compiled, flag), getattr(plain, flag)), flag
+
+
 @pytest.mark.parametrize("label", ["inhibition_4pl", "exponential_rise", "boltzmann", "hill"])
 def test_sum_of_squares_never_worse_than_scipy_minpack(label: str) -> None:
     # Reference: scipy.optimize.least_squares(method="lm") (MINPACK lmdif, its own differences)

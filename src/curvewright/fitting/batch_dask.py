@@ -22,6 +22,7 @@ from numpy.typing import ArrayLike
 from ..batch_result import BatchResult, combine
 from ..data import check_group_columns, labels_of, plain_key
 from ..errors import DataError, DependencyError, ParameterError
+from .batch_kernel import serial
 from .batch_run import _Request, check_frame, failed_part, run_table
 
 __all__ = ["run_dask"]
@@ -149,7 +150,8 @@ def _task(
     sig_col: str | None,
     deadline: float | None,
 ) -> BatchResult:
-    return run_table(req, part, exclude_col=ex_col, sigma_col=sig_col, deadline=deadline)
+    with serial():  # the workers are the parallelism: no engine threads inside a task
+        return run_table(req, part, exclude_col=ex_col, sigma_col=sig_col, deadline=deadline)
 
 
 def _gather(

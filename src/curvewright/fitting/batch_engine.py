@@ -77,7 +77,7 @@ from ..models import Model
 from ..result import _power_of
 from ..start import location_parameters
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
-from .batch_kernel import STATUS, kernel_for
+from .batch_kernel import STATUS, jacobian_kernel_for, kernel_for, parallel_kernel_for, threads
 from .problem import FloatArray
 
 __all__ = [
@@ -121,6 +121,9 @@ _STALE = 1e3
 _RESTARTS = 10
 _TINY = np.finfo(float).tiny
 _EPS = float(np.finfo(float).eps)
+# Below this condition number of the column-scaled Jacobian, the statistics take the
+# eigenvalues of J'J instead of the SVD of J (see _scaled_inverse): error about 2e-10 relative.
+_EIG_COND = 1e3
 
 
 # ============================================================================ problem
@@ -399,6 +402,9 @@ def _solve_systems(m: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArra
 # ============================================================================ solver
 # Groups per call of the compiled kernel (cancel is polled between calls) and per numpy run.
 _CHUNK = 8192
+# From this many groups in a call, the compiled kernel runs on all of numba's threads (same
+# answers; below it, starting the threads costs more than it saves).
+_PARALLEL_FROM = 512
 
 
 def _run_compiled(
@@ -416,6 +422,7 @@ def _run_compiled(
 ) -> None:
     """Solve the groups ``idx`` with the compiled kernel, in chunks, filling the outputs."""
     free = np.ascontiguousarray(prob.free, dtype=np.bool_)
+    par = parallel_kernel_for(prob.model) if threads() > 1 else None
     for c0 in range(0, idx.size, _CHUNK):
         part = idx[c0 : c0 + _CHUNK]
         if cancel is not None and cancel():
@@ -430,32 +437,40 @@ def _run_compiled(
         ev = np.zeros(k, dtype=np.int64)
         it = np.zeros(k, dtype=np.int64)
         st = np.zeros(k, dtype=np.int64)
+        args = (
+            x,
+            np.ascontiguousarray(prob.y[part], dtype=float),
+            wt,
+            np.ascontiguousarray(prob.mask[part], dtype=np.bool_),
+            free,
+            th,
+            np.ascontiguousarray(prob.lower[part], dtype=float),
+            np.ascontiguousarray(prob.upper[part], dtype=float),
+            int(max_iterations),
+            FTOL,
+            XTOL,
+            GTOL,
+            _LAMBDA0,
+            _ACCEPT,
+            _LAMBDA_MAX,
+            _BACK,
+            _SNAP,
+            _STALE,
+            _RESTARTS,
+            ssr,
+            ev,
+            it,
+            st,
+        )
         with np.errstate(all="ignore"):
-            run(
-                x,
-                np.ascontiguousarray(prob.y[part], dtype=float),
-                wt,
-                np.ascontiguousarray(prob.mask[part], dtype=np.bool_),
-                free,
-                th,
-                np.ascontiguousarray(prob.lower[part], dtype=float),
-                np.ascontiguousarray(prob.upper[part], dtype=float),
-                int(max_iterations),
-                FTOL,
-                XTOL,
-                GTOL,
-                _LAMBDA0,
-                _ACCEPT,
-                _LAMBDA_MAX,
-                _BACK,
-                _SNAP,
-                _STALE,
-                _RESTARTS,
-                ssr,
-                ev,
-                it,
-                st,
-            )
+            if par is not None and k >= _PARALLEL_FROM:
+                try:
+                    par(*args)
+                except Exception:  # no threading layer, or numba refused: stay serial
+                    par = None
+                    th[:] = values[part]
+            if par is None or k < _PARALLEL_FROM:
+                run(*args)
         values[part] = th
         ssr_out[part] = ssr
         evals[part] = ev
@@ -644,9 +659,10 @@ def solve_batch(
         point so far (numpy) or at their start (compiled chunks not yet run).
     kernel : {"auto", "compiled", "numpy"}
         ``"compiled"`` runs the same algorithm per group in code compiled by numba
-        (:mod:`.batch_kernel`), far faster; ``"numpy"`` advances all groups together in numpy;
-        ``"auto"`` takes the compiled kernel when numba is installed and compiles the model,
-        else numpy. ``"compiled"`` without numba raises.
+        (:mod:`.batch_kernel`), far faster, and from 512 groups on numba's threads (the same
+        answers bit for bit; ``NUMBA_NUM_THREADS=1`` keeps it on one); ``"numpy"`` advances
+        all groups together in numpy; ``"auto"`` takes the compiled kernel when numba is
+        installed and compiles the model, else numpy. ``"compiled"`` without numba raises.
 
     Returns
     -------
@@ -734,8 +750,8 @@ class BatchStatistics:
         Real points and residual degrees of freedom (``n - free``).
     covariance : ndarray, shape (G, P, P)
         ``scale * (Jw' Jw)^-1`` over the free parameters (``scale = ssr/dof``, or 1 with
-        ``absolute_sigma``), by the SVD of the column-scaled Jacobian; NaN rows and columns for
-        fixed parameters, all NaN where singular.
+        ``absolute_sigma``), from the column-scaled Jacobian as the single fit (see
+        ``_scaled_inverse``); NaN rows and columns for fixed parameters, all NaN where singular.
     stderr : ndarray, shape (G, P)
         NaN for fixed parameters.
     condition : ndarray, shape (G,)
@@ -797,6 +813,79 @@ def _x_spans(prob: BatchProblem, where: str) -> FloatArray:
     return span
 
 
+def _weighted_jacobian(prob: BatchProblem, vals: FloatArray) -> FloatArray:
+    """``w * df/dp`` at ``vals``, shape (G, N, P), 0 outside the mask (non-finite kept).
+
+    The compiled evaluation when numba serves the model (several times faster), else numpy;
+    both patch a non-finite derivative by the same rule (:func:`_patch_jacobian`).
+    """
+    G, N = prob.x.shape
+    P = vals.shape[1]
+    wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
+    run = jacobian_kernel_for(prob.model) if G else None
+    if run is not None:
+        jw = np.empty((G, N, P))
+        try:
+            with np.errstate(all="ignore"):
+                run(
+                    np.ascontiguousarray(prob.x, dtype=float),
+                    np.ascontiguousarray(prob.y, dtype=float),
+                    np.ascontiguousarray(wt, dtype=float),
+                    np.ascontiguousarray(prob.mask, dtype=np.bool_),
+                    np.ascontiguousarray(vals, dtype=float),
+                    np.ascontiguousarray(prob.lower, dtype=float),
+                    np.ascontiguousarray(prob.upper, dtype=float),
+                    jw,
+                    np.empty((G, N)),
+                    np.empty(G),
+                )
+        except Exception:  # numba refused the model at its first call: numpy below
+            pass
+        else:
+            return jw
+    grad = prob.model._value_and_gradient
+    assert grad is not None  # BatchProblem refuses callables
+    with np.errstate(all="ignore"):
+        f, jac = _evaluate(grad, prob.x, vals, P)
+        _patch_jacobian(prob.model, prob.x, vals, f, jac, prob.lower, prob.upper, prob.mask)
+        out: FloatArray = np.where(
+            prob.mask[:, :, None], (jac * wt[:, None, :]).transpose(0, 2, 1), 0.0
+        )
+    return out
+
+
+def _scaled_inverse(a: FloatArray, n: IntArray) -> tuple[FloatArray, FloatArray, BoolArray]:
+    """``(A'A)^-1``, the condition number of ``A`` and the singular test, per group.
+
+    ``a`` (g, N, p) is the column-scaled weighted Jacobian. The test and the condition are
+    those of :func:`.assemble._covariance` (the SVD of ``A``). Most groups are well
+    conditioned; for them the eigenvalues of the small ``A'A`` (``p x p``, stacked) give the
+    same numbers, several times faster: its eigenvalues are the squared singular values of
+    ``A``, computed to ``eps * s_max**2``, so below a condition of ``_EIG_COND`` the condition
+    and the inverse agree with the SVD's to about ``eps * _EIG_COND**2`` relative, and both
+    tests (singular; ``NEAR_SINGULAR``) are false either way. The other groups take the SVD.
+    """
+    m = a.transpose(0, 2, 1) @ a
+    lam = np.linalg.eigvalsh(m)  # ascending
+    fast = lam[:, 0] > lam[:, -1] / _EIG_COND**2
+    g, p = a.shape[0], a.shape[2]
+    inv = np.empty((g, p, p))
+    cond = np.empty(g)
+    sing = np.zeros(g, dtype=bool)
+    if fast.any():
+        inv[fast] = np.linalg.inv(m[fast])
+        cond[fast] = np.sqrt(lam[fast, -1] / lam[fast, 0])
+    slow = ~fast
+    if slow.any():
+        _, s, vt = np.linalg.svd(a[slow], full_matrices=False)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cond_s = s[:, 0] / s[:, -1]
+            inv[slow] = (vt.transpose(0, 2, 1) / s[:, None, :] ** 2) @ vt
+        cond[slow] = np.where(s[:, -1] > 0, cond_s, np.inf)
+        sing[slow] = ~(s[:, -1] > s[:, 0] * _EPS * np.maximum(n[slow], p))
+    return inv, cond, sing
+
+
 def batch_statistics(
     problem: BatchProblem, solution: BatchSolution, *, absolute_sigma: bool = False
 ) -> BatchStatistics:
@@ -826,12 +915,7 @@ def batch_statistics(
     n = prob.n
     dof = n - p
     vals = solution.values
-    with np.errstate(all="ignore"):
-        f, jac = _evaluate(grad, prob.x, vals, P)
-        _patch_jacobian(prob.model, prob.x, vals, f, jac, prob.lower, prob.upper, prob.mask)
-        wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
-        jw = np.where(prob.mask[:, :, None], (jac * wt[:, None, :]).transpose(0, 2, 1), 0.0)
-    jw = jw[:, :, fi]  # (G, N, p)
+    jw = _weighted_jacobian(prob, vals)[:, :, fi]  # (G, N, p)
     cov_f = np.full((G, p, p), np.nan)
     cond = np.full(G, np.inf)
     singular = np.ones(G, dtype=bool)
@@ -844,11 +928,7 @@ def batch_statistics(
         usable &= np.isfinite(solution.ssr)
         if usable.any():
             a = jw[usable] / norms[usable][:, None, :]
-            _, s, vt = np.linalg.svd(a, full_matrices=False)
-            with np.errstate(divide="ignore"):
-                cond_u = s[:, 0] / s[:, -1]
-            cond_u = np.where(s[:, -1] > 0, cond_u, np.inf)
-            sing_u = ~(s[:, -1] > s[:, 0] * _EPS * np.maximum(n[usable], p))
+            inv, cond_u, sing_u = _scaled_inverse(a, n[usable])
             ssr_u = solution.ssr[usable]
             dof_u = dof[usable]
             with np.errstate(divide="ignore", invalid="ignore"):
@@ -857,7 +937,6 @@ def batch_statistics(
                     if absolute_sigma
                     else np.where(dof_u > 0, ssr_u / dof_u, np.nan)
                 )
-                inv = (vt.transpose(0, 2, 1) / s[:, None, :] ** 2) @ vt
                 nu_ = norms[usable]
                 c = sc[:, None, None] * inv / (nu_[:, :, None] * nu_[:, None, :])
             c[sing_u] = np.nan
@@ -897,11 +976,14 @@ def batch_statistics(
         )
         # Positions on the x axis are judged against each group's span along x, as in the
         # single fit (assemble._diagnostics, start.location_parameters).
+        spans: dict[str, FloatArray] = {}
         for j, name in enumerate(prob.model.param_names):
             where = location_parameters(prob.model).get(name)
             if where is None or not free[j]:
                 continue
-            span = _x_spans(prob, where)
+            if where not in spans:
+                spans[where] = _x_spans(prob, where)
+            span = spans[where]
             usable = np.isfinite(span) & (span > 0)
             by_span = (
                 free[j] & np.isfinite(stderr[:, j]) & (stderr[:, j] > NOT_IDENTIFIED_RSE * span)

@@ -15,6 +15,7 @@ the numpy path.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
 import importlib.util
@@ -22,14 +23,23 @@ import os
 import re
 import sys
 import tempfile
-from collections.abc import Callable
+import weakref
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
 from ..expr import _codegen_many
 from ..models import Model
 
-__all__ = ["STATUS", "available", "kernel_for"]
+__all__ = [
+    "STATUS",
+    "available",
+    "jacobian_kernel_for",
+    "kernel_for",
+    "parallel_kernel_for",
+    "serial",
+    "threads",
+]
 
 #: The kernel's outcome codes per group, as the reasons the numpy path gives.
 STATUS = ("", "iteration limit", "non-finite model values", "singular system")
@@ -123,12 +133,13 @@ _HEADER = """\
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 _add, _sub, _mul, _div = np.add, np.subtract, np.multiply, np.true_divide
 _pow, _neg = np.power, np.negative
 {functions}
 _jit = njit(cache=True, error_model="numpy")
+BLOCK = 128
 """
 
 
@@ -176,7 +187,7 @@ def _load(source: str) -> Any:
     # numba's cache finds a function's globals through its module's entry in sys.modules
     sys.modules[name] = module
     spec.loader.exec_module(module)
-    return module.loop
+    return module
 
 
 def kernel_for(model: Model) -> Callable[..., None] | None:
@@ -189,10 +200,84 @@ def kernel_for(model: Model) -> Callable[..., None] | None:
     happens at the first call (numba is lazy), so a model it cannot compile fails there: the
     caller then falls back to numpy.
     """
+    return _kernel(model, "loop")
+
+
+def parallel_kernel_for(model: Model) -> Callable[..., None] | None:
+    """The same solver spread over numba's threads, or None as :func:`kernel_for`.
+
+    Called as :func:`kernel_for`'s function. The groups go in fixed blocks to the threads, and
+    each is solved by the serial code: the answers are the serial kernel's, bit for bit, for
+    any number of threads (``NUMBA_NUM_THREADS`` sets it). Worth it only for many groups:
+    the caller decides (:func:`threads`). Compiling can fail where numba has no threading
+    layer; the caller then keeps the serial kernel.
+    """
+    return _kernel(model, "loop_parallel")
+
+
+def jacobian_kernel_for(model: Model) -> Callable[..., None] | None:
+    """The compiled weighted Jacobian of every group, or None as :func:`kernel_for`.
+
+    Called as ``run(X, Y, W, M, TH, LO, HI, JAC, R, SSR)`` on C-contiguous arrays (``JAC`` of
+    shape ``(G, N, P)``): fills ``JAC`` with ``w * df/dp`` at the real points (0 elsewhere),
+    patched where a derivative is not finite by the rule of the solver's evaluations, ``R``
+    with the weighted residuals and ``SSR`` (inf where something is not finite).
+    """
+    return _kernel(model, "jacobians")
+
+
+def threads() -> int:
+    """How many threads numba would use for :func:`parallel_kernel_for` (1 without numba).
+
+    1 in a process forked from another (``multiprocessing`` with fork): numba's OpenMP
+    threading layer is not fork-safe, and a forked child that starts its threads aborts.
+    """
+    nb = _numba()
+    return 1 if nb is None or _FORKED[0] else int(nb.get_num_threads())
+
+
+_FORKED = [False]
+if hasattr(os, "register_at_fork"):  # not on Windows, which does not fork
+    os.register_at_fork(after_in_child=lambda: _FORKED.__setitem__(0, True))
+
+
+# Each model's loaded kernel module, so that a batch's chunks do not generate its source again
+# (milliseconds a call); kept only while the model lives.
+_MODULES: weakref.WeakKeyDictionary[Model, Any] = weakref.WeakKeyDictionary()
+
+
+@contextlib.contextmanager
+def serial() -> Iterator[None]:
+    """Within this block, in this thread, :func:`threads` is 1 (the kernel runs serially).
+
+    For the Dask backend's tasks: the workers, sized to the cores, are the parallelism, and
+    threads inside each would compete with the others. numba's thread count is per thread,
+    so other threads keep theirs.
+    """
+    nb = _numba()
+    old = None
+    if nb is not None:
+        try:
+            old = nb.get_num_threads()
+            nb.set_num_threads(1)
+        except Exception:  # no threading layer: the kernel is serial anyway
+            old = None
+    try:
+        yield
+    finally:
+        if old is not None:
+            nb.set_num_threads(old)
+
+
+def _kernel(model: Model, name: str) -> Callable[..., None] | None:
     if _numba() is None or model.expr is None:
         return None
     try:
-        loop: Callable[..., None] = _load(_module_source(model))
+        module = _MODULES.get(model)
+        if module is None:
+            module = _load(_module_source(model))
+            _MODULES[model] = module
+        loop: Callable[..., None] = getattr(module, name)
     except Exception:  # numba and the import system raise many types
         return None
     return loop
@@ -259,6 +344,17 @@ def evaluate(x, y, w, m, th, lo, hi, jac, r, vals, up, dn):
     return ssr
 
 @_jit
+def jacobians(X, Y, W, M, TH, LO, HI, JAC, R, SSR):
+    # Every group's weighted Jacobian, residuals and ssr at TH (the statistics' evaluation).
+    N = X.shape[1]
+    P = TH.shape[1]
+    vals = np.zeros((N, P + 1))
+    up = np.zeros(2 * P + 1)
+    dn = np.zeros(2 * P + 1)
+    for g in range(X.shape[0]):
+        SSR[g] = evaluate(X[g], Y[g], W[g], M[g], TH[g], LO[g], HI[g], JAC[g], R[g], vals, up, dn)
+
+@_jit
 def cholesky_solve(mat, rhs, out, low):
     p = rhs.shape[0]
     for i in range(p):
@@ -292,7 +388,33 @@ def loop(
     X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
     lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
 ):
-    G, N = X.shape
+    groups(
+        0, X.shape[0], X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol, lambda0,
+        accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
+    )
+
+@njit(cache=True, error_model="numpy", parallel=True)
+def loop_parallel(
+    X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
+    lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
+):
+    # Fixed blocks of groups over numba's threads: every group is solved by the same serial
+    # code with its own workspace, so the answers are those of loop, whatever the threads.
+    G = X.shape[0]
+    nb = (G + BLOCK - 1) // BLOCK
+    for b in prange(nb):
+        groups(
+            b * BLOCK, min(G, (b + 1) * BLOCK), X, Y, W, M, FREE, TH, LO, HI, maxit, ftol,
+            xtol, gtol, lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR,
+            EVALS, ITERS, STATUS,
+        )
+
+@_jit
+def groups(
+    g0, g1, X, Y, W, M, FREE, TH, LO, HI, maxit, ftol, xtol, gtol,
+    lambda0, accept_ratio, lambda_max, back, snap, stale, max_restarts, SSR, EVALS, ITERS, STATUS,
+):
+    N = X.shape[1]
     P = TH.shape[1]
     jac = np.zeros((N, P))
     jac_t = np.zeros((N, P))
@@ -310,7 +432,7 @@ def loop(
     trial = np.zeros(P)
     scale = np.zeros(P)
     frozen = np.zeros(P, dtype=np.bool_)
-    for g in range(G):
+    for g in range(g0, g1):
         th = TH[g]
         lo = LO[g]
         hi = HI[g]
