@@ -11,6 +11,7 @@ __all__ = [
     "DataError",
     "DependencyError",
     "DomainError",
+    "FigureError",
     "FitError",
     "FormulaError",
     "HandleError",
@@ -57,6 +58,10 @@ class HandleError(CurvewrightError, ValueError):
 
 class ComparisonError(CurvewrightError, ValueError):
     """Fits cannot be compared, e.g. they were made on different data or weights."""
+
+
+class FigureError(CurvewrightError, ValueError):
+    """A figure cannot be drawn as asked: an unknown option or band kind, a bad axes."""
 
 
 class DependencyError(CurvewrightError, ImportError):
