@@ -732,7 +732,7 @@ class FitResult:
         self,
         ax: Axes | None = None,
         *,
-        bands: Literal["confidence", "prediction"] | None = "confidence",
+        bands: Literal["confidence", "prediction"] | tuple[str, ...] | None = "confidence",
         level: float = 0.95,
         residuals: bool | None = None,
         log_x: bool | None = None,

@@ -16,9 +16,17 @@ from matplotlib.container import ErrorbarContainer
 from matplotlib.lines import Line2D
 from numpy.typing import NDArray
 
-from .style import BAND_ALPHA
+from .style import BAND_ALPHA, DATA_GREY, legend_style
 
-__all__ = ["band", "curve", "excluded_points", "points", "replicate_means"]
+__all__ = [
+    "DATA_GREY",
+    "band",
+    "curve",
+    "excluded_points",
+    "points",
+    "replicate_means",
+    "legend_style",
+]
 
 FloatArray = NDArray[np.float64]
 

@@ -13,15 +13,20 @@ from ..inference import check_level
 
 __all__ = ["Bands", "check_axes", "check_bands", "check_level_of", "check_options"]
 
-Bands = Literal["confidence", "prediction"] | None
+BandKind = Literal["confidence", "prediction"]
+Bands = BandKind | tuple[BandKind, ...] | None
 BAND_KINDS = ("confidence", "prediction")
 
 
 def check_bands(bands: object) -> Bands:
-    """``"confidence"``, ``"prediction"`` or None, else a FigureError."""
+    """``"confidence"``, ``"prediction"``, both as a tuple, or None; else a FigureError."""
     if bands is None or bands == "confidence" or bands == "prediction":
         return bands
-    raise FigureError(f"bands must be 'confidence', 'prediction' or None, got {bands!r}.")
+    if isinstance(bands, (tuple, list)) and bands and all(b in BAND_KINDS for b in bands):
+        return tuple(dict.fromkeys(bands))
+    raise FigureError(
+        f"bands must be 'confidence', 'prediction', both as a tuple, or None, got {bands!r}."
+    )
 
 
 def check_level_of(level: object) -> float:

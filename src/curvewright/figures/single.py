@@ -95,10 +95,13 @@ def draw_fit(
     """Draw one dataset and its curve into the panels (bands need ``result``)."""
     ax = p.main
     grid = axis.grid
-    if bands is not None:
-        if result is None:
-            raise FigureError("bands need a fit result; draw the curve with bands=None.")
-        fn = result.confidence_band if bands == "confidence" else result.prediction_band
+    kinds = () if bands is None else (bands,) if isinstance(bands, str) else bands
+    if kinds and result is None:
+        raise FigureError("bands need a fit result; draw the curve with bands=None.")
+    # the wider prediction band first, so the confidence band shows on top of it
+    for kind in sorted(kinds, key=lambda k: k != "prediction"):
+        assert result is not None
+        fn = result.confidence_band if kind == "confidence" else result.prediction_band
         b = fn(grid, level)
         marks.band(
             ax,
@@ -106,7 +109,7 @@ def draw_fit(
             b["lower"].to_numpy(dtype=float),
             b["upper"].to_numpy(dtype=float),
             color,
-            f"{level:.0%} {BAND_NAMES[bands]}",
+            f"{level:.0%} {BAND_NAMES[kind]}",
         )
     marks.curve(ax, grid, predict(grid), color, label=label, linestyle=linestyle)
     inc = np.asarray(data.include, dtype=bool)
@@ -164,8 +167,8 @@ def plot_fit(
     result : FitResult
     ax : matplotlib Axes, optional
         Draw into these axes (then no residual panel unless ``residuals=True``).
-    bands : {"confidence", "prediction", None}
-        The pointwise band drawn around the curve (:meth:`FitResult.confidence_band`,
+    bands : {"confidence", "prediction", None} or tuple of both
+        The pointwise band(s) drawn around the curve (:meth:`FitResult.confidence_band`,
         :meth:`FitResult.prediction_band`).
     level : float
         The band's pointwise coverage, in (0, 1).
