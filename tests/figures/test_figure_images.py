@@ -61,6 +61,8 @@ def test_figure_matches_its_baseline(name: str, tmp_path: Path) -> None:
     if os.environ.get("CURVEWRIGHT_UPDATE_BASELINES") == "1":
         save_figure(fig, expected, dpi=DPI)
     actual = save_figure(fig, tmp_path / f"{name}.png", dpi=DPI)
-    assert expected.is_file(), f"no baseline {expected.name}; run with CURVEWRIGHT_UPDATE_BASELINES=1"
+    assert expected.is_file(), (
+        f"no baseline {expected.name}; run with CURVEWRIGHT_UPDATE_BASELINES=1"
+    )
     diff = compare_images(str(expected), str(actual), tol=TOL)
     assert diff is None, diff

@@ -126,7 +126,9 @@ def test_global_batch_and_forest() -> None:
     assert len([a for a in grid.axes if a.get_title()]) == 3
     f = b.forest("ec50")
     a = f.axes[0]
-    pts = np.asarray(next(c for c in a.collections if c.get_gid() == "cw-forest-points").get_offsets())
+    pts = np.asarray(
+        next(c for c in a.collections if c.get_gid() == "cw-forest-points").get_offsets()
+    )
     np.testing.assert_allclose(pts[:, 0], b.derived_array[:, 0, 0])
     with pytest.raises(FigureError, match="neither a parameter"):
         b.forest("ic50")
@@ -139,3 +141,26 @@ def test_svg_is_deterministic() -> None:
 
     r = _dnase()
     assert figure_svg(r.plot()) == figure_svg(r.plot())
+
+
+def test_widget_figure_is_the_screen_state() -> None:
+    from curvewright import CurveBench
+
+    d = pd.read_csv(DATA / "DNase.csv")
+    w = CurveBench(d[d["Run"] == 1], x="conc", y="density", model="stimulation_3pl", exclude=[0])
+    before = w.figure()  # no fit yet: the start curve, dashed, and the widget's log x
+    (start,) = _by_gid(before, "cw-curve")
+    assert start.get_linestyle() == "--" and before.axes[0].get_xscale() == "log"
+    np.testing.assert_allclose(start.get_ydata(), w.model.eval(start.get_xdata(), w.values))
+    res = w.fit()
+    assert isinstance(res, cw.FitResult)
+    w.show_confidence_band = True
+    fig = w.figure()
+    (line,) = _by_gid(fig, "cw-curve")
+    np.testing.assert_allclose(line.get_ydata(), res.predict(line.get_xdata()), atol=0)
+    assert len(_by_gid(fig, "cw-band")) == 1 and len(fig.axes) == 2  # residual strip on
+    assert len(_by_gid(fig, "cw-excluded")[0].get_offsets()) == 1
+    w.show_residuals = False
+    w.x_scale = "linear"
+    fig2 = w.figure()
+    assert len(fig2.axes) == 1 and fig2.axes[0].get_xscale() == "linear"
