@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from . import figures  # registers the drawing behind the results' plot methods
 from ._version import __version__
 from .batch_result import BatchResult, register_review
 from .catalog import catalog, polynomial
@@ -21,6 +22,7 @@ from .errors import (
     DependencyError,
     DomainError,
     ExtrapolationWarning,
+    FigureError,
     FitError,
     FormulaError,
     HandleError,
@@ -30,6 +32,7 @@ from .errors import (
     RankDeficiencyWarning,
     SessionError,
 )
+from .figures import figure_for
 from .fitting import fit, fit_global, fit_groups
 from .global_result import GlobalResult, GroupFit
 from .handles import move_handle, pin_through
@@ -70,6 +73,7 @@ __all__ = [
     "Derived",
     "DomainError",
     "ExtrapolationWarning",
+    "FigureError",
     "FitError",
     "FitResult",
     "FormulaError",
@@ -90,6 +94,8 @@ __all__ = [
     "__version__",
     "catalog",
     "compare",
+    "figure_for",
+    "figures",
     "fit",
     "generic_start",
     "guided_start",

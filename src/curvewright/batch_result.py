@@ -26,7 +26,7 @@ import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -46,9 +46,14 @@ from .result import (
     _need,
     _num,
     _restore_model,
+    figure_function,
     report_function,
 )
 from .thresholds import CAUTION
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
 
 __all__ = [
     "STATUSES",
@@ -595,6 +600,36 @@ class BatchResult:
         See :func:`curvewright.reports.to_excel` (needs ``pip install "curvewright[excel]"``).
         """
         return report_function("to_excel")(self, path, level=self.level)
+
+    # ------------------------------------------------------------------ figures
+    def plot(
+        self,
+        groups: Sequence[object] | None = None,
+        ncols: int = 4,
+        *,
+        bands: Literal["confidence", "prediction"] | None = None,
+        level: float = 0.95,
+        log_x: bool | None = None,
+        **opts: Any,
+    ) -> Figure:
+        """Small multiples: each group's data and fit in its own panel, failed groups marked.
+
+        See :func:`curvewright.figures.plot_batch` for the options.
+        """
+        out: Figure = figure_function("batch")(
+            self, groups, ncols, bands=bands, level=level, log_x=log_x, **opts
+        )
+        return out
+
+    def forest(
+        self, name: str, level: float | None = None, ax: Axes | None = None, **opts: Any
+    ) -> Figure:
+        """A forest plot of one parameter or derived quantity with its interval per group.
+
+        See :func:`curvewright.figures.forest` for the options.
+        """
+        out: Figure = figure_function("forest")(self, name, level, ax, **opts)
+        return out
 
     # ------------------------------------------------------------------ text
     def summary(self, max_listed: int = 20) -> str:

@@ -1,6 +1,7 @@
 """Datasets: validated x, y and standard deviations with an exclusion mask.
 
-A :class:`Dataset` is what a fit consumes. The fitting core takes a tuple of them so global fits
+A :class:`Dataset` is what a fit consumes, and the x-axis rules drawn on it (log or linear, the
+sample grid of a curve). The fitting core takes a tuple of them so global fits
 across several datasets can share parameters later; today's ``fit`` passes one.
 :func:`split_groups` checks a long table and splits it into one Dataset per group (the input of
 ``fit_global`` and ``fit_groups``).
@@ -10,9 +11,10 @@ from __future__ import annotations
 
 import copy
 import difflib
+import math
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -21,17 +23,25 @@ from numpy.typing import ArrayLike, NDArray
 from .errors import DataError
 
 __all__ = [
+    "SCALES",
     "Dataset",
     "GroupDatasets",
     "Groups",
     "group_label",
     "labels_of",
     "make_dataset",
+    "Scale",
+    "auto_x_scale",
+    "check_scale",
+    "sample_x",
     "split_groups",
 ]
 
 FloatArray = NDArray[np.float64]
 BoolArray = NDArray[np.bool_]
+
+Scale = Literal["linear", "log"]
+SCALES: tuple[Scale, ...] = ("linear", "log")
 
 
 def _frozen(a: NDArray[Any]) -> NDArray[Any]:
@@ -947,3 +957,48 @@ def _split_whole(
         used_sigma=us,
         used_offsets=uoff,
     )
+
+
+# ----------------------------------------------------------------------- x axis scale
+# The axis rules belong to the data (the widget and the figures both draw on them).
+def auto_x_scale(x: NDArray[np.float64]) -> Scale:
+    """``"log"`` when no x is negative and the positive x span more than two decades.
+
+    Zero x (untreated controls in a dose-response) do not veto a log axis: they are listed as
+    off the axis by :func:`data_view` instead.
+    """
+    if x.size == 0 or np.any(x < 0):
+        return "linear"
+    pos = x[x > 0]
+    if pos.size < 2:
+        return "linear"
+    return "log" if float(pos.max()) / float(pos.min()) > 100.0 else "linear"
+
+
+def check_scale(value: object, which: str) -> Scale:
+    """Validate an axis scale name."""
+    if value == "linear":
+        return "linear"
+    if value == "log":
+        return "log"
+    raise DataError(f"{which} must be 'linear' or 'log', got {value!r}.")
+
+
+def sample_x(x: NDArray[np.float64], scale: Scale, n: int = 240) -> NDArray[np.float64]:
+    """``n`` x values across the data's range, evenly spaced on the axis (decades on log x).
+
+    A curve sampled this way looks smooth on the axis it is drawn on. On a log axis only the
+    positive x count (zero-dose controls sit off the axis).
+    """
+    finite = x[np.isfinite(x)]
+    if scale == "log":
+        finite = finite[finite > 0]
+    if finite.size == 0:
+        return np.linspace(0.0, 1.0, n) if scale == "linear" else np.logspace(-2, 2, n)
+    lo, hi = float(finite.min()), float(finite.max())
+    if scale == "log":
+        a, b = math.log10(lo), math.log10(hi)
+        pad = 0.05 * (b - a) if b > a else 0.5
+        return np.logspace(a - pad, b + pad, n)
+    pad = 0.05 * (hi - lo) if hi > lo else (abs(lo) or 1.0) * 0.5
+    return np.linspace(lo - pad, hi + pad, n)

@@ -11,6 +11,7 @@ __all__ = [
     "DataError",
     "DependencyError",
     "DomainError",
+    "FigureError",
     "FitError",
     "FormulaError",
     "HandleError",
@@ -67,6 +68,10 @@ class SessionError(DataError):
 
 class OutputError(CurvewrightError, OSError):
     """A report or table cannot be written where asked: a missing folder, no permission."""
+
+
+class FigureError(CurvewrightError, ValueError):
+    """A figure cannot be drawn as asked: an unknown option or band kind, a bad axes."""
 
 
 class DependencyError(CurvewrightError, ImportError):

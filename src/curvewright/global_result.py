@@ -45,12 +45,16 @@ from .result import (
     _restore_model,
     _ro,
     _statistic,
+    figure_function,
     fit_quality_lines,
     report_function,
 )
 from .thresholds import CAUTION
 
 if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
+
     from .stats.diagnostics import Diagnostics
     from .stats.groups import GroupComparison, SharedTest
 
@@ -535,6 +539,25 @@ class GlobalResult:
         return out
 
     # ------------------------------------------------------------------ text
+    def plot(
+        self,
+        ax: Axes | None = None,
+        *,
+        bands: Literal["confidence", "prediction"] | None = None,
+        level: float = 0.95,
+        residuals: bool = False,
+        log_x: bool | None = None,
+        **opts: Any,
+    ) -> Figure:
+        """Draw every group on one axes, one colour each, with a legend.
+
+        See :func:`curvewright.figures.plot_global` for the options.
+        """
+        out: Figure = figure_function("global_fit")(
+            self, ax, bands=bands, level=level, residuals=residuals, log_x=log_x, **opts
+        )
+        return out
+
     def summary(self) -> str:
         """A readable plain-text report: the design, the table of values, fit statistics."""
         m = self.model

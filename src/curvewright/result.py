@@ -15,7 +15,7 @@ import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -27,6 +27,10 @@ from .inference import correlation_matrix, derived_value_and_se, quantile
 from .models import Derived, Model, Param
 from .parameters import Parameter, Parameters
 from .thresholds import CAUTION, HIGH_CORRELATION, NOT_IDENTIFIED_RSE
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
 
 __all__ = [
     "CAUTION",
@@ -765,6 +769,25 @@ class FitResult:
         return _statistic("residual_diagnostics")(self, alpha)
 
     # --------------------------------------------------------------------- text
+    def plot(
+        self,
+        ax: Axes | None = None,
+        *,
+        bands: Literal["confidence", "prediction"] | tuple[str, ...] | None = "confidence",
+        level: float = 0.95,
+        residuals: bool | None = None,
+        log_x: bool | None = None,
+        **opts: Any,
+    ) -> Figure:
+        """Draw the fit: data (mean ± SD at repeated x), curve, band, excluded points, residuals.
+
+        See :func:`curvewright.figures.plot_fit` for the options.
+        """
+        out: Figure = figure_function("fit")(
+            self, ax, bands=bands, level=level, residuals=residuals, log_x=log_x, **opts
+        )
+        return out
+
     def summary(self) -> str:
         """A readable plain-text report of the fit.
 
@@ -1219,6 +1242,28 @@ def report_function(name: str) -> Callable[..., Any]:
         raise CurvewrightError(
             f"the results need curvewright.reports for {name}, and it has not been imported; "
             "import curvewright (or curvewright.reports) first."
+        ) from None
+
+
+# ------------------------------------------------------------------ figures registry
+# The figures (curvewright.figures, the view layer) sit above the records; they register the
+# drawing functions behind plot()/forest() when imported, as the statistics do above.
+_FIGURES: dict[str, Callable[..., Any]] = {}
+
+
+def register_figures(**functions: Callable[..., Any]) -> None:
+    """Tell the results' ``plot`` methods where their drawing lives (called by the figures)."""
+    _FIGURES.update(functions)
+
+
+def figure_function(name: str) -> Callable[..., Any]:
+    """The registered drawing function ``name`` (``fit``, ``global_fit``, ``batch``, ``forest``)."""
+    try:
+        return _FIGURES[name]
+    except KeyError:
+        raise CurvewrightError(
+            f"plotting needs curvewright.figures ({name}), and it has not been imported; "
+            "import curvewright (or curvewright.figures) first."
         ) from None
 
 

@@ -12,7 +12,6 @@ from __future__ import annotations
 import html
 import math
 import sys
-import types
 from html.parser import HTMLParser
 from pathlib import Path
 from typing import Any
@@ -287,26 +286,15 @@ def test_svg_is_inline_and_deterministic() -> None:
     assert "<script" not in a
 
 
-def test_report_embeds_the_figure_from_figures(
-    mm: cw.FitResult, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    # Stand in for curvewright.figures (built elsewhere): a real matplotlib Figure of the fit.
-    calls: list[tuple[Any, float]] = []
+def test_report_embeds_the_figure_from_figures(mm: cw.FitResult) -> None:
+    # The report's figure is the figures package's own drawing of the fit, at the report's level.
+    from curvewright.figures import figure_for
 
-    def figure_for(obj: Any, *, level: float = 0.95, bands: str = "confidence") -> Figure:
-        calls.append((obj, level))
-        fig = _figure()
-        grid = np.linspace(0.02, 1.1, 50)
-        fig.axes[0].plot(grid, obj.predict(grid))
-        return fig
-
-    monkeypatch.setitem(
-        sys.modules, "curvewright.figures", types.SimpleNamespace(figure_for=figure_for)
-    )
     rep = mm.report(level=0.9)
-    assert calls == [(mm, 0.9)]
-    section = rep[rep.index('data-section="figure"') :]
-    assert "<svg" in section.split("</section>")[0]
+    section = rep[rep.index('data-section="figure"') :].split("</section>")[0]
+    assert figure_to_svg(figure_for(mm, level=0.9, bands="confidence")) in section
+    # A different level draws a different band, so the level really reaches the figure.
+    assert figure_to_svg(figure_for(mm, level=0.5, bands="confidence")) not in section
     _no_network(
         rep.replace('xmlns="http://www.w3.org/2000/svg"', "").replace(
             'xmlns:xlink="http://www.w3.org/1999/xlink"', ""
@@ -316,19 +304,15 @@ def test_report_embeds_the_figure_from_figures(
     assert "data:image/svg+xml;base64," in md
 
 
-def test_without_figures_the_report_says_so(
+def test_a_figure_that_cannot_be_drawn_is_said_so(
     mm: cw.FitResult, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    monkeypatch.setitem(sys.modules, "curvewright.figures", None)  # import fails
-    text = "".join(_page(mm.report()).sections["figure"]["text"])
-    assert "No figure is available" in text
+    import curvewright.reports.figure as report_figure
 
     def refuses(obj: Any, **kwargs: Any) -> Figure:
         raise cw.DataError("nothing to draw")
 
-    monkeypatch.setitem(
-        sys.modules, "curvewright.figures", types.SimpleNamespace(figure_for=refuses)
-    )
+    monkeypatch.setattr(report_figure, "figure_for", refuses)
     text = "".join(_page(mm.report()).sections["figure"]["text"])
     assert "No figure could be drawn: nothing to draw" in text
 

@@ -337,12 +337,6 @@ def _figure_section(obj: Any, level: float, figure: bool) -> Section:
     except CurvewrightError as exc:
         # A result the figure cannot be drawn for still gets its report, saying why.
         return Section("figure", "Figure", paragraphs=(f"No figure could be drawn: {exc}",))
-    if svg is None:
-        return Section(
-            "figure",
-            "Figure",
-            paragraphs=("No figure is available in this version of curvewright.",),
-        )
     return Section("figure", "Figure", svg=svg)
 
 

@@ -6,9 +6,11 @@ carries no XML prolog or DOCTYPE, so it can sit inside an HTML page as it is.
 
 from __future__ import annotations
 
-import io
 import re
 from typing import Any
+
+from curvewright.figures import figure_for
+from curvewright.figures import figure_svg as _svg_text
 
 __all__ = ["figure_svg", "figure_to_svg"]
 
@@ -29,27 +31,13 @@ def figure_to_svg(fig: Any) -> str:
     str
         The ``<svg ...>...</svg>`` element, the same text for the same figure every time.
     """
-    import matplotlib
-
-    buf = io.StringIO()
-    with matplotlib.rc_context({"svg.hashsalt": "curvewright", "svg.fonttype": "path"}):
-        fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
-    text = _METADATA.sub("", _PROLOG.sub("", buf.getvalue()))
+    # The figures' own deterministic SVG writer; a report wants it bare (no prolog, no URLs).
+    text = _METADATA.sub("", _PROLOG.sub("", _svg_text(fig)))
     return text.strip()
 
 
-def figure_svg(obj: Any, *, level: float = 0.95) -> str | None:
-    """The figure of a result as inline SVG, or None when no figure can be drawn yet.
-
-    The figure comes from ``curvewright.figures.figure_for``; None when that module is not
-    installed in this build.
-    """
-    try:
-        from curvewright.figures import (  # type: ignore[import-not-found,unused-ignore]
-            figure_for,
-        )
-    except ImportError:
-        return None
+def figure_svg(obj: Any, *, level: float = 0.95) -> str:
+    """The figure of a result (``curvewright.figures.figure_for``, confidence band) as SVG."""
     fig = figure_for(obj, level=level, bands="confidence")
     try:
         return figure_to_svg(fig)

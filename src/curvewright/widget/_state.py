@@ -11,12 +11,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from typing import Any, Literal
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
-from ..data import Dataset
+from ..data import SCALES, Dataset, Scale, auto_x_scale, check_scale, sample_x
 from ..errors import CurvewrightError, DataError, ParameterError
 from ..models import Model
 from ..parameters import Parameters
@@ -32,7 +32,9 @@ __all__ = [
     "auto_x_scale",
     "band_grid",
     "bands_json",
+    "SCALES",
     "check_flag",
+    "check_scale",
     "curve_json",
     "data_view",
     "decimate_rows",
@@ -44,8 +46,6 @@ __all__ = [
     "start_parameters",
 ]
 
-Scale = Literal["linear", "log"]
-SCALES: tuple[Scale, ...] = ("linear", "log")
 
 # The front end is sent every point up to this many; beyond it a thinned view that keeps the
 # cloud's shape (the fit in Python always uses every point). 20k circles still draw smoothly.
@@ -93,29 +93,6 @@ def start_parameters(
 
 
 # ------------------------------------------------------------------------------ axes
-def auto_x_scale(x: NDArray[np.float64]) -> Scale:
-    """``"log"`` when no x is negative and the positive x span more than two decades.
-
-    Zero x (untreated controls in a dose-response) do not veto a log axis: they are listed as
-    off the axis by :func:`data_view` instead.
-    """
-    if x.size == 0 or np.any(x < 0):
-        return "linear"
-    pos = x[x > 0]
-    if pos.size < 2:
-        return "linear"
-    return "log" if float(pos.max()) / float(pos.min()) > 100.0 else "linear"
-
-
-def check_scale(value: object, which: str) -> Scale:
-    """Validate an axis scale name."""
-    if value == "linear":
-        return "linear"
-    if value == "log":
-        return "log"
-    raise DataError(f"{which} must be 'linear' or 'log', got {value!r}.")
-
-
 def check_flag(value: object, which: str) -> bool:
     """Validate an on/off display setting (a band or the residual strip shown or not)."""
     if isinstance(value, (bool, np.bool_)):
@@ -266,26 +243,6 @@ def check_rows(ds: Dataset, rows: object, what: str) -> list[int]:
 
 
 # ------------------------------------------------------------------------- curves and fits
-def sample_x(x: NDArray[np.float64], scale: Scale, n: int = 240) -> NDArray[np.float64]:
-    """``n`` x values across the data's range, evenly spaced on the axis (decades on log x).
-
-    A curve sampled this way looks smooth on the axis it is drawn on. On a log axis only the
-    positive x count (zero-dose controls sit off the axis).
-    """
-    finite = x[np.isfinite(x)]
-    if scale == "log":
-        finite = finite[finite > 0]
-    if finite.size == 0:
-        return np.linspace(0.0, 1.0, n) if scale == "linear" else np.logspace(-2, 2, n)
-    lo, hi = float(finite.min()), float(finite.max())
-    if scale == "log":
-        a, b = math.log10(lo), math.log10(hi)
-        pad = 0.05 * (b - a) if b > a else 0.5
-        return np.logspace(a - pad, b + pad, n)
-    pad = 0.05 * (hi - lo) if hi > lo else (abs(lo) or 1.0) * 0.5
-    return np.linspace(lo - pad, hi + pad, n)
-
-
 def curve_json(
     model: Model, values: Mapping[str, float], xs: NDArray[np.float64]
 ) -> dict[str, Any]:

@@ -25,6 +25,7 @@ import anywidget
 import numpy as np
 import pandas as pd
 import traitlets
+from matplotlib.figure import Figure
 from numpy.typing import ArrayLike
 from scipy.optimize import least_squares
 
@@ -943,6 +944,85 @@ class CurveBench(anywidget.AnyWidget):
                 f"converged fits so far: {[r.model.name for r in fits]}."
             )
         return compare(*fits, names=[r.model.name for r in fits])
+
+    # =================================================================== public: figures
+    def figure(self, **opts: Any) -> Figure:
+        """A matplotlib figure of what the page shows now.
+
+        The shown fit (or, before a fit, the starting curve, dashed), the widget's axes
+        scales, its excluded points (hollow), the bands whose toggles are on (at 95%) and
+        the residual panel when ``show_residuals`` is on. When the parameters were moved
+        after the fit, the moved curve is added, dashed, as on the page. With groups: the
+        global fit, every group on one axes.
+
+        Parameters
+        ----------
+        **opts
+            Passed on to :func:`curvewright.figures.plot_fit` (``xlabel``, ``title``,
+            ``width``, ...).
+
+        Returns
+        -------
+        matplotlib.figure.Figure
+        """
+        from ..figures import marks, plot_curve, plot_fit, plot_global
+        from ..figures.options import BandKind
+        from ..figures.scales import x_axis
+
+        log_x = _state.check_scale(self.x_scale, "x_scale") == "log"
+        log_y = _state.check_scale(self.y_scale, "y_scale") == "log"
+        wanted: list[BandKind] = []
+        if self.show_confidence_band:
+            wanted.append("confidence")
+        if self.show_prediction_band:
+            wanted.append("prediction")
+        kinds = tuple(wanted)
+        mem = self._mem()
+        data = self.dataset
+        if self._groups is not None and mem.global_result is not None:
+            return plot_global(
+                mem.global_result,
+                bands=kinds or None,
+                level=_state.BAND_LEVEL,
+                residuals=bool(self.show_residuals),
+                log_x=log_x,
+                log_y=log_y,
+                **opts,
+            )
+        model, values = self.model, self.values
+        res = mem.result
+        if res is None:
+            return plot_curve(
+                data, lambda x: model.eval(x, values), log_x=log_x, log_y=log_y, **opts
+            )
+        fig = plot_fit(
+            res,
+            bands=(kinds or None) if res.success else None,
+            level=_state.BAND_LEVEL,
+            residuals=bool(self.show_residuals),
+            log_x=log_x,
+            log_y=log_y,
+            data=data,
+            **opts,
+        )
+        moved = any(
+            not math.isclose(values[n], float(res.values[n]), rel_tol=1e-12, abs_tol=0.0)
+            for n in model.param_names
+        )
+        if moved:
+            main = fig.axes[0]
+            grid = x_axis(data.x, log_x).grid
+            marks.curve(
+                main,
+                grid,
+                model.eval(grid, values),
+                marks.DATA_GREY,
+                linestyle="--",
+                label="current values",
+                gid="cw-current",
+            )
+            main.legend(**marks.legend_style())
+        return fig
 
     # =================================================================== public: judging a fit
     def bands(self, level: float = _state.BAND_LEVEL) -> pd.DataFrame:
