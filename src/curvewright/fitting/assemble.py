@@ -339,7 +339,8 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
     if big.any():
         from ..start import plausible_sizes
 
-        names = [prob.free[i] for i in np.flatnonzero(big)]
+        bases = prob.model_names()
+        names = list(dict.fromkeys(bases[i] for i in np.flatnonzero(big)))
         try:
             with np.errstate(all="ignore"):
                 sizes = plausible_sizes(prob.model, prob.x, prob.y, names)
@@ -347,7 +348,7 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
             sizes = {n: (1.0, 1.0) for n in names}
         for i in np.flatnonzero(big):
             n, v = prob.free[i], float(theta[i])
-            typical, largest = sizes.get(n, (1.0, 1.0))
+            typical, largest = sizes.get(bases[i], (1.0, 1.0))
             if abs(v) > RUNAWAY * largest:
                 runaway.append((n, v, largest))
             size = max(abs(v), typical)
@@ -442,6 +443,23 @@ def _search_diagnostic(search: _Search, loss: str) -> Diagnostic:
     )
 
 
+def _judged(sol: _Solution, degeneracy: _Degeneracy | None) -> _Solution:
+    """The solution with its outcome: ``"degenerate_stop"`` (not a success) when degenerate."""
+    if degeneracy is not None and degeneracy.degenerate:
+        return replace(sol, code="degenerate_stop", success=False)
+    return sol
+
+
+def _stop_notes(
+    degeneracy: _Degeneracy | None, search: _Search | None, loss: str
+) -> list[Diagnostic]:
+    """The notes on a suspect stop that head a result's findings (the search's first)."""
+    out = [_search_diagnostic(search, loss)] if search is not None else []
+    if degeneracy is not None and degeneracy.degenerate:
+        out += _degenerate_diagnostics(degeneracy)
+    return out
+
+
 def _finish(
     prob: _Problem,
     runs: list[_Run],
@@ -454,10 +472,7 @@ def _finish(
     A ``degeneracy`` that is degenerate turns the outcome into ``"degenerate_stop"`` (not a
     success); ``search`` adds a note on the global search.
     """
-    if sol is None:
-        sol = _solution(prob, runs)
-    if degeneracy is not None and degeneracy.degenerate:
-        sol = replace(sol, code="degenerate_stop", success=False)
+    sol = _judged(sol if sol is not None else _solution(prob, runs), degeneracy)
     kept, theta, fitted, resid, ssr, rss = (
         sol.kept,
         sol.theta,
@@ -480,11 +495,8 @@ def _finish(
     wts = np.ones(n) if prob.w is None else prob.w
     ybar = float(np.sum(wts**2 * prob.y) / np.sum(wts**2))
     sst = float(np.sum((wts * (prob.y - ybar)) ** 2))
-    diags = _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
-    if degeneracy is not None and degeneracy.degenerate:
-        diags[:0] = _degenerate_diagnostics(degeneracy)
-    if search is not None:
-        diags.insert(0, _search_diagnostic(search, prob.loss))
+    diags = _stop_notes(degeneracy, search, prob.loss)
+    diags += _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
     attempts = [
         Attempt(
             strategy=r.strategy,

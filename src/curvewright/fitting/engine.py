@@ -520,36 +520,16 @@ def _ladder(
 
 
 def _global_search(prob: _Problem, watch: _Watch, method: str, budget: int) -> list[_Run]:
-    """Fits from starts that ignore the user's: the catalog's rule (if any), the multi-start.
+    """Fits from starts that ignore the user's (:meth:`_Problem.search_starts`).
 
     Run when the point the user's start reached is suspect (degenerate, or parameters nearly
     interchangeable). Each start gets the first run's solver; the best of them is polished.
     Returns every run made, named ``"global search: ..."`` in the attempts.
     """
-    from ..start import generic_start, guided_start
-
-    seeds: list[tuple[str, Callable[[], dict[str, float]]]] = []
-    # With no start given the fit began from the rule (or, without one, from the multi-start):
-    # the same deterministic start again would only repeat the first run.
-    no_start = set(prob.free) <= prob.guided
-    if prob.model.start_rule is not None and not no_start:
-        seeds.append(
-            (
-                "global search: start rule",
-                lambda: guided_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
-            )
-        )
-    if prob.model.start_rule is not None or not no_start:
-        seeds.append(
-            (
-                "global search: multi-start",
-                lambda: generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
-            )
-        )
     runs: list[_Run] = []
-    for strategy, make in seeds:
+    for strategy, make in prob.search_starts():
         try:
-            theta = prob.theta_from(make())
+            theta = make()
         except (DataError, ParameterError, ArithmeticError, ValueError, np.linalg.LinAlgError):
             continue
         if not np.all(np.isfinite(theta)):

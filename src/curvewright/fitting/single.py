@@ -24,7 +24,16 @@ from ..parameters import Parameter, Parameters
 from ..result import FitResult
 from ..thresholds import CLEARLY_LOWER
 from .assemble import _Degeneracy, _degeneracy, _finish, _Search, _Solution, _solution
-from .engine import _first_method, _global_search, _ladder, _linear_run, _polish, _Run, _Watch
+from .engine import (
+    _STOP,
+    _first_method,
+    _global_search,
+    _ladder,
+    _linear_run,
+    _polish,
+    _Run,
+    _Watch,
+)
 from .problem import (
     Loss,
     Method,
@@ -78,6 +87,30 @@ def _search_globally(
         used=used,
     )
     return sol, deg, search
+
+
+def _run_and_judge(
+    prob: _Problem, watch: _Watch, method: str, budget: int
+) -> tuple[list[_Run], _Solution, _Degeneracy, _Search | None]:
+    """The engine's runs on a problem and the verdict on where they stopped.
+
+    The ladder, the polish, then the degenerate-stop check (:func:`.assemble._degeneracy`) and,
+    for a suspect point, the global search (:func:`_search_globally`). The one sequence
+    :func:`fit` and :func:`~curvewright.fitting.global_fit.fit_global` both run.
+    """
+    runs = _ladder(prob, watch, method, budget)
+    best = min(runs, key=lambda r: r.objective)
+    if runs[-1].code not in _STOP and math.isfinite(best.objective):
+        polished = _polish(prob, watch, best, budget)
+        # Kept only if it does not lose ground: the polish refines, it never replaces a better run.
+        if polished.objective <= best.objective and outcome(polished.code).success:
+            runs.append(polished)
+    sol = _solution(prob, runs)
+    deg = _degeneracy(prob, sol)
+    search = None
+    if deg.suspect and runs[-1].code not in _STOP:
+        sol, deg, search = _search_globally(prob, watch, runs, sol, deg, method, budget)
+    return runs, sol, deg, search
 
 
 # ============================================================================ entry point
@@ -224,19 +257,8 @@ def fit(
     deadline = None if timeout is None else time.monotonic() + timeout
     watch = _Watch(prob, deadline, max_evaluations, cancel_fn, progress)
     budget = max_evaluations if max_evaluations is not None else 2000 * (len(prob.free) + 1)
-    runs = _ladder(prob, watch, method, budget)
-    best = min(runs, key=lambda r: r.objective)
-    if runs[-1].code not in ("cancelled", "stopped_time") and math.isfinite(best.objective):
-        polished = _polish(prob, watch, best, budget)
-        # Kept only if it does not lose ground: the polish refines, it never replaces a better run.
-        if polished.objective <= best.objective and outcome(polished.code).success:
-            runs.append(polished)
     try:
-        sol = _solution(prob, runs)
-        deg = _degeneracy(prob, sol)
-        search = None
-        if deg.suspect and runs[-1].code not in ("cancelled", "stopped_time"):
-            sol, deg, search = _search_globally(prob, watch, runs, sol, deg, method, budget)
+        runs, sol, deg, search = _run_and_judge(prob, watch, method, budget)
         if progress is not None:
             progress(watch.evaluations, watch.best_ssr)
         return _finish(prob, runs, sol, deg, search)
