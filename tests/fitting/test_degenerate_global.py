@@ -187,7 +187,7 @@ def test_global_suspect_stop_runs_the_search_and_says_so() -> None:
     # The shared rate started 1e4 times too large: the joint fit stops where the curve no
     # longer depends on it; the search (the groups fitted alone from no start) finds the
     # minimum, the notes say the answer came from it, and the attempts show both.
-    label, name, x, groups, sd, shared, spec = CASES[1]
+    _label, name, x, groups, sd, shared, spec = CASES[1]
     data = _table(1, name, x, groups, sd)
     r = cw.fit_global(name, data=data, x="x", y="y", by="g", shared=shared, start=spec)
     strategies = [a.strategy for a in r.attempts]
@@ -229,7 +229,7 @@ def test_clean_global_fit_runs_no_search() -> None:
 
 
 def test_global_search_is_deterministic() -> None:
-    label, name, x, groups, sd, shared, spec = CASES[3]
+    _label, name, x, groups, sd, shared, spec = CASES[3]
     data = _table(3, name, x, groups, sd)
     a, b = (
         cw.fit_global(name, data=data, x="x", y="y", by="g", shared=shared, start=spec)
