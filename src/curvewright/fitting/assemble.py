@@ -29,6 +29,7 @@ from ..thresholds import (
     NEAR_SINGULAR,
     NOT_IDENTIFIED_RSE,
     RUNAWAY,
+    THIN_SUPPORT,
 )
 from .engine import _lmfit_at, _Run
 from .problem import FloatArray, _param_jacobian, _Problem
@@ -289,6 +290,7 @@ class _Degeneracy:
     runaway: tuple[tuple[str, float, float], ...] = ()  # (name, value, largest plausible size)
     undetermined: tuple[tuple[str, float, float], ...] = ()  # (name, stderr, size)
     correlation: float = math.nan  # the largest |r| between two free parameters
+    thin: tuple[tuple[str, float], ...] = ()  # (name, support in points) below THIN_SUPPORT
 
     @property
     def degenerate(self) -> bool:
@@ -298,12 +300,78 @@ class _Degeneracy:
     @property
     def suspect(self) -> bool:
         """Degenerate, or |r| so close to 1 that a lower minimum elsewhere is worth a look."""
-        return self.degenerate or self.correlation > DEGENERATE_CORRELATION
+        return bool(self.degenerate or self.thin or self.correlation > DEGENERATE_CORRELATION)
 
     @property
     def params(self) -> tuple[str, ...]:
         """The parameters a runaway or undetermined finding names, in order, once each."""
         return tuple(dict.fromkeys(n for n, _, _ in (*self.runaway, *self.undetermined)))
+
+
+def _column_support(jw: FloatArray) -> FloatArray:
+    """How many points carry each column: ``(sum J**2)**2 / sum J**4`` (0 for a zero column).
+
+    The participation ratio: 1 when one point carries all of a column, k when k points carry
+    it alike.
+    """
+    with np.errstate(all="ignore"):
+        # scaled by the column's largest entry first, so that J**4 neither overflows nor
+        # underflows
+        a = np.abs(jw) / np.max(np.abs(jw), axis=0)
+        s2 = np.sum(a * a, axis=0)
+        support = np.where(s2 > 0, s2 * s2 / np.sum(a**4, axis=0), 0.0)
+    return np.where(np.isfinite(support), support, 0.0)
+
+
+def _thin_support(
+    prob: _Problem, theta: FloatArray, jw: FloatArray
+) -> tuple[tuple[str, float], ...]:
+    """The curve's feature at ``theta`` is narrower than the data's spacing: its amplitudes.
+
+    A parameter the curve is linear in (an amplitude: its column does not change with it)
+    whose column is carried by fewer than :data:`~curvewright.thresholds.THIN_SUPPORT`
+    points (:func:`_column_support`): the whole feature it scales touches about one point. A
+    steep step has thin columns for its position and slope but wide ones for its levels, and
+    is not reported. Returns ``(name, support)`` of each such amplitude; the linearity test
+    (one more Jacobian) is made only when some column is thin.
+    """
+    if jw.size == 0 or not np.all(np.isfinite(jw)):
+        return ()
+    support = _column_support(jw)
+    thin = np.flatnonzero(support < THIN_SUPPORT)
+    if thin.size == 0:
+        return ()
+    out: list[tuple[str, float]] = []
+    for i in thin.tolist():
+        t2 = np.array(theta, dtype=float)
+        step = max(abs(t2[i]), 1.0)
+        t2[i] = t2[i] + step if t2[i] + step <= prob.upper[i] else t2[i] - step
+        if not prob.lower[i] <= t2[i] <= prob.upper[i]:
+            continue
+        try:
+            c2 = _weighted_jacobian(prob, prob.jacobian_at(t2))[:, i]
+        except (ValueError, ArithmeticError):
+            continue
+        c1 = jw[:, i]
+        if np.all(np.isfinite(c2)) and np.max(np.abs(c2 - c1)) <= 1e-8 * np.max(np.abs(c1)):
+            out.append((prob.free[i], float(support[i])))
+    return tuple(out)
+
+
+def _weighted_jacobian(prob: _Problem, J: FloatArray) -> FloatArray:
+    return J if prob.w is None else J * prob.w[:, None]
+
+
+def _start_support(prob: _Problem) -> tuple[tuple[str, float], ...]:
+    """:func:`_thin_support` at the user's start (formula models with a start given, else ())."""
+    if not prob.free or set(prob.free) <= prob.guided or not prob.model.has_jacobian:
+        return ()
+    theta0 = np.array([prob.values0[n] for n in prob.free], dtype=float)
+    try:
+        J = prob.jacobian_at(theta0)
+    except (ValueError, ArithmeticError):
+        return ()
+    return _thin_support(prob, theta0, _weighted_jacobian(prob, J))
 
 
 def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
@@ -358,7 +426,8 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
         reasons.append("runaway")
     if undetermined:
         reasons.append("undetermined")
-    return _Degeneracy(tuple(reasons), tuple(runaway), tuple(undetermined), corr)
+    thin = _thin_support(prob, theta, _weighted_jacobian(prob, sol.J)) if not sol.singular else ()
+    return _Degeneracy(tuple(reasons), tuple(runaway), tuple(undetermined), corr, thin)
 
 
 def _degenerate_diagnostics(deg: _Degeneracy) -> list[Diagnostic]:
@@ -399,7 +468,7 @@ def _degenerate_diagnostics(deg: _Degeneracy) -> list[Diagnostic]:
 class _Search:
     """What the global search did for a suspect fit (for the result's notes)."""
 
-    why: tuple[str, ...]  # the suspect point's reasons ("correlation" when only |r| ~ 1)
+    why: tuple[str, ...]  # the suspect point's reasons (_degeneracy's, or the keys of _WHY)
     user_objective: float  # the best the user's start reached
     search_objective: float  # the best the search reached
     used: bool  # the answer is the search's minimum, not the user's
@@ -411,6 +480,8 @@ _WHY = {
     "runaway": "a parameter running away",
     "undetermined": "a parameter not determined at all",
     "correlation": "two parameters nearly interchangeable",
+    "thin_support": "a feature of the curve narrower than the spacing of the data",
+    "thin_start": "a start whose feature was narrower than the spacing of the data",
 }
 
 

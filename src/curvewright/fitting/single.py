@@ -23,7 +23,15 @@ from ..models import Model
 from ..parameters import Parameter, Parameters
 from ..result import FitResult
 from ..thresholds import CLEARLY_LOWER
-from .assemble import _Degeneracy, _degeneracy, _finish, _Search, _Solution, _solution
+from .assemble import (
+    _Degeneracy,
+    _degeneracy,
+    _finish,
+    _Search,
+    _Solution,
+    _solution,
+    _start_support,
+)
 from .engine import (
     _STOP,
     _first_method,
@@ -57,6 +65,7 @@ def _search_globally(
     deg: _Degeneracy,
     method: str,
     budget: int,
+    thin_start: bool = False,
 ) -> tuple[_Solution, _Degeneracy, _Search | None]:
     """The global search after a suspect stop; the better minimum is kept (``runs`` grows).
 
@@ -80,8 +89,11 @@ def _search_globally(
         deg = _degeneracy(prob, sol)
     else:
         sol = _solution(prob, runs, keep=user)
+    why = [*deg0.reasons, *(["thin_support"] if deg0.thin else [])]
+    if thin_start:
+        why.append("thin_start")
     search = _Search(
-        why=deg0.reasons or ("correlation",),
+        why=tuple(why) or ("correlation",),
         user_objective=user.objective,
         search_objective=best.objective if best is not None else math.nan,
         used=used,
@@ -108,8 +120,14 @@ def _run_and_judge(
     sol = _solution(prob, runs)
     deg = _degeneracy(prob, sol)
     search = None
-    if deg.suspect and runs[-1].code not in _STOP:
-        sol, deg, search = _search_globally(prob, watch, runs, sol, deg, method, budget)
+    if runs[-1].code not in _STOP:
+        # A start on a feature narrower than the data's spacing has seen nothing of the data's
+        # shape: the minimum it reached is suspect even when nothing is wrong there.
+        thin_start = bool(_start_support(prob)) if not deg.suspect else False
+        if deg.suspect or thin_start:
+            sol, deg, search = _search_globally(
+                prob, watch, runs, sol, deg, method, budget, thin_start
+            )
     return runs, sol, deg, search
 
 
