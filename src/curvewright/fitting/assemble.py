@@ -315,6 +315,11 @@ def _column_support(jw: FloatArray) -> FloatArray:
     it alike.
     """
     with np.errstate(all="ignore"):
+        sq = jw * jw
+        s2 = sq.sum(axis=0)
+        fast: FloatArray = s2 * s2 / (sq * sq).sum(axis=0)
+        if np.all(np.isfinite(fast)):
+            return fast  # few numpy calls: this runs after every fit
         # scaled by the column's largest entry first, so that J**4 neither overflows nor
         # underflows
         a = np.abs(jw) / np.max(np.abs(jw), axis=0)
@@ -342,6 +347,8 @@ def _thin_support(
     if thin.size == 0:
         return ()
     out: list[tuple[str, float]] = []
+    # ``jw`` may be in the solver's scale; the columns compared are both made here
+    j1 = _weighted_jacobian(prob, prob.jacobian_at(np.array(theta, dtype=float)))
     for i in thin.tolist():
         t2 = np.array(theta, dtype=float)
         step = max(abs(t2[i]), 1.0)
@@ -352,7 +359,7 @@ def _thin_support(
             c2 = _weighted_jacobian(prob, prob.jacobian_at(t2))[:, i]
         except (ValueError, ArithmeticError):
             continue
-        c1 = jw[:, i]
+        c1 = j1[:, i]
         if np.all(np.isfinite(c2)) and np.max(np.abs(c2 - c1)) <= 1e-8 * np.max(np.abs(c1)):
             out.append((prob.free[i], float(support[i])))
     return tuple(out)
@@ -362,16 +369,22 @@ def _weighted_jacobian(prob: _Problem, J: FloatArray) -> FloatArray:
     return J if prob.w is None else J * prob.w[:, None]
 
 
-def _start_support(prob: _Problem) -> tuple[tuple[str, float], ...]:
-    """:func:`_thin_support` at the user's start (formula models with a start given, else ())."""
-    if not prob.free or set(prob.free) <= prob.guided or not prob.model.has_jacobian:
+def _start_support(
+    prob: _Problem, first: tuple[FloatArray, FloatArray] | None
+) -> tuple[tuple[str, float], ...]:
+    """:func:`_thin_support` at the user's start; () when no start was given.
+
+    ``first`` is the fit's first analytic Jacobian and its point (``_Watch.first_jacobian``,
+    weighted, in the solver's scale, which the support does not depend on); None for a
+    Python callable, which is not judged (its Jacobian would cost evaluations).
+    """
+    if first is None or not prob.free or set(prob.free) <= prob.guided:
         return ()
+    theta, jw = first
     theta0 = np.array([prob.values0[n] for n in prob.free], dtype=float)
-    try:
-        J = prob.jacobian_at(theta0)
-    except (ValueError, ArithmeticError):
-        return ()
-    return _thin_support(prob, theta0, _weighted_jacobian(prob, J))
+    if not np.array_equal(theta, theta0):
+        return ()  # the first run began elsewhere (a start moved inside its bounds)
+    return _thin_support(prob, theta, jw)
 
 
 def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:

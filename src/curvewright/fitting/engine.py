@@ -91,6 +91,9 @@ class _Watch:
         self.evaluations = 0
         self.best_ssr = math.inf
         self.best_theta: FloatArray | None = None
+        # The first analytic Jacobian of the fit and its point (the start): the start's thin
+        # support check (assemble._start_support) reads it instead of computing its own.
+        self.first_jacobian: tuple[FloatArray, FloatArray] | None = None
         self._last_report = 0.0
         # What the residuals and their Jacobian are multiplied by: 1/rscale (see _Problem),
         # with minus 1/sigma per row for the Jacobian of the weighted residual y - f.
@@ -138,6 +141,9 @@ class _Watch:
         self._tick()
         J = self.prob.jacobian_at(theta)
         J *= self._jscale
+        if self.first_jacobian is None:
+            # a copy: a solver with a change of variables scales the columns in place
+            self.first_jacobian = (np.array(theta, dtype=float), J.copy())
         return J
 
     def best_inside(self, fallback: FloatArray) -> FloatArray:

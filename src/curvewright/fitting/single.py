@@ -123,7 +123,7 @@ def _run_and_judge(
     if runs[-1].code not in _STOP:
         # A start on a feature narrower than the data's spacing has seen nothing of the data's
         # shape: the minimum it reached is suspect even when nothing is wrong there.
-        thin_start = bool(_start_support(prob)) if not deg.suspect else False
+        thin_start = not deg.suspect and bool(_start_support(prob, watch.first_jacobian))
         if deg.suspect or thin_start:
             sol, deg, search = _search_globally(
                 prob, watch, runs, sol, deg, method, budget, thin_start
