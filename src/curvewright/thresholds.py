@@ -16,6 +16,7 @@ __all__ = [
     "NEAR_SINGULAR",
     "NOT_IDENTIFIED_RSE",
     "RUNAWAY",
+    "THIN_SUPPORT",
 ]
 
 #: The caution printed with every summary (and shown by the widget).
@@ -56,3 +57,12 @@ RUNAWAY = 1e6
 #: clearly lower than the one the user's start reached (smaller differences are the same
 #: minimum, reached to the solver's precision, and the user's point is kept).
 CLEARLY_LOWER = 1e-6
+
+#: A free parameter whose sensitivity (its column of the weighted Jacobian) is carried by fewer
+#: than this many points' worth of data (the participation ratio ``(sum J**2)**2 / sum J**4``:
+#: 1 when one point carries it all, n when all n carry it alike) sits on a feature of the curve
+#: narrower than the data's spacing: a peak or step between or on one or two points. Such a
+#: start or stopping point is suspect and the global search is run. Our judgement: a feature
+#: seen by fewer than about one and a half points cannot be told from a spike or a step, and a
+#: fit that started there has seen nothing of the data's shape.
+THIN_SUPPORT = 1.5

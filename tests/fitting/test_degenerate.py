@@ -43,6 +43,7 @@ _HILL = {"Vmax": 100.0, "K05": 10.0, "n_h": 2.0}
 _GAUSS = {"baseline": 2.0, "amplitude": 50.0, "center": 40.0, "sigma": 8.0}
 _BOLTZ = {"low": 1.0, "high": 20.0, "x_half": 50.0, "width": 6.0}
 _GROWTH = {"N0": 2.0, "K": 100.0, "r": 0.4}
+_LORENTZ = {"baseline": 2.0, "amplitude": 50.0, "center": 40.0, "hwhm": 6.0}
 
 # (label, catalog model, x, true values, noise SD, the degenerate part of the start). Before
 # issue 11 the fit ended "OK" at a degenerate point (singular covariance, several hundred times
@@ -112,6 +113,17 @@ CASES: list[tuple[str, str, Any, dict[str, float], float, dict[str, float]]] = [
         _GROWTH,
         2.0,
         {"r": 4000.0},
+    ),
+    # Not degenerate where it stopped (a broad dip on the far side, a true local minimum with
+    # 200 times the best sum of squares): the start's peak fell between two points, so the
+    # start itself is judged (thin support) and the search runs.
+    (
+        "Lorentzian, width 1e-6 of the range*",
+        "lorentzian_peak",
+        _X_SPEC,
+        _LORENTZ,
+        1.0,
+        {"hwhm": 1e-4},
     ),
 ]
 
@@ -257,3 +269,44 @@ def test_fits_are_bit_identical_twice_and_in_another_process() -> None:
     exec(compile(script, "determinism", "exec"), ns)
     exec(compile(script, "determinism", "exec"), ns)
     assert got[0] == got[1] == here[0] == here[1]
+
+
+@pytest.mark.parametrize("hwhm", [1e-2, 1e-4])
+def test_a_start_thinner_than_the_spacing_is_suspect(hwhm: float) -> None:
+    # A Lorentzian started with a half width of 1e-4 or 1e-6 of the x range (the spacing is
+    # 1.27): its peak sits between two points, so the start sees nothing of the data's shape.
+    # The search runs, names the reason, and the fit reaches the best-known minimum (scipy's
+    # least_squares from the truth and scattered starts, as above).
+    y = _data(50, "lorentzian_peak", _X_SPEC, _LORENTZ, 1.0)
+    best = _best_known("lorentzian_peak", _X_SPEC, y, _LORENTZ)
+    r = cw.fit("lorentzian_peak", _X_SPEC, y, start={**_LORENTZ, "hwhm": hwhm})
+    assert r.success and r.ssr <= best * (1.0 + 1e-6)
+    search = [d for d in r.diagnostics if d.code == "global_search"]
+    assert len(search) == 1 and "thin_start" in search[0].extra["reasons"]
+    # a start as wide as the peak is not judged: no search
+    ok = cw.fit("lorentzian_peak", _X_SPEC, y, start={**_LORENTZ, "hwhm": 3.0})
+    assert ok.success and ok.ssr <= best * (1.0 + 1e-6)
+    assert not any(a.strategy.startswith("global search") for a in ok.attempts)
+
+
+def test_support_of_a_column_counts_the_points_that_carry_it() -> None:
+    # The participation ratio by hand: one point carries a column -> 1; k points alike -> k.
+    from curvewright.fitting.assemble import _column_support
+
+    J = np.zeros((40, 4))
+    J[:, 0] = 1.0  # every point alike: 40
+    J[3, 1] = -2.0  # one point: 1
+    J[[5, 6], 2] = 1e-200  # two points alike, tiny: 2
+    # nothing: 0
+    assert _column_support(J).tolist() == pytest.approx([40.0, 1.0, 2.0, 0.0], rel=1e-12)
+
+
+def test_a_steep_step_is_not_a_thin_feature() -> None:
+    # A Hill curve started with slope 50 is a step between two points: its position and slope
+    # are carried by about one point each, its level (Vmax) by all of them. Not a thin
+    # feature: the fit from there reaches the best-known minimum with no search.
+    y = _data(51, "hill", _X_CONC, _HILL, 2.0)
+    best = _best_known("hill", _X_CONC, y, _HILL)
+    r = cw.fit("hill", _X_CONC, y, start={**_HILL, "n_h": 50.0})
+    assert r.success and r.ssr <= best * (1.0 + 1e-6)
+    assert not any(d.code == "global_search" for d in r.diagnostics)

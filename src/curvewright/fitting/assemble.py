@@ -29,6 +29,7 @@ from ..thresholds import (
     NEAR_SINGULAR,
     NOT_IDENTIFIED_RSE,
     RUNAWAY,
+    THIN_SUPPORT,
 )
 from .engine import _lmfit_at, _Run
 from .problem import FloatArray, _param_jacobian, _Problem
@@ -289,6 +290,7 @@ class _Degeneracy:
     runaway: tuple[tuple[str, float, float], ...] = ()  # (name, value, largest plausible size)
     undetermined: tuple[tuple[str, float, float], ...] = ()  # (name, stderr, size)
     correlation: float = math.nan  # the largest |r| between two free parameters
+    thin: tuple[tuple[str, float], ...] = ()  # (name, support in points) below THIN_SUPPORT
 
     @property
     def degenerate(self) -> bool:
@@ -298,12 +300,91 @@ class _Degeneracy:
     @property
     def suspect(self) -> bool:
         """Degenerate, or |r| so close to 1 that a lower minimum elsewhere is worth a look."""
-        return self.degenerate or self.correlation > DEGENERATE_CORRELATION
+        return bool(self.degenerate or self.thin or self.correlation > DEGENERATE_CORRELATION)
 
     @property
     def params(self) -> tuple[str, ...]:
         """The parameters a runaway or undetermined finding names, in order, once each."""
         return tuple(dict.fromkeys(n for n, _, _ in (*self.runaway, *self.undetermined)))
+
+
+def _column_support(jw: FloatArray) -> FloatArray:
+    """How many points carry each column: ``(sum J**2)**2 / sum J**4`` (0 for a zero column).
+
+    The participation ratio: 1 when one point carries all of a column, k when k points carry
+    it alike.
+    """
+    with np.errstate(all="ignore"):
+        sq = jw * jw
+        s2 = sq.sum(axis=0)
+        fast: FloatArray = s2 * s2 / (sq * sq).sum(axis=0)
+        if np.all(np.isfinite(fast)):
+            return fast  # few numpy calls: this runs after every fit
+        # scaled by the column's largest entry first, so that J**4 neither overflows nor
+        # underflows
+        a = np.abs(jw) / np.max(np.abs(jw), axis=0)
+        s2 = np.sum(a * a, axis=0)
+        support = np.where(s2 > 0, s2 * s2 / np.sum(a**4, axis=0), 0.0)
+    return np.where(np.isfinite(support), support, 0.0)
+
+
+def _thin_support(
+    prob: _Problem, theta: FloatArray, jw: FloatArray
+) -> tuple[tuple[str, float], ...]:
+    """The curve's feature at ``theta`` is narrower than the data's spacing: its amplitudes.
+
+    A parameter the curve is linear in (an amplitude: its column does not change with it)
+    whose column is carried by fewer than :data:`~curvewright.thresholds.THIN_SUPPORT`
+    points (:func:`_column_support`): the whole feature it scales touches about one point. A
+    steep step has thin columns for its position and slope but wide ones for its levels, and
+    is not reported. Returns ``(name, support)`` of each such amplitude; the linearity test
+    (one more Jacobian) is made only when some column is thin.
+    """
+    if jw.size == 0 or not np.all(np.isfinite(jw)):
+        return ()
+    support = _column_support(jw)
+    thin = np.flatnonzero(support < THIN_SUPPORT)
+    if thin.size == 0:
+        return ()
+    out: list[tuple[str, float]] = []
+    # ``jw`` may be in the solver's scale; the columns compared are both made here
+    j1 = _weighted_jacobian(prob, prob.jacobian_at(np.array(theta, dtype=float)))
+    for i in thin.tolist():
+        t2 = np.array(theta, dtype=float)
+        step = max(abs(t2[i]), 1.0)
+        t2[i] = t2[i] + step if t2[i] + step <= prob.upper[i] else t2[i] - step
+        if not prob.lower[i] <= t2[i] <= prob.upper[i]:
+            continue
+        try:
+            c2 = _weighted_jacobian(prob, prob.jacobian_at(t2))[:, i]
+        except (ValueError, ArithmeticError):
+            continue
+        c1 = j1[:, i]
+        if np.all(np.isfinite(c2)) and np.max(np.abs(c2 - c1)) <= 1e-8 * np.max(np.abs(c1)):
+            out.append((prob.free[i], float(support[i])))
+    return tuple(out)
+
+
+def _weighted_jacobian(prob: _Problem, J: FloatArray) -> FloatArray:
+    return J if prob.w is None else J * prob.w[:, None]
+
+
+def _start_support(
+    prob: _Problem, first: tuple[FloatArray, FloatArray] | None
+) -> tuple[tuple[str, float], ...]:
+    """:func:`_thin_support` at the user's start; () when no start was given.
+
+    ``first`` is the fit's first analytic Jacobian and its point (``_Watch.first_jacobian``,
+    weighted, in the solver's scale, which the support does not depend on); None for a
+    Python callable, which is not judged (its Jacobian would cost evaluations).
+    """
+    if first is None or not prob.free or set(prob.free) <= prob.guided:
+        return ()
+    theta, jw = first
+    theta0 = np.array([prob.values0[n] for n in prob.free], dtype=float)
+    if not np.array_equal(theta, theta0):
+        return ()  # the first run began elsewhere (a start moved inside its bounds)
+    return _thin_support(prob, theta, jw)
 
 
 def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
@@ -339,7 +420,8 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
     if big.any():
         from ..start import plausible_sizes
 
-        names = [prob.free[i] for i in np.flatnonzero(big)]
+        bases = prob.model_names()
+        names = list(dict.fromkeys(bases[i] for i in np.flatnonzero(big)))
         try:
             with np.errstate(all="ignore"):
                 sizes = plausible_sizes(prob.model, prob.x, prob.y, names)
@@ -347,7 +429,7 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
             sizes = {n: (1.0, 1.0) for n in names}
         for i in np.flatnonzero(big):
             n, v = prob.free[i], float(theta[i])
-            typical, largest = sizes.get(n, (1.0, 1.0))
+            typical, largest = sizes.get(bases[i], (1.0, 1.0))
             if abs(v) > RUNAWAY * largest:
                 runaway.append((n, v, largest))
             size = max(abs(v), typical)
@@ -357,7 +439,8 @@ def _degeneracy(prob: _Problem, sol: _Solution) -> _Degeneracy:
         reasons.append("runaway")
     if undetermined:
         reasons.append("undetermined")
-    return _Degeneracy(tuple(reasons), tuple(runaway), tuple(undetermined), corr)
+    thin = _thin_support(prob, theta, _weighted_jacobian(prob, sol.J)) if not sol.singular else ()
+    return _Degeneracy(tuple(reasons), tuple(runaway), tuple(undetermined), corr, thin)
 
 
 def _degenerate_diagnostics(deg: _Degeneracy) -> list[Diagnostic]:
@@ -398,7 +481,7 @@ def _degenerate_diagnostics(deg: _Degeneracy) -> list[Diagnostic]:
 class _Search:
     """What the global search did for a suspect fit (for the result's notes)."""
 
-    why: tuple[str, ...]  # the suspect point's reasons ("correlation" when only |r| ~ 1)
+    why: tuple[str, ...]  # the suspect point's reasons (_degeneracy's, or the keys of _WHY)
     user_objective: float  # the best the user's start reached
     search_objective: float  # the best the search reached
     used: bool  # the answer is the search's minimum, not the user's
@@ -410,6 +493,8 @@ _WHY = {
     "runaway": "a parameter running away",
     "undetermined": "a parameter not determined at all",
     "correlation": "two parameters nearly interchangeable",
+    "thin_support": "a feature of the curve narrower than the spacing of the data",
+    "thin_start": "a start whose feature was narrower than the spacing of the data",
 }
 
 
@@ -442,6 +527,23 @@ def _search_diagnostic(search: _Search, loss: str) -> Diagnostic:
     )
 
 
+def _judged(sol: _Solution, degeneracy: _Degeneracy | None) -> _Solution:
+    """The solution with its outcome: ``"degenerate_stop"`` (not a success) when degenerate."""
+    if degeneracy is not None and degeneracy.degenerate:
+        return replace(sol, code="degenerate_stop", success=False)
+    return sol
+
+
+def _stop_notes(
+    degeneracy: _Degeneracy | None, search: _Search | None, loss: str
+) -> list[Diagnostic]:
+    """The notes on a suspect stop that head a result's findings (the search's first)."""
+    out = [_search_diagnostic(search, loss)] if search is not None else []
+    if degeneracy is not None and degeneracy.degenerate:
+        out += _degenerate_diagnostics(degeneracy)
+    return out
+
+
 def _finish(
     prob: _Problem,
     runs: list[_Run],
@@ -454,10 +556,7 @@ def _finish(
     A ``degeneracy`` that is degenerate turns the outcome into ``"degenerate_stop"`` (not a
     success); ``search`` adds a note on the global search.
     """
-    if sol is None:
-        sol = _solution(prob, runs)
-    if degeneracy is not None and degeneracy.degenerate:
-        sol = replace(sol, code="degenerate_stop", success=False)
+    sol = _judged(sol if sol is not None else _solution(prob, runs), degeneracy)
     kept, theta, fitted, resid, ssr, rss = (
         sol.kept,
         sol.theta,
@@ -480,11 +579,8 @@ def _finish(
     wts = np.ones(n) if prob.w is None else prob.w
     ybar = float(np.sum(wts**2 * prob.y) / np.sum(wts**2))
     sst = float(np.sum((wts * (prob.y - ybar)) ** 2))
-    diags = _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
-    if degeneracy is not None and degeneracy.degenerate:
-        diags[:0] = _degenerate_diagnostics(degeneracy)
-    if search is not None:
-        diags.insert(0, _search_diagnostic(search, prob.loss))
+    diags = _stop_notes(degeneracy, search, prob.loss)
+    diags += _diagnostics(prob, values, stderr, cov, cond, singular, code, success)
     attempts = [
         Attempt(
             strategy=r.strategy,

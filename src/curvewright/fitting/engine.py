@@ -91,6 +91,9 @@ class _Watch:
         self.evaluations = 0
         self.best_ssr = math.inf
         self.best_theta: FloatArray | None = None
+        # The first analytic Jacobian of the fit and its point (the start): the start's thin
+        # support check (assemble._start_support) reads it instead of computing its own.
+        self.first_jacobian: tuple[FloatArray, FloatArray] | None = None
         self._last_report = 0.0
         # What the residuals and their Jacobian are multiplied by: 1/rscale (see _Problem),
         # with minus 1/sigma per row for the Jacobian of the weighted residual y - f.
@@ -138,6 +141,9 @@ class _Watch:
         self._tick()
         J = self.prob.jacobian_at(theta)
         J *= self._jscale
+        if self.first_jacobian is None:
+            # a copy: a solver with a change of variables scales the columns in place
+            self.first_jacobian = (np.array(theta, dtype=float), J.copy())
         return J
 
     def best_inside(self, fallback: FloatArray) -> FloatArray:
@@ -520,36 +526,16 @@ def _ladder(
 
 
 def _global_search(prob: _Problem, watch: _Watch, method: str, budget: int) -> list[_Run]:
-    """Fits from starts that ignore the user's: the catalog's rule (if any), the multi-start.
+    """Fits from starts that ignore the user's (:meth:`_Problem.search_starts`).
 
     Run when the point the user's start reached is suspect (degenerate, or parameters nearly
     interchangeable). Each start gets the first run's solver; the best of them is polished.
     Returns every run made, named ``"global search: ..."`` in the attempts.
     """
-    from ..start import generic_start, guided_start
-
-    seeds: list[tuple[str, Callable[[], dict[str, float]]]] = []
-    # With no start given the fit began from the rule (or, without one, from the multi-start):
-    # the same deterministic start again would only repeat the first run.
-    no_start = set(prob.free) <= prob.guided
-    if prob.model.start_rule is not None and not no_start:
-        seeds.append(
-            (
-                "global search: start rule",
-                lambda: guided_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
-            )
-        )
-    if prob.model.start_rule is not None or not no_start:
-        seeds.append(
-            (
-                "global search: multi-start",
-                lambda: generic_start(prob.model, prob.x, prob.y, fixed=prob.fixed),
-            )
-        )
     runs: list[_Run] = []
-    for strategy, make in seeds:
+    for strategy, make in prob.search_starts():
         try:
-            theta = prob.theta_from(make())
+            theta = make()
         except (DataError, ParameterError, ArithmeticError, ValueError, np.linalg.LinAlgError):
             continue
         if not np.all(np.isfinite(theta)):

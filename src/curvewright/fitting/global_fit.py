@@ -37,8 +37,16 @@ from ..numerics import finite_difference_jacobian
 from ..parameters import Moved, Parameter, Parameters, move_inside
 from ..result import Attempt, Diagnostic
 from ..start import guided_start
-from .assemble import _diagnostics, _solution
-from .engine import _ladder, _polish, _Run, _Watch
+from .assemble import (
+    _Degeneracy,
+    _diagnostics,
+    _judged,
+    _Search,
+    _Solution,
+    _solution,
+    _stop_notes,
+)
+from .engine import _Run, _Watch
 from .problem import (
     FloatArray,
     Loss,
@@ -52,7 +60,7 @@ from .problem import (
     request_parameters,
     resolve_model,
 )
-from .single import fit
+from .single import _run_and_judge, fit
 
 __all__ = ["fit_global"]
 
@@ -72,6 +80,22 @@ class _GlobalProblem(_Problem):
     cols: tuple[dict[str, int], ...] = ()
     group_links: dict[str, Expr] = field(default_factory=dict)
     base: tuple[str, ...] = ()  # model parameter name of each expanded free parameter
+    # The joint start from every group fitted alone with no start (the global search's first
+    # start); None when the fit began from that already (no start given).
+    alone: Callable[[], FloatArray] | None = None
+
+    def model_names(self) -> tuple[str, ...]:
+        return self.base
+
+    def search_starts(self) -> list[tuple[str, Callable[[], FloatArray]]]:
+        # On all points together only the values every group holds alike can be held.
+        common = {
+            k: v for k, v in self.held[0].items() if all(h.get(k) == v for h in self.held[1:])
+        }
+        pooled = self._pooled_starts(common)
+        if self.alone is None:
+            return pooled
+        return [("global search: groups alone", self.alone), *pooled]
 
     def _plan(self) -> None:
         # The single-fit plans index the model's own parameters; these index expanded ones.
@@ -545,6 +569,124 @@ def _fit_groups(
         deadline,
         cancel,
     )
+    values0, moved = _joint_start(
+        m, solo, free, base, cols, shared_free, common_start, group_start, bnd
+    )
+    x_all = np.concatenate([d.x_used for d in groups.datasets])
+    edges = np.cumsum([0, *(d.n for d in groups.datasets)])
+    prob = _GlobalProblem(
+        model=m,
+        datasets=groups.datasets,
+        x=x_all,
+        y=y_all,
+        w=w,
+        weighting=weighting,
+        loss=loss,
+        loss_scale=loss_scale,
+        absolute_sigma=bool(absolute_sigma),
+        values0=values0,
+        free=tuple(free),
+        fixed={},
+        links={},
+        lower=np.array([bnd[b][0] for b in base], dtype=float),
+        upper=np.array([bnd[b][1] for b in base], dtype=float),
+        slices=tuple(slice(int(a), int(b)) for a, b in itertools.pairwise(edges)),
+        held=tuple(held_g),
+        cols=tuple(cols),
+        group_links=link_exprs,
+        base=tuple(base),
+        parameters=recs,
+        moved=tuple(moved),
+    )
+    if common_start or any(group_start):
+
+        def alone() -> FloatArray:
+            # Every group fitted alone from no start (each fit judges its own stop), joined.
+            empty: list[dict[str, float]] = [{} for _ in range(G)]
+            own = _solo_starts(
+                m,
+                groups,
+                held_g,
+                {},
+                empty,
+                shared_free,
+                own_free,
+                {n: bnd[n] for n in m.param_names},
+                dict(recs.links),
+                weights,
+                loss,
+                loss_scale,
+                method,
+                deadline,
+                cancel,
+            )
+            v, _ = _joint_start(m, own, free, base, cols, shared_free, {}, empty, bnd)
+            return np.array([v[n] for n in free], dtype=float)
+
+        prob.alone = alone
+    r0 = prob.weighted(values0)
+    if not np.all(np.isfinite(r0)):
+        rows = np.flatnonzero(~np.isfinite(r0))[:5].tolist()
+        g_bad = [
+            groups.labels[g]
+            for g, sl in enumerate(prob.slices)
+            if rows[0] in range(sl.start, sl.stop)
+        ]
+        raise FitError(
+            f"The model gives NaN or infinite values at the starting values (first in group "
+            f"{g_bad[0]!r}); the fit cannot start. Starting values: {values0}. Give starts "
+            "(start=, a DataFrame per group), add bounds, or exclude those points."
+        )
+
+    # ---------------------------------------------------------------- the engine
+    runs: list[_Run] = []
+    sol: _Solution | None = None
+    deg: _Degeneracy | None = None
+    search: _Search | None = None
+    if free:
+        watch = _Watch(prob, deadline, max_evaluations, cancel, progress)
+        budget = max_evaluations if max_evaluations is not None else 2000 * (len(free) + 1)
+        runs, sol, deg, search = _run_and_judge(prob, watch, method, budget)
+        if progress is not None:
+            progress(watch.evaluations, watch.best_ssr)
+    options = {
+        "x": labels[0],
+        "y": labels[1],
+        "fixed": dict(held),
+        "bounds": {
+            k: bnd[k] for k in m.param_names if bnd[k] != (m.param(k).lower, m.param(k).upper)
+        },
+        "links": dict(recs.links),
+        "weights": weights,
+        "loss": loss,
+        "loss_scale": loss_scale,
+        "absolute_sigma": bool(absolute_sigma),
+        "method": method,
+    }
+    judged = _judged(sol if sol is not None else _solution(prob, runs), deg)
+    notes = _stop_notes(deg, search, prob.loss)
+    return _assemble(
+        prob, runs, judged, notes, groups, by, shared_free, own_free, constants, bnd, options
+    )
+
+
+def _joint_start(
+    m: Model,
+    solo: Sequence[dict[str, float] | None],
+    free: Sequence[str],
+    base: Sequence[str],
+    cols: Sequence[Mapping[str, int]],
+    shared_free: tuple[str, ...],
+    common_start: Mapping[str, float],
+    group_start: Sequence[Mapping[str, float]],
+    bnd: Mapping[str, tuple[float, float]],
+) -> tuple[dict[str, float], list[Moved]]:
+    """The joint start from the groups' own fits: a shared parameter at their median.
+
+    A user's start (for every group, or a group's own) comes first; a guided value outside
+    its bounds is moved inside by the one rule, and the move noted.
+    """
+    G = len(cols)
     values0: dict[str, float] = {}
     moved: list[Moved] = []
     for j, (name, b) in enumerate(zip(free, base, strict=True)):
@@ -584,74 +726,7 @@ def _fit_groups(
             v = after
         values0[name] = v
 
-    x_all = np.concatenate([d.x_used for d in groups.datasets])
-    edges = np.cumsum([0, *(d.n for d in groups.datasets)])
-    prob = _GlobalProblem(
-        model=m,
-        datasets=groups.datasets,
-        x=x_all,
-        y=y_all,
-        w=w,
-        weighting=weighting,
-        loss=loss,
-        loss_scale=loss_scale,
-        absolute_sigma=bool(absolute_sigma),
-        values0=values0,
-        free=tuple(free),
-        fixed={},
-        links={},
-        lower=np.array([bnd[b][0] for b in base], dtype=float),
-        upper=np.array([bnd[b][1] for b in base], dtype=float),
-        slices=tuple(slice(int(a), int(b)) for a, b in itertools.pairwise(edges)),
-        held=tuple(held_g),
-        cols=tuple(cols),
-        group_links=link_exprs,
-        base=tuple(base),
-        parameters=recs,
-        moved=tuple(moved),
-    )
-    r0 = prob.weighted(values0)
-    if not np.all(np.isfinite(r0)):
-        rows = np.flatnonzero(~np.isfinite(r0))[:5].tolist()
-        g_bad = [
-            groups.labels[g]
-            for g, sl in enumerate(prob.slices)
-            if rows[0] in range(sl.start, sl.stop)
-        ]
-        raise FitError(
-            f"The model gives NaN or infinite values at the starting values (first in group "
-            f"{g_bad[0]!r}); the fit cannot start. Starting values: {values0}. Give starts "
-            "(start=, a DataFrame per group), add bounds, or exclude those points."
-        )
-
-    # ---------------------------------------------------------------- the engine
-    runs: list[_Run] = []
-    if free:
-        watch = _Watch(prob, deadline, max_evaluations, cancel, progress)
-        budget = max_evaluations if max_evaluations is not None else 2000 * (len(free) + 1)
-        runs = _ladder(prob, watch, method, budget)
-        best = min(runs, key=lambda r: r.objective)
-        if runs[-1].code not in ("cancelled", "stopped_time") and math.isfinite(best.objective):
-            polished = _polish(prob, watch, best, budget)
-            if polished.objective <= best.objective and outcome(polished.code).success:
-                runs.append(polished)
-        if progress is not None:
-            progress(watch.evaluations, watch.best_ssr)
-    options = {
-        "x": labels[0],
-        "y": labels[1],
-        "fixed": dict(held),
-        "bounds": {
-            k: bnd[k] for k in m.param_names if bnd[k] != (m.param(k).lower, m.param(k).upper)
-        },
-        "links": dict(recs.links),
-        "weights": weights,
-        "loss": loss,
-        "loss_scale": loss_scale,
-        "absolute_sigma": bool(absolute_sigma),
-        "method": method,
-    }
-    return _assemble(prob, runs, groups, by, shared_free, own_free, constants, bnd, options)
+    return values0, moved
 
 
 def _median(vals: Sequence[float | None], default: float) -> float:
@@ -727,6 +802,8 @@ def _solo_starts(
 def _assemble(
     prob: _GlobalProblem,
     runs: list[_Run],
+    sol: _Solution,
+    notes: Sequence[Diagnostic],
     groups: _Groups,
     by: tuple[str, ...],
     shared_free: tuple[str, ...],
@@ -735,8 +812,8 @@ def _assemble(
     bnd: Mapping[str, tuple[float, float]],
     options: Mapping[str, Any],
 ) -> GlobalResult:
+    """The result of a global fit at the judged solution; ``notes`` head every list of findings."""
     m = prob.model
-    sol = _solution(prob, runs)
     kept, theta, fitted, resid, ssr, rss = (
         sol.kept,
         sol.theta,
@@ -765,8 +842,8 @@ def _assemble(
     aicc, bic = _aicc(ssr, n, p + 1), _bic(ssr, n, p + 1)
     theta0 = prob.theta_of(prob.values0)
     views: list[GroupFit] = []
-    diags: list[Diagnostic] = []
-    seen: set[tuple[str, str]] = set()
+    diags: list[Diagnostic] = list(notes)
+    seen: set[tuple[str, str]] = {(d.code, d.text) for d in notes}
     for g, (ds, lab) in enumerate(zip(groups.datasets, groups.labels, strict=True)):
         sl = prob.slices[g]
         gv = prob.group_values(theta, g)
@@ -848,7 +925,7 @@ def _assemble(
                 code=code,
                 message=outcome(code).text,
                 messages=tuple((a.code, a.message) for a in attempts),
-                diagnostics=tuple(gd),
+                diagnostics=(*notes, *gd),
                 attempts=attempts,
                 weighting=prob.weighting,
                 loss=prob.loss,

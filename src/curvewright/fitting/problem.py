@@ -201,6 +201,45 @@ class _Problem:
                 pj = None
         return free_jacobian(full, pj, self.curve_at, theta, lower=self.lower, upper=self.upper)
 
+    def model_names(self) -> tuple[str, ...]:
+        """The model parameter behind each free parameter (a global fit's ``k[A]`` is ``k``)."""
+        return self.free
+
+    def search_starts(self) -> list[tuple[str, Callable[[], FloatArray]]]:
+        """The global search's starts, each ignoring the user's: (attempt name, free vector).
+
+        The catalog's start rule (if any) and the generic multi-start. With no start given the
+        fit began from the rule (or, without one, from the multi-start): the same deterministic
+        start again would only repeat the first run, so it is left out. Each start is computed
+        only when called.
+        """
+        return self._pooled_starts(self.fixed)
+
+    def _pooled_starts(
+        self, fixed: Mapping[str, float]
+    ) -> list[tuple[str, Callable[[], FloatArray]]]:
+        """:meth:`search_starts` from the model on all points, ``fixed`` held."""
+        from ..start import generic_start
+
+        no_start = set(self.free) <= self.guided
+        rule = self.model.start_rule is not None
+        out: list[tuple[str, Callable[[], FloatArray]]] = []
+        if rule and not no_start:
+            out.append(
+                (
+                    "global search: start rule",
+                    lambda: self.theta_from(guided_start(self.model, self.x, self.y, fixed=fixed)),
+                )
+            )
+        if rule or not no_start:
+            out.append(
+                (
+                    "global search: multi-start",
+                    lambda: self.theta_from(generic_start(self.model, self.x, self.y, fixed=fixed)),
+                )
+            )
+        return out
+
     def theta_from(self, seed: Mapping[str, float]) -> FloatArray:
         """The free-parameter vector from values by name, moved inside bounds by the one rule."""
         return np.array(

@@ -23,8 +23,25 @@ from ..models import Model
 from ..parameters import Parameter, Parameters
 from ..result import FitResult
 from ..thresholds import CLEARLY_LOWER
-from .assemble import _Degeneracy, _degeneracy, _finish, _Search, _Solution, _solution
-from .engine import _first_method, _global_search, _ladder, _linear_run, _polish, _Run, _Watch
+from .assemble import (
+    _Degeneracy,
+    _degeneracy,
+    _finish,
+    _Search,
+    _Solution,
+    _solution,
+    _start_support,
+)
+from .engine import (
+    _STOP,
+    _first_method,
+    _global_search,
+    _ladder,
+    _linear_run,
+    _polish,
+    _Run,
+    _Watch,
+)
 from .problem import (
     Loss,
     Method,
@@ -48,6 +65,7 @@ def _search_globally(
     deg: _Degeneracy,
     method: str,
     budget: int,
+    thin_start: bool = False,
 ) -> tuple[_Solution, _Degeneracy, _Search | None]:
     """The global search after a suspect stop; the better minimum is kept (``runs`` grows).
 
@@ -71,13 +89,46 @@ def _search_globally(
         deg = _degeneracy(prob, sol)
     else:
         sol = _solution(prob, runs, keep=user)
+    why = [*deg0.reasons, *(["thin_support"] if deg0.thin else [])]
+    if thin_start:
+        why.append("thin_start")
     search = _Search(
-        why=deg0.reasons or ("correlation",),
+        why=tuple(why) or ("correlation",),
         user_objective=user.objective,
         search_objective=best.objective if best is not None else math.nan,
         used=used,
     )
     return sol, deg, search
+
+
+def _run_and_judge(
+    prob: _Problem, watch: _Watch, method: str, budget: int
+) -> tuple[list[_Run], _Solution, _Degeneracy, _Search | None]:
+    """The engine's runs on a problem and the verdict on where they stopped.
+
+    The ladder, the polish, then the degenerate-stop check (:func:`.assemble._degeneracy`) and,
+    for a suspect point, the global search (:func:`_search_globally`). The one sequence
+    :func:`fit` and :func:`~curvewright.fitting.global_fit.fit_global` both run.
+    """
+    runs = _ladder(prob, watch, method, budget)
+    best = min(runs, key=lambda r: r.objective)
+    if runs[-1].code not in _STOP and math.isfinite(best.objective):
+        polished = _polish(prob, watch, best, budget)
+        # Kept only if it does not lose ground: the polish refines, it never replaces a better run.
+        if polished.objective <= best.objective and outcome(polished.code).success:
+            runs.append(polished)
+    sol = _solution(prob, runs)
+    deg = _degeneracy(prob, sol)
+    search = None
+    if runs[-1].code not in _STOP:
+        # A start on a feature narrower than the data's spacing has seen nothing of the data's
+        # shape: the minimum it reached is suspect even when nothing is wrong there.
+        thin_start = not deg.suspect and bool(_start_support(prob, watch.first_jacobian))
+        if deg.suspect or thin_start:
+            sol, deg, search = _search_globally(
+                prob, watch, runs, sol, deg, method, budget, thin_start
+            )
+    return runs, sol, deg, search
 
 
 # ============================================================================ entry point
@@ -224,19 +275,8 @@ def fit(
     deadline = None if timeout is None else time.monotonic() + timeout
     watch = _Watch(prob, deadline, max_evaluations, cancel_fn, progress)
     budget = max_evaluations if max_evaluations is not None else 2000 * (len(prob.free) + 1)
-    runs = _ladder(prob, watch, method, budget)
-    best = min(runs, key=lambda r: r.objective)
-    if runs[-1].code not in ("cancelled", "stopped_time") and math.isfinite(best.objective):
-        polished = _polish(prob, watch, best, budget)
-        # Kept only if it does not lose ground: the polish refines, it never replaces a better run.
-        if polished.objective <= best.objective and outcome(polished.code).success:
-            runs.append(polished)
     try:
-        sol = _solution(prob, runs)
-        deg = _degeneracy(prob, sol)
-        search = None
-        if deg.suspect and runs[-1].code not in ("cancelled", "stopped_time"):
-            sol, deg, search = _search_globally(prob, watch, runs, sol, deg, method, budget)
+        runs, sol, deg, search = _run_and_judge(prob, watch, method, budget)
         if progress is not None:
             progress(watch.evaluations, watch.best_ssr)
         return _finish(prob, runs, sol, deg, search)
