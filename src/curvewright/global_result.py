@@ -547,14 +547,22 @@ class GlobalResult:
         level: float = 0.95,
         residuals: bool = False,
         log_x: bool | None = None,
+        groups: Sequence[str] | None = None,
         **opts: Any,
     ) -> Figure:
-        """Draw every group on one axes, one colour each, with a legend.
+        """Draw every group (or the ``groups`` named) on one axes, one colour each, with a legend.
 
         See :func:`curvewright.figures.plot_global` for the options.
         """
         out: Figure = figure_function("global_fit")(
-            self, ax, bands=bands, level=level, residuals=residuals, log_x=log_x, **opts
+            self,
+            ax,
+            bands=bands,
+            level=level,
+            residuals=residuals,
+            log_x=log_x,
+            groups=groups,
+            **opts,
         )
         return out
 

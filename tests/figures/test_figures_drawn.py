@@ -164,3 +164,27 @@ def test_widget_figure_is_the_screen_state() -> None:
     w.x_scale = "linear"
     fig2 = w.figure()
     assert len(fig2.axes) == 1 and fig2.axes[0].get_xscale() == "linear"
+
+
+def test_global_plot_of_some_groups_keeps_their_colours() -> None:
+    d = pd.read_csv(DATA / "DNase.csv")
+    g = cw.fit_global(
+        "stimulation_3pl", data=d[d["Run"] <= 3], x="conc", y="density", by="Run", shared=["n_h"]
+    )
+    every = {c.get_label(): c.get_color() for c in _by_gid(g.plot(), "cw-curve")}
+    some = _by_gid(g.plot(groups=["1", "3"]), "cw-curve")
+    assert [c.get_label() for c in some] == ["1", "3"]
+    assert [c.get_color() for c in some] == [every["1"], every["3"]]
+    with pytest.raises(FigureError, match="no group '9'"):
+        g.plot(groups=["9"])
+
+
+def test_widget_figure_leaves_out_hidden_groups() -> None:
+    from curvewright import CurveBench
+
+    d = pd.read_csv(DATA / "DNase.csv")
+    w = CurveBench(d[d["Run"] <= 3], x="conc", y="density", by="Run", model="stimulation_3pl")
+    assert isinstance(w.fit(), cw.GlobalResult)
+    w.hide_group("2")
+    labels = [c.get_label() for c in _by_gid(w.figure(), "cw-curve")]
+    assert labels == ["1", "3"]

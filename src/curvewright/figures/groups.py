@@ -52,6 +52,7 @@ def plot_global(
     level: float = 0.95,
     residuals: bool = False,
     log_x: bool | None = None,
+    groups: Sequence[str] | None = None,
     **opts: Any,
 ) -> Figure:
     """Every group of a global fit on one axes, one colour each, with a legend.
@@ -68,7 +69,10 @@ def plot_global(
     residuals : bool
         A residual panel under the main axes (all groups, their colours).
     log_x : bool, optional
-        As in :meth:`FitResult.plot`; chosen from all groups' x together.
+        As in :meth:`FitResult.plot`; chosen from the drawn groups' x together.
+    groups : sequence of str, optional
+        Draw only these groups (labels as in ``result.labels``); each keeps the colour it has
+        when all are drawn. Default: all.
     **opts
         ``xlabel``, ``ylabel``, ``title``, ``width``, ``height``, ``log_y``.
 
@@ -78,13 +82,15 @@ def plot_global(
     """
     o = check_options(opts, GLOBAL_OPTIONS, "GlobalResult.plot")
     kind, lvl = check_bands(bands), check_level_of(level)
-    datasets = [g.dataset for g in result.groups]
+    drawn = _drawn_groups(result, groups)
+    datasets = [result.groups[i].dataset for i in drawn]
     x = _all_x(datasets)
     axis = x_axis(x, choose_log_x(x, log_x))
     p = panels(
         check_axes(ax), bool(residuals), float(o.get("width", COLUMN_WIDTH)), o.get("height")
     )
-    for i, (g, lab) in enumerate(zip(result.groups, result.labels, strict=True)):
+    for i in drawn:
+        g, lab = result.groups[i], result.labels[i]
         c = color_at(i)
         draw_fit(
             p,
@@ -110,6 +116,25 @@ def plot_global(
         frameon=False,
     )
     return p.figure
+
+
+def _drawn_groups(result: GlobalResult, groups: Sequence[str] | None) -> list[int]:
+    # Indices into result.groups, so a group's colour does not depend on which others are shown.
+    labels = list(result.labels)
+    if groups is None:
+        return list(range(len(labels)))
+    if isinstance(groups, str):
+        groups = [groups]
+    chosen = [str(g) for g in groups]
+    unknown = [g for g in chosen if g not in labels]
+    if unknown:
+        raise FigureError(
+            f"GlobalResult.plot: no group {unknown[0]!r} in this fit; its groups are "
+            f"{', '.join(map(repr, labels))}."
+        )
+    if not chosen:
+        raise FigureError("GlobalResult.plot: groups=[] leaves nothing to draw; name a group.")
+    return [i for i, lab in enumerate(labels) if lab in chosen]
 
 
 def _one_legend_entry_each(p: Panels) -> None:

@@ -953,7 +953,7 @@ class CurveBench(anywidget.AnyWidget):
         scales, its excluded points (hollow), the bands whose toggles are on (at 95%) and
         the residual panel when ``show_residuals`` is on. When the parameters were moved
         after the fit, the moved curve is added, dashed, as on the page. With groups: the
-        global fit, every group on one axes.
+        global fit, the groups not hidden on one axes.
 
         Parameters
         ----------
@@ -980,8 +980,11 @@ class CurveBench(anywidget.AnyWidget):
         mem = self._mem()
         data = self.dataset
         if self._groups is not None and mem.global_result is not None:
+            hidden = set(self.hidden_groups)
+            shown = [lab for lab in mem.global_result.labels if lab not in hidden]
             return plot_global(
                 mem.global_result,
+                groups=shown or None,
                 bands=kinds or None,
                 level=_state.BAND_LEVEL,
                 residuals=bool(self.show_residuals),
