@@ -26,6 +26,7 @@ import math
 import warnings
 import zlib
 from collections.abc import Callable, Mapping, Sequence
+import functools
 from dataclasses import dataclass
 from typing import Any, NamedTuple
 
@@ -533,13 +534,35 @@ class _Problem:
             for n in self.linear
         )
 
-    def _theta(self, u: FloatArray, base: Mapping[str, float]) -> FloatArray:
+    @functools.cached_property
+    def _index(self) -> tuple[list[int], list[int], list[bool]]:
+        """Positions of the nonlinear and linear parameters in ``param_names``; which are logged.
+
+        Looked up once: the analytic search needs them at every evaluation.
+        """
+        names = self.model.param_names
+        return (
+            [names.index(n) for n in self.nonlinear],
+            [names.index(n) for n in self.linear],
+            [self.logged(n) for n in self.nonlinear],
+        )
+
+    def _theta_base(self, base: Mapping[str, float]) -> FloatArray:
+        """``base`` (held values applied) as a vector, its linear parameters 0."""
         v = {**base, **self.held}
-        for n, ui in zip(self.nonlinear, u, strict=True):
-            v[n] = self.from_u(n, float(ui))
         for n in self.linear:
             v[n] = 0.0
         return np.array([float(v[n]) for n in self.model.param_names])
+
+    def _theta(
+        self, u: FloatArray, base: Mapping[str, float], tb: FloatArray | None = None
+    ) -> FloatArray:
+        """The full vector at searched values ``u`` (linear ones 0); ``tb``: the base's vector."""
+        theta = self._theta_base(base) if tb is None else tb.copy()
+        non, _, logged = self._index
+        for i, lg, ui in zip(non, logged, u.tolist(), strict=True):
+            theta[i] = math.exp(min(ui, 700.0)) if lg else ui
+        return theta
 
     def _linear_solve(self, theta: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray] | None:
         """The linear parameters solved at ``theta``'s nonlinear values (its linear ones 0).
@@ -550,8 +573,7 @@ class _Problem:
         both from one evaluation. None when something is not finite.
         """
         f0, J = self.model.value_and_jacobian(self.x, theta.tolist())
-        lin = [self.model.param_names.index(n) for n in self.linear]
-        A = J[:, lin]
+        A = J[:, self._index[1]]
         rhs = self.y - f0
         if not (np.all(np.isfinite(A)) and np.all(np.isfinite(rhs))):
             return None
@@ -620,40 +642,47 @@ class _Problem:
         return np.where(ok & good & np.isfinite(ssr), ssr, np.inf)
 
     def _analytic_residual(
-        self, u: FloatArray, base: Mapping[str, float]
-    ) -> tuple[FloatArray, FloatArray]:
-        """Residual at ``u`` (linear parameters solved: one evaluation) and the full vector."""
-        theta = self._theta(u, base)
+        self, u: FloatArray, base: Mapping[str, float], tb: FloatArray | None = None
+    ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
+        """Residual at ``u`` (linear parameters solved: one evaluation), the full vector and
+        the linear columns' orthonormal basis (None when not solved).
+
+        ``tb``: :meth:`_theta_base` of ``base``, when the caller has it.
+        """
+        theta = self._theta(u, base, tb)
+        basis = None
         if self.linear:
             got = self._linear_solve(theta)
             if got is None:
-                return np.full(self.x.size, self.big / self.scale), theta
-            c, f, _ = got
-            theta[[self.model.param_names.index(n) for n in self.linear]] = c
+                return np.full(self.x.size, self.big / self.scale), theta, None
+            c, f, basis = got
+            theta[self._index[1]] = c
         else:
             f = self.model.value_and_jacobian(self.x, theta.tolist())[0]
         r = (f - self.y) / self.scale
         bad = ~np.isfinite(r)
         if bad.any():
             r = np.where(bad, self.big / self.scale, r)
-        return r, theta
+        return r, theta, basis
 
-    def _analytic_jacobian(self, theta: FloatArray) -> FloatArray:
+    def _analytic_jacobian(self, theta: FloatArray, basis: FloatArray | None = None) -> FloatArray:
         """The residual's Jacobian in the searched (log) parameters at the full vector ``theta``.
 
         With linear parameters it is Kaufman's (1975) variable-projection Jacobian: the model's
         nonlinear columns, at the solved linear values, with their part in the span of the
-        linear columns removed.
+        linear columns removed. ``basis``: that span's orthonormal basis, when the residual
+        just computed it (the linear columns do not depend on the linear values).
         """
-        names = self.model.param_names
-        non = [names.index(n) for n in self.nonlinear]
+        non, lin, logged = self._index
         _, J = self.model.value_and_jacobian(self.x, theta.tolist())
         Jn = J[:, non] / self.scale
-        for j, n in enumerate(self.nonlinear):
-            if self.logged(n):
+        for j, lg in enumerate(logged):
+            if lg:
                 Jn[:, j] *= theta[non[j]]  # d theta / d log theta
-        if self.linear:
-            A = J[:, [names.index(n) for n in self.linear]]
+        if self.linear and basis is not None:
+            Jn = Jn - basis @ (basis.T @ Jn)
+        elif self.linear:
+            A = J[:, lin]
             if np.all(np.isfinite(A)):
                 U, sv, _ = np.linalg.svd(A, full_matrices=False)
                 keep = sv > sv[0] * 1e-12 * max(A.shape) if sv.size and sv[0] > 0 else sv > 0
@@ -710,19 +739,21 @@ class _Problem:
         logged = np.array([self.logged(n) for n in self.nonlinear])
         typ = np.where(logged, 1.0, np.abs(u0))
         typ = np.where(typ > 0, typ, 1.0)
-        last: dict[bytes, FloatArray] = {}  # the full vector at the last residual's point
+        tb = self._theta_base(base)
+        # the full vector and linear basis at the last residual's point
+        last: dict[bytes, tuple[FloatArray, FloatArray | None]] = {}
 
         def fun(w: FloatArray) -> FloatArray:
-            r, theta = self._analytic_residual(w * typ, base)
+            r, theta, basis = self._analytic_residual(w * typ, base, tb)
             last.clear()
-            last[w.tobytes()] = theta
+            last[w.tobytes()] = (theta, basis)
             return r
 
         def jac(w: FloatArray) -> FloatArray:
-            theta = last.get(w.tobytes())
-            if theta is None:  # the solver asks at the last residual's point; just in case
-                theta = self._analytic_residual(w * typ, base)[1]
-            return self._analytic_jacobian(theta) * typ
+            got = last.get(w.tobytes())
+            if got is None:  # the solver asks at the last residual's point; just in case
+                got = self._analytic_residual(w * typ, base, tb)[1:]
+            return self._analytic_jacobian(*got) * typ
 
         best = u0
         try:
@@ -742,7 +773,7 @@ class _Problem:
         except (ValueError, FloatingPointError, np.linalg.LinAlgError):
             pass
         with np.errstate(all="ignore"):
-            theta = self._analytic_residual(best, base)[1]
+            theta = self._analytic_residual(best, base, tb)[1]
         out = {**base, **dict(zip(self.model.param_names, theta.tolist(), strict=True))}
         return {**out, **self.held}
 
