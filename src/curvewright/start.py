@@ -37,7 +37,7 @@ from scipy.signal import find_peaks, lombscargle, peak_prominences
 from scipy.stats import qmc
 
 from .errors import DataError, ParameterError
-from .expr import Expr
+from .expr import Expr, compile_many
 from .models import Model, Param, unknown_name_message
 from .parameters import move_inside
 
@@ -583,6 +583,18 @@ class _Problem:
         c = Vt[keep].T @ ((Uk.T @ rhs) / sv[keep])
         return c, f0 + A @ c, Uk
 
+    @functools.cached_property
+    def _screen_fn(self) -> Callable[..., tuple[Any, ...]] | None:
+        """The curve and its linear parameters' columns only, compiled together (formulas).
+
+        Screening needs nothing else; the nonlinear columns would be most of the work.
+        """
+        expr = self.model.expr
+        if expr is None or not self.linear:
+            return None
+        family = [expr, *(expr.derivative(n) for n in self.linear)]
+        return compile_many(family, ["x", *self.model.param_names])
+
     def screen(self, values: Mapping[str, float]) -> float:
         """Residual sum of squares after solving the linear parameters: one evaluation."""
         u = np.array([self.to_u(n, float(values[n])) for n in self.nonlinear])
@@ -607,8 +619,8 @@ class _Problem:
         infinity: its projected sum of squares is not reliable, and it is a poor start anyway.
         """
         names = self.model.param_names
-        fn = self.model._value_and_gradient
-        if fn is None or not pool or not self.linear:
+        fn = self._screen_fn
+        if fn is None or not pool:
             return np.array([self.screen(c) for c in pool])
         k = len(pool)
         args: list[Any] = []
@@ -623,7 +635,7 @@ class _Problem:
             out = fn(self.x[None, :], *args)
             shape = (k, self.x.size)
             f0 = np.broadcast_to(np.asarray(out[0], dtype=float), shape)
-            lin = [names.index(n) + 1 for n in self.linear]
+            lin = range(1, 1 + len(self.linear))
             A = np.stack(
                 [np.broadcast_to(np.asarray(out[i], dtype=float), shape) for i in lin], axis=2
             )
