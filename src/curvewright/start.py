@@ -2129,6 +2129,15 @@ def _generic(
     polished: list[tuple[float, dict[str, float]]] = []
     done: set[int] = set()
     exact = 1e-24 * (float(np.dot(y, y)) / prob.scale**2 + 1e-300)  # in the scaled residuals
+    searched: dict[tuple[int, tuple[float, ...]], dict[str, float]] = {}
+
+    def search(s: Mapping[str, float], nfev: int) -> dict[str, float]:
+        # the same start searched again gives the same answer: candidate pools repeat some
+        key = (nfev, tuple(float(s[n]) for n in model.param_names))
+        if key not in searched:
+            searched[key] = prob.search(s, nfev)
+        return dict(searched[key])
+
     for rnd in range(_MAX_ROUNDS):
         # round 0 also tries the model's own defaults; later rounds draw fresh hypercubes
         starts = [base0] if rnd == 0 else []
@@ -2159,12 +2168,12 @@ def _generic(
             starts += feature
         if fast:
             # Successive halving: a short run from every start, then only the best go on.
-            short = [prob.search(s, max(budget // 4, d + 2)) for s in starts]
+            short = [search(s, max(budget // 4, d + 2)) for s in starts]
             scores = [prob.ssr(r) for r in short]
             keep = np.argsort(scores, kind="stable")[: _KEEP + d // 2]
             starts = [short[int(i)] for i in keep]
         for s in starts:
-            r = prob.search(s, budget) if prob.nonlinear else prob.project(s)
+            r = search(s, budget) if prob.nonlinear else prob.project(s)
             results.append((prob.ssr(r), r))
         order = sorted(range(len(results)), key=lambda i: results[i][0])
         for i in [i for i in order if i not in done][:3]:
@@ -2185,9 +2194,9 @@ def _generic(
             # Peaks the data merge: move one position onto what the residuals still show.
             cur_ssr, cur = polished[0]
             moves = _best_screened(prob, _residual_moves(model, x, y, cur, locs, pairs), _KEEP + d)
-            short = [prob.search(s, max(budget // 4, d + 2)) for s in moves]
+            short = [search(s, max(budget // 4, d + 2)) for s in moves]
             keep = np.argsort([prob.ssr(r) for r in short], kind="stable")[:2]
-            tried = [prob.search(short[int(i)], budget) for i in keep]
+            tried = [search(short[int(i)], budget) for i in keep]
             if not tried:
                 break
             r = min(tried, key=prob.ssr)
