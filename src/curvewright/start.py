@@ -572,8 +572,14 @@ class _Problem:
         ``A`` the Jacobian's linear columns,
         both from one evaluation. None when something is not finite.
         """
-        f0, J = self.model.value_and_jacobian(self.x, theta.tolist())
-        A = J[:, self._index[1]]
+        fn = self._screen_fn
+        if fn is not None:  # only the curve and the linear columns
+            out = fn(self.x, *theta.tolist())
+            f0 = np.broadcast_to(out[0], self.x.shape).astype(float, copy=True)
+            A = self._columns(out[1:])
+        else:
+            f0, J = self.model.value_and_jacobian(self.x, theta.tolist())
+            A = J[:, self._index[1]]
         rhs = self.y - f0
         if not (np.all(np.isfinite(A)) and np.all(np.isfinite(rhs))):
             return None
@@ -594,6 +600,31 @@ class _Problem:
             return None
         family = [expr, *(expr.derivative(n) for n in self.linear)]
         return compile_many(family, ["x", *self.model.param_names])
+
+    @functools.cached_property
+    def _nonlinear_fn(self) -> Callable[..., tuple[Any, ...]] | None:
+        """The nonlinear parameters' columns only, compiled together (formulas with linear ones).
+
+        The projected Jacobian needs no more: the curve and linear columns come from the
+        residual's evaluation.
+        """
+        expr = self.model.expr
+        if expr is None or not self.linear or not self.nonlinear:
+            return None
+        return compile_many(
+            [expr.derivative(n) for n in self.nonlinear], ["x", *self.model.param_names]
+        )
+
+    def _columns(self, out: Sequence[Any]) -> FloatArray:
+        """Evaluated columns as an ``(x.size, len(out))`` array (constants broadcast).
+
+        Column-major, as the Jacobian's columns picked by index are: the linear algebra then
+        gives the same bits either way.
+        """
+        J = np.empty((self.x.size, len(out)), order="F")
+        for j, col in enumerate(out):
+            J[:, j] = col
+        return J
 
     def screen(self, values: Mapping[str, float]) -> float:
         """Residual sum of squares after solving the linear parameters: one evaluation."""
@@ -686,8 +717,12 @@ class _Problem:
         just computed it (the linear columns do not depend on the linear values).
         """
         non, lin, logged = self._index
-        _, J = self.model.value_and_jacobian(self.x, theta.tolist())
-        Jn = J[:, non] / self.scale
+        fn = self._nonlinear_fn
+        if fn is not None and basis is not None:  # only the columns needed
+            Jn = self._columns(fn(self.x, *theta.tolist())) / self.scale
+        else:
+            _, J = self.model.value_and_jacobian(self.x, theta.tolist())
+            Jn = J[:, non] / self.scale
         for j, lg in enumerate(logged):
             if lg:
                 Jn[:, j] *= theta[non[j]]  # d theta / d log theta
