@@ -20,13 +20,13 @@ polishes the best.
 
 from __future__ import annotations
 
+import functools
 import inspect
 import itertools
 import math
 import warnings
 import zlib
 from collections.abc import Callable, Mapping, Sequence
-import functools
 from dataclasses import dataclass
 from typing import Any, NamedTuple
 
@@ -687,9 +687,9 @@ class _Problem:
     def _analytic_residual(
         self, u: FloatArray, base: Mapping[str, float], tb: FloatArray | None = None
     ) -> tuple[FloatArray, FloatArray, FloatArray | None]:
-        """Residual at ``u`` (linear parameters solved: one evaluation), the full vector and
-        the linear columns' orthonormal basis (None when not solved).
+        """Residual at ``u`` (linear parameters solved), the full vector, the linear basis.
 
+        The basis is the linear columns' orthonormal one (None when not solved).
         ``tb``: :meth:`_theta_base` of ``base``, when the caller has it.
         """
         theta = self._theta(u, base, tb)
