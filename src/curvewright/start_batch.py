@@ -35,8 +35,9 @@ BoolArray = NDArray[np.bool_]
 Values = dict[str, FloatArray]
 
 _LN10 = math.log(10.0)
-#: Elements of one (groups x trials x points) block: small enough to stay in cache.
-_BLOCK = 1 << 16
+#: Elements of one (groups x trials x points) block: small enough to stay in cache, large
+#: enough that the per-block array calls do not dominate.
+_BLOCK = 1 << 18
 
 
 # ============================================================================ bounds
@@ -1226,7 +1227,8 @@ def _run_family(fam: _Family, b: _Block) -> tuple[Values, FloatArray]:
     )
     if coords:
         trial = fam.trials(b)
-        vals, ssr = search.best({n: trial[n] for n in coords})
+        first = {n: trial[n] for n in coords}
+        vals, ssr = search.best(first, _repeats(first))
     else:
         vals, ssr = search.best({})
     vals, ssr = search.refine(vals, ssr, fam.rounds)
@@ -1241,6 +1243,30 @@ def _run_family(fam: _Family, b: _Block) -> tuple[Values, FloatArray]:
                 same &= tidy[n] == vals[n]
         vals = {n: np.where(same, tidy[n], vals[n]) for n in vals}
     return vals, ssr
+
+
+def _repeats(trial: Values) -> dict[str, NDArray[np.intp]]:
+    """Which distinct column each trial takes, for the coordinates whose trial columns repeat.
+
+    Columns equal in every group count as one, numbered in order of first appearance: the seeds
+    often share a value with each other or with a grid line, and a shared value's costly factor
+    is then computed once.
+    """
+    out: dict[str, NDArray[np.intp]] = {}
+    for n, v in trial.items():
+        reps: list[int] = []  # the first column of each distinct value
+        idx = np.empty(v.shape[1], dtype=np.intp)
+        for j in range(v.shape[1]):
+            for u, k in enumerate(reps):
+                if np.array_equal(v[:, j], v[:, k]):
+                    idx[j] = u
+                    break
+            else:
+                idx[j] = len(reps)
+                reps.append(j)
+        if len(reps) < v.shape[1]:
+            out[n] = idx
+    return out
 
 
 # ============================================================================ entry point
