@@ -402,6 +402,32 @@ def _log_range_clipped(b: _Block) -> tuple[FloatArray, FloatArray]:
     return np.where(same, lmin - 1.0, lmin), np.where(same, lmax + 1.0, lmax)
 
 
+def _powers(b: _Block, nh: FloatArray, sign: float) -> FloatArray:
+    """``exp(sign*n_h*(ln x - ref))`` for the distinct trial values ``nh`` of shape (g, U, 1).
+
+    A column whose value in every group is one of the block's previous call (each group may
+    match a different one) is copied from it rather than recomputed: a refinement round's
+    centre is the last round's best trial.
+    """
+    lnx = b.lnx_centred()[:, None, :]
+    g, U = nh.shape[0], nh.shape[1]
+    out = np.empty((g, U, lnx.shape[2]))
+    seen_nh, seen = b.cache.get("nh_seen"), b.cache.get("powers_seen")
+    rows = np.arange(g)
+    todo: list[int] = []
+    for u in range(U):
+        if seen_nh is not None and seen is not None:
+            match = nh[:, u, :] == seen_nh[:, :, 0]  # (g, K); NaN never matches
+            if np.all(np.any(match, axis=1)):
+                out[:, u, :] = seen[rows, np.argmax(match, axis=1), :]
+                continue
+        todo.append(u)
+    if todo:
+        out[:, todo, :] = np.exp(sign * nh[:, todo, :] * lnx)
+    b.cache["nh_seen"], b.cache["powers_seen"] = nh, out
+    return out
+
+
 def _dose_single(mid: str, kind: str, asymmetry: bool) -> Single:
     def single(b: _Block, v: Values, share: Share) -> FloatArray:
         nh = v["n_h"]
@@ -413,7 +439,7 @@ def _dose_single(mid: str, kind: str, asymmetry: bool) -> Single:
             lnx = b.lnx_centred()[:, None, :]
             if idx is not None:
                 first = [int(np.argmax(idx == u)) for u in range(int(idx.max()) + 1)]
-                h = np.exp(sign * nh[:, first, :] * lnx)[:, idx, :]
+                h = _powers(b, nh[:, first, :], sign)[:, idx, :]
             else:
                 h = np.multiply(sign * nh, lnx)
                 np.exp(h, out=h)
