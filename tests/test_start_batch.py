@@ -63,6 +63,9 @@ def test_fits_from_batched_starts_reach_the_reference_minimum(name: str) -> None
         ("hill", {"n_h": 1.0}),
         ("gaussian_peak", {"baseline": 0.0}),
         ("polynomial_2", {"c0": 1.0}),
+        # a fixed level of a family whose start is tidied up afterwards (low/high swapped)
+        ("boltzmann", {"low": 0.0}),
+        ("boltzmann", {"high": 1.0, "width": 5.0}),
     ],
 )
 def test_fixed_values_are_held_and_the_others_estimated_given_them(

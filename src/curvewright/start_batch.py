@@ -1261,12 +1261,14 @@ def _run_family(fam: _Family, b: _Block) -> tuple[Values, FloatArray]:
     if fam.native is not None:
         vals = fam.native(vals)
     if fam.finish is not None:
-        tidy = fam.finish(vals)
+        # The search leaves out what the user fixed; the tidy-up reads every parameter.
+        whole = {**{n: b.held[n] for n in b.held if n not in vals}, **vals}
+        tidy = fam.finish(whole)
         # a tidy-up that would change a value the user fixed is not the same curve; skip it
         same = np.ones(b.g, dtype=bool)
         for n in b.held:
             if n in tidy:
-                same &= tidy[n] == vals[n]
+                same &= tidy[n] == whole[n]
         vals = {n: np.where(same, tidy[n], vals[n]) for n in vals}
     return vals, ssr
 
