@@ -188,3 +188,16 @@ def test_widget_figure_leaves_out_hidden_groups() -> None:
     w.hide_group("2")
     labels = [c.get_label() for c in _by_gid(w.figure(), "cw-curve")]
     assert labels == ["1", "3"]
+
+
+def test_save_figure_to_a_missing_folder_gets_our_error(tmp_path: Path) -> None:
+    from curvewright.figures import save_figure
+
+    fig = _dnase().plot()
+    with pytest.raises(cw.OutputError, match="does not exist"):
+        save_figure(fig, tmp_path / "no-such-folder" / "f.svg")
+    (tmp_path / "a.svg").mkdir()
+    with pytest.raises(cw.OutputError, match="it is a folder"):
+        save_figure(fig, tmp_path / "a.svg")
+    out = save_figure(fig, tmp_path / "f.png", dpi=50)
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import io
+import os
 from pathlib import Path
 
 import matplotlib
 from matplotlib.figure import Figure
 
 from ..errors import FigureError
+from ..output import output_path, write_bytes
 
 __all__ = ["DEFAULT_DPI", "figure_svg", "save_figure"]
 
@@ -48,17 +50,21 @@ def save_figure(fig: Figure, path: str | Path, *, dpi: float = DEFAULT_DPI) -> P
     ------
     FigureError
         Another suffix, or a dpi that is not positive.
+    OutputError
+        The folder does not exist, the path is a folder, or it cannot be written.
     """
-    p = Path(path)
+    p = Path(path) if isinstance(path, (str, os.PathLike)) else output_path(path)
     fmt = p.suffix.lower().lstrip(".")
     if fmt not in FORMATS:
         raise FigureError(f"save_figure writes {list(FORMATS)} files, got {p.name!r}.")
     if isinstance(dpi, bool) or not isinstance(dpi, (int, float)) or not dpi > 0:
         raise FigureError(f"dpi must be a positive number (e.g. 300), got {dpi!r}.")
     # svg.hashsalt is only read from rcParams; the context restores it at once.
+    p = output_path(p)  # a missing folder or no permission: our own OutputError
+    buf = io.BytesIO()
     with matplotlib.rc_context({"svg.hashsalt": SVG_SALT}):
-        fig.savefig(p, format=fmt, dpi=dpi, metadata=_metadata(fmt))
-    return p
+        fig.savefig(buf, format=fmt, dpi=dpi, metadata=_metadata(fmt))
+    return write_bytes(p, buf.getvalue())  # whole, so a failed write leaves no half file
 
 
 def figure_svg(fig: Figure) -> str:

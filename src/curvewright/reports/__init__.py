@@ -80,7 +80,7 @@ def report(
     if format not in ("html", "markdown"):
         raise ParameterError(f"format must be 'html' or 'markdown', got {format!r}.")
     if path is not None:
-        from .output import output_path
+        from ..output import output_path
 
         output_path(path)  # a bad path fails before the work, not after
     content = content_for(

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from .output import output_path, write_bytes
+from ..output import output_path, write_bytes
 
 __all__ = ["Report"]
 

@@ -8,8 +8,8 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import DependencyError
+from ..output import output_path, write_bytes
 from ..thresholds import CAUTION
-from .output import output_path, write_bytes
 from .tables import SHEETS, tables_for
 
 __all__ = ["to_excel"]

@@ -1,4 +1,4 @@
-"""Writing a report or a spreadsheet to a path: checked first, written whole or not at all."""
+"""Writing a file the user named (report, spreadsheet, figure): checked, then written whole."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import os
 from pathlib import Path
 from typing import Any
 
-from ..errors import OutputError
+from .errors import OutputError
 
 __all__ = ["output_path", "write_bytes"]
 
