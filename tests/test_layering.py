@@ -298,6 +298,6 @@ def test_every_result_method_that_needs_the_statistics_finds_them() -> None:
         and node.func.id == "_statistic"
         and isinstance(node.args[0], ast.Constant)
     }
-    registered = set(sys.modules["curvewright.result"]._STATISTICS)
+    registered = set(sys.modules["curvewright.result"]._REGISTRY["curvewright.stats"])
     assert len(asked) == 12
     assert asked <= registered, sorted(asked - registered)

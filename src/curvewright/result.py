@@ -1199,72 +1199,55 @@ def _in_range(value: float, x: FloatArray) -> bool:
     return bool(float(np.min(x)) <= value <= float(np.max(x)))
 
 
-# --------------------------------------------------------------- statistics registry
-# The statistics layer (curvewright.stats) is built on this module, so this module cannot
-# import it; instead each statistics module registers, when it is imported, the functions
-# behind FitResult's convenience methods (as the catalog registers itself with the models).
-# Importing anything from curvewright runs the package's __init__, which imports the statistics.
-_STATISTICS: dict[str, Callable[..., Any]] = {}
+# --------------------------------------------------------------- upper-layer registry
+# The statistics (curvewright.stats), the figures and the reports are built on this module, so
+# it cannot import them; each registers, when imported, the functions behind the results'
+# convenience methods (as the catalog registers itself with the models). Importing anything
+# from curvewright runs the package's __init__, which imports all three. One table per package.
+_REGISTRY: dict[str, dict[str, Callable[..., Any]]] = {
+    "curvewright.stats": {},
+    "curvewright.reports": {},
+    "curvewright.figures": {},
+}
+
+
+def _registered(package: str, name: str) -> Callable[..., Any]:
+    try:
+        return _REGISTRY[package][name]
+    except KeyError:
+        raise CurvewrightError(
+            f"the results need {package} for {name}, and it has not been imported; "
+            f"import curvewright (or {package}) first."
+        ) from None
 
 
 def register_statistics(**functions: Callable[..., Any]) -> None:
     """Tell FitResult's convenience methods where their statistics live (called by the stats)."""
-    _STATISTICS.update(functions)
+    _REGISTRY["curvewright.stats"].update(functions)
 
 
 def _statistic(name: str) -> Callable[..., Any]:
-    try:
-        return _STATISTICS[name]
-    except KeyError:
-        raise CurvewrightError(
-            f"FitResult needs curvewright.stats for {name}, and it has not been imported; "
-            "import curvewright (or curvewright.stats) first."
-        ) from None
-
-
-# ------------------------------------------------------------------ reports registry
-# The reports (curvewright.reports, the view layer) are built on the results, so the results
-# cannot import them; the reports package registers its entry points when imported (the
-# package __init__ imports it), as the statistics do above.
-_REPORTS: dict[str, Callable[..., Any]] = {}
+    return _registered("curvewright.stats", name)
 
 
 def register_reports(**functions: Callable[..., Any]) -> None:
     """Tell the results' ``report``, ``methods`` and ``to_excel`` where they live."""
-    _REPORTS.update(functions)
+    _REGISTRY["curvewright.reports"].update(functions)
 
 
 def report_function(name: str) -> Callable[..., Any]:
     """The registered reports function ``name`` (``report``, ``methods``, ``to_excel``)."""
-    try:
-        return _REPORTS[name]
-    except KeyError:
-        raise CurvewrightError(
-            f"the results need curvewright.reports for {name}, and it has not been imported; "
-            "import curvewright (or curvewright.reports) first."
-        ) from None
-
-
-# ------------------------------------------------------------------ figures registry
-# The figures (curvewright.figures, the view layer) sit above the records; they register the
-# drawing functions behind plot()/forest() when imported, as the statistics do above.
-_FIGURES: dict[str, Callable[..., Any]] = {}
+    return _registered("curvewright.reports", name)
 
 
 def register_figures(**functions: Callable[..., Any]) -> None:
     """Tell the results' ``plot`` methods where their drawing lives (called by the figures)."""
-    _FIGURES.update(functions)
+    _REGISTRY["curvewright.figures"].update(functions)
 
 
 def figure_function(name: str) -> Callable[..., Any]:
     """The registered drawing function ``name`` (``fit``, ``global_fit``, ``batch``, ``forest``)."""
-    try:
-        return _FIGURES[name]
-    except KeyError:
-        raise CurvewrightError(
-            f"plotting needs curvewright.figures ({name}), and it has not been imported; "
-            "import curvewright (or curvewright.figures) first."
-        ) from None
+    return _registered("curvewright.figures", name)
 
 
 def fit_quality_lines(r: Any, title: str) -> list[str]:

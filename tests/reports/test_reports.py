@@ -445,7 +445,7 @@ def test_every_report_method_of_the_results_finds_its_function() -> None:
         and isinstance(node.args[0], ast.Constant)
     }
     assert asked == {"report", "methods", "to_excel"}
-    assert asked <= set(result._REPORTS)
+    assert asked <= set(result._REGISTRY["curvewright.reports"])
 
 
 def test_a_group_of_a_global_fit_says_so_in_its_methods() -> None:
