@@ -238,3 +238,46 @@ def test_group_datasets_are_made_on_use_and_kept() -> None:
     assert ds[0:2] == (ds[0], ds[1])
     with pytest.raises(IndexError):
         ds[2]
+
+
+@pytest.mark.parametrize(
+    "kind", ["int", "uint8", "str", "string", "float", "bool", "category", "two_columns"]
+)
+def test_split_groups_keys_and_rows_equal_pandas_groupby(kind: str) -> None:
+    # Reference: pandas' own groupby (sort=True): its group keys in order and each group's
+    # row positions (``.indices``). The split numbers rows by group once (ngroup) and must
+    # give the same keys, the same rows in table order and labels that are the keys' text.
+    from curvewright.data import labels_of, plain_key, split_groups
+
+    rng = np.random.default_rng(7)
+    n = 60
+    raw = rng.integers(0, 6, n)
+    cols: dict[str, object] = {
+        "int": raw,
+        "uint8": raw.astype(np.uint8),
+        "str": np.array([f"cmpd-{v}" for v in raw], dtype=object),
+        "string": pd.array([f"c{v}" for v in raw], dtype="string"),
+        "float": raw / 4.0,
+        "bool": raw % 2 == 0,
+        "category": pd.Categorical(
+            [f"k{v}" for v in raw], categories=["k9"] + [f"k{v}" for v in range(6)]
+        ),
+    }
+    df = pd.DataFrame({"x": rng.normal(size=n), "y": rng.normal(size=n)})
+    if kind == "two_columns":
+        df["plate"], df["well"] = raw % 3, np.array([f"w{v}" for v in raw // 3], dtype=object)
+        by = ["plate", "well"]
+    else:
+        df["g"] = cols[kind]
+        by = ["g"]
+    groups = split_groups(df, "x", "y", by, errors="keep")
+    want = df.groupby(by, sort=True, dropna=False).indices
+    want_keys = [plain_key(k, len(by) > 1) for k in want]
+    assert list(groups.keys) == want_keys
+    assert all(type(a) is type(b) for a, b in zip(groups.keys, want_keys, strict=True))
+    assert groups.labels == labels_of(want_keys)
+    assert len(groups.positions) == len(want)
+    for got, rows in zip(groups.positions, want.values(), strict=True):
+        np.testing.assert_array_equal(got, rows)
+    with pytest.raises(IndexError):
+        groups.positions[len(want)]

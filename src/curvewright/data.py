@@ -423,6 +423,31 @@ def labels_of(keys: Sequence[object]) -> tuple[str, ...]:
     return tuple(out)
 
 
+class GroupPositions(Sequence[NDArray[np.intp]]):
+    """Each group's row positions in the table (``Groups.positions``): views of one array.
+
+    Group ``g``'s rows, in table order, are ``order[offsets[g]:offsets[g + 1]]``: one sort of
+    the rows by group instead of one array per group.
+    """
+
+    def __init__(self, order: NDArray[np.intp], offsets: NDArray[np.intp]) -> None:
+        self.order, self.offsets = order, offsets
+
+    def __len__(self) -> int:
+        return int(self.offsets.size - 1)
+
+    def __getitem__(self, i: Any) -> Any:
+        n = len(self)
+        if isinstance(i, slice):
+            return tuple(self[j] for j in range(*i.indices(n)))
+        j = int(i)
+        if j < 0:
+            j += n
+        if not 0 <= j < n:
+            raise IndexError(f"group {i} out of range (there are {n}).")
+        return self.order[self.offsets[j] : self.offsets[j + 1]]
+
+
 class GroupDatasets(Sequence["Dataset | None"]):
     """Each group's :class:`Dataset`, built when first asked for (``Groups.datasets``).
 
@@ -516,8 +541,8 @@ class Groups:
         Each group's key (a value of ``by``, or a tuple of values for several columns), sorted.
     labels : tuple of str
         Their display labels (:func:`labels_of`).
-    positions : tuple of ndarray of int
-        Each group's row positions in the table.
+    positions : GroupPositions
+        Each group's row positions in the table, in table order (a sequence of int arrays).
     datasets : sequence of Dataset or None
         Each group's observations (a :class:`GroupDatasets`, built on use, or a tuple); None
         where the group's data could not be read (with ``errors="keep"``), its error then in
@@ -541,7 +566,7 @@ class Groups:
     by: tuple[str, ...]
     keys: tuple[Any, ...]
     labels: tuple[str, ...]
-    positions: tuple[NDArray[np.intp], ...]
+    positions: GroupPositions
     datasets: Sequence[Dataset | None]
     errors: tuple[DataError | None, ...]
     constants: tuple[dict[str, float], ...]
@@ -781,25 +806,38 @@ def split_groups(
                 bad_all |= np.isinf(sa) | (sa <= 0)
         # Rows make_dataset accepts as they are; a group with any other row goes through it.
         clean = ~bad_all
-    grouped = data.groupby(list(by), sort=True, dropna=False).indices
+    # Each row's group number (groups sorted by key) and the sorted keys, instead of pandas'
+    # dict of one index array per group: the rows of group g are order[off[g]:off[g + 1]].
+    grouped = data.groupby(list(by), sort=True, dropna=False, observed=True)
+    codes = grouped.ngroup().to_numpy(dtype=np.intp)
+    index = grouped.size().index
     several = len(by) > 1
+    labels: tuple[str, ...] | None = None
     if several:
-        keys = [plain_key(k) for k in grouped]
+        keys = [plain_key(k) for k in index]
+    elif index.dtype.kind in "iu" or index.inferred_type == "string":
+        # Integer or text keys (well numbers, compound names): already plain and distinct,
+        # so their labels are their text, made without a Python call per group.
+        keys = index.tolist()
+        labels = tuple(map(str, keys))
     else:  # plain_key(k, False), inline: one call less per group
-        raw = [c[0] if isinstance(c, tuple) else c for c in grouped]
+        raw = [c[0] if isinstance(c, tuple) else c for c in index.tolist()]
         keys = [k.item() if isinstance(k, np.generic) else k for k in raw]
-    labels = labels_of(keys)
+    if labels is None:
+        labels = labels_of(keys)
+    order = np.argsort(codes, kind="stable").astype(np.intp, copy=False)
+    off = np.zeros(len(keys) + 1, dtype=np.intp)
+    off[1:] = np.cumsum(np.bincount(codes, minlength=len(keys)))
+    group_rows = GroupPositions(order, off)
     if clean is not None and not constants:
         return _split_whole(
-            by, keys, labels, grouped.values(), xa, ya, sa, nan_all, clean,
+            by, keys, labels, group_rows, xa, ya, sa, nan_all, clean,
             mask if exclude is not None else None, x, y, errors,
         )  # fmt: skip
     datasets: list[Dataset | None] = []
     errs: list[DataError | None] = []
     consts: list[dict[str, float]] = []
-    positions: list[NDArray[np.intp]] = []
-    for pos, label in zip(grouped.values(), labels, strict=True):
-        positions.append(np.asarray(pos, dtype=np.intp))
+    for pos, label in zip(group_rows, labels, strict=True):
         sub = None if whole and not constants else data.iloc[pos].reset_index(drop=True)
         cv: dict[str, float] = {}
         for c in constants:
@@ -860,7 +898,7 @@ def split_groups(
         by=tuple(by),
         keys=tuple(keys),
         labels=labels,
-        positions=tuple(positions),
+        positions=group_rows,
         datasets=tuple(datasets),
         errors=tuple(errs),
         constants=tuple(consts),
@@ -877,7 +915,7 @@ def _split_whole(
     by: Sequence[str],
     keys: list[Any],
     labels: tuple[str, ...],
-    positions: Any,
+    positions: GroupPositions,
     xa: FloatArray,
     ya: FloatArray,
     sa: FloatArray | None,
@@ -896,12 +934,10 @@ def _split_whole(
     or no finite row goes through :func:`make_dataset` (its message, its error); the Datasets
     of the others are made only when asked for (:class:`GroupDatasets`).
     """
-    pos = tuple(np.asarray(p, dtype=np.intp) for p in positions)
+    pos = positions
     G = len(pos)
-    counts = np.fromiter((p.size for p in pos), dtype=np.intp, count=G)
-    off = np.zeros(G + 1, dtype=np.intp)
-    off[1:] = np.cumsum(counts)
-    order = np.concatenate(pos) if G else np.zeros(0, dtype=np.intp)
+    order, off = pos.order, pos.offsets
+    counts = np.diff(off)
     starts = off[:-1]
     nan_s = nan_all[order]
     n_nan = np.add.reduceat(nan_s.astype(np.int64), starts) if G else np.zeros(0, np.int64)
