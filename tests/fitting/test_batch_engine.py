@@ -584,3 +584,33 @@ def test_the_compiled_kernel_is_kept_on_disk_for_later_processes(
     modules = list(folder.glob("cw_kernel_*.py"))
     assert len(modules) == 1 and "def _points" in modules[0].read_text(encoding="utf-8")
     assert list((folder / "__pycache__").glob("*.nbi")), "numba wrote no cache index"
+
+
+@pytest.mark.parametrize("expo", [2.0, 1.5, -1.0, 0.0, 3.0])
+def test_compiled_powers_follow_numpy_power_at_zero_negative_and_infinite_bases(
+    expo: float,
+) -> None:
+    # The compiled kernel writes a**b as exp(b * log(a)) where the model also needs log(a)
+    # (the derivative in b) and a is finite and positive, and keeps pow elsewhere. Reference:
+    # numpy's power, through the model's own numpy value and derivatives, at bases of 0, < 0,
+    # tiny and large: the same values (to a few ulp), and NaN/inf exactly where numpy's. (No
+    # infinite x: a dataset refuses it; nor a**b that underflows: a**(b - 1) is written
+    # a**b / a, which is NaN at a = inf and 0 where a**b underflows.)
+    _kernel_ok("compiled")
+    from curvewright.fitting.batch_kernel import _load, _module_source
+
+    model = Model.from_formula("a * (x - c)**b + d", params=["a", "b", "c", "d"])
+    mod = _load(_module_source(model))
+    xs = np.array([-2.0, -0.5, 0.0, 1e-100, 1e-8, 0.3, 1.0, 7.0, 1e30])
+    th = np.array([1.7, expo, 0.0, -0.4])  # a, b, c, d in the model's order
+    assert model.param_names == ("a", "b", "c", "d")
+    got = np.zeros((xs.size, 5))
+    with np.errstate(all="ignore"):
+        mod._points(xs, np.ones(xs.size, dtype=np.bool_), th, got)
+        out = model._value_and_gradient(xs, *th)
+    want = np.column_stack([np.broadcast_to(np.asarray(o, dtype=float), xs.shape) for o in out])
+    assert np.array_equal(np.isnan(got), np.isnan(want))
+    assert np.array_equal(np.isinf(got), np.isinf(want))
+    ok = np.isfinite(want)
+    np.testing.assert_allclose(got[ok], want[ok], rtol=1e-13, atol=0.0)
+    assert "_fn_exp(_mul(b," in _module_source(model)  # the rewrite is in use here

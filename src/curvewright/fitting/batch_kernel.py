@@ -63,6 +63,25 @@ _TOKEN = re.compile(r"\b(_t\d+|x)\b")
 _SQUARE = re.compile(r"^_pow\((\w+), 2\.0\)$")
 _MINUS_ONE = re.compile(r"^_sub\((\w+), 1\.0\)$")
 _POWER = re.compile(r"^_pow\((\w+), (\w+)\)$")
+_LOG = re.compile(r"^(_t\d+) = _fn_log\((\w+)\)$")
+_NAME = re.compile(r"^[A-Za-z_]\w*$")
+
+
+def _classify(
+    temp: str,
+    line: str,
+    lines: list[tuple[str, str]],
+    varying: set[str],
+    point_lines: list[str],
+    fixed_lines: list[str],
+) -> None:
+    """Add a statement: to the per-point loop if it depends on x, else before the loop."""
+    lines.append((temp, line))
+    if any(tok in varying for tok in _TOKEN.findall(line.split(" = ", 1)[1])):
+        varying.add(temp)
+        point_lines.append(line)
+    else:
+        fixed_lines.append(line)
 
 
 def _sources(model: Model) -> str:
@@ -84,8 +103,14 @@ def _sources(model: Model) -> str:
     point_lines: list[str] = []
     minus_one: dict[str, str] = {}  # temp -> b, for temp = b - 1
     powers: dict[tuple[str, str], str] = {}  # (a, b) -> temp, for temp = a**b
+    # temp = log(a) where a**b also occurs (a power's derivative in b): log(a) is computed
+    # once, before the power, which then is exp(b * log(a)) for a finite a > 0.
+    logs = {m.group(2): m.group(1) for m in map(_LOG.match, body) if m is not None}
+    early: set[str] = set()
     for b in body:
         temp, code = b.split(" = ", 1)
+        if temp in early:
+            continue
         sq = _SQUARE.match(code)
         if sq:
             code = f"_mul({sq.group(1)}, {sq.group(1)})"
@@ -102,13 +127,15 @@ def _sources(model: Model) -> str:
                 code = f"(_div({known}, {base}) if {base} != 0.0 else {code})"
             else:
                 powers[(base, expo)] = temp
-        line = f"{temp} = {code}"
-        lines.append((temp, line))
-        if any(tok in varying for tok in _TOKEN.findall(code)):
-            varying.add(temp)
-            point_lines.append(line)
-        else:
-            fixed_lines.append(line)
+                lg = logs.get(base)
+                if lg is not None and _NAME.match(expo):
+                    # one transcendental call fewer per point (pow costs about a log and an
+                    # exp); within a few ulp of pow, and pow itself at 0, < 0 and inf.
+                    early.add(lg)
+                    _classify(lg, f"{lg} = _fn_log({base})", lines, varying, point_lines,
+                              fixed_lines)  # fmt: skip
+                    code = f"(_fn_exp(_mul({expo}, {lg})) if 0.0 < {base} < math.inf else {code})"
+        _classify(temp, f"{temp} = {code}", lines, varying, point_lines, fixed_lines)
     unpack = [f"{n} = _cw_th[{j}]" for j, n in enumerate(names)]
     src = ["def _point(x, _cw_th, _cw_out):"]
     src += [f"    {u}" for u in unpack]
