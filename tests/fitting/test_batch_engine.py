@@ -246,26 +246,32 @@ def test_the_threaded_kernel_gives_the_serial_kernels_answers_bit_for_bit(
         ), field
 
 
+@pytest.mark.parametrize("label", COMPILED_FAMILIES)
 def test_statistics_from_the_compiled_jacobian_equal_the_numpy_ones(
-    monkeypatch: pytest.MonkeyPatch,
+    label: str, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    # The statistics evaluate the Jacobian in compiled code when numba serves the model; the
-    # numpy evaluation (checked against the single fit above through either) must agree,
+    # The statistics evaluate the Jacobian, the normal matrices and their inverses (Jacobi
+    # eigenvalues) in compiled code when numba serves the model; the numpy evaluation and
+    # numpy.linalg (eigvalsh, inv, svd; checked against the single fit above) must agree,
     # zero-dose controls included (a derivative patched by central differences there).
     _kernel_ok("compiled")
     from curvewright.fitting import batch_engine
 
-    m, xs, ys, sws, start = _groups("inhibition_4pl", 300, weighted=True)
-    xs = [np.concatenate([[0.0], x]) for x in xs]
-    ys = [np.concatenate([[y[0]], y]) for y in ys]
-    assert sws is not None
-    sws = [np.concatenate([[s[0]], s]) for s in sws]
+    m, xs, ys, sws, start = _groups(label, 300, weighted=True)
+    if label == "inhibition_4pl":
+        xs = [np.concatenate([[0.0], x]) for x in xs]
+        ys = [np.concatenate([[y[0]], y]) for y in ys]
+        assert sws is not None
+        sws = [np.concatenate([[s[0]], s]) for s in sws]
     prob = BatchProblem.from_groups(m, xs, ys, sws, start=start)
     sol = solve_batch(prob)
     assert batch_engine.jacobian_kernel_for(m) is not None
+    assert batch_engine._compiled_inverse(prob, sol.values, np.flatnonzero(prob.free))[0].any()
     compiled = batch_statistics(prob, sol)
     monkeypatch.setattr(batch_engine, "jacobian_kernel_for", lambda model: None)
+    monkeypatch.setattr(batch_engine, "normals_kernel_for", lambda model: None)
     plain = batch_statistics(prob, sol)
+    np.testing.assert_allclose(compiled.covariance, plain.covariance, rtol=1e-9, atol=0.0)
     assert np.isfinite(plain.stderr).sum() > 0.9 * plain.stderr.size
     np.testing.assert_allclose(compiled.stderr, plain.stderr, rtol=1e-9)
     np.testing.assert_allclose(compiled.condition, plain.condition, rtol=1e-9)

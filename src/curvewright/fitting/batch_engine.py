@@ -77,7 +77,15 @@ from ..models import Model
 from ..result import _power_of
 from ..start import location_parameters
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
-from .batch_kernel import STATUS, jacobian_kernel_for, kernel_for, parallel_kernel_for, threads
+from .batch_kernel import (
+    STATUS,
+    jacobian_kernel_for,
+    kernel_for,
+    normals_kernel_for,
+    parallel_kernel_for,
+    symmetric_inverse_for,
+    threads,
+)
 from .problem import FloatArray
 
 __all__ = [
@@ -886,6 +894,64 @@ def _scaled_inverse(a: FloatArray, n: IntArray) -> tuple[FloatArray, FloatArray,
     return inv, cond, sing
 
 
+def _rows(prob: BatchProblem, idx: NDArray[np.intp]) -> BatchProblem:
+    """The problem of groups ``idx`` only."""
+    return BatchProblem(
+        model=prob.model,
+        x=prob.x[idx],
+        y=prob.y[idx],
+        mask=prob.mask[idx],
+        sw=None if prob.sw is None else prob.sw[idx],
+        free=prob.free,
+        start=prob.start[idx],
+        lower=prob.lower[idx],
+        upper=prob.upper[idx],
+    )
+
+
+def _compiled_inverse(
+    prob: BatchProblem, vals: FloatArray, fi: NDArray[np.intp]
+) -> tuple[BoolArray, FloatArray, FloatArray, FloatArray] | None:
+    """``(A'A)^-1`` of the column-scaled weighted Jacobian ``A`` in compiled code, or None.
+
+    Returns ``(done, inv, norms, cond)``: ``done`` marks the groups whose Jacobian is finite,
+    with no zero column, and whose condition number is below ``_EIG_COND``; for them ``inv``,
+    the column ``norms`` and ``cond`` are those :func:`_scaled_inverse` gives (its fast
+    branch, to about ``eps * _EIG_COND**2`` relative). None without numba.
+    """
+    G = vals.shape[0]
+    p = fi.size
+    normals = normals_kernel_for(prob.model) if G else None
+    invert = symmetric_inverse_for(prob.model) if normals is not None else None
+    if normals is None or invert is None:
+        return None
+    wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
+    norms, mat, ok = np.zeros((G, p)), np.zeros((G, p, p)), np.zeros(G, dtype=np.bool_)
+    inv, lmin, lmax = np.zeros((G, p, p)), np.zeros(G), np.zeros(G)
+    try:
+        with np.errstate(all="ignore"):
+            normals(
+                np.ascontiguousarray(prob.x, dtype=float),
+                np.ascontiguousarray(prob.y, dtype=float),
+                np.ascontiguousarray(wt, dtype=float),
+                np.ascontiguousarray(prob.mask, dtype=np.bool_),
+                np.ascontiguousarray(vals, dtype=float),
+                np.ascontiguousarray(prob.lower, dtype=float),
+                np.ascontiguousarray(prob.upper, dtype=float),
+                np.ascontiguousarray(fi, dtype=np.int64),
+                norms,
+                mat,
+                ok,
+            )
+            invert(mat, inv, lmin, lmax)
+    except Exception:  # numba refused the model at its first call: numpy instead
+        return None
+    with np.errstate(divide="ignore", invalid="ignore"):
+        done = ok & (lmin > lmax / _EIG_COND**2) & (lmin > 0)
+        cond = np.sqrt(lmax / lmin)
+    return done, inv, norms, cond
+
+
 def batch_statistics(
     problem: BatchProblem, solution: BatchSolution, *, absolute_sigma: bool = False
 ) -> BatchStatistics:
@@ -915,7 +981,6 @@ def batch_statistics(
     n = prob.n
     dof = n - p
     vals = solution.values
-    jw = _weighted_jacobian(prob, vals)[:, :, fi]  # (G, N, p)
     cov_f = np.full((G, p, p), np.nan)
     cond = np.full(G, np.inf)
     singular = np.ones(G, dtype=bool)
@@ -923,26 +988,37 @@ def batch_statistics(
         cond[:] = 1.0
         singular[:] = False
     else:
-        norms = np.linalg.norm(jw, axis=1)  # (G, p)
-        usable = np.all(np.isfinite(jw), axis=(1, 2)) & np.all(norms > 0, axis=1)
-        usable &= np.isfinite(solution.ssr)
-        if usable.any():
-            a = jw[usable] / norms[usable][:, None, :]
-            inv, cond_u, sing_u = _scaled_inverse(a, n[usable])
-            ssr_u = solution.ssr[usable]
-            dof_u = dof[usable]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                sc = (
-                    np.ones(ssr_u.size)
-                    if absolute_sigma
-                    else np.where(dof_u > 0, ssr_u / dof_u, np.nan)
-                )
-                nu_ = norms[usable]
-                c = sc[:, None, None] * inv / (nu_[:, :, None] * nu_[:, None, :])
-            c[sing_u] = np.nan
-            cov_f[usable] = c
-            cond[usable] = cond_u
-            singular[usable] = sing_u
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sc_all = np.ones(G) if absolute_sigma else np.where(dof > 0, solution.ssr / dof, np.nan)
+        # Compiled: the well-conditioned groups' normal matrices and inverses, one group at a
+        # time; the other groups (and all, without numba) take the SVD path below.
+        rest = np.isfinite(solution.ssr)
+        fast = _compiled_inverse(prob, vals, fi)
+        if fast is not None:
+            done, inv, norms, cond_d = fast
+            done &= rest
+            c = sc_all[done][:, None, None] * inv[done]
+            c /= norms[done][:, :, None] * norms[done][:, None, :]
+            cov_f[done] = c
+            cond[done] = cond_d[done]
+            singular[done] = False
+            rest &= ~done
+        idx = np.flatnonzero(rest)
+        if idx.size:
+            jw = _weighted_jacobian(_rows(prob, idx), vals[idx])[:, :, fi]  # (g, N, p)
+            nrm = np.linalg.norm(jw, axis=1)  # (g, p)
+            usable = np.all(np.isfinite(jw), axis=(1, 2)) & np.all(nrm > 0, axis=1)
+            if usable.any():
+                a = jw[usable] / nrm[usable][:, None, :]
+                u = idx[usable]
+                inv, cond_u, sing_u = _scaled_inverse(a, n[u])
+                nu_ = nrm[usable]
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    c = sc_all[u][:, None, None] * inv / (nu_[:, :, None] * nu_[:, None, :])
+                c[sing_u] = np.nan
+                cov_f[u] = c
+                cond[u] = cond_u
+                singular[u] = sing_u
     cov = np.full((G, P, P), np.nan)
     cov[:, fi[:, None], fi[None, :]] = cov_f
     var = np.einsum("gpp->gp", cov)

@@ -36,8 +36,10 @@ __all__ = [
     "available",
     "jacobian_kernel_for",
     "kernel_for",
+    "normals_kernel_for",
     "parallel_kernel_for",
     "serial",
+    "symmetric_inverse_for",
     "threads",
 ]
 
@@ -253,6 +255,26 @@ def jacobian_kernel_for(model: Model) -> Callable[..., None] | None:
     return _kernel(model, "jacobians")
 
 
+def normals_kernel_for(model: Model) -> Callable[..., None] | None:
+    """The compiled normal matrices of every group, or None as :func:`kernel_for`.
+
+    Called as ``run(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK)`` on C-contiguous arrays:
+    fills ``NORMS`` (G, p) with the norms of the weighted Jacobian's free columns ``FI``,
+    ``MAT`` (G, p, p) with ``A'A`` of the column-scaled Jacobian ``A``, and ``OK`` (G,) where
+    all of it is finite and no free column is zero. Nothing of shape (G, N, P) is made.
+    """
+    return _kernel(model, "normals")
+
+
+def symmetric_inverse_for(model: Model) -> Callable[..., None] | None:
+    """The compiled eigenvalues and inverse of small symmetric matrices, or None.
+
+    Called as ``run(MAT, INV, LMIN, LMAX)``: per group, ``INV = MAT^-1`` from the cyclic
+    Jacobi eigen-decomposition, and the smallest and largest eigenvalues.
+    """
+    return _kernel(model, "symmetric_inverse")
+
+
 def threads() -> int:
     """How many threads numba would use for :func:`parallel_kernel_for` (1 without numba).
 
@@ -380,6 +402,110 @@ def jacobians(X, Y, W, M, TH, LO, HI, JAC, R, SSR):
     dn = np.zeros(2 * P + 1)
     for g in range(X.shape[0]):
         SSR[g] = evaluate(X[g], Y[g], W[g], M[g], TH[g], LO[g], HI[g], JAC[g], R[g], vals, up, dn)
+
+@_jit
+def normals(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK):
+    # The statistics' normal matrices without a (G, N, P) Jacobian: per group, the weighted
+    # Jacobian at TH (evaluate's patching), the norms of its free columns FI, and A'A of the
+    # column-scaled A in MAT; OK where every entry is finite and no free column is 0.
+    G = X.shape[0]
+    N = X.shape[1]
+    P = TH.shape[1]
+    p = FI.shape[0]
+    vals = np.zeros((N, P + 1))
+    up = np.zeros(2 * P + 1)
+    dn = np.zeros(2 * P + 1)
+    jac = np.zeros((N, P))
+    r = np.zeros(N)
+    for g in range(G):
+        evaluate(X[g], Y[g], W[g], M[g], TH[g], LO[g], HI[g], jac, r, vals, up, dn)
+        ok = True
+        for a in range(p):
+            s = 0.0
+            for i in range(N):
+                v = jac[i, FI[a]]
+                if not math.isfinite(v):
+                    ok = False
+                s += v * v
+            nrm = math.sqrt(s)
+            NORMS[g, a] = nrm
+            if not nrm > 0.0:
+                ok = False
+        OK[g] = ok
+        if not ok:
+            continue
+        for a in range(p):
+            for b in range(a + 1):
+                s = 0.0
+                for i in range(N):
+                    s += (jac[i, FI[a]] / NORMS[g, a]) * (jac[i, FI[b]] / NORMS[g, b])
+                MAT[g, a, b] = s
+                MAT[g, b, a] = s
+
+@_jit
+def symmetric_inverse(MAT, INV, LMIN, LMAX):
+    # Per group, the eigenvalues of the small symmetric MAT by cyclic Jacobi rotations
+    # (accurate to about eps * the largest, as a library's symmetric eigensolver), and
+    # INV = V diag(1 / lambda) V'. The smallest and largest eigenvalues go to LMIN, LMAX.
+    G = MAT.shape[0]
+    p = MAT.shape[1]
+    a = np.empty((p, p))
+    v = np.empty((p, p))
+    for g in range(G):
+        for i in range(p):
+            for j in range(p):
+                a[i, j] = MAT[g, i, j]
+                v[i, j] = 1.0 if i == j else 0.0
+        for _sweep in range(60):
+            turned = False
+            for i in range(p):
+                for j in range(i + 1, p):
+                    # an entry below eps of its diagonal's geometric mean changes no
+                    # eigenvalue beyond rounding, even the smallest (relative accuracy)
+                    if not abs(a[i, j]) > 2.220446049250313e-16 * math.sqrt(
+                        abs(a[i, i] * a[j, j])
+                    ):
+                        continue
+                    turned = True
+                    theta = (a[j, j] - a[i, i]) / (2.0 * a[i, j])
+                    t = 1.0 / (abs(theta) + math.sqrt(theta * theta + 1.0))
+                    if theta < 0.0:
+                        t = -t
+                    c = 1.0 / math.sqrt(t * t + 1.0)
+                    sn = t * c
+                    for k in range(p):
+                        aki = a[k, i]
+                        akj = a[k, j]
+                        a[k, i] = c * aki - sn * akj
+                        a[k, j] = sn * aki + c * akj
+                    for k in range(p):
+                        aik = a[i, k]
+                        ajk = a[j, k]
+                        a[i, k] = c * aik - sn * ajk
+                        a[j, k] = sn * aik + c * ajk
+                    for k in range(p):
+                        vki = v[k, i]
+                        vkj = v[k, j]
+                        v[k, i] = c * vki - sn * vkj
+                        v[k, j] = sn * vki + c * vkj
+                    a[i, j] = 0.0  # what the rotation was chosen to do, without its rounding
+                    a[j, i] = 0.0
+            if not turned:
+                break
+        lo = math.inf
+        hi = -math.inf
+        for i in range(p):
+            lo = min(lo, a[i, i])
+            hi = max(hi, a[i, i])
+        LMIN[g] = lo
+        LMAX[g] = hi
+        for i in range(p):
+            for j in range(i + 1):
+                s = 0.0
+                for k in range(p):
+                    s += v[i, k] * v[j, k] / a[k, k]
+                INV[g, i, j] = s
+                INV[g, j, i] = s
 
 @_jit
 def cholesky_solve(mat, rhs, out, low):
