@@ -98,6 +98,7 @@ __all__ = [
     "DerivedColumns",
     "batch_derived",
     "batch_statistics",
+    "batch_support",
     "solve_batch",
 ]
 
@@ -166,6 +167,20 @@ class BatchProblem:
     start: FloatArray
     lower: FloatArray
     upper: FloatArray
+
+    def rows(self, idx: NDArray[np.intp]) -> BatchProblem:
+        """The problem of groups ``idx`` only."""
+        return BatchProblem(
+            model=self.model,
+            x=self.x[idx],
+            y=self.y[idx],
+            mask=self.mask[idx],
+            sw=None if self.sw is None else self.sw[idx],
+            free=self.free,
+            start=self.start[idx],
+            lower=self.lower[idx],
+            upper=self.upper[idx],
+        )
 
     def __post_init__(self) -> None:
         if self.model.expr is None:
@@ -778,6 +793,10 @@ class BatchStatistics:
     not_identified : ndarray of bool, shape (G, P)
         ``stderr > thresholds.NOT_IDENTIFIED_RSE * |value|``.
     absolute_sigma : bool
+    support : ndarray, shape (G, P)
+        How many points carry each free parameter's column of the weighted Jacobian (the
+        participation ratio ``(sum J**2)**2 / sum J**4``, as the single fit's thin-support
+        check); NaN for fixed parameters and where the column is not finite.
     """
 
     n: IntArray
@@ -795,6 +814,7 @@ class BatchStatistics:
     at_bound: BoolArray
     not_identified: BoolArray
     absolute_sigma: bool
+    support: FloatArray
 
 
 def _x_spans(prob: BatchProblem, where: str) -> FloatArray:
@@ -894,30 +914,33 @@ def _scaled_inverse(a: FloatArray, n: IntArray) -> tuple[FloatArray, FloatArray,
     return inv, cond, sing
 
 
-def _rows(prob: BatchProblem, idx: NDArray[np.intp]) -> BatchProblem:
-    """The problem of groups ``idx`` only."""
-    return BatchProblem(
-        model=prob.model,
-        x=prob.x[idx],
-        y=prob.y[idx],
-        mask=prob.mask[idx],
-        sw=None if prob.sw is None else prob.sw[idx],
-        free=prob.free,
-        start=prob.start[idx],
-        lower=prob.lower[idx],
-        upper=prob.upper[idx],
-    )
+def _supports(jw: FloatArray) -> FloatArray:
+    """How many points carry each column of ``jw`` (g, N, p): the single fit's rule, per group.
+
+    ``(sum J**2)**2 / sum J**4`` of each column scaled by its largest entry (so that J**4
+    neither overflows nor underflows); 0 for a zero column, NaN for one that is not finite.
+    """
+    with np.errstate(all="ignore"):
+        big = np.max(np.abs(jw), axis=1, keepdims=True)
+        u = np.where(big > 0, jw / np.where(big > 0, big, 1.0), 0.0)
+        sq = u * u
+        s2 = sq.sum(axis=1)
+        s4 = (sq * sq).sum(axis=1)
+        out: FloatArray = np.where(s4 > 0, s2 * s2 / np.where(s4 > 0, s4, 1.0), 0.0)
+    out[~np.all(np.isfinite(jw), axis=1)] = np.nan
+    return out
 
 
 def _compiled_inverse(
     prob: BatchProblem, vals: FloatArray, fi: NDArray[np.intp]
-) -> tuple[BoolArray, FloatArray, FloatArray, FloatArray] | None:
+) -> tuple[BoolArray, FloatArray, FloatArray, FloatArray, FloatArray] | None:
     """``(A'A)^-1`` of the column-scaled weighted Jacobian ``A`` in compiled code, or None.
 
-    Returns ``(done, inv, norms, cond)``: ``done`` marks the groups whose Jacobian is finite,
-    with no zero column, and whose condition number is below ``_EIG_COND``; for them ``inv``,
-    the column ``norms`` and ``cond`` are those :func:`_scaled_inverse` gives (its fast
-    branch, to about ``eps * _EIG_COND**2`` relative). None without numba.
+    Returns ``(done, inv, norms, cond, support)``: ``done`` marks the groups whose Jacobian
+    is finite, with no zero column, and whose condition number is below ``_EIG_COND``; for
+    them ``inv``, the column ``norms`` and ``cond`` are those :func:`_scaled_inverse` gives
+    (its fast branch, to about ``eps * _EIG_COND**2`` relative). ``support`` (G, p), for every
+    group, is :func:`_supports` of the free columns. None without numba.
     """
     G = vals.shape[0]
     p = fi.size
@@ -927,6 +950,7 @@ def _compiled_inverse(
         return None
     wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
     norms, mat, ok = np.zeros((G, p)), np.zeros((G, p, p)), np.zeros(G, dtype=np.bool_)
+    support = np.zeros((G, p))
     inv, lmin, lmax = np.zeros((G, p, p)), np.zeros(G), np.zeros(G)
     try:
         with np.errstate(all="ignore"):
@@ -942,6 +966,7 @@ def _compiled_inverse(
                 norms,
                 mat,
                 ok,
+                support,
             )
             invert(mat, inv, lmin, lmax)
     except Exception:  # numba refused the model at its first call: numpy instead
@@ -949,7 +974,25 @@ def _compiled_inverse(
     with np.errstate(divide="ignore", invalid="ignore"):
         done = ok & (lmin > lmax / _EIG_COND**2) & (lmin > 0)
         cond = np.sqrt(lmax / lmin)
-    return done, inv, norms, cond
+    return done, inv, norms, cond, support
+
+
+def batch_support(problem: BatchProblem, values: FloatArray) -> FloatArray:
+    """How many points carry each free parameter's Jacobian column at ``values``, per group.
+
+    The participation ratio of :attr:`BatchStatistics.support` (the single fit's thin-support
+    rule), at any point, such as the user's starts; shape (G, P), NaN for fixed parameters.
+    """
+    fi = np.flatnonzero(np.asarray(problem.free, dtype=bool))
+    out = np.full(values.shape, np.nan)
+    if not fi.size or not values.shape[0]:
+        return out
+    fast = _compiled_inverse(problem, values, fi)
+    if fast is not None:
+        out[:, fi] = fast[4]
+    else:
+        out[:, fi] = _supports(_weighted_jacobian(problem, values)[:, :, fi])
+    return out
 
 
 def batch_statistics(
@@ -981,6 +1024,7 @@ def batch_statistics(
     n = prob.n
     dof = n - p
     vals = solution.values
+    support = np.full((G, P), np.nan)
     cov_f = np.full((G, p, p), np.nan)
     cond = np.full(G, np.inf)
     singular = np.ones(G, dtype=bool)
@@ -995,7 +1039,8 @@ def batch_statistics(
         rest = np.isfinite(solution.ssr)
         fast = _compiled_inverse(prob, vals, fi)
         if fast is not None:
-            done, inv, norms, cond_d = fast
+            done, inv, norms, cond_d, sup = fast
+            support[:, fi] = sup
             done &= rest
             c = sc_all[done][:, None, None] * inv[done]
             c /= norms[done][:, :, None] * norms[done][:, None, :]
@@ -1005,7 +1050,9 @@ def batch_statistics(
             rest &= ~done
         idx = np.flatnonzero(rest)
         if idx.size:
-            jw = _weighted_jacobian(_rows(prob, idx), vals[idx])[:, :, fi]  # (g, N, p)
+            jw = _weighted_jacobian(prob.rows(idx), vals[idx])[:, :, fi]  # (g, N, p)
+            if fast is None:
+                support[np.ix_(idx, fi)] = _supports(jw)
             nrm = np.linalg.norm(jw, axis=1)  # (g, p)
             usable = np.all(np.isfinite(jw), axis=(1, 2)) & np.all(nrm > 0, axis=1)
             if usable.any():
@@ -1081,6 +1128,7 @@ def batch_statistics(
         at_bound=at_lower | at_upper,
         not_identified=not_id,
         absolute_sigma=bool(absolute_sigma),
+        support=support,
     )
 
 

@@ -258,10 +258,12 @@ def jacobian_kernel_for(model: Model) -> Callable[..., None] | None:
 def normals_kernel_for(model: Model) -> Callable[..., None] | None:
     """The compiled normal matrices of every group, or None as :func:`kernel_for`.
 
-    Called as ``run(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK)`` on C-contiguous arrays:
-    fills ``NORMS`` (G, p) with the norms of the weighted Jacobian's free columns ``FI``,
-    ``MAT`` (G, p, p) with ``A'A`` of the column-scaled Jacobian ``A``, and ``OK`` (G,) where
-    all of it is finite and no free column is zero. Nothing of shape (G, N, P) is made.
+    Called as ``run(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK, SUPPORT)`` on C-contiguous
+    arrays: fills ``NORMS`` (G, p) with the norms of the weighted Jacobian's free columns
+    ``FI``, ``MAT`` (G, p, p) with ``A'A`` of the column-scaled Jacobian ``A``, ``OK`` (G,)
+    where all of it is finite and no free column is zero, and ``SUPPORT`` (G, p) with how many
+    points carry each column (``assemble._column_support``). Nothing of shape (G, N, P) is
+    made.
     """
     return _kernel(model, "normals")
 
@@ -404,10 +406,12 @@ def jacobians(X, Y, W, M, TH, LO, HI, JAC, R, SSR):
         SSR[g] = evaluate(X[g], Y[g], W[g], M[g], TH[g], LO[g], HI[g], JAC[g], R[g], vals, up, dn)
 
 @_jit
-def normals(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK):
+def normals(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK, SUPPORT):
     # The statistics' normal matrices without a (G, N, P) Jacobian: per group, the weighted
     # Jacobian at TH (evaluate's patching), the norms of its free columns FI, and A'A of the
     # column-scaled A in MAT; OK where every entry is finite and no free column is 0.
+    # SUPPORT: how many points carry each column, (sum J**2)**2 / sum J**4 of the column
+    # scaled by its largest entry (assemble._column_support), 0 for a zero column.
     G = X.shape[0]
     N = X.shape[1]
     P = TH.shape[1]
@@ -422,15 +426,29 @@ def normals(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK):
         ok = True
         for a in range(p):
             s = 0.0
+            big = 0.0
+            finite = True
             for i in range(N):
                 v = jac[i, FI[a]]
                 if not math.isfinite(v):
-                    ok = False
+                    finite = False
+                    continue
                 s += v * v
+                if abs(v) > big:
+                    big = abs(v)
             nrm = math.sqrt(s)
             NORMS[g, a] = nrm
-            if not nrm > 0.0:
+            if not finite or not nrm > 0.0:
                 ok = False
+            s2 = 0.0
+            s4 = 0.0
+            if finite and big > 0.0:
+                for i in range(N):
+                    u = jac[i, FI[a]] / big
+                    s2 += u * u
+                    s4 += u * u * u * u
+            # NaN (not judged) for a column that is not finite, as the single fit does
+            SUPPORT[g, a] = (s2 * s2 / s4 if s4 > 0.0 else 0.0) if finite else math.nan
         OK[g] = ok
         if not ok:
             continue

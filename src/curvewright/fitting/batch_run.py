@@ -29,8 +29,14 @@ from ..parameters import Parameters
 from ..result import FitResult
 from ..start import guided_start, plausible_sizes
 from ..start_batch import guided_starts
-from ..thresholds import DEGENERATE_SE, RUNAWAY
-from .batch_engine import BatchProblem, batch_derived, batch_statistics, solve_batch
+from ..thresholds import DEGENERATE_CORRELATION, DEGENERATE_SE, RUNAWAY, THIN_SUPPORT
+from .batch_engine import (
+    BatchProblem,
+    batch_derived,
+    batch_statistics,
+    batch_support,
+    solve_batch,
+)
 from .problem import (
     FloatArray,
     point_weights,
@@ -214,6 +220,13 @@ def run_groups(
     col = [names.index(n) for n in free]
     got = _batched_starts(m, recs, groups, plain, starts)
     started[got] = True
+    # The groups starting (in part) from the user's values: those starts are judged, as the
+    # single fit judges a user's start (a guided start is not).
+    users = np.zeros(G, dtype=bool)
+    if any(not math.isnan(recs[n].value) for n in free):
+        users[:] = True
+    elif own is not None:
+        users[own] = True
     for g in ready[~started[ready]].tolist():
         ds = groups.datasets[g]
         assert ds is not None
@@ -252,7 +265,7 @@ def run_groups(
                 break
             chunk = todo[a : a + CHUNK]
             try:
-                back, unrun = _run_vectorised(req, groups, chunk, starts, out, stop_reason)
+                back, unrun = _run_vectorised(req, groups, chunk, starts, users, out, stop_reason)
             except Exception:  # pragma: no cover - an engine bug must not stop the batch
                 back, unrun = chunk, []
             queue += back
@@ -464,6 +477,27 @@ def _fit_group(
     )
 
 
+def _amplitudes(model: Model) -> NDArray[np.bool_]:
+    """The parameters the formula is linear in: its derivative in them does not hold them."""
+    assert model.expr is not None  # the batch engine takes formula models only
+    expr = model.expr
+    return np.array([n not in expr.derivative(n).names for n in model.param_names], dtype=bool)
+
+
+def _thin_amplitudes(model: Model, support: FloatArray) -> NDArray[np.bool_]:
+    """Groups with a free amplitude carried by fewer than THIN_SUPPORT points (``support``).
+
+    The single fit's thin-support check (``assemble._thin_support``): a feature of the
+    curve narrower than the data's spacing. Its linearity test is made once per model here,
+    on the formula; the groups picked go to the per-group fit, which judges them itself.
+    NaN support (a fixed parameter, a column not finite) is not judged.
+    """
+    amp = _amplitudes(model)
+    with np.errstate(invalid="ignore"):
+        thin: NDArray[np.bool_] = np.any(support[:, amp] < THIN_SUPPORT, axis=1)
+    return thin
+
+
 def _runaway(
     prob: BatchProblem, values: FloatArray, stderr: FloatArray, free: NDArray[np.bool_]
 ) -> NDArray[np.bool_]:
@@ -588,12 +622,14 @@ def _run_vectorised(
     groups: Groups,
     chunk: list[int],
     starts: FloatArray,
+    users: NDArray[np.bool_],
     out: _Out,
     stop_reason: Callable[[], str | None],
 ) -> tuple[list[int], list[int]]:
     """Fit ``chunk`` with the batch engine.
 
-    Returns the groups it did not settle (for the per-group fit) and those it was stopped on.
+    ``users`` marks the groups whose start is (in part) the user's. Returns the groups it did
+    not settle, or that are suspect (for the per-group fit), and those it was stopped on.
     """
     m = req.model
     names = m.param_names
@@ -637,12 +673,24 @@ def _run_vectorised(
     tk = take
     cancelled = ~sol.settled & (np.asarray(sol.reason, dtype=object) == "cancelled")
     # A group settled at a degenerate point (singular or near-singular covariance, a parameter
-    # run off or undetermined, by the single fit's rule) is suspect, as in the single fit: it
+    # run off or undetermined, by the single fit's rule) or a suspect one (|r| near 1; an
+    # amplitude whose feature touches about one point) is suspect, as in the single fit: it
     # goes to the per-group fit, whose global search keeps a clearly lower minimum or reports
     # the degenerate stop, so the batch row and batch[group] tell the same story.
     suspect = sol.settled & (
-        stats.singular | stats.near_singular | _runaway(prob, sol.values, stats.stderr, free)
+        stats.singular
+        | stats.near_singular
+        | (np.nan_to_num(stats.max_correlation, nan=0.0) > DEGENERATE_CORRELATION)
+        | _thin_amplitudes(m, stats.support)
+        | _runaway(prob, sol.values, stats.stderr, free)
     )
+    # A user's start on a feature narrower than the data's spacing: the single fit runs its
+    # global search from there, whatever the stop; so does the per-group fit.
+    mine = np.flatnonzero(users[take])
+    if mine.size:
+        at_start = np.full((K, P), np.nan)
+        at_start[mine] = batch_support(prob.rows(mine), st[mine])
+        suspect |= _thin_amplitudes(m, at_start)
     back = tk[(~sol.settled & ~cancelled) | suspect].tolist()  # to the per-group fit
     unrun = tk[cancelled].tolist()  # reported as not run by the caller
     good = sol.settled & ~suspect
