@@ -834,57 +834,51 @@ class _Problem:
         family = [expr, *(expr.derivative(n) for n in (*self.linear, *self.nonlinear))]
         return compile_many(family, ["x", *self.model.param_names])
 
-    def _eval_many(
-        self, U: FloatArray, tb: FloatArray
-    ) -> tuple[FloatArray, FloatArray, FloatArray]:
-        """Residuals, full vectors and projected Jacobians of the searched points ``U``.
+    def _eval_many(self, U: FloatArray, tb: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """Residuals and projected Jacobians at the searched points ``U``, all at once.
 
         ``U``: ``(k, d)`` searched values (log for logged parameters); ``tb``: the held values
-        as a full vector. One broadcast call of the formula family for all ``k`` points, the
-        linear parameters solved by a stacked SVD (the same rank cut as :meth:`_linear_solve`)
-        and Kaufman's projected Jacobian, as :meth:`_analytic_jacobian`, for each point.
+        as a full vector. One broadcast call of the formula family for all ``k`` points; the
+        residual is the part of the data outside the linear columns' span (a stacked QR of the
+        normalised columns; a column that adds no direction adds none to the basis) and the
+        Jacobian is Kaufman's projected one, as :meth:`_analytic_jacobian`. The linear values
+        themselves are not needed while searching.
         """
         fn = self._family_fn
         assert fn is not None
         non, lin, logged = self._index
         k, d, n, L = U.shape[0], U.shape[1], self.x.size, len(lin)
         lg = np.array(logged, dtype=bool)
-        V = np.where(lg, np.exp(np.minimum(U, 700.0)), U)
-        TH = np.repeat(tb[None, :], k, axis=0)
-        TH[:, non] = V
+        V = np.where(lg, np.exp(np.minimum(U, 700.0)), U) if lg.any() else U
         col = dict(zip(non, V.T, strict=True))
         args = [col[i][:, None] if i in col else float(tb[i]) for i in range(tb.size)]
         shape = (k, n)
         out = fn(self.x[None, :], *args)
-        f0 = np.broadcast_to(np.asarray(out[0], dtype=float), shape)
+        rhs = self.y[None, :] - np.broadcast_to(np.asarray(out[0], dtype=float), shape)
         J = np.empty((k, n, L + d))
         for j in range(L + d):
             J[:, :, j] = np.broadcast_to(np.asarray(out[1 + j], dtype=float), shape)
-        A, Jn = J[:, :, :L], J[:, :, L:]
-        rhs = self.y[None, :] - f0
         ok = np.all(np.isfinite(rhs), axis=1)
+        Jn = J[:, :, L:]
+        if lg.any():
+            Jn = Jn * np.where(lg, V, 1.0)[:, None, :]  # d theta / d log theta
+        Jn = Jn / self.scale
         if L:
+            A = J[:, :, :L]
             ok &= np.all(np.isfinite(A), axis=(1, 2))
             A = np.where(ok[:, None, None], A, 0.0)
             rhs = np.where(ok[:, None], rhs, 0.0)
-            Ub, sv, Vt = np.linalg.svd(A, full_matrices=False)
-            top = sv[:, :1]
-            keep = (sv > top * 1e-12 * max(n, L)) & (top > 0)
-            inv = np.where(keep, 1.0 / np.where(keep, sv, 1.0), 0.0)
-            Ub = Ub * keep[:, None, :]
-            proj = np.einsum("knl,kn->kl", Ub, rhs)
-            c = np.einsum("klm,kl->km", Vt, inv * proj)
-            f = f0 + np.einsum("knl,kl->kn", A, c)
-            TH[:, lin] = c
-        else:
-            f = f0
-        r = (f - self.y[None, :]) / self.scale
+            norms = np.sqrt(np.einsum("knl,knl->kl", A, A))
+            Q, R = np.linalg.qr(A / np.where(norms > 0, norms, 1.0)[:, None, :])
+            keep = np.abs(np.diagonal(R, axis1=1, axis2=2)) > 1e-10
+            Q = Q * keep[:, None, :]
+            Qt = Q.transpose(0, 2, 1)
+            rhs = rhs - (Q @ (Qt @ rhs[:, :, None]))[:, :, 0]
+            Jn = Jn - Q @ (Qt @ Jn)
+        r = -rhs / self.scale
         r = np.where(np.isfinite(r) & ok[:, None], r, self.big / self.scale)
-        Jn = Jn * np.where(lg, V, 1.0)[:, None, :] / self.scale  # d theta / d log theta
-        if L:
-            Jn = Jn - Ub @ (Ub.transpose(0, 2, 1) @ Jn)
         Jn = np.where(np.isfinite(Jn), Jn, 0.0)
-        return r, TH, Jn
+        return r, Jn
 
     def search_many(
         self, bases: Sequence[Mapping[str, float]], budget: int
@@ -910,7 +904,7 @@ class _Problem:
         tb = self._theta_base(bases[0])
         k, d = U.shape
         with np.errstate(all="ignore"):
-            r, TH, J = self._eval_many(U, tb)
+            r, J = self._eval_many(U, tb)
             S = np.einsum("kn,kn->k", r, r)
             lam = np.full(k, 1e-3)
             active = np.isfinite(S)
@@ -931,7 +925,7 @@ class _Problem:
                     step = -g / (dg * (1.0 + lam[idx, None]))
                 step = np.where(np.isfinite(step), step, 0.0)
                 Un = np.clip(U[idx] + step, lo_in, hi_in)
-                rn, THn, Jn = self._eval_many(Un, tb)
+                rn, Jn = self._eval_many(Un, tb)
                 Sn = np.einsum("kn,kn->k", rn, rn)
                 better = np.isfinite(Sn) & (Sn < S[idx])
                 acc = idx[better]
@@ -939,18 +933,18 @@ class _Problem:
                 small = (drop <= 1e-8 * S[acc]) | np.all(
                     np.abs(Un[better] - U[acc]) <= 1e-8 * (1e-8 + np.abs(U[acc])), axis=1
                 )
-                U[acc], S[acc], r[acc], TH[acc], J[acc] = (
-                    Un[better], Sn[better], rn[better], THn[better], Jn[better]
-                )
+                U[acc], S[acc], r[acc], J[acc] = Un[better], Sn[better], rn[better], Jn[better]
                 lam[acc] = np.maximum(lam[acc] / 3.0, 1e-12)
                 rej = idx[~better]
                 lam[rej] = lam[rej] * 4.0
                 active[acc[small]] = False
                 active[rej[lam[rej] > 1e12]] = False
+            # each stopping point's linear values as the one-start search solves them
+            thetas = [self._analytic_residual(u, bases[0], tb)[1] for u in U]
         names = self.model.param_names
         out = []
-        for b, th in zip(bases, TH.tolist(), strict=True):
-            v = {**b, **dict(zip(names, th, strict=True))}
+        for b, th in zip(bases, thetas, strict=True):
+            v = {**b, **dict(zip(names, th.tolist(), strict=True))}
             out.append({**v, **self.held})
         return out
 
