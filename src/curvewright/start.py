@@ -649,10 +649,20 @@ class _Problem:
         together by a stacked QR. A candidate whose linear columns are (nearly) dependent gets
         infinity: its projected sum of squares is not reliable, and it is a poor start anyway.
         """
+        if self._screen_fn is None or not pool:
+            return np.array([self.screen(c) for c in pool])
+        # in blocks: the temporaries of a block stay in the cache (twice as fast for 500
+        # candidates), and each candidate's score is computed alone either way
+        block = _SCREEN_BLOCK
+        return np.concatenate(
+            [self._screen_block(pool[i : i + block]) for i in range(0, len(pool), block)]
+        )
+
+    def _screen_block(self, pool: Sequence[Mapping[str, float]]) -> FloatArray:
+        """:meth:`screen_many` of one block of candidates (formula models)."""
         names = self.model.param_names
         fn = self._screen_fn
-        if fn is None or not pool:
-            return np.array([self.screen(c) for c in pool])
+        assert fn is not None
         k = len(pool)
         args: list[Any] = []
         for n in names:
@@ -950,6 +960,8 @@ class _Problem:
 
 
 _POLISH_TOL = 1e-14
+#: Candidates screened per broadcast call (see _Problem.screen_many).
+_SCREEN_BLOCK = 96
 
 
 def _polish(
