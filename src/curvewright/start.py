@@ -835,57 +835,57 @@ class _Problem:
         return {**out, **self.held}
 
     # --- stacked short searches: many starts advanced together (formula models)
-    @functools.cached_property
-    def _family_fn(self) -> Callable[..., tuple[Any, ...]] | None:
-        """The curve, the linear columns and the nonlinear columns, compiled together."""
-        expr = self.model.expr
-        if expr is None or not self.nonlinear:
-            return None
-        family = [expr, *(expr.derivative(n) for n in (*self.linear, *self.nonlinear))]
-        return compile_many(family, ["x", *self.model.param_names])
-
     def _eval_many(self, U: FloatArray, tb: FloatArray) -> tuple[FloatArray, FloatArray]:
         """Residuals and projected Jacobians at the searched points ``U``, all at once.
 
         ``U``: ``(k, d)`` searched values (log for logged parameters); ``tb``: the held values
-        as a full vector. One broadcast call of the formula family for all ``k`` points; the
-        residual is the part of the data outside the linear columns' span (a stacked QR of the
-        normalised columns; a column that adds no direction adds none to the basis) and the
-        Jacobian is Kaufman's projected one, as :meth:`_analytic_jacobian`. The linear values
-        themselves are not needed while searching.
+        as a full vector. Two broadcast calls for all ``k`` points: the curve and linear
+        columns (linear values 0), then, with the linear values solved (a stacked QR of the
+        normalised columns; a column that adds no direction gets the value 0 and adds none to
+        the basis), the nonlinear columns. The residual is the part of the data outside the
+        linear columns' span; the Jacobian is Kaufman's projected one, as
+        :meth:`_analytic_jacobian`.
         """
-        fn = self._family_fn
-        assert fn is not None
+        sfn, nfn = self._screen_fn, self._nonlinear_fn
+        assert sfn is not None and nfn is not None
         non, lin, logged = self._index
         k, d, n, L = U.shape[0], U.shape[1], self.x.size, len(lin)
         lg = np.array(logged, dtype=bool)
         V = np.where(lg, np.exp(np.minimum(U, 700.0)), U) if lg.any() else U
-        col = dict(zip(non, V.T, strict=True))
-        args = [col[i][:, None] if i in col else float(tb[i]) for i in range(tb.size)]
+        col: dict[int, Any] = {i: v[:, None] for i, v in zip(non, V.T, strict=True)}
+        args = [col[i] if i in col else float(tb[i]) for i in range(tb.size)]
         shape = (k, n)
-        out = fn(self.x[None, :], *args)
+        xr = self.x[None, :]
+        out = sfn(xr, *args)
         rhs = self.y[None, :] - np.broadcast_to(np.asarray(out[0], dtype=float), shape)
-        J = np.empty((k, n, L + d))
-        for j in range(L + d):
-            J[:, :, j] = np.broadcast_to(np.asarray(out[1 + j], dtype=float), shape)
-        ok = np.all(np.isfinite(rhs), axis=1)
-        Jn = J[:, :, L:]
+        A = np.empty((k, n, L))
+        for j in range(L):
+            A[:, :, j] = np.broadcast_to(np.asarray(out[1 + j], dtype=float), shape)
+        ok = np.all(np.isfinite(rhs), axis=1) & np.all(np.isfinite(A), axis=(1, 2))
+        A = np.where(ok[:, None, None], A, 0.0)
+        rhs = np.where(ok[:, None], rhs, 0.0)
+        norms = np.sqrt(np.einsum("knl,knl->kl", A, A))
+        norms = np.where(norms > 0, norms, 1.0)
+        Q, R = np.linalg.qr(A / norms[:, None, :])
+        keep = np.abs(np.diagonal(R, axis1=1, axis2=2)) > 1e-10
+        Q = Q * keep[:, None, :]
+        Qt = Q.transpose(0, 2, 1)
+        proj = (Qt @ rhs[:, :, None])[:, :, 0]
+        # R c = Q'rhs on the kept columns; a dropped column's row becomes c_j = 0
+        R = R * keep[:, :, None] + np.where(keep, 0.0, 1.0)[:, :, None] * np.eye(L)
+        c = np.linalg.solve(R, proj[:, :, None])[:, :, 0] / norms
+        for j, i in enumerate(lin):
+            col[i] = c[:, j : j + 1]
+        args = [col[i] if i in col else float(tb[i]) for i in range(tb.size)]
+        out = nfn(xr, *args)
+        Jn = np.empty((k, n, d))
+        for j in range(d):
+            Jn[:, :, j] = np.broadcast_to(np.asarray(out[j], dtype=float), shape)
         if lg.any():
-            Jn = Jn * np.where(lg, V, 1.0)[:, None, :]  # d theta / d log theta
-        Jn = Jn / self.scale
-        if L:
-            A = J[:, :, :L]
-            ok &= np.all(np.isfinite(A), axis=(1, 2))
-            A = np.where(ok[:, None, None], A, 0.0)
-            rhs = np.where(ok[:, None], rhs, 0.0)
-            norms = np.sqrt(np.einsum("knl,knl->kl", A, A))
-            Q, R = np.linalg.qr(A / np.where(norms > 0, norms, 1.0)[:, None, :])
-            keep = np.abs(np.diagonal(R, axis1=1, axis2=2)) > 1e-10
-            Q = Q * keep[:, None, :]
-            Qt = Q.transpose(0, 2, 1)
-            rhs = rhs - (Q @ (Qt @ rhs[:, :, None]))[:, :, 0]
-            Jn = Jn - Q @ (Qt @ Jn)
-        r = -rhs / self.scale
+            Jn *= np.where(lg, V, 1.0)[:, None, :]  # d theta / d log theta
+        Jn /= self.scale
+        Jn -= Q @ (Qt @ Jn)
+        r = -(rhs - (Q @ proj[:, :, None])[:, :, 0]) / self.scale
         r = np.where(np.isfinite(r) & ok[:, None], r, self.big / self.scale)
         Jn = np.where(np.isfinite(Jn), Jn, 0.0)
         return r, Jn
@@ -905,7 +905,7 @@ class _Problem:
         """
         if not bases:
             return []
-        if not (self.analytic and self.nonlinear and self._family_fn is not None):
+        if not (self.analytic and self._screen_fn is not None and self._nonlinear_fn is not None):
             return [self.search(b, budget) for b in bases]
         lo, hi = self.u_bounds(self.nonlinear)
         lo_in, hi_in = np.nextafter(lo, hi), np.nextafter(hi, lo)
@@ -938,17 +938,17 @@ class _Problem:
                 rn, Jn = self._eval_many(Un, tb)
                 Sn = np.einsum("kn,kn->k", rn, rn)
                 better = np.isfinite(Sn) & (Sn < S[idx])
+                # scipy's default tolerances: a tiny relative decrease or a tiny step stops a
+                # start, a rejected tiny step too (the damping only shrinks it further)
+                tiny = np.all(np.abs(Un - U[idx]) <= 1e-8 * (1e-8 + np.abs(U[idx])), axis=1)
                 acc = idx[better]
-                drop = S[acc] - Sn[better]
-                small = (drop <= 1e-8 * S[acc]) | np.all(
-                    np.abs(Un[better] - U[acc]) <= 1e-8 * (1e-8 + np.abs(U[acc])), axis=1
-                )
+                small = (S[acc] - Sn[better] <= 1e-8 * S[acc]) | tiny[better]
                 U[acc], S[acc], r[acc], J[acc] = Un[better], Sn[better], rn[better], Jn[better]
                 lam[acc] = np.maximum(lam[acc] / 3.0, 1e-12)
                 rej = idx[~better]
                 lam[rej] = lam[rej] * 4.0
                 active[acc[small]] = False
-                active[rej[lam[rej] > 1e12]] = False
+                active[rej[(lam[rej] > 1e12) | tiny[~better]]] = False
             # each stopping point's linear values as the one-start search solves them
             thetas = [self._analytic_residual(u, bases[0], tb)[1] for u in U]
         names = self.model.param_names
