@@ -895,13 +895,13 @@ class _Problem:
     ) -> list[dict[str, float]]:
         """Short searches from many starts at once: a stacked Levenberg-Marquardt.
 
-        Every start takes at most ``budget`` steps of its own (Marquardt's damping scaled by
-        the diagonal of ``J'J``, steps clipped into the bounds, a start stops when its sum of
-        squares or its step stalls); all active starts are evaluated in one broadcast call per
-        step, which removes the per-start Python overhead of separate solver runs. Each
-        start's path depends only on its own values, so the answers do not depend on which
-        other starts share the batch. Falls back to :meth:`search` one by one for models
-        without a formula.
+        Every start gets at most ``budget`` evaluations, one per step, as scipy's ``max_nfev``
+        counts them (Marquardt's damping scaled by the diagonal of ``J'J``, steps clipped into
+        the bounds; a start stops when its sum of squares or its step stalls). All active
+        starts are evaluated together in one broadcast call per step, which removes the
+        per-start overhead of separate solver runs. Each start's path depends only on its own
+        values, so its answer does not depend on which other starts share the batch. Models
+        without a formula or without linear parameters get :meth:`search`, one start at a time.
         """
         if not bases:
             return []
@@ -1875,7 +1875,8 @@ def generic_start(
        in the formula set from the curvature there, and the rates of sines and cosines on
        peaks of its Lomb-Scargle periodogram. For a formula model many more candidates are
        drawn and screened by one evaluation each (linear parameters solved); the best few get
-       a short run, the best of those a longer one (successive halving). Otherwise each start
+       a short run, all of them stacked in one Levenberg-Marquardt loop, and the best of those
+       a longer one (successive halving). Otherwise each start
        gets a short least-squares run. The best few by residual sum of squares are polished.
     4. When the best minimum was reached from only one start, the landscape is rugged (periodic
        or multi-peak models): up to three more rounds of fresh starts are run.
