@@ -109,22 +109,15 @@ def _trial(
     sn = -nh if kind == THREE else nh
     e = sn * (ref - _LN10 * mid)
     fac = math.exp(min(max(e, -700.0), 700.0))
-    shape = 2.0 ** (1.0 / gg) - 1.0 if asym else 1.0
+    shape = 2.0 ** (1.0 / gg) - 1.0 if asym else 1.0  # as the model's formula computes it
     q = _powers(sn, nd, lnxc, seen, pw, state)
-    sss = 0.0
-    ss = 0.0
-    ssy = 0.0
-    for j in range(nd):
-        h = pw[q, j] * fac
-        s = math.exp(math.log1p(h * shape) * -gg) if asym else 1.0 / (h + 1.0)
-        cs = cnt[j] * s
-        sss += cs * s
-        if kind == THREE:
-            ssy += s * ysum[j]
-        else:
-            ss += cs
-            ssy += s * ycsum[j]
     if kind == THREE:
+        sss = 0.0
+        ssy = 0.0
+        for j in range(nd):
+            s = 1.0 / (pw[q, j] * fac + 1.0)
+            sss += cnt[j] * s * s
+            ssy += s * ysum[j]
         c = ssy / sss
         if c < clo:
             c = clo
@@ -134,12 +127,28 @@ def _trial(
         lin[0] = c
         good = sss > 0.0
     else:
-        var = sss - ss * ss / n
+        # sums of s less its value at the first x (start_batch._Search._moments)
+        s0 = 0.0
+        sdd = 0.0
+        sd = 0.0
+        ssy = 0.0
+        for j in range(nd):
+            h = pw[q, j] * fac
+            s = math.exp(math.log1p(h * shape) * -gg) if asym else 1.0 / (h + 1.0)
+            if j == 0:
+                s0 = s
+            dj = s - s0
+            cd = cnt[j] * dj
+            sdd += cd * dj
+            sd += cd
+            ssy += dj * ycsum[j]
+        var = sdd - sd * sd / n
         c = ssy / var
-        a = ybar - c * ss / n
+        a = ybar - c * (sd / n + s0)
         ssr = syyc - c * ssy
         lin[0] = a + c  # zero_dose
         lin[1] = a  # full_effect
+        sss = sdd + s0 * (2.0 * sd + n * s0)
         good = var > 1e-12 * sss
     if good and math.isfinite(ssr):
         return max(ssr, 0.0)
