@@ -170,7 +170,6 @@ def test_a_fixed_or_bounded_level_goes_to_numpy() -> None:
     b = make_batch("inhibition_4pl", 6, seed=3)
     m = b.model
     lower = np.array([p.lower for p in m.params])
-    upper = np.array([p.upper for p in m.params])
     lower[m.param_names.index("full_effect")] = -10.0
     cases: list[dict[str, object]] = [{"fixed": {"full_effect": 0.0}}, {"lower": lower}]
     for opts in cases:
@@ -190,8 +189,8 @@ def test_a_fixed_or_bounded_level_goes_to_numpy() -> None:
 def test_the_batch_s_fits_do_not_change(monkeypatch: pytest.MonkeyPatch) -> None:
     b = make_batch("inhibition_4pl", 60, seed=8)
     rows = [
-        (g, x, y) for g in range(60) for x, y, k in zip(b.x[g], b.y[g], b.mask[g]) if k
-    ]  # fmt: skip
+        (g, x, y) for g in range(60) for x, y, k in zip(b.x[g], b.y[g], b.mask[g], strict=True) if k
+    ]
     df = pd.DataFrame(rows, columns=["well", "conc", "resp"])
     compiled = curvewright.fit_groups("inhibition_4pl", data=df, x="conc", y="resp", by="well")
     monkeypatch.setattr(start_batch, "_start_kernel", lambda: None)
