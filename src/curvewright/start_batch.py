@@ -1646,11 +1646,17 @@ def _trial_count(fam: _Family, n: int) -> int:
     return max(int(3 ** len(fam.coords)) - 1, 1)
 
 
+@functools.lru_cache(maxsize=256)
+def _is_builtin(name: str, formula: str | None) -> bool:
+    # the check parses the formula (about a millisecond): once per model, not once per call
+    return find_builtin(name, formula) is not None
+
+
 def _family_of(model: Model) -> _Family | None:
     fam = _FAMILIES.get(model.name)
     if fam is None or model.expr is None:
         return None
-    if find_builtin(model.name, model.formula) is None:
+    if not _is_builtin(model.name, model.formula):
         return None  # a user's model that only borrows a catalog name
     wanted = fam.linear if fam.native is not None else (*fam.linear, *fam.coords)
     if any(n not in model.param_names for n in wanted):
