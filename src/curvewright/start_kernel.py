@@ -233,14 +233,24 @@ def _dose_starts(
         USABLE[gi] = fine and k >= 2 and xhi > xlo and xlo >= 0.0
         if not USABLE[gi]:
             continue
-        for a in range(1, k):
-            o = order[a]
-            key = X[gi, o]
-            b = a - 1
-            while b >= 0 and X[gi, order[b]] > key:
-                order[b + 1] = order[b]
-                b -= 1
-            order[b + 1] = o
+        if k > 32:
+            # a long row out of order: numba's stable sort (an insertion sort is quadratic)
+            for j in range(k):
+                xs[j] = X[gi, order[j]]
+            srt = np.argsort(xs[:k], kind="mergesort")
+            for j in range(k):
+                pid[j] = order[srt[j]]
+            for j in range(k):
+                order[j] = pid[j]
+        else:
+            for a in range(1, k):
+                o = order[a]
+                key = X[gi, o]
+                b = a - 1
+                while b >= 0 and X[gi, order[b]] > key:
+                    order[b + 1] = order[b]
+                    b -= 1
+                order[b + 1] = o
         n = float(k)
         sy = 0.0
         syy = 0.0
