@@ -201,6 +201,7 @@ LAYERS: dict[str, tuple[str, ...]] = {
         "curvewright.start",
         "curvewright.catalog",
         "curvewright.start_batch",
+        "curvewright.start_kernel",
     ),
     "result": ("curvewright.result", "curvewright.global_result", "curvewright.batch_result"),
     "fit": (

@@ -16,10 +16,13 @@ the caller then uses the per-curve :func:`curvewright.start.guided_start` for it
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from itertools import product
+from types import ModuleType
+from typing import Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -38,6 +41,9 @@ _LN10 = math.log(10.0)
 #: Elements of one (groups x trials x points) block: small enough to stay in cache, large
 #: enough that the per-block array calls do not dominate.
 _BLOCK = 1 << 18
+#: A line's spread of t below this share of the sum of t**2 is rounding (a few ulp of t), not
+#: data; also read by the compiled search (start_kernel).
+_FLAT = 1e-20
 
 
 # ============================================================================ bounds
@@ -221,7 +227,10 @@ def _ols(t: FloatArray, z: FloatArray, use: FloatArray) -> tuple[FloatArray, Flo
         sxx = np.sum(dt * dt, axis=1)
         b = np.sum(dt * (z - zm[:, None]), axis=1) / np.where(sxx > 0, sxx, 1.0)
         a = zm - b * tm
-    ok = (k >= 2) & (sxx > 0) & np.isfinite(a) & np.isfinite(b)
+        # t all one value but for rounding (replicates of one x): no line; the rounding of
+        # ``log10`` (numpy's, libm's) would otherwise decide whether a slope comes out
+        spread = sxx > _FLAT * np.sum(t * t * use, axis=1)
+    ok = (k >= 2) & (sxx > 0) & spread & np.isfinite(a) & np.isfinite(b)
     return a, b, ok
 
 
@@ -369,6 +378,12 @@ class _Family:
     max_scale: float = 4.0
 
 
+#: The dose families' first grid (also read by the compiled search, start_kernel): fractions
+#: of the log x range for the mid-point (n_h 1 on it), and the 5PL's asymmetries.
+_DOSE_MID_GRID = np.linspace(-0.2, 1.2, 3)
+_DOSE_G_GRID = np.array([0.1, 0.4, 2.5, 10.0])
+
+
 def _dose_trials(mid: str, kind: str, asymmetry: bool) -> Callable[[_Block], Values]:
     def trials(b: _Block) -> Values:
         g = b.g
@@ -385,12 +400,12 @@ def _dose_trials(mid: str, kind: str, asymmetry: bool) -> Callable[[_Block], Val
         lmin, lmax = _log_range_clipped(b)
         seeds: Values = {mid: np.column_stack([m0, cross]), "n_h": np.column_stack([nh0, nh0])}
         grid_axes = {
-            mid: lmin[:, None] + (lmax - lmin)[:, None] * np.linspace(-0.2, 1.2, 3)[None, :],
+            mid: lmin[:, None] + (lmax - lmin)[:, None] * _DOSE_MID_GRID[None, :],
             "n_h": _row([1.0], g),
         }
         if asymmetry:
             seeds["g"] = np.ones((g, 2))
-            grid_axes["g"] = _row([0.1, 0.4, 2.5, 10.0], g)
+            grid_axes["g"] = _row(_DOSE_G_GRID, g)
         return _join(seeds, _grid(grid_axes))
 
     return trials
@@ -1104,11 +1119,11 @@ class _Search:
         s = np.broadcast_to(s, (g, s.shape[1], n))
         with np.errstate(all="ignore"):
             # einsum over the short point axis: several times faster than sum(axis=2) here
-            if b.padded:
-                sss = np.einsum("gcn,gcn,gn->gc", s, s, b.w)
-            else:
-                sss = np.einsum("gcn,gcn->gc", s, s)
             if self.fam.affine is None:
+                if b.padded:
+                    sss = np.einsum("gcn,gcn,gn->gc", s, s, b.w)
+                else:
+                    sss = np.einsum("gcn,gcn->gc", s, s)
                 ssy = np.einsum("gcn,gn->gc", s, b.y)  # padding has y = 0
                 name = self.free_linear[0]
                 j = b.col(name)
@@ -1117,13 +1132,25 @@ class _Search:
                 out[name] = c
                 good = sss > 0
             else:
-                ss = np.einsum("gcn,gn->gc", s, b.w)
-                ssy = np.einsum("gcn,gn->gc", s, b.yc)  # centred y, 0 in the padding
-                var = sss - ss * ss / b.n[:, None]
+                # s less its value at the first point: a trial curve nearly flat over the data
+                # (its feature far off) keeps its small variance, which the sums of s itself
+                # lose to cancellation (then rounding, not the data, would rank such trials)
+                s0 = s[:, :, :1]
+                d = s - s0
+                s0 = s0[:, :, 0]
+                if b.padded:
+                    sdd = np.einsum("gcn,gcn,gn->gc", d, d, b.w)
+                else:
+                    sdd = np.einsum("gcn,gcn->gc", d, d)
+                sd = np.einsum("gcn,gn->gc", d, b.w)
+                ssy = np.einsum("gcn,gn->gc", d, b.yc)  # centred y, 0 in the padding
+                n = b.n[:, None]
+                var = sdd - sd * sd / n
                 c = ssy / var
-                a = b.ybar[:, None] - c * ss / b.n[:, None]
+                a = b.ybar[:, None] - c * (sd / n + s0)
                 ssr = b.syyc[:, None] - c * ssy
                 out.update(self.fam.affine(a, c))
+                sss = sdd + s0 * (2.0 * sd + n * s0)  # the sum of s**2
                 good = var > 1e-12 * sss
         ssr = np.where(good & np.isfinite(ssr), np.maximum(ssr, 0.0), np.inf)
         return out, ssr
@@ -1380,6 +1407,8 @@ def guided_starts(
     fixed: Mapping[str, float | FloatArray] | None = None,
     lower: FloatArray | None = None,
     upper: FloatArray | None = None,
+    *,
+    kernel: Literal["auto", "compiled", "numpy"] = "auto",
 ) -> tuple[FloatArray, NDArray[np.bool_]]:
     """Data-driven starting values for every group of a padded batch, in array operations.
 
@@ -1399,6 +1428,15 @@ def guided_starts(
     lower, upper : ndarray, shape (P,) or (G, P), optional
         Bounds in ``model.param_names`` order (default: the model's); starts are moved inside
         them by the rule of :func:`curvewright.parameters.move_inside`.
+    kernel : {"auto", "compiled", "numpy"}, optional
+        ``"compiled"`` runs the dose-response models' search (4PL, 5PL, 3PL) one group at a
+        time in code compiled by numba (:mod:`curvewright.start_kernel`), several times faster;
+        ``"numpy"`` runs every model in numpy array operations over blocks of groups (the
+        reference: for the 4PL and 3PL both give the same starts to rounding; the 5PL's long
+        search parts ways in a few groups in a hundred, to starts of similar residuals);
+        ``"auto"`` (default) takes the compiled search for the 4PL and 3PL where numba is
+        installed and the case is one it serves (no fixed level, unbounded levels but the
+        3PL's), else numpy.
 
     Returns
     -------
@@ -1418,8 +1456,13 @@ def guided_starts(
         x, y and mask are not 2-d arrays of one shape, or the mask is not boolean.
     ParameterError
         ``fixed`` names an unknown parameter or gives a non-finite value; bounds of the wrong
-        shape, NaN, or a lower bound above the upper one.
+        shape, NaN, or a lower bound above the upper one; ``kernel="compiled"`` for a case
+        the compiled search does not serve, or without numba.
     """
+    if kernel not in ("auto", "compiled", "numpy"):
+        raise ParameterError(
+            f"guided_starts: kernel must be 'auto', 'compiled' or 'numpy', got {kernel!r}."
+        )
     xa, ya, ma = _checked(model, x, y, mask)
     G, N = xa.shape
     names = model.param_names
@@ -1438,7 +1481,26 @@ def guided_starts(
     ok = np.zeros(G, dtype=bool)
     fam = _family_of(model)
     if fam is not None and (fam.allows_fixed or not held) and G and N:
-        use = np.nonzero(_usable(model, xa, ya, ma))[0]
+        compiled = None
+        if kernel == "compiled" or (kernel == "auto" and model.name not in _DOSE_ASK):
+            compiled = _compiled_dose(model, fam, xa, ya, ma, lo, hi, held)
+            if compiled is None and kernel == "compiled":
+                raise ParameterError(
+                    f"guided_starts: kernel='compiled' serves the dose-response models "
+                    f"{sorted(_DOSE_KERNEL)} with numba installed, no fixed level and (but for "
+                    f"the 3PL) unbounded levels; use kernel='auto' for {model.name!r} here."
+                )
+        if compiled is not None:
+            vals_c, ssr_c, size_c, usable = compiled
+            good = usable & np.isfinite(ssr_c)
+            for n in fam.linear:
+                good &= np.abs(vals_c[:, names.index(n)]) <= size_c
+            good &= np.all(np.isfinite(vals_c), axis=1)
+            starts[usable] = vals_c[usable]
+            ok = good
+            use = np.zeros(0, dtype=np.intp)
+        else:
+            use = np.nonzero(_usable(model, xa, ya, ma))[0]
         C = _trial_count(fam, N)
         step = max(1, _BLOCK // max(1, C * N))
         for s in range(0, use.size, step):
@@ -1468,6 +1530,105 @@ def guided_starts(
     return starts, ok
 
 
+#: The dose-response models the compiled search serves: (curve kind, asymmetry); kind 0 is
+#: ``(x/c50)**n_h`` with both levels, 1 the 3PL's ``(c50/x)**n_h`` with one.
+_DOSE_KERNEL: dict[str, tuple[int, bool]] = {
+    "inhibition_4pl": (0, False),
+    "stimulation_4pl": (0, False),
+    "inhibition_5pl": (0, True),
+    "stimulation_5pl": (0, True),
+    "stimulation_3pl": (1, False),
+}
+
+
+#: Served on request only: the 5PL's 20 refinement rounds walk flat valleys (its asymmetry
+#: against the steepness), where trials differ by rounding, so the compiled and the numpy
+#: search part ways in a few groups in a hundred (measured on tests/start_batch_cases.py data),
+#: to starts of similar residuals. The 4PL and 3PL agree but for rounding.
+_DOSE_ASK = frozenset({"inhibition_5pl", "stimulation_5pl"})
+
+
+@functools.cache
+def _start_kernel() -> ModuleType | None:
+    """:mod:`curvewright.start_kernel`, or None without numba."""
+    try:
+        from . import start_kernel
+    except ImportError:
+        return None
+    return start_kernel
+
+
+def _compiled_dose(
+    model: Model,
+    fam: _Family,
+    x: FloatArray,
+    y: FloatArray,
+    m: BoolArray,
+    lo: FloatArray,
+    hi: FloatArray,
+    held: Values,
+) -> tuple[FloatArray, FloatArray, FloatArray, BoolArray] | None:
+    """The compiled search's values (P columns), ssr, level bound and usable groups.
+
+    None where it does not serve the case (the numpy path then runs): numba missing, another
+    model, a fixed level, or (but for the 3PL, whose one level is clipped) a bounded level,
+    where the numpy path solves the levels with their bounds.
+    """
+    spec = _DOSE_KERNEL.get(model.name)
+    mod = _start_kernel() if spec is not None else None
+    if spec is None or mod is None or model.domain != "x>=0":
+        return None
+    if any(n in held for n in fam.linear):
+        return None
+    names = model.param_names
+    kind, asym = spec
+    jl = [names.index(n) for n in fam.linear]
+    if fam.affine is not None and not (np.all(np.isinf(lo[:, jl])) and np.all(np.isinf(hi[:, jl]))):
+        return None
+    coords = fam.coords
+    free = [n for n in coords if n not in held]
+    offs = np.array([o for o in product((-1.0, 0.0, 1.0), repeat=len(free)) if any(o)])
+    offs = offs.reshape(-1, len(free)) if free else np.zeros((0, 1))
+    cols = [names.index(n) for n in coords] + ([] if asym else [-1])
+    cols += [-1, jl[0]] if len(jl) == 1 else jl
+    G, P = lo.shape
+    hv = np.zeros((G, P))
+    is_held = np.zeros(P, dtype=bool)
+    for n, v in held.items():
+        hv[:, names.index(n)] = v
+        is_held[names.index(n)] = True
+    params = model.params
+    try:
+        out: tuple[FloatArray, FloatArray, FloatArray, BoolArray] = mod.dose_starts(
+            np.ascontiguousarray(x),
+            np.ascontiguousarray(y),
+            np.ascontiguousarray(m),
+            lo,
+            hi,
+            hv,
+            is_held,
+            kind,
+            asym,
+            np.array(cols, dtype=np.intp),
+            (
+                np.array([p.value for p in params], dtype=float),
+                np.array([p.lower for p in params], dtype=float),
+                np.array([p.positive or p.log_scale for p in params], dtype=bool),
+            ),
+            (_DOSE_MID_GRID, _DOSE_G_GRID),
+            (
+                np.array([fam.steps[n] for n in free], dtype=float),
+                offs,
+                fam.rounds,
+                fam.max_scale,
+                _FLAT,
+            ),
+        )
+    except Exception:  # numba's compile errors come at the first call, of many types
+        return None
+    return out
+
+
 def _inside(model: Model, starts: FloatArray, lo: FloatArray, hi: FloatArray) -> FloatArray:
     """Starts inside their bounds (as start._clip_into_bounds: non-finite -> default, etc.)."""
     out = starts.copy()
@@ -1485,11 +1646,17 @@ def _trial_count(fam: _Family, n: int) -> int:
     return max(int(3 ** len(fam.coords)) - 1, 1)
 
 
+@functools.lru_cache(maxsize=256)
+def _is_builtin(name: str, formula: str | None) -> bool:
+    # the check parses the formula (about a millisecond): once per model, not once per call
+    return find_builtin(name, formula) is not None
+
+
 def _family_of(model: Model) -> _Family | None:
     fam = _FAMILIES.get(model.name)
     if fam is None or model.expr is None:
         return None
-    if find_builtin(model.name, model.formula) is None:
+    if not _is_builtin(model.name, model.formula):
         return None  # a user's model that only borrows a catalog name
     wanted = fam.linear if fam.native is not None else (*fam.linear, *fam.coords)
     if any(n not in model.param_names for n in wanted):
