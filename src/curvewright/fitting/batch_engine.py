@@ -841,6 +841,19 @@ def _x_spans(prob: BatchProblem, where: str) -> FloatArray:
     return span
 
 
+def _kernel_inputs(prob: BatchProblem, vals: FloatArray) -> tuple[NDArray[Any], ...]:
+    """``X, Y, W, M, TH, LO, HI`` as the compiled kernels take them, C-contiguous.
+
+    ``W`` is 1 everywhere without weights.
+    """
+    wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
+    pairs = (
+        (prob.x, float), (prob.y, float), (wt, float), (prob.mask, np.bool_), (vals, float),
+        (prob.lower, float), (prob.upper, float),
+    )  # fmt: skip
+    return tuple(np.ascontiguousarray(a, dtype=t) for a, t in pairs)
+
+
 def _weighted_jacobian(prob: BatchProblem, vals: FloatArray) -> FloatArray:
     """``w * df/dp`` at ``vals``, shape (G, N, P), 0 outside the mask (non-finite kept).
 
@@ -849,20 +862,13 @@ def _weighted_jacobian(prob: BatchProblem, vals: FloatArray) -> FloatArray:
     """
     G, N = prob.x.shape
     P = vals.shape[1]
-    wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
     run = jacobian_kernel_for(prob.model) if G else None
     if run is not None:
         jw = np.empty((G, N, P))
         try:
             with np.errstate(all="ignore"):
                 run(
-                    np.ascontiguousarray(prob.x, dtype=float),
-                    np.ascontiguousarray(prob.y, dtype=float),
-                    np.ascontiguousarray(wt, dtype=float),
-                    np.ascontiguousarray(prob.mask, dtype=np.bool_),
-                    np.ascontiguousarray(vals, dtype=float),
-                    np.ascontiguousarray(prob.lower, dtype=float),
-                    np.ascontiguousarray(prob.upper, dtype=float),
+                    *_kernel_inputs(prob, vals),
                     jw,
                     np.empty((G, N)),
                     np.empty(G),
@@ -877,7 +883,9 @@ def _weighted_jacobian(prob: BatchProblem, vals: FloatArray) -> FloatArray:
         f, jac = _evaluate(grad, prob.x, vals, P)
         _patch_jacobian(prob.model, prob.x, vals, f, jac, prob.lower, prob.upper, prob.mask)
         out: FloatArray = np.where(
-            prob.mask[:, :, None], (jac * wt[:, None, :]).transpose(0, 2, 1), 0.0
+            prob.mask[:, :, None],
+            (jac if prob.sw is None else jac * prob.sw[:, None, :]).transpose(0, 2, 1),
+            0.0,
         )
     return out
 
@@ -948,20 +956,13 @@ def _compiled_inverse(
     invert = symmetric_inverse_for(prob.model) if normals is not None else None
     if normals is None or invert is None:
         return None
-    wt = np.ones_like(prob.x) if prob.sw is None else prob.sw
     norms, mat, ok = np.zeros((G, p)), np.zeros((G, p, p)), np.zeros(G, dtype=np.bool_)
     support = np.zeros((G, p))
     inv, lmin, lmax = np.zeros((G, p, p)), np.zeros(G), np.zeros(G)
     try:
         with np.errstate(all="ignore"):
             normals(
-                np.ascontiguousarray(prob.x, dtype=float),
-                np.ascontiguousarray(prob.y, dtype=float),
-                np.ascontiguousarray(wt, dtype=float),
-                np.ascontiguousarray(prob.mask, dtype=np.bool_),
-                np.ascontiguousarray(vals, dtype=float),
-                np.ascontiguousarray(prob.lower, dtype=float),
-                np.ascontiguousarray(prob.upper, dtype=float),
+                *_kernel_inputs(prob, vals),
                 np.ascontiguousarray(fi, dtype=np.int64),
                 norms,
                 mat,
