@@ -160,7 +160,10 @@ def test_padded_values_never_change_the_start(
     np.testing.assert_allclose(padded[0], dense[0], rtol=1e-9, atol=1e-12)
 
 
-def test_groups_the_batched_rule_cannot_serve_are_marked() -> None:
+@pytest.mark.parametrize("kernel", ["compiled", "numpy"])
+def test_groups_the_batched_rule_cannot_serve_are_marked(kernel: str) -> None:
+    # both searches (start_kernel's compiled one and numpy's) refuse the same groups, and give
+    # those the same defaults, moved inside the bounds
     m = catalog()["inhibition_4pl"]
     x = np.tile(10.0 ** np.linspace(-9, -4, 8), (5, 1))
     y = m.eval(x, {"zero_dose": 100.0, "full_effect": 0.0, "log_ic50": -6.5, "n_h": 1.0})
@@ -169,9 +172,12 @@ def test_groups_the_batched_rule_cannot_serve_are_marked() -> None:
     mask[2, 1:] = False  # one point
     x[3, 0] = -1.0  # outside the model's domain x >= 0
     x[4] = 1e-6  # a single distinct x
-    starts, ok = guided_starts(m, x, y, mask)
+    starts, ok = guided_starts(m, x, y, mask, kernel=kernel)
     assert ok.tolist() == [True, False, False, False, False]
     assert np.all(np.isfinite(starts))
+    other_kernel = "numpy" if kernel == "compiled" else "compiled"
+    again, _ = guided_starts(m, x, y, mask, kernel=other_kernel)
+    assert np.array_equal(starts[1:], again[1:])
     # a model without a batched rule, and one that only borrows a catalog name
     for other in (
         Model.from_formula("a*exp(-b*x) + c"),

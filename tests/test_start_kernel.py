@@ -172,21 +172,6 @@ def test_a_group_s_start_is_its_own_bit_for_bit() -> None:
         assert np.array_equal(alone[0], whole[g])
 
 
-def test_groups_it_cannot_serve_are_marked_as_by_numpy() -> None:
-    m = model_of("inhibition_4pl")
-    x = np.tile(10.0 ** np.linspace(-9, -4, 8), (5, 1))
-    y = m.eval(x, {"zero_dose": 100.0, "full_effect": 0.0, "log_ic50": -6.5, "n_h": 1.0})
-    mask = np.ones_like(x, dtype=bool)
-    y[1, 3] = np.nan  # a real point that is not finite
-    mask[2, 1:] = False  # one point
-    x[3, 0] = -1.0  # outside the model's domain x >= 0
-    x[4] = 1e-6  # a single distinct x
-    a, oka = guided_starts(m, x, y, mask, kernel="compiled")
-    n, okn = guided_starts(m, x, y, mask, kernel="numpy")
-    assert oka.tolist() == okn.tolist() == [True, False, False, False, False]
-    assert np.array_equal(a[1:], n[1:])  # the defaults, moved inside the bounds
-
-
 def test_a_fixed_or_bounded_level_goes_to_numpy() -> None:
     b = make_batch("inhibition_4pl", 6, seed=3)
     m = b.model

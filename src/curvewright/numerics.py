@@ -1,9 +1,10 @@
 """Numeric pieces shared by the fitting core and the statistics layer.
 
 Information criteria (AIC, AICc, BIC) from a residual sum of squares, one convention for all,
-central-difference Jacobians (for models given as Python functions), and the Jacobian of a curve
+central-difference Jacobians (for models given as Python functions), the Jacobian of a curve
 over the free parameters (analytic through links, or by differences), used by the fit and by the
-bands alike.
+bands alike, and how many points carry each Jacobian column (the single and the batch fits'
+thin-support check).
 
 The convention, used by every fit curvewright reports (linear, polynomial and nonlinear), is the
 Gaussian log-likelihood with the residual variance estimated by maximum likelihood and the
@@ -32,7 +33,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from curvewright.errors import DataError
 
-__all__ = ["aic", "aicc", "bic", "finite_difference_jacobian", "free_jacobian"]
+__all__ = ["aic", "aicc", "bic", "column_support", "finite_difference_jacobian", "free_jacobian"]
 
 FloatArray = NDArray[np.float64]
 
@@ -199,3 +200,25 @@ def free_jacobian(
         fd = finite_difference_jacobian(curve, theta, lower=lower, upper=upper)
         J[bad] = np.where(np.isfinite(fd[bad]), fd[bad], 0.0)
     return J
+
+
+def column_support(jw: FloatArray) -> FloatArray:
+    """How many points carry each column: ``(sum J**2)**2 / sum J**4`` over the point axis.
+
+    The participation ratio: 1 when one point carries all of a column, k when k points carry
+    it alike, 0 for a zero column (and for one that is not finite). ``jw`` is ``(N, p)``, or
+    ``(..., N, p)`` for many groups at once (the points on the second-to-last axis).
+    """
+    with np.errstate(all="ignore"):
+        sq = jw * jw
+        s2 = sq.sum(axis=-2)
+        fast: FloatArray = s2 * s2 / (sq * sq).sum(axis=-2)
+        if np.all(np.isfinite(fast)):
+            return fast  # few numpy calls: this runs after every fit
+        # scaled by the column's largest entry first, so that J**4 neither overflows nor
+        # underflows
+        a = np.abs(jw) / np.max(np.abs(jw), axis=-2, keepdims=True)
+        s2 = np.sum(a * a, axis=-2)
+        support = np.where(s2 > 0, s2 * s2 / np.sum(a**4, axis=-2), 0.0)
+    out: FloatArray = np.where(np.isfinite(support), support, 0.0)
+    return out

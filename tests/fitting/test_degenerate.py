@@ -291,14 +291,14 @@ def test_a_start_thinner_than_the_spacing_is_suspect(hwhm: float) -> None:
 
 def test_support_of_a_column_counts_the_points_that_carry_it() -> None:
     # The participation ratio by hand: one point carries a column -> 1; k points alike -> k.
-    from curvewright.fitting.assemble import _column_support
+    from curvewright.numerics import column_support
 
     J = np.zeros((40, 4))
     J[:, 0] = 1.0  # every point alike: 40
     J[3, 1] = -2.0  # one point: 1
     J[[5, 6], 2] = 1e-200  # two points alike, tiny: 2
     # nothing: 0
-    assert _column_support(J).tolist() == pytest.approx([40.0, 1.0, 2.0, 0.0], rel=1e-12)
+    assert column_support(J).tolist() == pytest.approx([40.0, 1.0, 2.0, 0.0], rel=1e-12)
 
 
 def test_a_steep_step_is_not_a_thin_feature() -> None:

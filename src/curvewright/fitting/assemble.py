@@ -20,6 +20,7 @@ from ..inference import correlated_pairs, correlation_matrix, delta_method_varia
 from ..messages import outcome
 from ..numerics import aicc as _aicc
 from ..numerics import bic as _bic
+from ..numerics import column_support
 from ..result import Attempt, Diagnostic, FitResult
 from ..start import location_parameters, x_span
 from ..thresholds import (
@@ -308,26 +309,6 @@ class _Degeneracy:
         return tuple(dict.fromkeys(n for n, _, _ in (*self.runaway, *self.undetermined)))
 
 
-def _column_support(jw: FloatArray) -> FloatArray:
-    """How many points carry each column: ``(sum J**2)**2 / sum J**4`` (0 for a zero column).
-
-    The participation ratio: 1 when one point carries all of a column, k when k points carry
-    it alike.
-    """
-    with np.errstate(all="ignore"):
-        sq = jw * jw
-        s2 = sq.sum(axis=0)
-        fast: FloatArray = s2 * s2 / (sq * sq).sum(axis=0)
-        if np.all(np.isfinite(fast)):
-            return fast  # few numpy calls: this runs after every fit
-        # scaled by the column's largest entry first, so that J**4 neither overflows nor
-        # underflows
-        a = np.abs(jw) / np.max(np.abs(jw), axis=0)
-        s2 = np.sum(a * a, axis=0)
-        support = np.where(s2 > 0, s2 * s2 / np.sum(a**4, axis=0), 0.0)
-    return np.where(np.isfinite(support), support, 0.0)
-
-
 def _thin_support(
     prob: _Problem, theta: FloatArray, jw: FloatArray
 ) -> tuple[tuple[str, float], ...]:
@@ -335,14 +316,14 @@ def _thin_support(
 
     A parameter the curve is linear in (an amplitude: its column does not change with it)
     whose column is carried by fewer than :data:`~curvewright.thresholds.THIN_SUPPORT`
-    points (:func:`_column_support`): the whole feature it scales touches about one point. A
-    steep step has thin columns for its position and slope but wide ones for its levels, and
-    is not reported. Returns ``(name, support)`` of each such amplitude; the linearity test
-    (one more Jacobian) is made only when some column is thin.
+    points (:func:`~curvewright.numerics.column_support`): the whole feature it scales
+    touches about one point. A steep step has thin columns for its position and slope but
+    wide ones for its levels, and is not reported. Returns ``(name, support)`` of each such
+    amplitude; the linearity test (one more Jacobian) is made only when some column is thin.
     """
     if jw.size == 0 or not np.all(np.isfinite(jw)):
         return ()
-    support = _column_support(jw)
+    support = column_support(jw)
     thin = np.flatnonzero(support < THIN_SUPPORT)
     if thin.size == 0:
         return ()

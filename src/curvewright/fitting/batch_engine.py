@@ -74,6 +74,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..errors import DataError, ModelError, ParameterError
 from ..inference import quantile
 from ..models import Model
+from ..numerics import column_support
 from ..result import _power_of
 from ..start import location_parameters
 from ..thresholds import HIGH_CORRELATION, NEAR_SINGULAR, NOT_IDENTIFIED_RSE
@@ -923,20 +924,43 @@ def _scaled_inverse(a: FloatArray, n: IntArray) -> tuple[FloatArray, FloatArray,
 
 
 def _supports(jw: FloatArray) -> FloatArray:
-    """How many points carry each column of ``jw`` (g, N, p): the single fit's rule, per group.
+    """How many points carry each group's columns of ``jw`` (g, N, p).
 
-    ``(sum J**2)**2 / sum J**4`` of each column scaled by its largest entry (so that J**4
-    neither overflows nor underflows); 0 for a zero column, NaN for one that is not finite.
+    :func:`~curvewright.numerics.column_support`, with NaN (not judged) for a column that is
+    not finite, as the single fit does.
     """
-    with np.errstate(all="ignore"):
-        big = np.max(np.abs(jw), axis=1, keepdims=True)
-        u = np.where(big > 0, jw / np.where(big > 0, big, 1.0), 0.0)
-        sq = u * u
-        s2 = sq.sum(axis=1)
-        s4 = (sq * sq).sum(axis=1)
-        out: FloatArray = np.where(s4 > 0, s2 * s2 / np.where(s4 > 0, s4, 1.0), 0.0)
+    out = column_support(jw)
     out[~np.all(np.isfinite(jw), axis=1)] = np.nan
     return out
+
+
+def _compiled_normals(
+    prob: BatchProblem, vals: FloatArray, fi: NDArray[np.intp]
+) -> tuple[FloatArray, FloatArray, BoolArray, FloatArray] | None:
+    """The compiled ``normals`` kernel at ``vals``: ``(norms, mat, ok, support)``, or None.
+
+    See :func:`~.batch_kernel.normals_kernel_for`; None without numba, or where it refuses
+    the model.
+    """
+    G, p = vals.shape[0], fi.size
+    normals = normals_kernel_for(prob.model) if G else None
+    if normals is None:
+        return None
+    norms, mat, ok = np.zeros((G, p)), np.zeros((G, p, p)), np.zeros(G, dtype=np.bool_)
+    support = np.zeros((G, p))
+    try:
+        with np.errstate(all="ignore"):
+            normals(
+                *_kernel_inputs(prob, vals),
+                np.ascontiguousarray(fi, dtype=np.int64),
+                norms,
+                mat,
+                ok,
+                support,
+            )
+    except Exception:  # numba refused the model at its first call: numpy instead
+        return None
+    return norms, mat, ok, support
 
 
 def _compiled_inverse(
@@ -950,27 +974,17 @@ def _compiled_inverse(
     (its fast branch, to about ``eps * _EIG_COND**2`` relative). ``support`` (G, p), for every
     group, is :func:`_supports` of the free columns. None without numba.
     """
-    G = vals.shape[0]
-    p = fi.size
-    normals = normals_kernel_for(prob.model) if G else None
-    invert = symmetric_inverse_for(prob.model) if normals is not None else None
-    if normals is None or invert is None:
+    G, p = vals.shape[0], fi.size
+    invert = symmetric_inverse_for(prob.model) if G else None
+    built = _compiled_normals(prob, vals, fi) if invert is not None else None
+    if invert is None or built is None:
         return None
-    norms, mat, ok = np.zeros((G, p)), np.zeros((G, p, p)), np.zeros(G, dtype=np.bool_)
-    support = np.zeros((G, p))
+    norms, mat, ok, support = built
     inv, lmin, lmax = np.zeros((G, p, p)), np.zeros(G), np.zeros(G)
     try:
         with np.errstate(all="ignore"):
-            normals(
-                *_kernel_inputs(prob, vals),
-                np.ascontiguousarray(fi, dtype=np.int64),
-                norms,
-                mat,
-                ok,
-                support,
-            )
             invert(mat, inv, lmin, lmax)
-    except Exception:  # numba refused the model at its first call: numpy instead
+    except Exception:  # numba refused the kernel at its first call: numpy instead
         return None
     with np.errstate(divide="ignore", invalid="ignore"):
         done = ok & (lmin > lmax / _EIG_COND**2) & (lmin > 0)
@@ -988,9 +1002,9 @@ def batch_support(problem: BatchProblem, values: FloatArray) -> FloatArray:
     out = np.full(values.shape, np.nan)
     if not fi.size or not values.shape[0]:
         return out
-    fast = _compiled_inverse(problem, values, fi)
-    if fast is not None:
-        out[:, fi] = fast[4]
+    built = _compiled_normals(problem, values, fi)
+    if built is not None:
+        out[:, fi] = built[3]
     else:
         out[:, fi] = _supports(_weighted_jacobian(problem, values)[:, :, fi])
     return out

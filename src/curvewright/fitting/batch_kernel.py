@@ -262,7 +262,7 @@ def normals_kernel_for(model: Model) -> Callable[..., None] | None:
     arrays: fills ``NORMS`` (G, p) with the norms of the weighted Jacobian's free columns
     ``FI``, ``MAT`` (G, p, p) with ``A'A`` of the column-scaled Jacobian ``A``, ``OK`` (G,)
     where all of it is finite and no free column is zero, and ``SUPPORT`` (G, p) with how many
-    points carry each column (``assemble._column_support``). Nothing of shape (G, N, P) is
+    points carry each column (``numerics.column_support``). Nothing of shape (G, N, P) is
     made.
     """
     return _kernel(model, "normals")
@@ -411,7 +411,7 @@ def normals(X, Y, W, M, TH, LO, HI, FI, NORMS, MAT, OK, SUPPORT):
     # Jacobian at TH (evaluate's patching), the norms of its free columns FI, and A'A of the
     # column-scaled A in MAT; OK where every entry is finite and no free column is 0.
     # SUPPORT: how many points carry each column, (sum J**2)**2 / sum J**4 of the column
-    # scaled by its largest entry (assemble._column_support), 0 for a zero column.
+    # scaled by its largest entry (numerics.column_support), 0 for a zero column.
     G = X.shape[0]
     N = X.shape[1]
     P = TH.shape[1]

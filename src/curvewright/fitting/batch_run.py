@@ -10,6 +10,7 @@ with a status, a reason and its path; :func:`run_table` is the same on a table o
 
 from __future__ import annotations
 
+import functools
 import math
 import time
 from collections.abc import Callable, Mapping, Sequence
@@ -23,6 +24,7 @@ from numpy.typing import NDArray
 from ..batch_result import BatchResult, register_fit_row, register_group_fit, start_records
 from ..data import Dataset, Groups, labels_of, plain_key, split_groups
 from ..errors import CurvewrightError, DataError, ParameterError
+from ..expr import parse
 from ..inference import quantile
 from ..models import Model
 from ..parameters import Parameters
@@ -480,8 +482,15 @@ def _fit_group(
 def _amplitudes(model: Model) -> NDArray[np.bool_]:
     """The parameters the formula is linear in: its derivative in them does not hold them."""
     assert model.expr is not None  # the batch engine takes formula models only
-    expr = model.expr
-    return np.array([n not in expr.derivative(n).names for n in model.param_names], dtype=bool)
+    return np.array(_linear_in(model.expr.text, model.param_names), dtype=bool)
+
+
+@functools.lru_cache(maxsize=64)
+def _linear_in(formula: str, names: tuple[str, ...]) -> tuple[bool, ...]:
+    # symbolic differentiation costs a fraction of a millisecond: once per formula, not per
+    # chunk of every batch
+    expr = parse(formula)
+    return tuple(n not in expr.derivative(n).names for n in names)
 
 
 def _thin_amplitudes(model: Model, support: FloatArray) -> NDArray[np.bool_]:
